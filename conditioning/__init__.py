@@ -1,0 +1,39 @@
+"""conditioning: can the stiffness matrix of a finite element model be trusted?
+
+Public API::
+
+    model = conditioning.load_model("deck.mtx", dofs="deck_dofs.csv", coords=...)
+    report = conditioning.diagnose(model)
+
+See README.md for the command line.
+"""
+
+from conditioning.errors import ConditioningError, InputError
+from conditioning.model import DOF_NAMES, Coordinates, DofTable, Model
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "ConditioningError",
+    "InputError",
+    "Model",
+    "DofTable",
+    "Coordinates",
+    "DOF_NAMES",
+    "load_model",
+    "diagnose",
+]
+
+
+def load_model(*args, **kwargs):
+    """Read a stiffness export and its context; see :func:`conditioning.inputs.load_model`."""
+    from conditioning.inputs import load_model as _load_model
+
+    return _load_model(*args, **kwargs)
+
+
+def diagnose(*args, **kwargs):
+    """Run the whole diagnosis; see :func:`conditioning.api.diagnose`."""
+    from conditioning.api import diagnose as _diagnose
+
+    return _diagnose(*args, **kwargs)

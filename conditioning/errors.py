@@ -1,0 +1,30 @@
+"""Errors raised for input the tool cannot use.
+
+Numerical outcomes (a singular matrix, a refinement that does not converge)
+are results, never errors. Only input that cannot be read or does not fit
+together raises, and always a subclass of :class:`ConditioningError`, whose
+``str`` is the one-line message the command prints before exiting with 2.
+"""
+
+from __future__ import annotations
+
+
+class ConditioningError(ValueError):
+    """Base class of every error the tool raises on purpose."""
+
+
+class InputError(ConditioningError):
+    """A user-supplied file cannot be used.
+
+    Parameters
+    ----------
+    path : str
+        The file as the user named it.
+    problem : str
+        What is wrong, in one line, with the line or row where it applies.
+    """
+
+    def __init__(self, path: str, problem: str):
+        self.path = str(path)
+        self.problem = " ".join(str(problem).split())
+        super().__init__(f"{self.path}: {self.problem}")

@@ -1,0 +1,307 @@
+"""Typed results of every stage, and the report that gathers them.
+
+Each stage returns one frozen dataclass defined here. Fields are documented
+where declared, with units; every figure carries how it was obtained
+(``method``). Renderers read these objects and never compute.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Literal, Optional
+
+import numpy as np
+from numpy.typing import NDArray
+
+Severity = Literal["error", "warning", "note"]
+ModeKind = Literal["rigid-body", "mechanism", "dof-without-stiffness"]
+
+
+# --------------------------------------------------------------- structure
+@dataclass(frozen=True)
+class Asymmetry:
+    relative: float
+    """max |K_ij - K_ji| / max |K_ij| over stored entries (dimensionless)."""
+    row: int
+    """0-based row of the worst pair (-1 when symmetric)."""
+    col: int
+    """0-based column of the worst pair (-1 when symmetric)."""
+
+
+@dataclass(frozen=True)
+class StructureResult:
+    """Checks on the matrix that need no factorization."""
+
+    n: int
+    """Number of rows (DOFs)."""
+    stored_entries: int
+    """Stored nonzeros of the full (both triangles) matrix."""
+    empty_rows: NDArray[np.intp]
+    """Rows with no nonzero entry at all: DOFs without stiffness."""
+    zero_diagonal: NDArray[np.intp]
+    """Rows with a zero diagonal but other nonzeros (not in ``empty_rows``)."""
+    negative_diagonal: NDArray[np.intp]
+    """Rows with a negative diagonal entry."""
+    asymmetry: Asymmetry
+    """Largest relative asymmetry and where."""
+    part_of_row: NDArray[np.intp]
+    """Connected-component label of each row (graph of K, csgraph); empty rows
+    are their own parts."""
+    part_sizes: NDArray[np.intp]
+    """Rows per part, indexed by label."""
+    parts: int
+    """Number of connected parts, counting only parts with stiffness."""
+
+
+# ----------------------------------------------------------- factorization
+@dataclass(frozen=True)
+class FactorizationInfo:
+    """What the shared factorization did (the object itself lives in
+    :mod:`conditioning.factorization`)."""
+
+    ordering: str
+    """Fill-reducing ordering used (e.g. ``"nested-dissection"``, ``"MMD_AT_PLUS_A"``)."""
+    shift: float
+    """sigma in S - sigma*I that was factored (S the scaled matrix); 0 when unshifted."""
+    negative_pivots: int
+    """Negative pivots of the factorization = eigenvalues of S below ``shift``
+    (Sylvester's law of inertia)."""
+    fill: int
+    """Stored entries of L + U."""
+    flops: float
+    """Estimated floating-point operations of the factorization
+    (sum over columns of (column count of L)^2)."""
+    seconds: float
+    """Wall time of the factorization (s)."""
+    symmetric_pivoting: bool
+    """True when the row permutation equals the column permutation, so the
+    pivots are those of an LDL^T and the inertia count is valid."""
+
+
+# ------------------------------------------------------------- condition
+@dataclass(frozen=True)
+class ConditionResult:
+    """Condition numbers, each with how it was obtained."""
+
+    singular: bool
+    """True when K has a null space at working precision (a near-singular mode
+    below the gap, or a DOF without stiffness)."""
+    lambda_max: float
+    """Largest eigenvalue of K (Lanczos), in K's units."""
+    lambda_min: Optional[float]
+    """Smallest eigenvalue of K (shift-and-invert), None when singular."""
+    estimate: Optional[float]
+    """kappa_2(K) = lambda_max / lambda_min, None when singular."""
+    estimate_method: str
+    scaled_estimate: Optional[float]
+    """kappa_2 of S = D^-1/2 K D^-1/2 (D = diag K), None when singular."""
+    scaled_lambda_min: Optional[float]
+    scaled_lambda_max: float
+    scaled_method: str
+    one_norm_estimate: Optional[float]
+    """Hager-Higham estimate of kappa_1(K), a lower bound; None when singular."""
+    one_norm_method: str
+    scaling_gain_digits: Optional[float]
+    """log10(estimate / scaled_estimate): digits of the raw figure that are
+    only units or DOF-type mixing."""
+
+
+# ------------------------------------------------------------------ modes
+@dataclass(frozen=True)
+class NearSingularMode:
+    eigenvalue: float
+    """Eigenvalue of the scaled matrix S (dimensionless)."""
+    relative_eigenvalue: float
+    """eigenvalue / lambda_max(S)."""
+    kind: ModeKind
+    motion: dict[str, float]
+    """Share of each rigid motion (dof name -> share, summing to 1); in-plane
+    rotation is ``rz``. Empty for a mechanism."""
+    nodes: list[int]
+    """Nodes that locate the mode: the part's nodes (rigid body), the meeting
+    nodes (mechanism), the node (DOF without stiffness). 1-based rows without
+    a DOF map."""
+    part: int
+    """Connected part the mode lives on (label of StructureResult.part_of_row)."""
+    rigid_share: float
+    """Fraction of the mode (in the 2-norm squared) explained by rigid motions
+    of its part; nan without coordinates."""
+    groups: list[list[int]] = field(default_factory=list)
+    """For a mechanism: node groups that move rigidly together."""
+    vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """The mode in K's DOFs (u = D^-1/2 v, unit max-norm); not serialised."""
+
+
+@dataclass(frozen=True)
+class SpectrumResult:
+    """Smallest eigenvalues of S and the split into near-singular modes."""
+
+    smallest: NDArray[np.float64]
+    """Smallest computed eigenvalues of S, ascending."""
+    count: int
+    """Number of near-singular modes (eigenvalues below the gap), including
+    DOFs without stiffness."""
+    gap: Optional[float]
+    """Ratio lambda_{count+1} / lambda_count at the chosen split; None when
+    there is no mode."""
+    gap_rule: str
+    """The rule used to choose the split, in words."""
+    inertia_count: Optional[int]
+    """Eigenvalues below the split point counted by Sylvester's law (negative
+    pivots of S - c*I), None when not computed."""
+    inertia_agrees: Optional[bool]
+    negative_eigenvalues: int
+    """Eigenvalues of K below zero beyond round-off (indefinite stiffness)."""
+    modes: list[NearSingularMode]
+    method: str
+
+
+@dataclass(frozen=True)
+class Restraint:
+    node: int
+    dof: str
+    row: int
+    """0-based matrix row."""
+    reason: str
+
+
+@dataclass(frozen=True)
+class StiffnessJump:
+    kind: Literal["coupling", "diagonal-outlier"]
+    rows: list[int]
+    """0-based rows involved."""
+    nodes: list[int]
+    ratio: float
+    """Stiffness ratio (stiff / typical of the same dof type), dimensionless."""
+    digits_cost: float
+    """About log10(ratio): digits of the solution it can cost."""
+    advice_value: Optional[float]
+    """A suggested stiffness for the link that stays effective with fewer
+    digits lost, in K's units."""
+    reasoning: str
+
+
+@dataclass(frozen=True)
+class DecayEntry:
+    row: int
+    label: str
+    ratio: float
+    """K_ii / D_ii, the diagonal over the factorization's pivot."""
+    digits: float
+    """log10(ratio)."""
+
+
+@dataclass(frozen=True)
+class DiagonalDecay:
+    worst: list[DecayEntry]
+    """The rows with the largest decay, worst first."""
+    max_digits: float
+    method: str
+
+
+# ----------------------------------------------------------------- digits
+@dataclass(frozen=True)
+class RefinementStep:
+    iteration: int
+    correction_norm: float
+    """||dx||_inf / ||x||_inf after this step."""
+    residual_norm: float
+    """||f - K x||_inf / (||K||_inf ||x||_inf + ||f||_inf), residual in double-double."""
+
+
+@dataclass(frozen=True)
+class NodeDigits:
+    node: int
+    digits: float
+    """Trustworthy significant figures of the node's worst component,
+    relative to the largest displacement of the same dof type."""
+
+
+@dataclass(frozen=True)
+class DigitsSample:
+    sample: str
+    """``load``, ``random-1``..., ``worst-case``, ``solution``."""
+    trustworthy_digits: float
+    """-log10 of the relative normwise forward error of the float64 solution
+    against the reference (measured)."""
+    digits_lost: float
+    """log10(1/u) - trustworthy_digits with u = 2^-53 (about 15.95 digits)."""
+    method: Literal["double-double refinement", "arbitrary precision", "certified"]
+    converged: bool
+    stop_reason: str
+    history: list[RefinementStep]
+    worst_nodes: list[NodeDigits]
+    normwise_bound: Optional[float]
+    """Error bound on the reference in the manner of Demmel et al. (2006);
+    None when the bound cannot be trusted (withdrawn)."""
+    componentwise_bound: Optional[float]
+    bound_trusted: bool
+    confirmation: Optional[str] = None
+    """How an independent re-solve confirmed the reference, if one ran."""
+    per_dof_digits: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+
+
+@dataclass(frozen=True)
+class DigitsResult:
+    samples: list[DigitsSample]
+    predicted_raw: Optional[float]
+    """16 - log10(kappa_2 raw): the rule-of-thumb prediction (digits)."""
+    predicted_scaled: Optional[float]
+    factorization_flops: float
+    summary: str
+    """Which prediction was right and why, in one sentence."""
+    skipped: Optional[str] = None
+    """Why the stage did not run, if it did not."""
+
+
+# --------------------------------------------------------------- findings
+@dataclass(frozen=True)
+class Finding:
+    severity: Severity
+    code: str
+    message: str
+    nodes: list[int]
+    advice: str
+
+
+@dataclass(frozen=True)
+class ModelSummary:
+    source: str
+    rows: int
+    stored_entries: int
+    nodes: Optional[int]
+    dim: Optional[int]
+    dof_types: list[str]
+    has_load: bool
+    has_solution: bool
+    restrained: int
+    notes: list[str]
+
+
+CAUTION = (
+    "This report checks the numerics of the exported matrix, not the physics "
+    "of the model: element choice, loads, supports and units are the "
+    "engineer's responsibility. Defer to the applicable codes and to licensed "
+    "engineering judgement before relying on any result."
+)
+
+
+@dataclass(frozen=True)
+class Report:
+    """Everything the diagnosis found; the renderers' only input."""
+
+    summary: ModelSummary
+    structure: StructureResult
+    factorization: Optional[FactorizationInfo]
+    condition: Optional[ConditionResult]
+    spectrum: Optional[SpectrumResult]
+    restraints: list[Restraint]
+    jumps: list[StiffnessJump]
+    decay: Optional[DiagonalDecay]
+    digits: Optional[DigitsResult]
+    findings: list[Finding]
+    verdict: str
+    status: Literal["healthy", "warnings", "errors"]
+    timings: dict[str, float]
+    """Wall time per stage (s)."""
+    caution: str = CAUTION
