@@ -1,0 +1,309 @@
+"""The report in the terminal (rich), verdict first.
+
+:class:`TerminalReport` is a rich renderable over a
+:class:`~conditioning.results.Report`: ``console.print(TerminalReport(r))``.
+It only reads the report; every figure is shown with how it was obtained
+(estimate, bound, measured, certified, exact), taken from the ``method``
+fields the stages filled in.
+"""
+
+from __future__ import annotations
+
+import io
+from typing import Iterable, Optional
+
+from rich.console import Console, ConsoleOptions, Group, RenderResult
+from rich.rule import Rule
+from rich.table import Table
+from rich.text import Text
+
+from conditioning import results
+from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
+                                         summarise_ids)
+
+_STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
+_SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
+
+
+class TerminalReport:
+    """Rich view of a report.
+
+    Parameters
+    ----------
+    report : results.Report
+        The diagnosis to show.
+    max_ids : int
+        Node ids shown per list before it is summarised as "and N more"
+        (the JSON report keeps every id).
+    extra_verdict : str, optional
+        A line the command adds under the verdict (e.g. the ``--min-digits``
+        test failing).
+    """
+
+    def __init__(self, report: results.Report, *, max_ids: int = 8,
+                 extra_verdict: Optional[str] = None):
+        self.report = report
+        self.max_ids = max_ids
+        self.extra_verdict = extra_verdict
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        r = self.report
+        yield verdict_line(r)
+        if self.extra_verdict:
+            yield Text(self.extra_verdict, style="bold red")
+        yield from _section("Model", _model(r))
+        yield from _section("Structure", _structure(r, self.max_ids))
+        yield from _section("Condition number", _condition(r))
+        yield from _section("Near-singular modes", _modes(r, self.max_ids))
+        yield from _section("Suggested restraints", _restraints(r))
+        yield from _section("Stiffness jumps", _jumps(r, self.max_ids))
+        yield from _section("Diagonal decay", _decay(r))
+        yield from _section("Digits of the displacements", _digits(r, self.max_ids))
+        yield from _section("Findings", _findings(r, self.max_ids))
+        yield Rule(style="dim")
+        yield Text(r.caution, style="italic")
+
+
+def render_text(report: results.Report, *, width: int = 100, **kwargs) -> str:
+    """The terminal report as plain text (no colour codes), e.g. for a README."""
+    console = Console(file=io.StringIO(), width=width, record=True, color_system=None)
+    console.print(TerminalReport(report, **kwargs))
+    return console.export_text()
+
+
+def verdict_line(report: results.Report) -> Text:
+    """The one-line verdict, coloured by status."""
+    text = Text("Verdict: ", style="bold")
+    text.append(report.verdict, style=_STATUS_STYLE.get(report.status, "bold"))
+    return text
+
+
+# ----------------------------------------------------------------- sections
+def _section(title: str, body):
+    if body is None:
+        return
+    yield Rule(title, align="left", style="dim")
+    yield body
+
+
+def _grid() -> Table:
+    table = Table.grid(padding=(0, 2))
+    table.add_column(style="bold", no_wrap=True)
+    table.add_column()
+    return table
+
+
+def _model(r: results.Report):
+    s = r.summary
+    g = _grid()
+    g.add_row("source", s.source)
+    g.add_row("rows (DOFs)", f"{s.rows:,}")
+    g.add_row("stored entries", f"{s.stored_entries:,}")
+    if s.nodes is not None:
+        g.add_row("nodes", f"{s.nodes:,}" + (f" ({s.dim}D)" if s.dim else ""))
+    else:
+        g.add_row("nodes", "no DOF map: rows are reported by number; node-level findings "
+                           "need --dofs or --dofs-per-node")
+    if s.dof_types:
+        g.add_row("dof types", ", ".join(s.dof_types))
+    g.add_row("load / solution", f"{'given' if s.has_load else 'not given'} / "
+                                 f"{'given' if s.has_solution else 'not given'}")
+    if s.restrained:
+        g.add_row("restrained", f"{s.restrained:,} rows and columns removed (--fix)")
+    for note in s.notes:
+        g.add_row("note", note)
+    return g
+
+
+def _structure(r: results.Report, max_ids: int):
+    st = r.structure
+    g = _grid()
+    sizes = sorted((int(x) for x in st.part_sizes), reverse=True)
+    g.add_row("connected parts", f"{st.parts}" + (
+        f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else ""))
+    for name, rows in (("DOFs without stiffness", st.empty_rows),
+                       ("zero diagonal", st.zero_diagonal),
+                       ("negative diagonal", st.negative_diagonal)):
+        rows = list(rows)
+        g.add_row(name, "none" if not rows else
+                  f"{len(rows):,} (rows {summarise_ids([x + 1 for x in rows], max_ids)})")
+    a = st.asymmetry
+    g.add_row("asymmetry", "none (symmetric)" if a.row < 0 else
+              f"largest relative {fmt_number(a.relative)} at row {a.row + 1}, "
+              f"column {a.col + 1}")
+    return g
+
+
+def _condition(r: results.Report):
+    c = r.condition
+    if c is None:
+        return Text("not computed", style="dim")
+    t = Table(box=None, pad_edge=False, show_edge=False)
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("how obtained")
+    t.add_column("method", style="dim")
+    sing = "singular" if c.singular else "-"
+    t.add_row("2-norm, raw K", fmt_number(c.estimate) if c.estimate is not None else sing,
+              how_obtained(c.estimate_method), c.estimate_method)
+    t.add_row("2-norm, scaled D^-1/2 K D^-1/2",
+              fmt_number(c.scaled_estimate) if c.scaled_estimate is not None else sing,
+              how_obtained(c.scaled_method), c.scaled_method)
+    t.add_row("1-norm, raw K",
+              fmt_number(c.one_norm_estimate) if c.one_norm_estimate is not None else sing,
+              how_obtained(c.one_norm_method), c.one_norm_method)
+    parts = [t]
+    if c.singular:
+        parts.append(Text("K is singular at working precision: it has a null space "
+                          "(see the near-singular modes).", style="red"))
+    if c.scaling_gain_digits is not None:
+        parts.append(Text(f"Scaling removes {c.scaling_gain_digits:.1f} digits of the raw "
+                          "figure (units or DOF-type mixing, mostly harmless); the scaled "
+                          "figure is the one that governs the accuracy of the solve."))
+    return Group(*parts)
+
+
+def _modes(r: results.Report, max_ids: int):
+    sp = r.spectrum
+    if sp is None:
+        return Text("not computed", style="dim")
+    lines = []
+    head = f"{sp.count} near-singular mode{'s' if sp.count != 1 else ''}"
+    if sp.gap is not None:
+        head += f", separated by a gap of {fmt_number(sp.gap)}"
+    head += f" (rule: {sp.gap_rule})"
+    lines.append(Text(head))
+    if sp.inertia_count is not None:
+        agree = {True: "agrees", False: "DISAGREES", None: "not compared"}[sp.inertia_agrees]
+        lines.append(Text(f"inertia count (negative pivots, Sylvester's law): "
+                          f"{sp.inertia_count}, {agree}",
+                          style="red" if sp.inertia_agrees is False else ""))
+    if sp.negative_eigenvalues:
+        lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
+                          "stiffness is indefinite", style="red"))
+    lines.append(Text(f"method: {sp.method}", style="dim"))
+    if sp.modes:
+        t = Table(box=None, pad_edge=False)
+        t.add_column("#", justify="right")
+        t.add_column("kind")
+        t.add_column("eigenvalue (scaled)", justify="right")
+        t.add_column("relative", justify="right")
+        t.add_column("motion")
+        t.add_column("part", justify="right")
+        t.add_column("nodes")
+        for i, m in enumerate(sp.modes, start=1):
+            motion = fmt_motion(m.motion) if m.motion else (
+                f"groups: {len(m.groups)}" if m.groups else "-")
+            t.add_row(str(i), m.kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+                      motion, str(m.part), summarise_ids(m.nodes, max_ids))
+        lines.append(t)
+    return Group(*lines)
+
+
+def _restraints(r: results.Report):
+    if not r.restraints:
+        return None
+    g = _grid()
+    for res in r.restraints:
+        g.add_row(f"node {res.node} {res.dof}", res.reason)
+    note = Text("A restraint must exist in the real structure (or the part must be "
+                "connected); do not add one only to silence the solver.", style="italic")
+    return Group(g, note)
+
+
+def _jumps(r: results.Report, max_ids: int):
+    if not r.jumps:
+        return Text("none found")
+    t = Table(box=None, pad_edge=False)
+    t.add_column("kind")
+    t.add_column("nodes")
+    t.add_column("ratio", justify="right")
+    t.add_column("digits cost", justify="right")
+    t.add_column("suggested value", justify="right")
+    t.add_column("reasoning")
+    for j in r.jumps:
+        t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio),
+                  f"about {j.digits_cost:.1f}", fmt_number(j.advice_value), j.reasoning)
+    return t
+
+
+def _decay(r: results.Report):
+    d = r.decay
+    if d is None or not d.worst:
+        return None
+    g = _grid()
+    g.add_row("largest", f"{d.max_digits:.1f} digits ({d.method})")
+    for e in d.worst[:5]:
+        g.add_row(e.label, f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
+    return g
+
+
+def _digits(r: results.Report, max_ids: int):
+    dg = r.digits
+    if dg is None:
+        return Text("not measured", style="dim")
+    if dg.skipped:
+        return Text(f"not measured: {dg.skipped}", style="yellow")
+    t = Table(box=None, pad_edge=False)
+    t.add_column("sample", no_wrap=True)
+    t.add_column("trustworthy digits", justify="right")
+    t.add_column("digits lost", justify="right")
+    t.add_column("how obtained", no_wrap=True)
+    t.add_column("converged")
+    t.add_column("error bound")
+    t.add_column("worst nodes (digits)")
+    for s in dg.samples:
+        worst = ", ".join(f"{w.node} ({fmt_digits(w.digits)})" for w in s.worst_nodes[:max_ids])
+        if len(s.worst_nodes) > max_ids:
+            worst += f" and {len(s.worst_nodes) - max_ids:,} more"
+        bound = (fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
+                 else "withdrawn")
+        t.add_row(s.sample, fmt_digits(s.trustworthy_digits), fmt_digits(s.digits_lost),
+                  _how_digits(s.method),
+                  "yes" if s.converged else f"no: {s.stop_reason}", bound, worst or "-")
+    lines = [t]
+    pred = []
+    if dg.predicted_raw is not None:
+        pred.append(f"from the raw condition number {fmt_digits(dg.predicted_raw)}")
+    if dg.predicted_scaled is not None:
+        pred.append(f"from the scaled one {fmt_digits(dg.predicted_scaled)}")
+    if pred:
+        lines.append(Text("Rule-of-thumb prediction (16 - log10 kappa): " + ", ".join(pred)
+                          + " digits."))
+    if dg.summary:
+        lines.append(Text(dg.summary))
+    if dg.factorization_flops:
+        lines.append(Text(f"The factorization took about {fmt_number(dg.factorization_flops)} "
+                          "operations; digits are lost to conditioning, not to the operation "
+                          "count.", style="dim"))
+    for s in dg.samples:
+        if s.confirmation:
+            lines.append(Text(f"{s.sample}: {s.confirmation}", style="dim"))
+    return Group(*lines)
+
+
+def _how_digits(method: str) -> str:
+    tag = how_obtained(method)
+    return method if tag in method else f"{method}, {tag}"
+
+
+def _findings(r: results.Report, max_ids: int):
+    if not r.findings:
+        return Text("no findings")
+    rows = []
+    for f in _by_severity(r.findings):
+        line = Text()
+        line.append(f"{f.severity:<7} ", style=_SEVERITY_STYLE.get(f.severity, ""))
+        line.append(f"[{f.code}] ", style="dim")
+        line.append(f.message)
+        if f.nodes:
+            line.append(f" (nodes {summarise_ids(f.nodes, max_ids)})")
+        rows.append(line)
+        if f.advice:
+            rows.append(Text(f"        advice: {f.advice}"))
+    return Group(*rows)
+
+
+def _by_severity(findings: Iterable[results.Finding]) -> list[results.Finding]:
+    order = {"error": 0, "warning": 1, "note": 2}
+    return sorted(findings, key=lambda f: order.get(f.severity, 3))
