@@ -93,16 +93,17 @@ class SharedFactorization:
         """(S - sigma*I)^-1 b on the active rows (inactive rows of the result are 0)."""
         b = np.asarray(b, dtype=np.float64)
         out = np.zeros_like(b)
-        ba = b[self.active]
-        if self._perm is not None:
-            ba = ba[self._perm]
-        xa = self._lu.solve(ba)
-        if self._perm is not None:
-            tmp = np.empty_like(xa)
-            tmp[self._perm] = xa
-            xa = tmp
-        out[self.active] = xa
+        out[self.active] = self.solve_active(b[self.active])
         return out
+
+    def solve_active(self, b: NDArray[np.float64]) -> NDArray[np.float64]:
+        """(S_a - sigma*I)^-1 b for b indexed by the active rows only."""
+        b = np.asarray(b, dtype=np.float64)
+        if self._perm is None:
+            return self._lu.solve(b)
+        x = np.empty_like(b)
+        x[self._perm] = self._lu.solve(b[self._perm])
+        return x
 
     def solve(self, f: NDArray[np.float64]) -> NDArray[np.float64]:
         """K^-1 f = diag(s) S^-1 diag(s) f, in float64 as a production solver gets it.

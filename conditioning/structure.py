@@ -1,0 +1,70 @@
+"""Checks on the stiffness matrix that need no factorization.
+
+DOFs without stiffness, zero or negative diagonal entries, asymmetry, and the
+connected parts of the matrix graph (scipy.sparse.csgraph). A part that shares
+no stiffness with the rest of the model is a separate body: unless it is
+supported on its own it brings its own rigid-body modes.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse import csgraph
+
+from conditioning.model import Model
+from conditioning.results import Asymmetry, StructureResult
+
+
+def _asymmetry(K: sp.csr_array) -> Asymmetry:
+    """Largest |K_ij - K_ji| relative to max |K|, and where."""
+    A = sp.csr_array(K - K.T)
+    A.eliminate_zeros()
+    if A.nnz == 0:
+        return Asymmetry(relative=0.0, row=-1, col=-1)
+    scale = float(np.max(np.abs(K.data))) if K.nnz else 1.0
+    coo = A.tocoo()
+    k = int(np.argmax(np.abs(coo.data)))
+    i, j = int(coo.row[k]), int(coo.col[k])
+    return Asymmetry(relative=float(abs(coo.data[k]) / scale), row=min(i, j), col=max(i, j))
+
+
+def check_structure(model: Model) -> StructureResult:
+    """Structural checks of ``model.K``.
+
+    Returns
+    -------
+    StructureResult
+        Empty rows, zero and negative diagonals, the largest relative
+        asymmetry, and the connected parts (labels per row, sizes). Rows
+        without any entry count as parts of their own in ``part_of_row`` but
+        not in ``parts``.
+    """
+    K = sp.csr_array(model.K)
+    n = K.shape[0]
+    row_nnz = np.diff(K.indptr)
+    empty = np.flatnonzero(row_nnz == 0)
+    diag = K.diagonal()
+    zero_diag = np.flatnonzero((diag == 0) & (row_nnz > 0))
+    negative = np.flatnonzero(diag < 0)
+    # Parts: weak connectivity of the (symmetrised) graph.
+    n_comp, labels = csgraph.connected_components(K, directed=True, connection="weak")
+    sizes = np.bincount(labels, minlength=n_comp)
+    # Relabel so that parts are numbered by size, largest first (stable for reports).
+    order = np.lexsort((np.arange(n_comp), -sizes))
+    relabel = np.empty(n_comp, dtype=np.intp)
+    relabel[order] = np.arange(n_comp)
+    labels = relabel[labels]
+    sizes = sizes[order]
+    parts_with_stiffness = int(np.count_nonzero(np.bincount(labels[row_nnz > 0], minlength=n_comp)))
+    return StructureResult(
+        n=n,
+        stored_entries=int(K.nnz),
+        empty_rows=empty.astype(np.intp),
+        zero_diagonal=zero_diag.astype(np.intp),
+        negative_diagonal=negative.astype(np.intp),
+        asymmetry=_asymmetry(K),
+        part_of_row=labels.astype(np.intp),
+        part_sizes=sizes.astype(np.intp),
+        parts=parts_with_stiffness,
+    )
