@@ -307,3 +307,84 @@ def _findings(r: results.Report, max_ids: int):
 def _by_severity(findings: Iterable[results.Finding]) -> list[results.Finding]:
     order = {"error": 0, "warning": 1, "note": 2}
     return sorted(findings, key=lambda f: order.get(f.severity, 3))
+
+
+# --------------------------------------------------------------- comparison
+class ComparisonView:
+    """Rich view of a :class:`conditioning.compare.Comparison`."""
+
+    def __init__(self, comparison, *, max_ids: int = 8):
+        self.c = comparison
+        self.max_ids = max_ids
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        c = self.c
+        head = Text("Before: ", style="bold")
+        head.append(c.before_verdict, style=_STATUS_STYLE.get(c.before_status, ""))
+        yield head
+        head = Text("After:  ", style="bold")
+        head.append(c.after_verdict, style=_STATUS_STYLE.get(c.after_status, ""))
+        yield head
+        for note in c.notes:
+            yield Text(f"note: {note}", style="yellow")
+        yield from _section("Near-singular modes", self._modes())
+        yield from _section("Condition number", self._condition())
+        yield from _section("Digits of the displacements", self._digits())
+        yield from _section("Findings", self._findings())
+
+    def _modes(self):
+        c = self.c
+        lines = [Text(f"{c.modes_before} before, {c.modes_after} after")]
+        for word, changes, style in (("removed", c.modes_removed, "green"),
+                                     ("added", c.modes_added, "red")):
+            for m in changes:
+                lines.append(Text(f"{word}: {m.count} x {m.kind} (nodes "
+                                  f"{summarise_ids(m.nodes, self.max_ids)})", style=style))
+        return Group(*lines)
+
+    def _condition(self):
+        t = Table(box=None, pad_edge=False)
+        t.add_column("figure")
+        t.add_column("before", justify="right")
+        t.add_column("after", justify="right")
+        t.add_column("orders of magnitude better", justify="right")
+        names = {"estimate": "2-norm, raw K", "scaled_estimate": "2-norm, scaled",
+                 "one_norm_estimate": "1-norm, raw K (lower bound)"}
+        for f in self.c.condition:
+            t.add_row(names.get(f.name, f.name),
+                      "singular" if f.before is None else fmt_number(f.before),
+                      "singular" if f.after is None else fmt_number(f.after),
+                      "-" if f.digits_change is None else f"{f.digits_change:+.1f}")
+        return t
+
+    def _digits(self):
+        if not self.c.digits:
+            return Text("not measured in either report", style="dim")
+        t = Table(box=None, pad_edge=False)
+        t.add_column("sample")
+        t.add_column("before", justify="right")
+        t.add_column("after", justify="right")
+        t.add_column("change", justify="right")
+        for d in self.c.digits:
+            t.add_row(d.sample, fmt_digits(d.before), fmt_digits(d.after),
+                      "-" if d.change is None else f"{d.change:+.1f}")
+        return t
+
+    def _findings(self):
+        lines = []
+        for word, items, style in (("resolved", self.c.findings_resolved, "green"),
+                                   ("new", self.c.findings_new, "red"),
+                                   ("still there", self.c.findings_kept, "")):
+            for f in items:
+                text = f"{word}: {f.severity} [{f.code}] {f.message}"
+                if f.nodes:
+                    text += f" (nodes {summarise_ids(f.nodes, self.max_ids)})"
+                lines.append(Text(text, style=style))
+        return Group(*lines) if lines else Text("no findings in either report")
+
+
+def render_comparison_text(comparison, *, width: int = 100) -> str:
+    """The comparison as plain text."""
+    console = Console(file=io.StringIO(), width=width, record=True, color_system=None)
+    console.print(ComparisonView(comparison))
+    return console.export_text()
