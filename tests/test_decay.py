@@ -1,0 +1,107 @@
+"""Diagonal decay K_ii / D_ii against closed forms and LAPACK's LDL^T."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import scipy.io
+import scipy.linalg
+import scipy.sparse as sp
+
+from conditioning.decay import diagonal_decay
+from conditioning.factorization import factorize
+from conditioning.model import DofTable, Model
+from conftest import reference_matrix_path
+
+
+def second_difference(n: int) -> sp.csr_array:
+    """tridiag(-1, 2, -1): a fixed-fixed chain of n+1 unit springs."""
+    return sp.csr_array(sp.diags_array([-1.0, 2.0, -1.0], offsets=[-1, 0, 1], shape=(n, n)))
+
+
+def test_fixed_chain_natural_order_closed_form():
+    """tridiag(-1, 2, -1) eliminated in natural order: pivot k is (k+1)/k
+    (classical closed form of the LDL^T of the second-difference matrix; the
+    recurrence d_1 = 2, d_k = 2 - 1/d_{k-1} gives it by induction), so the
+    decay is K_kk / D_kk = 2k/(k+1) and the worst is log10(2n/(n+1)) -> log10 2."""
+    n = 200
+    K = second_difference(n)
+    result = diagonal_decay(Model(K), factorize(K, ordering="NATURAL"), worst=n)
+    k = np.array([e.row for e in result.worst]) + 1
+    ratio = np.array([e.ratio for e in result.worst])
+    np.testing.assert_allclose(ratio, 2 * k / (k + 1), rtol=1e-12)
+    np.testing.assert_allclose([e.digits for e in result.worst], np.log10(2 * k / (k + 1)), rtol=1e-12, atol=1e-14)
+    assert result.worst[0].row == n - 1
+    assert result.max_digits == pytest.approx(math.log10(2 * n / (n + 1)), rel=1e-12)
+    assert "NATURAL" in result.method
+
+
+def test_worst_rows_named_by_node():
+    """The worst DOF is named by node and dof through the model's DOF map."""
+    n = 6
+    K = second_difference(n)
+    dofs = DofTable(node=np.arange(10, 10 + n, dtype=np.int64), dof=np.zeros(n, dtype=np.int8))
+    result = diagonal_decay(Model(K, dofs=dofs), factorize(K, ordering="NATURAL"), worst=2)
+    assert [e.label for e in result.worst] == ["node 15 ux", "node 14 ux"]
+
+
+def test_bcsstk01_matches_lapack_ldl_same_ordering():
+    """BCSSTK01 (Harwell-Boeing, via ../shared): K_ii / D_ii agrees with the
+    dense LDL^T of scipy.linalg.ldl (LAPACK ?sytrf, Bunch-Kaufman) when the
+    shared factorization eliminates in the same order as LAPACK did."""
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk01")))
+    A = K.toarray()
+    lu, d, perm = scipy.linalg.ldl(A)
+    assert np.count_nonzero(np.diag(d, 1)) == 0, "LAPACK chose a 2x2 pivot; no LDL^T to compare"
+    reference = np.empty(A.shape[0])
+    reference[perm] = np.diag(A)[perm] / np.diag(d)  # step k eliminates row perm[k]
+    fac = factorize(K, ordering=lambda pattern, coords: perm)
+    result = diagonal_decay(Model(K), fac, worst=A.shape[0])
+    rows = np.array([e.row for e in result.worst])
+    np.testing.assert_allclose([e.ratio for e in result.worst], reference[rows], rtol=1e-9)
+    assert result.max_digits == pytest.approx(np.log10(reference.max()), rel=1e-9)
+
+
+def test_singular_chain_reports_lower_bound():
+    """A free-free chain is singular (rigid translation; common practice):
+    the shared factorization is shifted and the method says the decay is a
+    lower bound. The shifted decay is still large at the last pivot, which the
+    shift alone keeps finite: at least 1/(n*|sigma|)-ish digits, far above the
+    log10 2 of the supported chain (closed form above)."""
+    n = 50
+    K = second_difference(n).tolil()
+    K[0, 0] = K[n - 1, n - 1] = 1.0
+    K = sp.csr_array(K)
+    assert np.linalg.matrix_rank(K.toarray()) == n - 1  # LAPACK SVD: one null vector
+    fac = factorize(K, ordering="NATURAL")
+    assert fac.shift != 0.0
+    result = diagonal_decay(Model(K), fac)
+    assert "lower bound" in result.method
+    assert result.max_digits > 3.0
+
+
+def test_negative_pivot_is_infinite_decay():
+    """An indefinite stiffness (a negative spring, K = [[1, -2], [-2, 1]] with
+    eigenvalues -1 and 3) has a negative pivot 1 - 4 = -3 in natural order:
+    reported first with infinite digits and named in the method."""
+    K = sp.csr_array(np.array([[1.0, -2.0], [-2.0, 1.0]]))
+    assert np.linalg.eigvalsh(K.toarray())[0] < 0  # LAPACK: indefinite
+    fac = factorize(K, ordering="NATURAL", shift=0.0)
+    result = diagonal_decay(Model(K), fac)
+    assert result.worst[0].row == 1
+    assert math.isinf(result.worst[0].digits) and result.worst[0].ratio == pytest.approx(1 / -3.0)
+    assert math.isinf(result.max_digits)
+    assert "negative" in result.method
+
+
+def test_rows_without_stiffness_are_not_listed():
+    """A row with no stiffness is left out of the factorization and of the
+    ranking, and counted in the method."""
+    K = sp.block_diag([second_difference(4), sp.csr_array((1, 1))], format="csr")
+    fac = factorize(sp.csr_array(K), ordering="NATURAL")
+    result = diagonal_decay(Model(sp.csr_array(K)), fac, worst=10)
+    assert 4 not in [e.row for e in result.worst]
+    assert len(result.worst) == 4
+    assert "1 row(s) without stiffness" in result.method
