@@ -1,0 +1,1 @@
+"""Benchmark harness: generated models at increasing size; see docs/benchmarks.md."""
