@@ -1,0 +1,703 @@
+"""Reading stiffness matrices and vectors from Matrix Market, Harwell-Boeing and CSV.
+
+The parsing itself is scipy's (:func:`scipy.io.mmread`, :func:`scipy.io.mminfo`,
+:func:`scipy.io.hb_read`); this module opens the file, checks that what was
+read can be a stiffness matrix, turns every failure into an
+:class:`~conditioning.errors.InputError` naming the file and the line, and
+brings the matrix to the form every stage expects: ``float64``, full
+symmetric storage, no explicitly stored zeros.
+
+What the readers did to the data (mirroring a stored triangle, summing
+duplicate entries, dropping stored zeros, converting integers) is returned
+as plain-language notes for the report.
+
+References
+----------
+.. [1] R. F. Boisvert, R. Pozo and K. A. Remington (1996), "The Matrix Market
+       Exchange Formats: Initial Design", NIST Interagency Report 5935.
+       (from memory)
+.. [2] I. S. Duff, R. G. Grimes and J. G. Lewis (1992), "Users' Guide for the
+       Harwell-Boeing Sparse Matrix Collection (Release I)", Technical Report
+       TR/PA/92/86, CERFACS. (from memory)
+"""
+
+from __future__ import annotations
+
+import bz2
+import csv
+import gzip
+import io
+import logging
+import os
+import re
+import warnings
+import zlib
+from pathlib import Path
+from typing import Literal, Union
+
+import numpy as np
+import scipy.io
+import scipy.sparse as sp
+from numpy.typing import NDArray
+
+from conditioning.errors import InputError
+
+logger = logging.getLogger(__name__)
+
+PathLike = Union[str, "os.PathLike[str]"]
+Stored = Literal["triangle", "general"]
+
+#: File name endings read as Harwell-Boeing when the content does not decide.
+HARWELL_BOEING_SUFFIXES = (".rsa", ".rua", ".rse", ".hb", ".rb", ".psa", ".pua", ".csa", ".cua")
+
+_GZIP_MAGIC = b"\x1f\x8b"
+_BZIP2_MAGIC = b"BZh"
+_SNIFF_BYTES = 1 << 16
+#: Largest order read from the dense (array) Matrix Market format.
+_MAX_DENSE_ORDER = 20_000
+#: A coordinate file may announce at most this many empty rows per stored entry
+#: once the order exceeds ``_MAX_SPARSE_ORDER_FREE``: guards against garbled size lines.
+_MAX_ROWS_PER_ENTRY = 10
+_MAX_SPARSE_ORDER_FREE = 1_000_000
+_FIRST_SHOWN = 3
+
+
+# --------------------------------------------------------------------------- #
+# Public functions
+# --------------------------------------------------------------------------- #
+
+
+def read_matrix(path: PathLike) -> tuple[sp.csr_array, list[str]]:
+    """Read a stiffness matrix file into full symmetric CSR storage.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Matrix Market file (``coordinate`` or ``array``; ``real``, ``double``
+        or ``integer``; ``general`` or ``symmetric``), plain, gzip- or
+        bzip2-compressed (recognised by content, whatever the name), or a
+        Harwell-Boeing file (``RSA``, ``RUA``, integer variants).
+
+    Returns
+    -------
+    K : (n, n) scipy.sparse.csr_array of float64
+        The matrix with both triangles stored, duplicates summed, explicitly
+        stored zeros removed and indices sorted. Units are the file's own.
+    notes : list of str
+        One sentence per thing the reader did to the data.
+
+    Raises
+    ------
+    InputError
+        The file is missing or empty, is neither Matrix Market nor
+        Harwell-Boeing, is cut short or corrupt, is not square, holds complex
+        or pattern-only values, non-finite values, indices out of range, is
+        labelled skew-symmetric, or is labelled symmetric while storing both
+        triangles.
+
+    Notes
+    -----
+    A ``general`` file whose off-diagonal entries all lie in one triangle is
+    taken to be the triangle of a symmetric matrix and mirrored; a note says
+    so. An asymmetric matrix is not refused here: the structure stage
+    measures and reports the asymmetry.
+
+    Examples
+    --------
+    >>> import io, tempfile, os
+    >>> text = "%%MatrixMarket matrix coordinate real symmetric\\n2 2 3\\n1 1 2\\n2 1 -1\\n2 2 2\\n"
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = os.path.join(d, "k.mtx")
+    ...     _ = open(p, "w").write(text)
+    ...     K, notes = read_matrix(p)
+    >>> K.toarray().tolist()
+    [[2.0, -1.0], [-1.0, 2.0]]
+    """
+    name = str(path)
+    head = _read_head(name)
+    if _is_matrix_market(head):
+        rows, cols, vals, n, stored, notes = _read_matrix_market(name, head)
+    elif _looks_like_harwell_boeing(name, head):
+        rows, cols, vals, n, stored, notes = _read_harwell_boeing(name)
+    else:
+        raise InputError(name, "not a Matrix Market file (line 1 lacks the '%%MatrixMarket' banner) "
+                               "nor a Harwell-Boeing file (line 3 lacks a matrix type such as RSA)")
+    if n == 0:
+        raise InputError(name, "matrix has no rows (order 0)")
+    K = assemble_symmetric(rows, cols, vals, n, stored=stored, source=name, notes=notes)
+    logger.info("read %s: n = %d, %d stored entries (full storage)", name, n, K.nnz)
+    return K, notes
+
+
+def read_vector(path: PathLike, n: int, what: str) -> NDArray[np.float64]:
+    """Read a load or displacement vector of length ``n``.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Matrix Market file (``array``, or ``coordinate`` n x 1 / 1 x n, plain
+        or compressed) or a CSV file with one value per line and an optional
+        header line. Blank lines and lines starting with ``#`` are skipped.
+    n : int
+        Number of matrix rows the vector must match.
+    what : str
+        Name used in messages (``"load"``, ``"solution"``).
+
+    Returns
+    -------
+    (n,) ndarray of float64
+        The vector, in the model's units (force for a load, length or
+        rotation for a displacement).
+
+    Raises
+    ------
+    InputError
+        Missing or empty file, a length other than ``n``, a non-numeric cell
+        (with its line number) or non-finite values.
+    """
+    name = str(path)
+    head = _read_head(name)
+    if _is_matrix_market(head):
+        vec = _read_matrix_market_vector(name, head, n, what)
+    else:
+        vec = _read_csv_vector(name, n, what)
+    _require_finite_vector(name, vec, what)
+    return vec
+
+
+def read_csv_rows(path: PathLike) -> list[tuple[int, list[str]]]:
+    """Rows of a comma-separated text file with their 1-based line numbers.
+
+    Blank lines and lines whose first cell starts with ``#`` are skipped and
+    cells are stripped of surrounding blanks.
+
+    Returns
+    -------
+    list of (int, list of str)
+        ``(line_number, cells)`` for every data or header line.
+
+    Raises
+    ------
+    InputError
+        Missing, empty or non-text file.
+    """
+    name = str(path)
+    data = _read_all_bytes(name)
+    nul = data.find(b"\x00")
+    if nul >= 0:
+        raise InputError(name, f"contains a NUL byte at byte {nul + 1}: binary data, not a CSV text file")
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(name, f"not UTF-8 text (undecodable byte at position {exc.start + 1})") from None
+    rows: list[tuple[int, list[str]]] = []
+    try:
+        for line_no, cells in enumerate(csv.reader(io.StringIO(text)), start=1):
+            cells = [c.strip() for c in cells]
+            if not any(cells) or cells[0].startswith("#"):
+                continue
+            rows.append((line_no, cells))
+    except csv.Error as exc:
+        raise InputError(name, f"cannot be read as CSV: {exc}") from None
+    if not rows:
+        raise InputError(name, "file is empty (no data lines)")
+    return rows
+
+
+def assemble_symmetric(rows, cols, vals, n: int, *, stored: Stored, source: str,
+                       notes: list[str]) -> sp.csr_array:
+    """Build full symmetric CSR storage from (row, col, value) triplets.
+
+    Parameters
+    ----------
+    rows, cols : (m,) integer arrays
+        0-based indices, all in ``[0, n)``.
+    vals : (m,) real array
+    n : int
+        Matrix order.
+    stored : {"triangle", "general"}
+        ``"triangle"``: the triplets are one triangle of a symmetric matrix
+        (Matrix Market ``symmetric`` or Harwell-Boeing ``RSA``); entries may
+        lie on either side of the diagonal but no pair may be stored twice.
+        ``"general"``: every entry is stored; when all off-diagonal entries
+        lie in one triangle the matrix is mirrored.
+    source : str
+        File name used in errors.
+    notes : list of str
+        Appended to in place.
+
+    Returns
+    -------
+    (n, n) scipy.sparse.csr_array of float64
+        Duplicates summed, explicit zeros removed, indices sorted.
+    """
+    rows = np.asarray(rows, dtype=np.int64)
+    cols = np.asarray(cols, dtype=np.int64)
+    vals = np.asarray(vals)
+    if np.iscomplexobj(vals):
+        raise InputError(source, "holds complex values; a stiffness matrix must be real")
+    vals = vals.astype(np.float64, copy=False)
+    _require_finite_entries(source, rows, cols, vals)
+    off = rows != cols
+    lower, upper = int(np.count_nonzero(rows > cols)), int(np.count_nonzero(rows < cols))
+    if stored == "triangle":
+        _require_single_triangle(source, rows[off], cols[off])
+        mirror = True
+    else:
+        mirror = (lower == 0) != (upper == 0)
+        if mirror:
+            side = "lower" if lower else "upper"
+            notes.append(f"the file is labelled general but stores only the {side} triangle "
+                         f"({lower + upper} off-diagonal entries); mirrored to a symmetric matrix")
+    if mirror:
+        rows, cols, vals = (np.concatenate([rows, cols[off]]), np.concatenate([cols, rows[off]]),
+                            np.concatenate([vals, vals[off]]))
+    K = sp.coo_array((vals, (rows, cols)), shape=(n, n)).tocsr()
+    duplicates = int(rows.size - K.nnz)
+    if duplicates:
+        notes.append(f"{duplicates} duplicate entries (same row and column) summed, "
+                     "as finite element assembly does")
+    zeros = int(K.nnz - np.count_nonzero(K.data))
+    if zeros:
+        K.eliminate_zeros()
+        notes.append(f"{zeros} explicitly stored zero entries removed from the sparsity "
+                     "structure (counted in full symmetric storage)")
+    K.sort_indices()
+    return K
+
+
+# --------------------------------------------------------------------------- #
+# Opening files
+# --------------------------------------------------------------------------- #
+
+
+class _GuardedStream(io.RawIOBase):
+    """Read-only byte stream handed to scipy's Matrix Market reader.
+
+    scipy 1.17's reader (fast_matrix_market) crashes the interpreter on a NUL
+    byte after a number and on a number cut off at the very end of the data
+    (observed here with ``1 1 1\\x00`` and ``12 6 -2e`` at end of file), so
+    this stream replaces NUL bytes by ``?`` (remembering the first offset),
+    ends the data with a newline, and records decompression errors instead of
+    raising them through the C++ reader. It may also serve a rewritten first
+    line (the banner) in place of the file's own.
+    """
+
+    def __init__(self, raw, first_line: bytes | None = None):
+        super().__init__()
+        self._raw = raw
+        self._pending = b""
+        self._skip_first_line = first_line is not None
+        self._pending = first_line or b""
+        self._last = b"\n"
+        self._ended = False
+        self.offset = 0
+        self.nul_offset: int | None = None
+        self.error: BaseException | None = None
+
+    def readable(self) -> bool:
+        return True
+
+    def _pull(self, size: int) -> bytes:
+        try:
+            if self._skip_first_line:
+                # drop the file's own banner (and any blank lines or BOM before it)
+                self._skip_first_line = False
+                original = self._raw.readline()
+                while original and not original.strip(b"\xef\xbb\xbf \t\r\n"):
+                    self.offset += len(original)
+                    original = self._raw.readline()
+                self.offset += len(original)
+            data = self._raw.read(size)
+        except (OSError, EOFError, zlib.error, ValueError) as exc:
+            self.error = exc
+            data = b""
+        if data:
+            if self.nul_offset is None and b"\x00" in data:
+                self.nul_offset = self.offset + data.index(b"\x00")
+            self.offset += len(data)
+            return data.replace(b"\x00", b"?")
+        if not self._ended:
+            self._ended = True
+            if not self._last.endswith(b"\n"):
+                return b"\n"
+        return b""
+
+    def readinto(self, buf) -> int:
+        if not self._pending:
+            self._pending = self._pull(max(len(buf), 1 << 16))
+        k = min(len(buf), len(self._pending))
+        buf[:k] = self._pending[:k]
+        if k:
+            self._last = self._pending[k - 1:k]
+        self._pending = self._pending[k:]
+        return k
+
+
+def _open_binary(name: str):
+    """Open a file for reading, decompressing gzip or bzip2 by content."""
+    try:
+        fh = open(name, "rb")
+        magic = fh.read(3)
+        fh.seek(0)
+    except FileNotFoundError:
+        raise InputError(name, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(name, "is a directory, not a file") from None
+    except OSError as exc:
+        raise InputError(name, f"cannot be opened: {exc.strerror or exc}") from None
+    if magic.startswith(_GZIP_MAGIC):
+        return gzip.GzipFile(fileobj=fh, mode="rb")
+    if magic.startswith(_BZIP2_MAGIC):
+        return bz2.BZ2File(fh, mode="rb")
+    return fh
+
+
+def _compression(name: str) -> str:
+    with _open_binary(name) as fh:
+        kind = type(fh).__name__
+    return {"GzipFile": "gzip", "BZ2File": "bzip2"}.get(kind, "")
+
+
+def _read_head(name: str) -> bytes:
+    """The first bytes of the (decompressed) file; InputError when unreadable or empty."""
+    with _open_binary(name) as fh:
+        try:
+            head = fh.read(_SNIFF_BYTES)
+        except (OSError, EOFError, zlib.error, ValueError) as exc:
+            raise _corrupt_compressed(name, exc) from None
+    if not head.strip():
+        raise InputError(name, "file is empty")
+    return head
+
+
+def _read_all_bytes(name: str) -> bytes:
+    with _open_binary(name) as fh:
+        try:
+            data = fh.read()
+        except (OSError, EOFError, zlib.error, ValueError) as exc:
+            raise _corrupt_compressed(name, exc) from None
+    if not data.strip():
+        raise InputError(name, "file is empty")
+    return data
+
+
+def _corrupt_compressed(name: str, exc: BaseException) -> InputError:
+    kind = _compression(name) or "compressed"
+    return InputError(name, f"truncated or corrupt {kind} data ({type(exc).__name__}: {exc})")
+
+
+# --------------------------------------------------------------------------- #
+# Matrix Market
+# --------------------------------------------------------------------------- #
+
+
+def _is_matrix_market(head: bytes) -> bool:
+    return head.lstrip(b"\xef\xbb\xbf \t\r\n").lower().startswith(b"%%matrixmarket")
+
+
+def _banner(name: str, head: bytes) -> tuple[str, str, str, bytes]:
+    """Check the banner words; return (format, field, symmetry, canonical banner line)."""
+    line = head.lstrip(b"\xef\xbb\xbf \t\r\n").split(b"\n", 1)[0].decode("latin-1")
+    words = line.lower().split()
+    if len(words) != 5:
+        raise InputError(name, f"line 1: the Matrix Market banner needs 5 words "
+                               f"('%%MatrixMarket matrix coordinate real symmetric'), found {line.strip()!r}")
+    _, obj, fmt, field, symmetry = words
+    if obj != "matrix":
+        raise InputError(name, f"line 1: object {obj!r} is not supported; a stiffness matrix file says 'matrix'")
+    if fmt not in ("coordinate", "array"):
+        raise InputError(name, f"line 1: format {fmt!r} is neither 'coordinate' nor 'array'")
+    if field in ("complex", "hermitian"):
+        raise InputError(name, "line 1: the file holds complex values; a stiffness matrix must be real")
+    if field == "pattern":
+        raise InputError(name, "line 1: the file is pattern-only (positions without values); "
+                               "a stiffness matrix needs its values")
+    if field not in ("real", "double", "integer"):
+        raise InputError(name, f"line 1: field {field!r} is not 'real' or 'integer'")
+    if symmetry == "skew-symmetric":
+        raise InputError(name, "line 1: the matrix is labelled skew-symmetric; a stiffness matrix is symmetric")
+    if symmetry == "hermitian":
+        raise InputError(name, "line 1: the matrix is labelled hermitian; a stiffness matrix is real symmetric")
+    if symmetry not in ("general", "symmetric"):
+        raise InputError(name, f"line 1: symmetry {symmetry!r} is not 'general' or 'symmetric'")
+    field = "real" if field == "double" else field
+    # A symmetric coordinate file is read as general so the stored triangle
+    # stays visible (pairs stored twice must be caught, not silently doubled).
+    read_as = "general" if fmt == "coordinate" else symmetry
+    canonical = f"%%MatrixMarket matrix {fmt} {field} {read_as}\n".encode()
+    return fmt, field, symmetry, canonical
+
+
+def _scipy_mm(name: str, canonical: bytes, reader):
+    """Run a scipy Matrix Market reader on the guarded stream; wrap every failure."""
+    raw = _open_binary(name)
+    stream = _GuardedStream(raw, canonical)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            result = reader(io.BufferedReader(stream, buffer_size=1 << 16))
+        failure = None
+    except Exception as exc:  # noqa: BLE001 - every scipy failure becomes an InputError
+        result, failure = None, exc
+    finally:
+        raw.close()
+    if stream.error is not None:
+        raise _corrupt_compressed(name, stream.error)
+    if stream.nul_offset is not None:
+        raise InputError(name, f"contains a NUL byte at byte {stream.nul_offset + 1} of the "
+                               "(decompressed) data: binary data, not a text Matrix Market file")
+    if failure is not None:
+        raise _translate_mm_error(name, failure)
+    return result
+
+
+def _translate_mm_error(name: str, exc: Exception) -> InputError:
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    m = re.match(r"Line (\d+): (.*)", text)
+    where, msg = (f"line {m.group(1)}: ", m.group(2)) if m else ("", text)
+    m_trunc = re.match(r"Truncated file\. Expected another (\d+) (?:lines|values)", msg)
+    if m_trunc:
+        missing = int(m_trunc.group(1))
+        return InputError(name, f"{where}fewer entries than the size line says: the file ends "
+                                f"{missing} {'entry' if missing == 1 else 'entries'} short (cut short?)")
+    if "out of bounds" in msg:
+        which = "row" if "Row" in msg else "column" if "Column" in msg else "an"
+        return InputError(name, f"{where}{which} index out of range (indices run from 1 to the size line's order)")
+    if "Too many lines" in msg:
+        return InputError(name, f"{where}more entries than the size line announces")
+    if "Invalid floating-point" in msg:
+        return InputError(name, f"{where}value is not a number")
+    if "Invalid integer" in msg:
+        return InputError(name, f"{where}expected an integer (index or size)")
+    if "too big" in msg or isinstance(exc, MemoryError):
+        return InputError(name, f"{where}matrix too large to hold in memory ({msg})")
+    return InputError(name, f"{where}cannot be read as Matrix Market: {msg}")
+
+
+def _mm_size(name: str, canonical: bytes) -> tuple[int, int, int]:
+    info = _scipy_mm(name, canonical, scipy.io.mminfo)
+    return int(info[0]), int(info[1]), int(info[2])
+
+
+def _require_plausible_size(name: str, fmt: str, n: int, entries: int) -> None:
+    if fmt == "array" and n > _MAX_DENSE_ORDER:
+        raise InputError(name, f"dense (array) format of order {n} is too large to read "
+                               f"(limit {_MAX_DENSE_ORDER}); write the matrix in coordinate format")
+    if fmt == "coordinate" and n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * max(entries, 1):
+        raise InputError(name, f"size line announces order {n} but only {entries} entries; "
+                               "check the size line (rows columns entries)")
+
+
+def _read_matrix_market(name: str, head: bytes):
+    fmt, field, symmetry, canonical = _banner(name, head)
+    nrows, ncols, entries = _mm_size(name, canonical)
+    if nrows != ncols:
+        raise InputError(name, f"matrix is {nrows} x {ncols}; a stiffness matrix must be square")
+    n = nrows
+    _require_plausible_size(name, fmt, n, entries)
+    data = _scipy_mm(name, canonical, lambda s: scipy.io.mmread(s, spmatrix=False))
+    notes = [f"read a {n} x {n} Matrix Market {fmt} {field} {symmetry} matrix ({entries} stored entries)"
+             + (f" ({_compression(name)}-compressed)" if _compression(name) else "")]
+    if field == "integer":
+        notes.append("integer values converted to float64")
+    if fmt == "array":
+        dense = np.asarray(data)
+        if dense.shape != (n, n):
+            raise InputError(name, f"array data has shape {dense.shape}, expected {n} x {n}")
+        rows, cols = np.nonzero(dense)
+        return rows, cols, dense[rows, cols], n, "general", notes
+    coo = data
+    stored: Stored = "triangle" if symmetry == "symmetric" else "general"
+    return coo.row, coo.col, coo.data, n, stored, notes
+
+
+def _read_matrix_market_vector(name: str, head: bytes, n: int, what: str) -> NDArray[np.float64]:
+    fmt, field, _, canonical = _banner(name, head)
+    nrows, ncols, entries = _mm_size(name, canonical)
+    if (nrows, ncols) not in ((n, 1), (1, n)):
+        raise InputError(name, f"the {what} vector is {nrows} x {ncols}; it must be {n} x 1 "
+                               f"to match the matrix's {n} rows")
+    data = _scipy_mm(name, canonical, lambda s: scipy.io.mmread(s, spmatrix=False))
+    if fmt == "array":
+        vec = np.asarray(data, dtype=np.float64).ravel()
+    else:
+        vec = np.asarray(data.toarray(), dtype=np.float64).ravel()
+    if np.iscomplexobj(vec):
+        raise InputError(name, f"the {what} vector holds complex values")
+    return vec
+
+
+# --------------------------------------------------------------------------- #
+# Harwell-Boeing
+# --------------------------------------------------------------------------- #
+
+_HB_TYPE = re.compile(r"^[RCPI][SUHZR][AE]$")
+
+
+def _hb_lines(head: bytes) -> list[str]:
+    return head.decode("latin-1").splitlines()[:5]
+
+
+def _looks_like_harwell_boeing(name: str, head: bytes) -> bool:
+    lines = _hb_lines(head)
+    if len(lines) >= 4 and _HB_TYPE.match(lines[2][:3].upper()):
+        return True
+    lowered = name.lower()
+    for suffix in (".gz", ".bz2"):
+        lowered = lowered.removesuffix(suffix)
+    return lowered.endswith(HARWELL_BOEING_SUFFIXES)
+
+
+def _hb_int(name: str, line: str, lo: int, hi: int, line_no: int, what: str) -> int:
+    field = line[lo:hi].strip()
+    try:
+        return int(field) if field else 0
+    except ValueError:
+        raise InputError(name, f"line {line_no}: {what} (columns {lo + 1}-{hi}) is not an integer: {field!r}") from None
+
+
+def _read_harwell_boeing(name: str):
+    """Read through scipy.io.hb_read, first fixing the header words it does not take.
+
+    scipy reads only unsymmetric assembled files without right-hand sides and
+    wants header lines padded to 72 characters. An in-memory copy is adjusted
+    (the user's file is never touched): symmetric type ``xSA`` -> ``xUA`` (the
+    stored triangle is mirrored afterwards), right-hand-side count set to 0,
+    header lines padded, Fortran ``D`` exponents written as ``E``.
+    """
+    text = _read_all_bytes(name).decode("latin-1")
+    lines = text.splitlines(keepends=False)
+    if len(lines) < 4:
+        raise InputError(name, f"Harwell-Boeing header needs 4 lines, the file has {len(lines)}")
+    mxtype = lines[2][:3].upper()
+    if not _HB_TYPE.match(mxtype):
+        raise InputError(name, f"line 3: {lines[2][:3]!r} is not a Harwell-Boeing matrix type such as RSA")
+    value, structure, storage = mxtype
+    if value == "C":
+        raise InputError(name, "line 3: the file holds complex values; a stiffness matrix must be real")
+    if value == "P":
+        raise InputError(name, "line 3: the file is pattern-only (no values); a stiffness matrix needs its values")
+    if structure == "Z":
+        raise InputError(name, "line 3: the matrix is labelled skew-symmetric; a stiffness matrix is symmetric")
+    if structure == "H":
+        raise InputError(name, "line 3: the matrix is labelled hermitian; a stiffness matrix is real symmetric")
+    if storage == "E":
+        raise InputError(name, "line 3: elemental (unassembled) storage is not supported; assemble the matrix first")
+    nrows = _hb_int(name, lines[2], 14, 28, 3, "number of rows")
+    ncols = _hb_int(name, lines[2], 28, 42, 3, "number of columns")
+    nnz = _hb_int(name, lines[2], 42, 56, 3, "number of entries")
+    rhs_lines = _hb_int(name, lines[1], 56, 70, 2, "right-hand-side line count")
+    if structure == "R" or nrows != ncols:
+        raise InputError(name, f"line 3: matrix is {nrows} x {ncols}; a stiffness matrix must be square")
+    _require_plausible_size(name, "coordinate", nrows, nnz)
+    notes = [f"read a {nrows} x {ncols} Harwell-Boeing {mxtype} matrix ({nnz} stored entries)"]
+    header = [lines[0].ljust(80), lines[1].ljust(80), lines[2].ljust(80), lines[3]]
+    body = lines[4:]
+    if rhs_lines:
+        header[1] = header[1][:56] + "0".rjust(14) + header[1][70:]
+        body = body[1:]
+        notes.append("right-hand sides stored in the file ignored")
+    header[2] = value + "UA" + header[2][3:]
+    if value == "I":
+        notes.append("integer values converted to float64")
+    values_format = lines[3][32:].upper() if len(lines[3]) > 32 else ""
+    body_text = "\n".join(body) + "\n"
+    if "D" in values_format or re.search(r"\d[dD][+-]?\d", body_text):
+        body_text = re.sub(r"(?<=[\d.])[dD](?=[+-]?\d)", "E", body_text)
+    copy = io.StringIO("\n".join(header) + "\n" + body_text)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            A = scipy.io.hb_read(copy, spmatrix=False)
+            A = sp.csc_array(A)
+            A.check_format(full_check=True)
+    except Exception as exc:  # noqa: BLE001 - every scipy failure becomes an InputError
+        problem = " ".join(str(exc).split())
+        if "could not be read to its end" in problem:
+            problem = "non-numeric data in the pointer, index or value section"
+        elif "should have the same size" in problem:
+            problem = "fewer values or indices than the header announces (cut short?)"
+        raise InputError(name, f"cannot be read as Harwell-Boeing: {problem}") from None
+    if A.shape != (nrows, ncols):
+        raise InputError(name, f"pointer section describes a {A.shape[0]} x {A.shape[1]} matrix, "
+                               f"line 3 says {nrows} x {ncols}")
+    if A.nnz != nnz:
+        raise InputError(name, f"holds {A.nnz} entries, line 3 announces {nnz} "
+                               "(fewer entries than the header says; cut short?)")
+    coo = A.tocoo()
+    stored: Stored = "triangle" if structure == "S" else "general"
+    return coo.row, coo.col, coo.data, nrows, stored, notes
+
+
+# --------------------------------------------------------------------------- #
+# Checks
+# --------------------------------------------------------------------------- #
+
+
+def _require_finite_entries(source: str, rows, cols, vals) -> None:
+    bad = np.flatnonzero(~np.isfinite(vals))
+    if bad.size:
+        first = "; ".join(f"row {int(rows[k]) + 1}, column {int(cols[k]) + 1}" for k in bad[:_FIRST_SHOWN])
+        raise InputError(source, f"{bad.size} {'entry is' if bad.size == 1 else 'entries are'} NaN or Inf (first at {first})")
+
+
+def _require_single_triangle(source: str, rows, cols) -> None:
+    """A symmetric-labelled file must not store both (i, j) and (j, i)."""
+    if rows.size == 0:
+        return
+    lo, hi = np.minimum(rows, cols), np.maximum(rows, cols)
+    n = int(hi.max()) + 1
+    key_stored = rows * n + cols
+    key_pair = lo * n + hi
+    pairs_twice = np.unique(key_pair).size < np.unique(key_stored).size
+    if pairs_twice:
+        # find one example for the message
+        order = np.lexsort((rows > cols, key_pair))
+        kp = key_pair[order]
+        dup = np.flatnonzero((kp[1:] == kp[:-1]) & ((rows > cols)[order][1:] != (rows > cols)[order][:-1]))
+        i, j = (int(lo[order][dup[0]]) + 1, int(hi[order][dup[0]]) + 1) if dup.size else (0, 0)
+        raise InputError(source, f"labelled symmetric (one triangle stored) but stores both ({j}, {i}) and "
+                                 f"({i}, {j}); relabel it 'general' or keep one triangle")
+
+
+def _require_finite_vector(name: str, vec: NDArray[np.float64], what: str) -> None:
+    bad = np.flatnonzero(~np.isfinite(vec))
+    if bad.size:
+        first = ", ".join(str(int(k) + 1) for k in bad[:_FIRST_SHOWN])
+        raise InputError(name, f"the {what} vector has {bad.size} NaN or Inf values (first at rows {first})")
+
+
+# --------------------------------------------------------------------------- #
+# CSV vectors
+# --------------------------------------------------------------------------- #
+
+
+def parse_float(name: str, cell: str, line_no: int, what: str) -> float:
+    """``float(cell)`` or an InputError naming the line."""
+    try:
+        return float(cell)
+    except ValueError:
+        raise InputError(name, f"line {line_no}: {what} {cell!r} is not a number") from None
+
+
+def _read_csv_vector(name: str, n: int, what: str) -> NDArray[np.float64]:
+    rows = read_csv_rows(name)
+    if rows and not _is_number(rows[0][1][0]):
+        rows = rows[1:]  # header line
+    values = []
+    for line_no, cells in rows:
+        if len([c for c in cells if c]) != 1:
+            raise InputError(name, f"line {line_no}: expected one value per line, found {len(cells)} cells")
+        values.append(parse_float(name, next(c for c in cells if c), line_no, "value"))
+    if len(values) != n:
+        raise InputError(name, f"the {what} vector has {len(values)} values but the matrix has {n} rows")
+    return np.asarray(values, dtype=np.float64)
+
+
+def _is_number(cell: str) -> bool:
+    try:
+        float(cell)
+    except ValueError:
+        return False
+    return True
