@@ -1,0 +1,276 @@
+"""The report as one self-contained HTML page.
+
+Inline CSS, figures as base64 PNG ``data:`` URIs, no script and no network
+access, so the file can be mailed or archived as it is. The page reads the
+:class:`~conditioning.results.Report`; plots that need K's diagonal or the
+node positions also take the :class:`~conditioning.model.Model` (input data,
+drawn as given). Figures need matplotlib (the ``report`` extra); without it
+the page lists the figures it could not draw and how to get them.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import logging
+from pathlib import Path
+from typing import Callable, Optional, Union
+
+from conditioning import results
+from conditioning.model import Model
+from conditioning.render import plots
+from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
+                                         summarise_ids)
+
+log = logging.getLogger(__name__)
+
+#: Mode shapes drawn at most (the rest are listed in the tables and JSON).
+MAX_MODE_PLOTS = 12
+
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;margin:2em auto;
+max-width:1000px;color:#1c2833;line-height:1.45;padding:0 1em}
+h1{font-size:1.5em;margin-bottom:.2em}h2{font-size:1.15em;border-bottom:1px solid #d5d8dc;
+margin-top:1.8em}
+.verdict{font-size:1.25em;font-weight:600;padding:.6em .9em;border-radius:6px;margin:1em 0}
+.healthy{background:#e9f7ef;color:#196f3d}.warnings{background:#fef5e7;color:#9a7d0a}
+.errors{background:#fdedec;color:#922b21}
+table{border-collapse:collapse;margin:.5em 0;font-size:.92em}
+td,th{border-bottom:1px solid #eaecee;padding:.25em .7em;text-align:left;vertical-align:top}
+th{background:#f4f6f7}td.num{text-align:right;font-variant-numeric:tabular-nums}
+.sev-error{color:#922b21;font-weight:600}.sev-warning{color:#9a7d0a;font-weight:600}
+.sev-note{color:#1f618d}.how{color:#566573;font-size:.88em}
+figure{margin:1em 0}figcaption{color:#566573;font-size:.88em}img{max-width:100%}
+.missing{background:#f4f6f7;padding:.6em .9em;border-left:4px solid #aab7b8}
+.caution{margin-top:2em;font-style:italic;color:#566573}
+"""
+
+
+def render_html(report: results.Report, model: Optional[Model] = None) -> str:
+    """The report as a self-contained HTML document.
+
+    Parameters
+    ----------
+    report : results.Report
+        The diagnosis.
+    model : Model, optional
+        The model it was made from, for the diagonal histogram, the digits
+        over the node positions and the mode shapes; without it only the
+        spectrum is drawn.
+
+    Returns
+    -------
+    str
+        The HTML text (UTF-8).
+    """
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        '<link rel="icon" href="data:,">',
+        f"<title>conditioning report: {_e(report.summary.source)}</title>",
+        f"<style>{_CSS}</style></head><body>",
+        f"<h1>Stiffness matrix report: {_e(report.summary.source)}</h1>",
+        f'<div class="verdict {_e(report.status)}">{_e(report.verdict)}</div>',
+        _findings(report),
+        _summary(report),
+        _condition(report),
+        _modes(report),
+        _restraints(report),
+        _jumps(report),
+        _digits(report),
+        _figures(report, model),
+        f'<p class="caution">{_e(report.caution)}</p>',
+        "</body></html>",
+    ]
+    return "\n".join(p for p in parts if p)
+
+
+def write_html(report: results.Report, path: Union[str, Path],
+               model: Optional[Model] = None) -> None:
+    """Write :func:`render_html` to ``path``."""
+    Path(path).write_text(render_html(report, model), encoding="utf-8")
+
+
+# ------------------------------------------------------------------ helpers
+def _e(text) -> str:
+    return html.escape(str(text), quote=True)
+
+
+def _table(head: Optional[list[str]], rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
+    out = ["<table>"]
+    if head:
+        out.append("<tr>" + "".join(f"<th>{_e(h)}</th>" for h in head) + "</tr>")
+    for row in rows:
+        cells = "".join(f'<td class="num">{_e(c)}</td>' if i in numeric else f"<td>{_e(c)}</td>"
+                        for i, c in enumerate(row))
+        out.append(f"<tr>{cells}</tr>")
+    out.append("</table>")
+    return "".join(out)
+
+
+def _findings(r: results.Report) -> str:
+    if not r.findings:
+        return "<h2>Findings</h2><p>No findings.</p>"
+    items = []
+    order = {"error": 0, "warning": 1, "note": 2}
+    for f in sorted(r.findings, key=lambda f: order.get(f.severity, 3)):
+        nodes = f" (nodes {_e(summarise_ids(f.nodes, 12))})" if f.nodes else ""
+        advice = f"<br>Advice: {_e(f.advice)}" if f.advice else ""
+        items.append(f'<li><span class="sev-{_e(f.severity)}">{_e(f.severity)}</span> '
+                     f'<code>{_e(f.code)}</code> {_e(f.message)}{nodes}{advice}</li>')
+    return "<h2>Findings</h2><ul>" + "".join(items) + "</ul>"
+
+
+def _summary(r: results.Report) -> str:
+    s, st = r.summary, r.structure
+    rows = [["rows (DOFs)", f"{s.rows:,}"], ["stored entries", f"{s.stored_entries:,}"],
+            ["nodes", "no DOF map given" if s.nodes is None else f"{s.nodes:,}"
+             + (f" ({s.dim}D)" if s.dim else "")],
+            ["dof types", ", ".join(s.dof_types) or "-"],
+            ["load / solution", f"{'given' if s.has_load else 'not given'} / "
+                                f"{'given' if s.has_solution else 'not given'}"],
+            ["connected parts", str(st.parts)],
+            ["DOFs without stiffness", str(len(st.empty_rows))],
+            ["asymmetry", "none" if st.asymmetry.row < 0 else fmt_number(st.asymmetry.relative)]]
+    if s.restrained:
+        rows.append(["restrained (removed)", f"{s.restrained:,}"])
+    rows += [["note", n] for n in s.notes]
+    return "<h2>Model</h2>" + _table(None, rows)
+
+
+def _condition(r: results.Report) -> str:
+    c = r.condition
+    if c is None:
+        return "<h2>Condition number</h2><p>Not computed.</p>"
+    rows = []
+    for name, value, method in (("2-norm, raw K", c.estimate, c.estimate_method),
+                                ("2-norm, scaled D^-1/2 K D^-1/2", c.scaled_estimate,
+                                 c.scaled_method),
+                                ("1-norm, raw K", c.one_norm_estimate, c.one_norm_method)):
+        rows.append([name, "singular" if value is None else fmt_number(value),
+                     how_obtained(method), method])
+    text = ""
+    if c.scaling_gain_digits is not None:
+        text = (f"<p>Scaling removes {c.scaling_gain_digits:.1f} digits of the raw figure "
+                "(units or DOF-type mixing, mostly harmless); the scaled figure governs the "
+                "accuracy of the solve.</p>")
+    return ("<h2>Condition number</h2>"
+            + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
+
+
+def _modes(r: results.Report) -> str:
+    sp = r.spectrum
+    if sp is None:
+        return ""
+    head = f"<p>{sp.count} near-singular mode(s)"
+    if sp.gap is not None:
+        head += f", gap ratio {_e(fmt_number(sp.gap))}"
+    head += f"; rule: {_e(sp.gap_rule)}"
+    if sp.inertia_count is not None:
+        head += (f"; inertia count {sp.inertia_count} "
+                 f"({'agrees' if sp.inertia_agrees else 'does not agree'})")
+    head += f'. <span class="how">{_e(sp.method)}</span></p>'
+    if not sp.modes:
+        return "<h2>Near-singular modes</h2>" + head
+    rows = [[str(k), m.kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+             fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-",
+             str(m.part), summarise_ids(m.nodes, 12)] for k, m in enumerate(sp.modes, start=1)]
+    return ("<h2>Near-singular modes</h2>" + head
+            + _table(["#", "kind", "eigenvalue", "relative", "motion", "part", "nodes"], rows,
+                     {0, 2, 3}))
+
+
+def _restraints(r: results.Report) -> str:
+    if not r.restraints:
+        return ""
+    rows = [[f"node {x.node}", x.dof, x.reason] for x in r.restraints]
+    return ("<h2>Suggested restraints</h2>" + _table(["node", "dof", "why"], rows)
+            + "<p>A restraint must exist in the real structure (or the part must be "
+              "connected).</p>")
+
+
+def _jumps(r: results.Report) -> str:
+    if not r.jumps:
+        return ""
+    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), f"{j.digits_cost:.1f}",
+             fmt_number(j.advice_value), j.reasoning] for j in r.jumps]
+    return "<h2>Stiffness jumps</h2>" + _table(
+        ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
+
+
+def _digits(r: results.Report) -> str:
+    dg = r.digits
+    if dg is None:
+        return ""
+    if dg.skipped:
+        return f"<h2>Digits of the displacements</h2><p>Not measured: {_e(dg.skipped)}</p>"
+    rows = []
+    for s in dg.samples:
+        worst = ", ".join(f"{w.node} ({fmt_digits(w.digits)})" for w in s.worst_nodes[:8])
+        rows.append([s.sample, fmt_digits(s.trustworthy_digits), fmt_digits(s.digits_lost),
+                     s.method, "yes" if s.converged else f"no ({s.stop_reason})",
+                     fmt_number(s.normwise_bound) if s.bound_trusted else "withdrawn",
+                     worst or "-"])
+    pred = (f"<p>Rule-of-thumb prediction (16 - log10 kappa): raw "
+            f"{fmt_digits(dg.predicted_raw)}, scaled {fmt_digits(dg.predicted_scaled)} "
+            f"digits. {_e(dg.summary)}</p>")
+    return ("<h2>Digits of the displacements</h2>"
+            + _table(["sample", "trustworthy digits", "digits lost", "method", "converged",
+                      "error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
+
+
+def _figures(r: results.Report, model: Optional[Model]) -> str:
+    wanted: list[tuple[str, str, Callable[[], Optional[bytes]]]] = []
+    if r.spectrum is not None and len(r.spectrum.smallest):
+        wanted.append(("Eigenvalue spectrum near zero",
+                       "Smallest eigenvalues of the scaled matrix, log scale; the dashed line "
+                       "marks the gap that separates the near-singular modes.",
+                       lambda: plots.spectrum_png(r.spectrum)))
+    if model is not None:
+        wanted.append(("Diagonal magnitudes by dof type",
+                       "Histogram of log10 |K_ii|; dotted lines mark penalty-like outliers.",
+                       lambda: plots.diagonal_histogram_png(model, r.jumps)))
+        sample = _digits_sample(r)
+        if sample is not None:
+            wanted.append(("Trustworthy digits per node",
+                           "Worst component of each node; over the node positions when given.",
+                           lambda: plots.digits_png(model, sample)))
+        if r.spectrum is not None:
+            for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
+                wanted.append((f"Mode {k}: {mode.kind}",
+                               "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
+                               "the model size); circles mark the nodes that locate the mode.",
+                               lambda mode=mode, k=k: plots.mode_shape_png(model, mode, k)))
+    if not wanted:
+        return ""
+    try:
+        plots.require_matplotlib()
+    except ImportError:
+        names = "".join(f"<li>{_e(t)}</li>" for t, _, _ in wanted)
+        return ('<h2>Figures</h2><div class="missing">These figures need matplotlib, which is '
+                "not installed (install the optional extra: "
+                "<code>pip install 'fe-conditioning[report]'</code>):"
+                f"<ul>{names}</ul></div>")
+    out = ["<h2>Figures</h2>"]
+    for title, caption, draw in wanted:
+        png = draw()
+        if png is None:
+            continue
+        data = base64.b64encode(png).decode("ascii")
+        out.append(f'<figure><img alt="{_e(title)}" src="data:image/png;base64,{data}">'
+                   f"<figcaption><b>{_e(title)}.</b> {_e(caption)}</figcaption></figure>")
+    if r.spectrum is not None and len(r.spectrum.modes) > MAX_MODE_PLOTS:
+        out.append(f"<p>Only the first {MAX_MODE_PLOTS} of {len(r.spectrum.modes)} modes are "
+                   "drawn; export all with --modes-vtk or --modes-csv.</p>")
+    return "\n".join(out)
+
+
+def _digits_sample(r: results.Report) -> Optional[results.DigitsSample]:
+    if r.digits is None:
+        return None
+    with_per_dof = [s for s in r.digits.samples if s.per_dof_digits is not None]
+    for s in with_per_dof:
+        if s.sample == "load":
+            return s
+    return with_per_dof[0] if with_per_dof else None

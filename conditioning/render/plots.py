@@ -1,0 +1,223 @@
+"""Figures for the HTML report, as PNG bytes (matplotlib, an optional extra).
+
+Each function draws figures the stages already computed, or the model's
+input data (the diagonal of K, node positions); none computes a diagnosis.
+matplotlib is imported lazily through :func:`require_matplotlib`, which
+raises ImportError when the ``report`` extra is not installed; the HTML page
+then says which plots need it. The object-oriented API (``Figure`` with the
+Agg canvas) is used so no global pyplot state or GUI backend is touched.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import Optional
+
+import numpy as np
+from numpy.typing import NDArray
+
+from conditioning import results
+from conditioning.model import DOF_NAMES, Model
+
+#: Edges of the node graph drawn under mode shapes, at most (beyond: points).
+MAX_EDGES = 20000
+
+_FLOOR = 1e-20
+
+
+def require_matplotlib():
+    """The ``matplotlib.figure.Figure`` class; ImportError without the extra."""
+    from matplotlib.figure import Figure  # noqa: PLC0415 - optional extra
+
+    return Figure
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
+    return buf.getvalue()
+
+
+def spectrum_png(spectrum: results.SpectrumResult) -> bytes:
+    """Smallest eigenvalues of the scaled matrix on a log scale, gap marked.
+
+    Eigenvalues at or below zero are drawn at the floor 1e-20 with their own
+    marker (a log scale cannot show them).
+    """
+    Figure = require_matplotlib()
+    lam = np.asarray(spectrum.smallest, dtype=float)
+    idx = np.arange(1, lam.size + 1)
+    fig = Figure(figsize=(6.5, 3.6))
+    ax = fig.subplots()
+    pos = lam > 0
+    shown = np.where(pos, lam, _FLOOR)
+    is_mode = idx <= spectrum.count
+    ax.semilogy(idx[is_mode & pos], shown[is_mode & pos], "o", color="#c0392b",
+                label="near-singular mode")
+    ax.semilogy(idx[~is_mode & pos], shown[~is_mode & pos], "o", color="#2c5d8a",
+                label="rest of the spectrum")
+    if (~pos).any():
+        ax.semilogy(idx[~pos], shown[~pos], "v", color="#7d3c98",
+                    label="zero or negative (drawn at 1e-20)")
+    if spectrum.count and spectrum.count < lam.size:
+        lo, hi = shown[spectrum.count - 1], shown[spectrum.count]
+        line = math.sqrt(max(lo, _FLOOR) * max(hi, _FLOOR))
+        ax.axhline(line, ls="--", color="#555555", lw=1)
+        gap = "" if spectrum.gap is None else f" (ratio {spectrum.gap:.2g})"
+        ax.text(0.5 + 0.02 * lam.size, line * 1.5, f"gap{gap}", color="#555555", fontsize=8)
+    ax.set_xlabel("eigenvalue index (ascending)")
+    ax.set_ylabel("eigenvalue of D^-1/2 K D^-1/2")
+    ax.set_xticks(idx if idx.size <= 20 else idx[:: max(1, idx.size // 10)])
+    ax.grid(True, which="major", alpha=0.3)
+    ax.legend(fontsize=8, loc="lower right")
+    return _png(fig)
+
+
+def diagonal_histogram_png(model: Model, jumps: list[results.StiffnessJump]) -> bytes:
+    """Histogram of log10 |K_ii| by dof type; penalty outliers marked."""
+    Figure = require_matplotlib()
+    diag = np.abs(model.K.diagonal())
+    nonzero = diag > 0
+    fig = Figure(figsize=(6.5, 3.6))
+    ax = fig.subplots()
+    logd = np.log10(np.where(nonzero, diag, 1.0))
+    lo, hi = (logd[nonzero].min(), logd[nonzero].max()) if nonzero.any() else (0.0, 1.0)
+    bins = np.linspace(math.floor(lo) - 0.5, math.ceil(hi) + 0.5, 41)
+    if model.dofs is None:
+        groups = [("all rows", nonzero)]
+    else:
+        groups = [(DOF_NAMES[d], nonzero & (model.dofs.dof == d)) for d in model.dofs.dof_types]
+    largest = 0
+    for name, mask in groups:
+        if mask.any():
+            counts, _, _ = ax.hist(logd[mask], bins=bins, histtype="step", lw=1.5, label=name)
+            largest = max(largest, int(np.max(counts)))
+    for j in jumps:
+        if j.kind == "diagonal-outlier":
+            for row in j.rows:
+                ax.axvline(logd[row], color="#c0392b", ls=":", lw=1)
+    if largest > 50:  # a log count axis keeps a single outlier row visible
+        ax.set_yscale("log")
+    ax.set_xlabel("log10 |K_ii| (model units)")
+    ax.set_ylabel("rows")
+    zero = int((~nonzero).sum())
+    title = "diagonal magnitudes by dof type"
+    if zero:
+        title += f" ({zero} zero diagonal entries not shown)"
+    ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=8)
+    return _png(fig)
+
+
+def node_digits(model: Model, per_dof: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+    """``(nodes, digits)``: the worst (lowest) finite per-DOF figure of each node."""
+    per_dof = np.asarray(per_dof, dtype=float)
+    if model.dofs is None:
+        return np.arange(1, per_dof.size + 1), per_dof
+    nodes = model.dofs.nodes
+    where = np.searchsorted(nodes, model.dofs.node)
+    worst = np.full(nodes.size, np.inf)
+    finite = np.isfinite(per_dof)
+    np.minimum.at(worst, where[finite], per_dof[finite])
+    worst[np.isinf(worst)] = np.nan
+    return nodes, worst
+
+
+def digits_png(model: Model, sample: results.DigitsSample) -> bytes:
+    """Trustworthy digits per node, over the node positions when known."""
+    Figure = require_matplotlib()
+    nodes, digits = node_digits(model, sample.per_dof_digits)
+    fig = Figure(figsize=(6.5, 4.2))
+    ax = fig.subplots()
+    if model.coords is not None and model.dofs is not None and model.coords.has(nodes).all():
+        xy = _project(model.coords.lookup(nodes), model.coords.dim)
+        sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="viridis_r", s=_marker(nodes.size),
+                        edgecolors="none")
+        fig.colorbar(sc, ax=ax, label="trustworthy digits")
+        ax.set_aspect("equal", adjustable="datalim")
+        ax.set_xlabel("x" if model.coords.dim == 2 else "projection")
+    else:
+        ax.plot(nodes, digits, ".", color="#2c5d8a")
+        ax.set_xlabel("node" if model.dofs is not None else "row")
+        ax.set_ylabel("trustworthy digits")
+    ax.set_title(f"trustworthy digits per node, sample '{sample.sample}' ({sample.method})",
+                 fontsize=9)
+    return _png(fig)
+
+
+def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int) -> Optional[bytes]:
+    """Mode ``k`` drawn as a displaced shape over the node positions.
+
+    The node graph of K (nodes coupled by a stored entry) is drawn undeformed
+    in grey and displaced in colour; 3D models are shown in an isometric
+    projection. Returns None when the model has no map, no coordinates, or
+    the mode no vector.
+    """
+    Figure = require_matplotlib()
+    if model.dofs is None or model.coords is None or mode.vector is None:
+        return None
+    from conditioning.render.modes_export import nodal_field
+
+    nodes, trans = nodal_field(model, mode.vector, (0, 1, 2))
+    if not model.coords.has(nodes).all():
+        return None
+    xyz = model.coords.lookup(nodes)
+    extent = float(np.ptp(xyz, axis=0).max()) or 1.0
+    amp = float(np.abs(trans).max())
+    scale = 0.15 * extent / amp if amp > 0 else 0.0
+    dim = model.coords.dim
+    base = _project(xyz, dim)
+    moved = _project(xyz + scale * trans, dim)
+    fig = Figure(figsize=(6.5, 4.2))
+    ax = fig.subplots()
+    edges = _node_edges(model, nodes)
+    if edges is not None:
+        from matplotlib.collections import LineCollection
+
+        ax.add_collection(LineCollection(base[edges], colors="#bbbbbb", lw=0.8))
+        ax.add_collection(LineCollection(moved[edges], colors="#c0392b", lw=1.0))
+    ax.plot(base[:, 0], base[:, 1], ".", color="#999999", ms=3)
+    ax.plot(moved[:, 0], moved[:, 1], ".", color="#c0392b", ms=4)
+    located = np.isin(nodes, np.asarray(mode.nodes, dtype=np.int64))
+    if located.any() and located.sum() < nodes.size:
+        ax.plot(base[located, 0], base[located, 1], "o", mfc="none", color="#1a5276", ms=8,
+                label="nodes that locate the mode")
+        ax.legend(fontsize=8, loc="best")
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.autoscale_view()
+    how = f"{mode.kind}"
+    if mode.motion:
+        how += ": " + ", ".join(f"{n} {s:.0%}" for n, s in
+                                sorted(mode.motion.items(), key=lambda t: -t[1]) if s >= 0.01)
+    note = "" if amp > 0 else " (no translation: rotations only)"
+    ax.set_title(f"mode {k}, {how}{note}", fontsize=9)
+    ax.set_xticks([])
+    ax.set_yticks([])
+    return _png(fig)
+
+
+# ------------------------------------------------------------------ helpers
+def _project(xyz: NDArray[np.float64], dim: int) -> NDArray[np.float64]:
+    """x-y for 2D; an isometric projection (view along (1, 1, 1)) for 3D."""
+    if dim == 2:
+        return xyz[:, :2]
+    c, s = math.cos(math.radians(30)), math.sin(math.radians(30))
+    x, y, z = xyz[:, 0], xyz[:, 1], xyz[:, 2]
+    return np.column_stack([(x - y) * c, z + (x + y) * s])
+
+
+def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.intp]]:
+    """Pairs of node positions (indices into ``nodes``) coupled in K."""
+    coo = model.K.tocoo()
+    a = np.searchsorted(nodes, model.dofs.node[coo.row])
+    b = np.searchsorted(nodes, model.dofs.node[coo.col])
+    keep = a < b
+    pairs = np.unique(np.column_stack([a[keep], b[keep]]), axis=0)
+    if pairs.shape[0] > MAX_EDGES:
+        return None
+    return pairs
+
+
+def _marker(m: int) -> float:
+    return float(np.clip(4000.0 / max(m, 1), 2.0, 60.0))
