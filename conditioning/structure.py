@@ -29,6 +29,20 @@ def _asymmetry(K: sp.csr_array) -> Asymmetry:
     return Asymmetry(relative=float(abs(coo.data[k]) / scale), row=min(i, j), col=max(i, j))
 
 
+def _parts(model: Model, K: sp.csr_array) -> tuple[int, np.ndarray]:
+    """Connected parts, per row. With a DOF map the graph is over nodes (two
+    nodes are connected when any of their DOFs couple), so that a truss whose
+    bars happen to be axis-aligned is still one part; without a map, over rows."""
+    if model.dofs is None:
+        return csgraph.connected_components(K, directed=True, connection="weak")
+    _, inv = np.unique(model.dofs.node, return_inverse=True)
+    coo = K.tocoo()
+    m = int(inv.max()) + 1 if inv.size else 0
+    G = sp.coo_array((np.ones(coo.nnz), (inv[coo.row], inv[coo.col])), shape=(m, m))
+    n_comp, node_labels = csgraph.connected_components(G, directed=True, connection="weak")
+    return n_comp, node_labels[inv]
+
+
 def check_structure(model: Model) -> StructureResult:
     """Structural checks of ``model.K``.
 
@@ -47,8 +61,7 @@ def check_structure(model: Model) -> StructureResult:
     diag = K.diagonal()
     zero_diag = np.flatnonzero((diag == 0) & (row_nnz > 0))
     negative = np.flatnonzero(diag < 0)
-    # Parts: weak connectivity of the (symmetrised) graph.
-    n_comp, labels = csgraph.connected_components(K, directed=True, connection="weak")
+    n_comp, labels = _parts(model, K)
     sizes = np.bincount(labels, minlength=n_comp)
     # Relabel so that parts are numbered by size, largest first (stable for reports).
     order = np.lexsort((np.arange(n_comp), -sizes))
