@@ -497,7 +497,8 @@ def _read_matrix_market(name: str, head: bytes):
     n = nrows
     _require_plausible_size(name, fmt, n, entries)
     data = _scipy_mm(name, canonical, lambda s: scipy.io.mmread(s, spmatrix=False))
-    notes = [f"read a {n} x {n} Matrix Market {fmt} {field} {symmetry} matrix ({entries} stored entries)"
+    stored_count = f" ({entries} stored entries)" if fmt == "coordinate" else ""
+    notes = [f"read a {n} x {n} Matrix Market {fmt} {field} {symmetry} matrix{stored_count}"
              + (f" ({_compression(name)}-compressed)" if _compression(name) else "")]
     if field == "integer":
         notes.append("integer values converted to float64")

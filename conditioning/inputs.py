@@ -1,0 +1,456 @@
+"""Building a :class:`~conditioning.model.Model` from the user's files or arrays.
+
+``load_model`` reads the stiffness matrix (:mod:`conditioning.matrix_io`),
+the optional DOF map, node coordinates, load and solution vectors, applies
+restraints by removing their rows and columns, and records every step as a
+note for the report. Everything that does not fit together raises
+:class:`~conditioning.errors.InputError` naming the file and the line.
+
+File layouts (comma-separated text; a header line is optional, blank lines
+and lines starting with ``#`` are skipped):
+
+* DOF map: ``node,dof``, one line per matrix row in row order; ``node`` an
+  integer id, ``dof`` one of ``ux, uy, uz, rx, ry, rz``.
+* Coordinates: ``node,x,y,z`` (``z`` may be left out: a 2D model).
+* Restraints: ``node,dof``, one line per restrained degree of freedom.
+* Load and solution: one value per line, or a Matrix Market n x 1 file.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Mapping
+from typing import Optional, Sequence, Union
+
+import numpy as np
+import scipy.sparse as sp
+from numpy.typing import ArrayLike, NDArray
+
+from conditioning.errors import InputError
+from conditioning.matrix_io import (
+    assemble_symmetric,
+    parse_float,
+    read_csv_rows,
+    read_matrix,
+    read_vector,
+)
+from conditioning.model import DOF_NAMES, DOFS_PER_NODE_LAYOUT, Coordinates, DofTable, Model
+
+logger = logging.getLogger(__name__)
+
+ARRAY_SOURCE = "<array>"
+PathLike = Union[str, "os.PathLike[str]"]
+MatrixInput = Union[PathLike, sp.sparray, sp.spmatrix, np.ndarray]
+DofPairs = Sequence[tuple[int, Union[str, int]]]
+
+_DOF_INDEX = {name: k for k, name in enumerate(DOF_NAMES)}
+_FIRST_SHOWN = 3
+
+
+def load_model(
+    matrix: MatrixInput,
+    *,
+    dofs: Union[PathLike, DofTable, DofPairs, None] = None,
+    dofs_per_node: Optional[int] = None,
+    coords: Union[PathLike, Coordinates, ArrayLike, Mapping, None] = None,
+    load: Union[PathLike, ArrayLike, None] = None,
+    solution: Union[PathLike, ArrayLike, None] = None,
+    fix: Union[PathLike, DofPairs, None] = None,
+) -> Model:
+    """Read a stiffness matrix and its model context into a :class:`Model`.
+
+    Parameters
+    ----------
+    matrix : path, scipy sparse matrix or (n, n) ndarray
+        Matrix Market or Harwell-Boeing file (see
+        :func:`conditioning.matrix_io.read_matrix`), or the matrix itself
+        (source ``"<array>"``); units force/length, moment/rotation.
+    dofs : path, DofTable or sequence of (node, dof) pairs, optional
+        Which node and component each matrix row is, in row order. A pair's
+        ``dof`` is a name (``"ux"`` ... ``"rz"``) or its index 0-5.
+    dofs_per_node : {2, 3, 6}, optional
+        Shortcut instead of ``dofs``: nodes 1..N in row order, each with the
+        layout :data:`conditioning.model.DOFS_PER_NODE_LAYOUT` ``[K]``.
+    coords : path, Coordinates, (m, 3) or (m, 4) array, or mapping, optional
+        Node positions: file ``node,x,y[,z]``; an array with the same columns
+        (node id first); or ``{node: (x, y[, z])}``. Needs a DOF map.
+    load, solution : path or (n,) array, optional
+        Load vector (force units) and a displacement vector computed
+        elsewhere (length units), both over all ``n`` matrix rows.
+    fix : path or sequence of (node, dof) pairs, optional
+        Restrained degrees of freedom; their rows and columns are removed
+        from the matrix, the vectors and the DOF map. Needs a DOF map.
+
+    Returns
+    -------
+    Model
+        ``K`` in full symmetric CSR storage (float64, no stored zeros),
+        restrained rows removed, ``restrained`` their count and ``notes``
+        one sentence per thing the reader did.
+
+    Raises
+    ------
+    InputError
+        Any file missing, empty or malformed, or parts that do not fit
+        together (lengths, unknown dof names, duplicate (node, dof) pairs,
+        coordinates missing for mapped nodes, restraints not in the map).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> K = np.array([[2.0, -1.0, 0.0], [-1.0, 2.0, -1.0], [0.0, -1.0, 1.0]])
+    >>> model = load_model(K, fix=None)
+    >>> model.n, model.source
+    (3, '<array>')
+    """
+    K, source, notes = _read_stiffness(matrix)
+    n = int(K.shape[0])
+    table = _dof_map(dofs, dofs_per_node, n, source, notes)
+    positions = _coordinates(coords, table, notes)
+    f = _vector(load, n, "load", notes)
+    u = _vector(solution, n, "solution", notes)
+    restrained = 0
+    if fix is not None:
+        keep, restrained = _restraint_rows(fix, table, n, notes)
+        K = _principal_submatrix(K, keep)
+        table = table.take(keep) if table is not None else None
+        f = f[keep] if f is not None else None
+        u = u[keep] if u is not None else None
+    logger.info("model %s: n = %d, %d restrained", source, K.shape[0], restrained)
+    return Model(K=K, source=source, dofs=table, coords=positions, load=f, solution=u,
+                 restrained=restrained, notes=tuple(notes))
+
+
+# --------------------------------------------------------------------------- #
+# Matrix
+# --------------------------------------------------------------------------- #
+
+
+def _is_path(value) -> bool:
+    return isinstance(value, (str, os.PathLike))
+
+
+def _read_stiffness(matrix) -> tuple[sp.csr_array, str, list[str]]:
+    if _is_path(matrix):
+        K, notes = read_matrix(matrix)
+        return K, str(matrix), list(notes)
+    if sp.issparse(matrix) or isinstance(matrix, np.ndarray):
+        notes: list[str] = []
+        return _matrix_from_array(matrix, notes), ARRAY_SOURCE, notes
+    raise InputError(ARRAY_SOURCE, f"expected a file path or a matrix, got {type(matrix).__name__}")
+
+
+def _matrix_from_array(A, notes: list[str]) -> sp.csr_array:
+    if A.ndim != 2 or A.shape[0] != A.shape[1]:
+        raise InputError(ARRAY_SOURCE, f"matrix has shape {A.shape}; a stiffness matrix must be square")
+    if A.shape[0] == 0:
+        raise InputError(ARRAY_SOURCE, "matrix has no rows (order 0)")
+    if np.iscomplexobj(A) if not sp.issparse(A) else np.iscomplexobj(A.data):
+        raise InputError(ARRAY_SOURCE, "holds complex values; a stiffness matrix must be real")
+    try:
+        if sp.issparse(A):
+            coo = sp.coo_array(A)
+            rows, cols, vals = coo.row, coo.col, np.asarray(coo.data, dtype=np.float64)
+        else:
+            dense = np.asarray(A, dtype=np.float64)
+            rows, cols = np.nonzero(dense)
+            vals = dense[rows, cols]
+    except (TypeError, ValueError) as exc:
+        raise InputError(ARRAY_SOURCE, f"values cannot be converted to float64 ({exc})") from None
+    notes.append(f"took a {A.shape[0]} x {A.shape[0]} matrix given as an array")
+    return assemble_symmetric(rows, cols, vals, int(A.shape[0]), stored="general",
+                              source=ARRAY_SOURCE, notes=notes)
+
+
+def _principal_submatrix(K: sp.csr_array, keep: NDArray[np.intp]) -> sp.csr_array:
+    sub = sp.csr_array(K[keep, :][:, keep])
+    sub.sort_indices()
+    return sub
+
+
+# --------------------------------------------------------------------------- #
+# DOF map
+# --------------------------------------------------------------------------- #
+
+
+def _dof_map(dofs, dofs_per_node, n: int, matrix_source: str, notes: list[str]) -> Optional[DofTable]:
+    if dofs is not None and dofs_per_node is not None:
+        where = str(dofs) if _is_path(dofs) else ARRAY_SOURCE
+        raise InputError(where, "give either a DOF map or a number of dofs per node, not both")
+    if dofs_per_node is not None:
+        return _uniform_dof_map(dofs_per_node, n, matrix_source, notes)
+    if dofs is None:
+        return None
+    if _is_path(dofs):
+        source = str(dofs)
+        node, dof, lines = _dof_pairs_from_csv(source)
+    elif isinstance(dofs, DofTable):
+        source, lines = ARRAY_SOURCE, None
+        node, dof = np.asarray(dofs.node, dtype=np.int64), np.asarray(dofs.dof, dtype=np.int8)
+    else:
+        source, lines = ARRAY_SOURCE, None
+        node, dof = _dof_pairs_from_sequence(dofs, source)
+    if node.size != n:
+        raise InputError(source, f"DOF map has {node.size} rows but the matrix has {n} rows")
+    _require_unique_pairs(source, node, dof, lines)
+    table = DofTable(node=node, dof=dof)
+    names = ", ".join(DOF_NAMES[d] for d in table.dof_types)
+    notes.append(f"DOF map from {source}: {n} rows on {table.nodes.size} nodes ({names})")
+    return table
+
+
+def _uniform_dof_map(k, n: int, matrix_source: str, notes: list[str]) -> DofTable:
+    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or int(k) not in DOFS_PER_NODE_LAYOUT:
+        raise InputError(matrix_source, f"dofs per node must be one of {sorted(DOFS_PER_NODE_LAYOUT)}, got {k!r}")
+    k = int(k)
+    if n % k:
+        raise InputError(matrix_source, f"matrix has {n} rows, not a multiple of {k} dofs per node")
+    layout = np.array([_DOF_INDEX[name] for name in DOFS_PER_NODE_LAYOUT[k]], dtype=np.int8)
+    nodes = n // k
+    notes.append(f"DOF map assumed: {nodes} nodes numbered 1..{nodes} in row order, "
+                 f"{k} dofs per node ({', '.join(DOFS_PER_NODE_LAYOUT[k])})")
+    return DofTable(node=np.repeat(np.arange(1, nodes + 1, dtype=np.int64), k), dof=np.tile(layout, nodes))
+
+
+def _header_columns(source: str, rows, required: tuple[str, ...], optional: tuple[str, ...] = ()):
+    """Column positions from a header line, or None when the first line is data."""
+    line_no, cells = rows[0]
+    if _is_int(cells[0]):
+        return None
+    names = [c.lower() for c in cells]
+    positions = {}
+    for col in required + optional:
+        if col in names:
+            positions[col] = names.index(col)
+        elif col in required:
+            raise InputError(source, f"line {line_no}: header {','.join(cells)!r} lacks a {col!r} column "
+                                     f"(expected {','.join(required + optional)})")
+    return positions
+
+
+def _parse_node(source: str, cell: str, line_no: int) -> int:
+    if not _is_int(cell):
+        raise InputError(source, f"line {line_no}: node {cell!r} is not an integer")
+    return int(cell)
+
+
+def _parse_dof(source: str, cell, line_no: Optional[int]) -> int:
+    where = f"line {line_no}: " if line_no is not None else ""
+    if isinstance(cell, (int, np.integer)) and not isinstance(cell, bool):
+        if 0 <= int(cell) < len(DOF_NAMES):
+            return int(cell)
+        raise InputError(source, f"{where}dof index {int(cell)} is not in 0..{len(DOF_NAMES) - 1}")
+    name = str(cell).strip().lower()
+    if name not in _DOF_INDEX:
+        raise InputError(source, f"{where}unknown dof {str(cell)!r}; use one of {', '.join(DOF_NAMES)}")
+    return _DOF_INDEX[name]
+
+
+def _csv_pairs(source: str) -> tuple[list[int], list[int], list[int]]:
+    """(node, dof index, line number) triples of a ``node,dof`` CSV file."""
+    rows = read_csv_rows(source)
+    header = _header_columns(source, rows, ("node", "dof"))
+    if header is not None:
+        rows = rows[1:]
+    ni, di = (header["node"], header["dof"]) if header else (0, 1)
+    nodes, dofs, lines = [], [], []
+    for line_no, cells in rows:
+        if len(cells) <= max(ni, di):
+            raise InputError(source, f"line {line_no}: expected node,dof, found {','.join(cells)!r}")
+        nodes.append(_parse_node(source, cells[ni], line_no))
+        dofs.append(_parse_dof(source, cells[di], line_no))
+        lines.append(line_no)
+    return nodes, dofs, lines
+
+
+def _dof_pairs_from_csv(source: str):
+    nodes, dofs, lines = _csv_pairs(source)
+    return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8), lines
+
+
+def _dof_pairs_from_sequence(pairs, source: str):
+    nodes, dofs = [], []
+    try:
+        for node, dof in pairs:
+            if isinstance(node, (bool, np.bool_)) or int(node) != node:
+                raise InputError(source, f"node {node!r} is not an integer")
+            nodes.append(int(node))
+            dofs.append(_parse_dof(source, dof, None))
+    except (TypeError, ValueError):
+        raise InputError(source, "expected a DofTable or a sequence of (node, dof) pairs") from None
+    return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8)
+
+
+def _require_unique_pairs(source: str, node, dof, lines: Optional[list[int]]) -> None:
+    key = node.astype(np.int64) * len(DOF_NAMES) + dof
+    order = np.argsort(key, kind="stable")
+    same = np.flatnonzero(key[order][1:] == key[order][:-1])
+    if same.size:
+        a, b = int(order[same[0]]), int(order[same[0] + 1])
+        where = (f"lines {lines[a]} and {lines[b]}" if lines is not None else f"rows {a + 1} and {b + 1}")
+        raise InputError(source, f"{where} both map node {int(node[a])} {DOF_NAMES[int(dof[a])]} "
+                                 f"(duplicate (node, dof) pair)")
+
+
+# --------------------------------------------------------------------------- #
+# Coordinates
+# --------------------------------------------------------------------------- #
+
+
+def _coordinates(coords, table: Optional[DofTable], notes: list[str]) -> Optional[Coordinates]:
+    if coords is None:
+        return None
+    source = str(coords) if _is_path(coords) else ARRAY_SOURCE
+    if table is None:
+        raise InputError(source, "coordinates need a DOF map (a dofs file or dofs per node) "
+                                 "to link nodes to matrix rows")
+    if _is_path(coords):
+        node, xyz, has_z, lines = _coordinates_from_csv(source)
+    elif isinstance(coords, Coordinates):
+        node, xyz, has_z, lines = np.asarray(coords.node, np.int64), np.asarray(coords.xyz, np.float64), \
+            coords.dim == 3, None
+    else:
+        node, xyz, has_z, lines = _coordinates_from_array(coords, source)
+    _require_unique_nodes(source, node, lines)
+    if not np.all(np.isfinite(xyz)):
+        bad = np.flatnonzero(~np.all(np.isfinite(xyz), axis=1))
+        raise InputError(source, f"{bad.size} nodes have NaN or Inf coordinates "
+                                 f"(first: node {int(node[bad[0]])})")
+    order = np.argsort(node, kind="stable")
+    dim = 3 if has_z and np.any(xyz[:, 2] != 0.0) else 2
+    positions = Coordinates(node=node[order], xyz=xyz[order], dim=dim)
+    missing = np.setdiff1d(table.nodes, positions.node)
+    if missing.size:
+        first = ", ".join(str(int(v)) for v in missing[:_FIRST_SHOWN])
+        raise InputError(source, f"coordinates missing for {missing.size} nodes of the DOF map (first: {first})")
+    notes.append(f"coordinates from {source}: {node.size} nodes, {dim}D")
+    return positions
+
+
+def _coordinates_from_csv(source: str):
+    rows = read_csv_rows(source)
+    header = _header_columns(source, rows, ("node", "x", "y"), ("z",))
+    if header is not None:
+        rows = rows[1:]
+        cols = [header["node"], header["x"], header["y"]] + ([header["z"]] if "z" in header else [])
+    else:
+        width = len(rows[0][1])
+        if width not in (3, 4):
+            raise InputError(source, f"line {rows[0][0]}: expected node,x,y or node,x,y,z, found {width} cells")
+        cols = list(range(width))
+    has_z = len(cols) == 4
+    nodes, xyz, lines = [], [], []
+    for line_no, cells in rows:
+        if len(cells) <= max(cols) or (len(cells) > len(cols) and header is None):
+            raise InputError(source, f"line {line_no}: expected {len(cols)} cells, found {len(cells)}")
+        nodes.append(_parse_node(source, cells[cols[0]], line_no))
+        point = [parse_float(source, cells[c], line_no, axis) for c, axis in zip(cols[1:], "xyz")]
+        xyz.append(point + [0.0] * (3 - len(point)))
+        lines.append(line_no)
+    if not nodes:
+        raise InputError(source, "no coordinate lines after the header")
+    return np.asarray(nodes, np.int64), np.asarray(xyz, np.float64), has_z, lines
+
+
+def _coordinates_from_array(coords, source: str):
+    if isinstance(coords, Mapping):
+        items = sorted(coords.items())
+        try:
+            node = np.asarray([k for k, _ in items], dtype=np.int64)
+            points = [np.asarray(v, dtype=np.float64).ravel() for _, v in items]
+        except (TypeError, ValueError):
+            raise InputError(source, "coordinates mapping must be {node: (x, y[, z])}") from None
+        widths = {p.size for p in points}
+        if not widths <= {2, 3} or len(widths) > 1:
+            raise InputError(source, "coordinates mapping values must all be (x, y) or all (x, y, z)")
+        table = np.column_stack([node, np.vstack(points)]) if points else np.empty((0, 3))
+    else:
+        try:
+            table = np.asarray(coords, dtype=np.float64)
+        except (TypeError, ValueError):
+            raise InputError(source, "coordinates must be an (m, 3) or (m, 4) array node,x,y[,z]") from None
+    if table.ndim != 2 or table.shape[1] not in (3, 4) or table.shape[0] == 0:
+        raise InputError(source, f"coordinates array has shape {table.shape}; expected (m, 3) or (m, 4) "
+                                 "with columns node,x,y[,z]")
+    node_col = table[:, 0]
+    if not np.all(np.isfinite(node_col)) or np.any(node_col != np.round(node_col)):
+        raise InputError(source, "first coordinates column (node id) must hold integers")
+    xyz = np.zeros((table.shape[0], 3))
+    xyz[:, : table.shape[1] - 1] = table[:, 1:]
+    return node_col.astype(np.int64), xyz, table.shape[1] == 4, None
+
+
+def _require_unique_nodes(source: str, node, lines: Optional[list[int]]) -> None:
+    order = np.argsort(node, kind="stable")
+    same = np.flatnonzero(node[order][1:] == node[order][:-1])
+    if same.size:
+        a, b = int(order[same[0]]), int(order[same[0] + 1])
+        where = f"lines {lines[a]} and {lines[b]}" if lines is not None else f"rows {a + 1} and {b + 1}"
+        raise InputError(source, f"{where} both give coordinates of node {int(node[a])}")
+
+
+# --------------------------------------------------------------------------- #
+# Vectors and restraints
+# --------------------------------------------------------------------------- #
+
+
+def _vector(value, n: int, what: str, notes: list[str]) -> Optional[NDArray[np.float64]]:
+    if value is None:
+        return None
+    if _is_path(value):
+        vec = read_vector(value, n, what)
+        notes.append(f"{what} vector from {value}")
+        return vec
+    try:
+        vec = np.asarray(value, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputError(ARRAY_SOURCE, f"the {what} vector cannot be converted to float64") from None
+    if vec.ndim == 2 and 1 in vec.shape:
+        vec = vec.ravel()
+    if vec.ndim != 1 or vec.size != n:
+        raise InputError(ARRAY_SOURCE, f"the {what} vector has shape {vec.shape} but the matrix has {n} rows")
+    bad = np.flatnonzero(~np.isfinite(vec))
+    if bad.size:
+        first = ", ".join(str(int(k) + 1) for k in bad[:_FIRST_SHOWN])
+        raise InputError(ARRAY_SOURCE, f"the {what} vector has {bad.size} NaN or Inf values (first at rows {first})")
+    notes.append(f"{what} vector given as an array")
+    return vec.copy()
+
+
+def _restraint_rows(fix, table: Optional[DofTable], n: int, notes: list[str]) -> tuple[NDArray[np.intp], int]:
+    """Rows kept after removing the restrained ones, and how many were removed."""
+    source = str(fix) if _is_path(fix) else ARRAY_SOURCE
+    if table is None:
+        raise InputError(source, "restraints name (node, dof) pairs, so they need a DOF map "
+                                 "(a dofs file or dofs per node)")
+    if _is_path(fix):
+        nodes, dofs, lines = _csv_pairs(source)
+    else:
+        node_arr, dof_arr = _dof_pairs_from_sequence(fix, source)
+        nodes, dofs, lines = node_arr.tolist(), dof_arr.tolist(), None
+    row_of = {(int(a), int(b)): k for k, (a, b) in enumerate(zip(table.node, table.dof))}
+    fixed = set()
+    for k, (node, dof) in enumerate(zip(nodes, dofs)):
+        row = row_of.get((node, dof))
+        if row is None:
+            where = f"line {lines[k]}: " if lines is not None else f"entry {k + 1}: "
+            raise InputError(source, f"{where}restraint on node {node} {DOF_NAMES[dof]}, "
+                                     "which is not in the DOF map")
+        fixed.add(row)
+    if len(fixed) == n:
+        raise InputError(source, f"restraints remove all {n} rows of the matrix")
+    keep = np.setdiff1d(np.arange(n, dtype=np.intp), np.fromiter(fixed, dtype=np.intp, count=len(fixed)))
+    repeated = len(nodes) - len(fixed)
+    notes.append(f"{len(fixed)} restrained dofs from {source} removed (rows and columns of the matrix, "
+                 f"entries of the vectors and the DOF map); {keep.size} rows remain"
+                 + (f"; {repeated} repeated restraints ignored" if repeated else ""))
+    return keep, len(fixed)
+
+
+def _is_int(cell) -> bool:
+    try:
+        int(str(cell).strip())
+    except ValueError:
+        return False
+    return True
