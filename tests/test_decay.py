@@ -67,9 +67,8 @@ def test_bcsstk01_matches_lapack_ldl_same_ordering():
 def test_singular_chain_reports_lower_bound():
     """A free-free chain is singular (rigid translation; common practice):
     the shared factorization is shifted and the method says the decay is a
-    lower bound. The shifted decay is still large at the last pivot, which the
-    shift alone keeps finite: at least 1/(n*|sigma|)-ish digits, far above the
-    log10 2 of the supported chain (closed form above)."""
+    lower bound. The true decay at the last pivot is infinite; the shifted one
+    is still far above the log10 2 of the supported chain (closed form above)."""
     n = 50
     K = second_difference(n).tolil()
     K[0, 0] = K[n - 1, n - 1] = 1.0
