@@ -1,0 +1,97 @@
+"""The terminal view: verdict first, every section, summaries, how each figure
+was obtained, caution last. Figures shown are checked against numpy's LAPACK
+(the fixture's source) rather than pasted."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from conditioning.render._format import fmt_number, how_obtained, summarise_ids
+from conditioning.render.terminal import TerminalReport, render_text
+from conditioning.results import CAUTION
+from test_report_fixtures import healthy_report, singular_report
+
+
+def test_verdict_is_the_first_line():
+    report, _ = singular_report()
+    text = render_text(report)
+    assert text.splitlines()[0] == "Verdict: singular: 3 free modes"
+
+
+def test_sections_in_order_and_caution_last():
+    report, _ = healthy_report()
+    text = render_text(report, width=120)
+    order = ["Verdict:", "Model", "Structure", "Condition number", "Near-singular modes",
+             "Stiffness jumps", "Diagonal decay", "Digits of the displacements", "Findings"]
+    positions = [text.index(word) for word in order]
+    assert positions == sorted(positions)
+    flat = " ".join(text.split())
+    assert flat.endswith(" ".join(CAUTION.split()))
+
+
+def test_condition_figure_and_how_obtained():
+    """The raw 2-norm figure shown is lambda_max/lambda_min of K (numpy LAPACK
+    eigvalsh), tagged 'estimate'; the 1-norm figure is tagged a 'bound'."""
+    report, model = healthy_report()
+    lam = np.linalg.eigvalsh(model.K.toarray())
+    text = render_text(report, width=160)
+    line = [ln for ln in text.splitlines() if ln.startswith("2-norm, raw K")][0]
+    assert fmt_number(lam[-1] / lam[0]) in line and "estimate" in line
+    line = [ln for ln in text.splitlines() if ln.startswith("1-norm, raw K")][0]
+    assert "bound" in line
+
+
+def test_digits_show_method_and_withdrawn_bound():
+    report, _ = healthy_report(digits=9.0)
+    text = render_text(report, width=200)
+    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-1]
+    assert "9.0" in load and "double-double refinement, measured" in load
+    worst = [ln for ln in text.splitlines() if ln.startswith("worst-case")][0]
+    assert "withdrawn" in worst
+
+
+def test_long_node_lists_are_summarised():
+    report, _ = singular_report(many_nodes=1300)
+    text = render_text(report, width=200)
+    assert "1, 2, 3, 4, 5, 6, 7, 8 and 1,302 more" in text
+    assert str(1300 + 10) not in text   # the last node id is left to the JSON
+
+
+def test_singular_condition_rows_say_singular():
+    report, _ = singular_report()
+    text = render_text(report, width=160)
+    assert "K is singular" in text
+    for row in ("2-norm, raw K", "1-norm, raw K"):
+        assert "singular" in [ln for ln in text.splitlines() if ln.startswith(row)][0]
+
+
+def test_restraint_advice_carries_the_caution():
+    report, _ = singular_report()
+    text = " ".join(render_text(report).split())
+    assert "node 1 ux" in text and "node 5 uy" in text
+    assert "must exist in the real structure" in text
+
+
+def test_extra_verdict_line_follows_the_verdict():
+    report, _ = healthy_report()
+    text = render_text(report, extra_verdict="Fewer trustworthy digits than required")
+    assert text.splitlines()[1] == "Fewer trustworthy digits than required"
+
+
+def test_is_a_rich_renderable():
+    from rich.console import Console
+    import io
+
+    report, _ = healthy_report()
+    console = Console(file=io.StringIO(), width=100, color_system="truecolor")
+    console.print(TerminalReport(report))
+    assert "\x1b[" in console.file.getvalue()   # coloured on a colour terminal
+
+
+def test_format_helpers():
+    """Common practice: thousands separators for counts, tags from the method."""
+    assert summarise_ids(range(12, 1219), limit=3) == "12, 13, 14 and 1,204 more"
+    assert how_obtained("certified (python-flint ball arithmetic)") == "certified"
+    assert how_obtained("arbitrary precision") == "measured"
+    assert how_obtained("Hager-Higham 1-norm estimate (a lower bound)") == "bound"
+    assert fmt_number(None) == "-" and fmt_number(float("inf")) == "inf"
