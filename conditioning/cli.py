@@ -121,18 +121,16 @@ def build_parser() -> argparse.ArgumentParser:
 def governing_digits(report: results.Report) -> Optional[float]:
     """The trustworthy digits the ``--min-digits`` test applies to.
 
-    The samples that stand for the user's case (``load`` and ``solution``)
-    when present, otherwise every sample; the lowest of them. None when no
-    digits were measured. A NaN (not measured) counts as 0 digits, so it
-    can never pass the test by accident.
+    The lowest over every measured sample (the user's load, the random
+    loads, the worst-case load and an audited solution), as the diagnosis's
+    own ``digits.below-minimum`` finding does. None when no digits were
+    measured. A NaN (not measured) counts as 0 digits, so it can never pass
+    the test by accident.
     """
     if report.digits is None or not report.digits.samples:
         return None
-    samples = report.digits.samples
-    own = [s for s in samples if s.sample in ("load", "solution")]
-    chosen = own or samples
     values = [0.0 if s.trustworthy_digits is None or math.isnan(s.trustworthy_digits)
-              else float(s.trustworthy_digits) for s in chosen]
+              else float(s.trustworthy_digits) for s in report.digits.samples]
     return min(values)
 
 
@@ -206,7 +204,8 @@ def _load(path: str, args, progress: Optional[ProgressCallback]):
 
 
 def _diagnose(model, args, progress):
-    return diagnose_model(model, seed=args.seed, samples=args.samples, progress=progress)
+    return diagnose_model(model, seed=args.seed, samples=args.samples,
+                          min_digits=args.min_digits, progress=progress)
 
 
 def _console(to_stderr: bool):
@@ -272,14 +271,15 @@ def _write_outputs(report, model, args) -> None:
 def _run_demo(args) -> int:
     from rich.rule import Rule
 
-    from conditioning.demo import scenarios
+    from conditioning.demo.scenarios import scenarios
     from conditioning.render.terminal import TerminalReport, verdict_line
 
     console = _console(to_stderr=False)
     for folder in (args.json, args.html):
         if folder:
             Path(folder).mkdir(parents=True, exist_ok=True)
-    for case in scenarios():
+    cases = scenarios()
+    for case in (cases.values() if isinstance(cases, dict) else cases):
         name = str(getattr(case, "name", "demo"))
         title = getattr(case, "title", None) or getattr(case, "description", None) or name
         with _progress(_show_progress(args)) as progress:

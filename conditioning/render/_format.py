@@ -24,14 +24,17 @@ _HOW = (
     ("bound", "bound"),
     ("hager", "bound"),
     ("higham", "bound"),
-    ("exact", "exact"),
-    ("dense", "exact"),
-    ("lapack", "exact"),
+    ("closed form", "exact"),
+    ("dense", "computed"),
+    ("lapack", "computed"),
 )
 
 
 def how_obtained(method: Optional[str]) -> str:
-    """One word for a ``method`` string: certified, measured, bound, exact or estimate.
+    """One word for a ``method`` string: certified, measured, bound, computed, exact or estimate.
+
+    ``computed`` is a dense LAPACK figure (accurate to round-off), ``bound``
+    a one-sided estimate, ``estimate`` an iterative (Lanczos) figure.
 
     Examples
     --------

@@ -142,16 +142,15 @@ def _condition(r: results.Report):
     t.add_column("figure")
     t.add_column("value", justify="right")
     t.add_column("how obtained")
-    t.add_column("method", style="dim")
     sing = "singular" if c.singular else "-"
-    t.add_row("2-norm, raw K", fmt_number(c.estimate) if c.estimate is not None else sing,
-              how_obtained(c.estimate_method), c.estimate_method)
-    t.add_row("2-norm, scaled D^-1/2 K D^-1/2",
-              fmt_number(c.scaled_estimate) if c.scaled_estimate is not None else sing,
-              how_obtained(c.scaled_method), c.scaled_method)
-    t.add_row("1-norm, raw K",
-              fmt_number(c.one_norm_estimate) if c.one_norm_estimate is not None else sing,
-              how_obtained(c.one_norm_method), c.one_norm_method)
+    rows = (("2-norm, raw K", c.estimate, c.estimate_method),
+            ("2-norm, scaled D^-1/2 K D^-1/2", c.scaled_estimate, c.scaled_method),
+            ("1-norm, raw K", c.one_norm_estimate, c.one_norm_method))
+    notes = []
+    for i, (name, value, method) in enumerate(rows, start=1):
+        t.add_row(name, fmt_number(value) if value is not None else sing,
+                  f"{how_obtained(method)} [{i}]")
+        notes.append(Text(f"[{i}] {method}", style="dim"))
     parts = [t]
     if c.singular:
         parts.append(Text("K is singular at working precision: it has a null space "
@@ -160,7 +159,7 @@ def _condition(r: results.Report):
         parts.append(Text(f"Scaling removes {c.scaling_gain_digits:.1f} digits of the raw "
                           "figure (units or DOF-type mixing, mostly harmless); the scaled "
                           "figure is the one that governs the accuracy of the solve."))
-    return Group(*parts)
+    return Group(*parts, *notes)
 
 
 def _modes(r: results.Report, max_ids: int):
@@ -171,7 +170,6 @@ def _modes(r: results.Report, max_ids: int):
     head = f"{sp.count} near-singular mode{'s' if sp.count != 1 else ''}"
     if sp.gap is not None:
         head += f", separated by a gap of {fmt_number(sp.gap)}"
-    head += f" (rule: {sp.gap_rule})"
     lines.append(Text(head))
     if sp.inertia_count is not None:
         agree = {True: "agrees", False: "DISAGREES", None: "not compared"}[sp.inertia_agrees]
@@ -182,6 +180,7 @@ def _modes(r: results.Report, max_ids: int):
         lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
                           "stiffness is indefinite", style="red"))
     lines.append(Text(f"method: {sp.method}", style="dim"))
+    lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))
     if sp.modes:
         t = Table(box=None, pad_edge=False)
         t.add_column("#", justify="right")
@@ -219,12 +218,16 @@ def _jumps(r: results.Report, max_ids: int):
     t.add_column("nodes")
     t.add_column("ratio", justify="right")
     t.add_column("digits cost", justify="right")
-    t.add_column("suggested value", justify="right")
-    t.add_column("reasoning")
-    for j in r.jumps:
+    t.add_column("suggested stiffness", justify="right")
+    for j in r.jumps[:max_ids]:
         t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio),
-                  f"about {j.digits_cost:.1f}", fmt_number(j.advice_value), j.reasoning)
-    return t
+                  f"about {j.digits_cost:.1f}", fmt_number(j.advice_value))
+    parts = [t]
+    if len(r.jumps) > max_ids:
+        parts.append(Text(f"and {len(r.jumps) - max_ids:,} more (all in the JSON report)"))
+    parts.append(Text("The reasoning behind each suggested stiffness is in the findings "
+                      "below and in the JSON report.", style="dim"))
+    return Group(*parts)
 
 
 def _decay(r: results.Report):
@@ -232,10 +235,10 @@ def _decay(r: results.Report):
     if d is None or not d.worst:
         return None
     g = _grid()
-    g.add_row("largest", f"{d.max_digits:.1f} digits ({d.method})")
+    g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
     for e in d.worst[:5]:
         g.add_row(e.label, f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
-    return g
+    return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
 def _digits(r: results.Report, max_ids: int):
