@@ -30,7 +30,7 @@ logger = logging.getLogger(__name__)
 Permutation = NDArray[np.intp]
 
 #: Parts with at most this many nodes are not cut further (default).
-LEAF_SIZE = 48
+LEAF_SIZE = 24
 #: Largest 2D model (rows) for which SuperLU's own MMD(A'+A) is kept by
 #: :func:`choose_ordering`; see docs/benchmarks.md for the measurements.
 MMD_MAX_ROWS_2D = 20_000
@@ -393,8 +393,13 @@ def _bisect_levels(alive, part, ei, ej, position, m):
     lv_mid = mid[p]
     side = np.where(level < lv_mid, 0, 1)
     side[level == lv_mid] = 2
-    # A part whose middle level is its last one keeps the level as upper
-    # side; still a valid split as long as the lower side is non-empty.
+    # Trim: a middle-level node with no neighbour above the middle level
+    # separates nothing and joins the lower side.
+    m_side = np.full(m, -1, dtype=np.intp)
+    m_side[alive] = side
+    touches_upper = np.zeros(m, dtype=bool)
+    touches_upper[ei[(m_side[ei] == 2) & (m_side[ej] == 1)]] = True
+    side[(side == 2) & ~touches_upper[alive]] = 0
     return side
 
 
