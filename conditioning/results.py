@@ -254,6 +254,45 @@ class DigitsResult:
     """Why the stage did not run, if it did not."""
 
 
+# ------------------------------------------------------------------ scale
+@dataclass(frozen=True)
+class FactorMemoryPrediction:
+    """Size of the factorization, predicted before it runs (conditioning.memory)."""
+
+    bytes: int
+    """Predicted peak memory the factorization adds (bytes)."""
+    factor_entries: int
+    """Predicted stored entries of L + U as SuperLU counts them."""
+    flops: float
+    """Predicted operations: sum over columns of (column count of L)^2."""
+    method: str
+    """How it was predicted, in words."""
+    confidence: float
+    """Relative accuracy of ``bytes`` measured on the benchmark models
+    (0.25: within 25%)."""
+
+
+@dataclass(frozen=True)
+class IterativeSpectrum:
+    """Smallest eigenpairs of S found without factorizing (conditioning.iterative)."""
+
+    eigenvalues: NDArray[np.float64]
+    """Smallest eigenvalues of S = D^-1/2 K D^-1/2, ascending (dimensionless)."""
+    eigenvectors: NDArray[np.float64] = field(repr=False)
+    """(n, k) eigenvectors of S, columns matching ``eigenvalues``."""
+    residual_norms: NDArray[np.float64]
+    """||S v - lambda v||_2 for each unit-norm v."""
+    converged: bool
+    """True when every residual norm is below the requested tolerance."""
+    near_null_count: int
+    """Eigenvalues below the gap rule's split (candidate rigid-body modes and
+    mechanisms)."""
+    method: str
+    """Eigensolver and preconditioner used, in words."""
+    cannot: tuple[str, ...]
+    """What this path does not provide, for the report."""
+
+
 # --------------------------------------------------------------- findings
 @dataclass(frozen=True)
 class Finding:
