@@ -277,6 +277,8 @@ def _dof_pairs_from_sequence(pairs, source: str):
                 raise InputError(source, f"node {node!r} is not an integer")
             nodes.append(int(node))
             dofs.append(_parse_dof(source, dof, None))
+    except InputError:
+        raise
     except (TypeError, ValueError):
         raise InputError(source, "expected a DofTable or a sequence of (node, dof) pairs") from None
     return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8)
