@@ -37,7 +37,8 @@ DENSE_LIMIT = 1200
 GAP_RULE = (
     "near-singular = eigenvalues of S up to the largest ratio gap (>= 1e3) among "
     "eigenvalues <= 1e-8 lambda_max(S), with eigenvalues below n*eps*lambda_max(S) "
-    "treated as zero; without such a gap, all eigenvalues <= 1e-8 lambda_max(S)"
+    "treated as zero; without such a gap, only eigenvalues <= n eps lambda_max(S) (the usual numerical-rank "
+    "tolerance)"
 )
 
 
@@ -116,8 +117,11 @@ def _split(values: NDArray, lam_max: float, n: int) -> tuple[int, int, Optional[
     best = int(np.argmax(ratios))
     if ratios[best] >= MIN_GAP:
         m = int(cand[best]) + 1
-    else:
-        m = int(cand[-1]) + 1
+    else:  # a graded spectrum without a gap: only numerical zeros are modes
+        # (numpy.linalg.matrix_rank's default tolerance, n*eps*largest)
+        m = int(np.count_nonzero(a <= zero))
+        if m == 0:
+            return first, 0, None
     gap = float(a[m] / a[m - 1]) if m < a.size else None
     return first, m, gap
 
