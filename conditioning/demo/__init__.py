@@ -10,7 +10,14 @@ seconds; each one carries the answer a correct diagnosis should reach.
 :mod:`conditioning.demo.scenarios`
     The named demo cases and their export to Matrix Market and CSV files
     (``python -m conditioning.demo.scenarios matrices/``).
+
+``conditioning.demo.scenarios`` is the module; the catalogue function is
+``from conditioning.demo.scenarios import scenarios`` (name -> DemoCase).
 """
+
+from __future__ import annotations
+
+import importlib
 
 from conditioning.demo.assemble import (
     Assembly,
@@ -25,10 +32,28 @@ from conditioning.demo.assemble import (
     truss3d,
 )
 
+_FROM_SCENARIOS = ("DemoCase", "Expected", "export", "export_all")
+
+
+def __getattr__(name: str):
+    # Imported lazily so that ``python -m conditioning.demo.scenarios`` does not
+    # find its own module already imported by the package.
+    if name in _FROM_SCENARIOS:
+        module = importlib.import_module("conditioning.demo.scenarios")
+        value = getattr(module, name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 __all__ = [
     "Assembly",
+    "DemoCase",
+    "Expected",
     "apply_restraints",
     "combine",
+    "export",
+    "export_all",
     "frame2d",
     "ground_spring",
     "load_vector",

@@ -1,0 +1,268 @@
+"""Checks of the invented demo scenarios and their exported files.
+
+What each case should show (``DemoCase.expected``) is verified with outside
+references: dense symmetric eigenvalues and eigenvectors from LAPACK (numpy
+``eigvalsh``/``eigh``), mpmath's ``eigsy`` in 40-digit arithmetic, and
+scipy.io.mmread for the Matrix Market files. The scikit-fem solids check the
+textbook rigid-body-mode counts (3 per free body in 2D, 6 in 3D; common
+practice, also the count of PETSc's MatNullSpaceCreateRigidBody).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+import mpmath
+import numpy as np
+import pytest
+import scipy.io
+import scipy.sparse as sp
+
+from conditioning.demo.scenarios import (
+    FIX_VARIANT,
+    DemoCase,
+    export_all,
+    mast_missing_brace,
+    mast_soft_spring,
+    scenarios,
+)
+from conditioning.model import DOF_NAMES
+
+import fe_reference as fer
+
+MATRICES = Path(__file__).resolve().parents[1] / "matrices"
+CASES = scenarios()
+NAMES = list(CASES)
+
+#: Eigenvalues of the unit-diagonal scaled matrix at or below this count as zero.
+#: Computed zero eigenvalues of these small models are below 1e-15; the smallest
+#: genuine (near-mechanism, penalty tie) ones are above 1e-13.
+ZERO_SCALED = 2e-14
+#: kappa_2 above this means "loses most of the 16 float64 digits" (the expected flags).
+LARGE_KAPPA = 1e10
+
+
+def scaled_dense(K) -> tuple[np.ndarray, np.ndarray]:
+    """S = D^-1/2 K D^-1/2 with unit diagonal, and d = diag(K)^-1/2."""
+    A = K.toarray()
+    d = 1.0 / np.sqrt(np.abs(np.diag(A)))
+    return A * d[:, None] * d[None, :], d
+
+
+def moving_nodes(case: DemoCase, vectors: np.ndarray, rtol: float = 1e-6) -> tuple[int, ...]:
+    """Nodes with a displacement above rtol * max in any of the mode ``vectors``."""
+    big = np.abs(vectors) > rtol * np.abs(vectors).max(axis=0, keepdims=True)
+    return tuple(int(n) for n in np.unique(case.model.dofs.node[np.any(big, axis=1)]))
+
+
+# ------------------------------------------------------------------ the catalogue
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_case_is_a_consistent_small_model(name):
+    case = CASES[name]
+    m = case.model
+    assert case.name == name and "\n" not in case.description
+    assert any("invented" in note for note in m.notes)
+    assert isinstance(m.K, sp.csr_array) and m.K.shape == (m.n, m.n)
+    assert 10 <= m.n <= 300, "demo models stay small so the demo runs in seconds"
+    assert (m.K != m.K.T).nnz == 0 and np.all(m.K.data != 0)
+    assert len(m.dofs) == m.n and m.load.shape == (m.n,) and np.any(m.load != 0)
+    assert np.all(m.coords.has(m.dofs.nodes))
+    assert m.restrained == len(set(case.supports))
+    assert case.unsupported.n == m.n + m.restrained
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_zero_energy_modes_match_expected(name):
+    """Number of (numerically) zero eigenvalues of the scaled K, by LAPACK."""
+    case = CASES[name]
+    S, _ = scaled_dense(case.model.K)
+    w = np.linalg.eigvalsh(S)
+    assert int(np.sum(w <= ZERO_SCALED)) == case.expected.rigid_body_modes
+    if not case.expected.penalty_nodes:
+        # A penalty tie also makes tiny scaled eigenvalues; elsewhere only the
+        # documented near-mechanisms may.
+        near = int(np.sum((w > ZERO_SCALED) & (w <= 1e-8)))
+        assert near == case.expected.near_zero_modes
+
+
+@pytest.mark.parametrize("name", [n for n in NAMES
+                                  if CASES[n].expected.rigid_body_modes
+                                  + CASES[n].expected.near_zero_modes > 0])
+def test_mode_nodes_match_expected(name):
+    """The nodes that move in the lowest modes (LAPACK eigenvectors) are the documented ones."""
+    case = CASES[name]
+    k = case.expected.rigid_body_modes + case.expected.near_zero_modes
+    S, d = scaled_dense(case.model.K)
+    _, V = np.linalg.eigh(S)
+    displacement = d[:, None] * V[:, :k]
+    assert moving_nodes(case, displacement) == case.expected.mode_nodes
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_condition_flags_match_expected(name):
+    """Raw and scaled kappa_2 = lambda_max / lambda_min (LAPACK), inf when singular."""
+    case = CASES[name]
+    S, _ = scaled_dense(case.model.K)
+    ws = np.linalg.eigvalsh(S)
+    w = np.linalg.eigvalsh(case.model.K.toarray())
+    singular = case.expected.rigid_body_modes > 0
+    kappa_scaled = math.inf if singular else ws[-1] / ws[0]
+    kappa_raw = math.inf if singular else w[-1] / w[0]
+    assert (kappa_scaled > LARGE_KAPPA) == case.expected.ill_conditioned
+    assert (kappa_raw > LARGE_KAPPA) == case.expected.large_raw_condition
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_penalty_nodes_carry_the_outsized_eigenvalues(name):
+    """Eigenvalues far above the typical diagonal (1e6 x median) come from the
+    penalty springs: their eigenvectors (LAPACK) live on the penalty nodes only."""
+    case = CASES[name]
+    A = case.model.K.toarray()
+    w, V = np.linalg.eigh(A)
+    outsized = w > 1e6 * np.median(np.diag(A))
+    if not case.expected.penalty_nodes:
+        assert not np.any(outsized)
+        return
+    assert moving_nodes(case, V[:, outsized], rtol=1e-3) == case.expected.penalty_nodes
+
+
+def test_penalty_tie_is_ill_conditioned_but_not_singular():
+    """The tie's two softest scaled modes (coincident nodes moving together)
+    are tiny but clearly above the zero level (LAPACK)."""
+    S, _ = scaled_dense(CASES["rack_penalty_tie"].model.K)
+    w = np.linalg.eigvalsh(S)
+    assert 1e2 * ZERO_SCALED < w[0] < 1e-8
+
+
+def test_near_mechanism_eigenvalue_is_the_first_order_perturbation():
+    """mast_soft_spring = mast_missing_brace + a soft spring k at one dof r.
+
+    First-order perturbation of the (numerically) zero eigenvalue lambda_0
+    with eigenvector v (classical Rayleigh-Schroedinger, e.g. Wilkinson, *The
+    Algebraic Eigenvalue Problem*; from memory):
+    lambda_min = lambda_0 + k v_r^2 / (v . v) + O(k^2). lambda_0 of the
+    stored float64 matrix is round-off sized, not exactly 0, so both
+    eigenvalues come from mpmath eigsy at 40 digits.
+    """
+    base, soft = mast_missing_brace(), mast_soft_spring()
+    assert np.array_equal(base.model.dofs.node, soft.model.dofs.node)
+    diff = (soft.model.K - base.model.K).toarray()
+    (r,) = np.flatnonzero(np.diag(diff))
+    k = diff[r, r]
+    assert np.count_nonzero(diff) == 1
+    _, V = np.linalg.eigh(base.model.K.toarray())
+    v = V[:, 0]
+    A = soft.model.K.toarray()
+    with mpmath.workdps(40):
+        lambda_0 = min(mpmath.eigsy(mpmath.matrix(base.model.K.toarray().tolist()),
+                                    eigvals_only=True))
+        exact = float(min(mpmath.eigsy(mpmath.matrix(A.tolist()), eigvals_only=True)))
+        predicted = float(lambda_0 + mpmath.mpf(k) * mpmath.mpf(v[r]) ** 2
+                          / mpmath.mpf(float(v @ v)))
+    assert abs(float(lambda_0)) < 1e-3 * exact
+    assert exact == pytest.approx(predicted, rel=1e-6)
+    w = np.linalg.eigvalsh(A)
+    assert w[0] == pytest.approx(exact, rel=2e-2)
+    kappa = w[-1] / exact
+    # "Loses nearly all digits": about 16 - log10(kappa) digits remain (rule of
+    # thumb, common practice); fewer than 4 here.
+    assert 16 - math.log10(kappa) < 4
+
+
+# ------------------------------------------------------------------ exported files
+
+
+def _read_csv(path: Path) -> list[list[str]]:
+    with path.open(newline="") as fh:
+        return list(csv.reader(fh))
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_committed_files_round_trip(name):
+    """matrices/<name>*.{mtx,csv} read back (scipy.io.mmread) to the model scenarios() builds."""
+    m = CASES[name].model
+    K = sp.csr_array(scipy.io.mmread(MATRICES / f"{name}.mtx"))
+    assert K.shape == m.K.shape and (K != m.K).nnz == 0
+    load = np.asarray(scipy.io.mmread(MATRICES / f"{name}_load.mtx")).ravel()
+    np.testing.assert_array_equal(load, m.load)
+    rows = _read_csv(MATRICES / f"{name}_dofs.csv")
+    assert rows[0] == ["node", "dof"]
+    assert [(int(a), b) for a, b in rows[1:]] == [
+        (int(n), DOF_NAMES[int(d)]) for n, d in zip(m.dofs.node, m.dofs.dof)]
+    rows = _read_csv(MATRICES / f"{name}_coords.csv")
+    assert rows[0] == ["node", "x", "y", "z"][: m.coords.dim + 1]
+    table = np.array([[float(v) for v in row] for row in rows[1:]])
+    np.testing.assert_array_equal(table[:, 0], m.coords.node)
+    np.testing.assert_array_equal(table[:, 1:], m.coords.xyz[:, : m.coords.dim])
+
+
+def test_fix_file_reproduces_the_supported_model():
+    """Removing the rows/columns listed in <name>_free_fix.csv from <name>_free.mtx
+    gives <name>.mtx exactly (the --fix workflow)."""
+    free = sp.csr_array(scipy.io.mmread(MATRICES / f"{FIX_VARIANT}_free.mtx"))
+    dofs = [(int(a), b) for a, b in _read_csv(MATRICES / f"{FIX_VARIANT}_free_dofs.csv")[1:]]
+    fix = {(int(a), b) for a, b in _read_csv(MATRICES / f"{FIX_VARIANT}_free_fix.csv")[1:]}
+    assert fix and fix <= set(dofs)
+    keep = [i for i, key in enumerate(dofs) if key not in fix]
+    reduced = free[keep][:, keep]
+    supported = sp.csr_array(scipy.io.mmread(MATRICES / f"{FIX_VARIANT}.mtx"))
+    assert (reduced != supported).nnz == 0
+    w = np.linalg.eigvalsh(free.toarray())
+    assert np.sum(np.abs(w) <= 1e-12 * w[-1]) == 3, "the free plane frame has 3 rigid-body modes"
+
+
+def test_committed_files_are_current(tmp_path):
+    """Regenerating matrices/ gives byte-identical files (and no others)."""
+    written = export_all(tmp_path)
+    names = sorted(p.name for p in written)
+    assert names == sorted(p.name for p in MATRICES.iterdir() if p.name != "README.md")
+    for p in written:
+        assert p.read_bytes() == (MATRICES / p.name).read_bytes(), p.name
+
+
+# ------------------------------------------------------------------ scikit-fem references
+
+
+def _zero_count(K, rtol=1e-10) -> int:
+    w = np.linalg.eigvalsh(K.toarray())
+    return int(np.sum(np.abs(w) <= rtol * w[-1]))
+
+
+@pytest.mark.parametrize("build, expected", [
+    (fer.solid_block, 6), (fer.free_plate, 3), (fer.two_blocks, 12), (fer.two_plates, 6)])
+def test_scikit_fem_free_bodies_have_textbook_rigid_body_counts(build, expected):
+    """Free body: 6 zero eigenvalues in 3D, 3 in 2D, per body (numpy eigvalsh)."""
+    ref = build()
+    assert ref.rigid_body_modes == expected
+    assert _zero_count(ref.K) == expected
+
+
+@pytest.mark.parametrize("build", [fer.solid_block, fer.free_plate])
+def test_scikit_fem_one_restraint_too_few(build):
+    """3-2-1 supports remove every rigid-body mode; leaving out any one of them
+    (each direction in turn) leaves exactly one."""
+    ref = build()
+    supports = fer.three_two_one_supports(ref)
+    assert _zero_count(fer.restrained(ref, supports).K) == 0
+    for missing in supports:
+        partial = fer.restrained(ref, [s for s in supports if s != missing])
+        assert partial.rigid_body_modes == 1
+        assert _zero_count(partial.K) == 1, missing
+
+
+def test_scikit_fem_dof_table_matches_nodal_dofs():
+    """Rows of component c of vertex i are basis.nodal_dofs[c, i]: check that
+    a rigid x-translation (u_x = 1 at every node) has zero energy and maps to
+    the ux rows only."""
+    ref = fer.solid_block()
+    u = (ref.dofs.dof == DOF_NAMES.index("ux")).astype(float)
+    assert np.abs(ref.K @ u).max() <= 1e-10 * abs(ref.K).max()
+    rot = np.zeros(len(ref.dofs))      # rigid rotation about z: (u_x, u_y) = (-y, x)
+    xyz = ref.coords.lookup(ref.dofs.node)
+    rot[ref.dofs.dof == 0] = -xyz[ref.dofs.dof == 0, 1]
+    rot[ref.dofs.dof == 1] = xyz[ref.dofs.dof == 1, 0]
+    assert np.abs(ref.K @ rot).max() <= 1e-10 * abs(ref.K).max() * np.abs(xyz).max()
