@@ -139,10 +139,11 @@ def diagnose(
                         active=np.diff(K.indptr) > 0)
     with stage("spectrum"):
         spec = scaled_spectrum(K, fac)
-    with stage("condition"):
-        condition = condition_numbers(K, fac, spec)
     with stage("modes"):
         located = locate_modes(model, structure, fac.scale, fac.active, spec)
+    with stage("condition"):
+        free = len(located.modes) - int(structure.empty_rows.size)
+        condition = condition_numbers(K, fac, spec, free_modes=free)
     inertia_agrees = None
     if spec.inertia_count is not None and spec.inertia_expected is not None:
         inertia_agrees = spec.inertia_count == spec.inertia_expected

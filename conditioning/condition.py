@@ -67,8 +67,13 @@ def _one_norm_condition(K: sp.csr_array, fac: SharedFactorization) -> float:
     return norm_k * float(spla.onenormest(inv, t=2))
 
 
-def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum) -> ConditionResult:
+def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum,
+                      *, free_modes: int | None = None) -> ConditionResult:
     """kappa_2 raw and scaled, and the 1-norm estimate, for the model's K.
+
+    ``free_modes`` is the number of genuine near-singular modes (after small
+    eigenvalues of S caused by stiff links are set aside); by default every
+    eigenvalue of S below the gap counts.
 
     Returns
     -------
@@ -78,7 +83,8 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
         stiffness (its condition number is then infinite at working precision).
     """
     K = sp.csr_array(K)
-    singular = bool(fac.singular or spectrum.count > 0)
+    free = spectrum.count if free_modes is None else free_modes
+    singular = bool(fac.singular or free > 0)
     lam_max = float(np.linalg.eigvalsh(K.toarray())[-1]) if K.shape[0] <= DENSE_LIMIT else _largest(K)
     dense = K.shape[0] <= DENSE_LIMIT
     how_max = "dense eigensolver (LAPACK)" if dense else "Lanczos (ARPACK)"
@@ -91,7 +97,7 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
     if singular:
         return ConditionResult(
             singular=True, lambda_max=lam_max, lambda_min=None, estimate=None,
-            estimate_method=f"singular: {spectrum.count} near-singular mode(s) below the spectral gap"
+            estimate_method=f"singular: {free} near-singular mode(s) below the spectral gap"
             + (", rows without stiffness" if fac.active.size > int(fac.active.sum()) else ""),
             scaled_estimate=None, scaled_lambda_min=s_lmin, scaled_lambda_max=spectrum.lambda_max,
             scaled_method=scaled_method, one_norm_estimate=None,
