@@ -130,6 +130,60 @@ def test_penalty_nodes_carry_the_outsized_eigenvalues(name):
     assert moving_nodes(case, V[:, outsized], rtol=1e-3) == case.expected.penalty_nodes
 
 
+@pytest.mark.parametrize("name", ["mast_missing_brace", "mast_soft_spring"])
+def test_mechanism_hinges_at_the_unbraced_panel(name):
+    """In the lowest mode (LAPACK eigenvector) only the bars of the unbraced
+    panel rotate; every other bar translates rigidly. The nodes of the rotating
+    bars are the documented defect nodes (small-displacement kinematics: a bar
+    rotates when its ends move differently across its axis)."""
+    case = CASES[name]
+    m = case.model
+    _, V = np.linalg.eigh(m.K.toarray())
+    u = np.zeros((m.coords.node.size, 2))
+    pos = np.searchsorted(m.coords.node, m.dofs.node)
+    u[pos, m.dofs.dof] = V[:, 0]
+    xy = m.coords.xyz[:, :2]
+    # Every pair of nodes joined by a bar has a nonzero stiffness coupling in K.
+    free = case.unsupported
+    A = free.K.tocoo()
+    pairs = {tuple(sorted((int(free.dofs.node[i]), int(free.dofs.node[j]))))
+             for i, j in zip(A.row, A.col) if free.dofs.node[i] != free.dofs.node[j]}
+    rotating = set()
+    for a, b in pairs:
+        ia, ib = np.searchsorted(m.coords.node, [a, b])
+        axis = (xy[ib] - xy[ia]) / np.linalg.norm(xy[ib] - xy[ia])
+        normal = np.array([-axis[1], axis[0]])
+        if abs(normal @ (u[ib] - u[ia])) > 1e-6 * np.abs(u).max():
+            rotating |= {a, b}
+    assert tuple(sorted(rotating)) == case.expected.defect_nodes
+
+
+def test_loose_pad_defect_is_the_unmerged_coincident_nodes():
+    """The defect nodes are exactly the pairs of distinct nodes at the same
+    position (found from the coordinates alone)."""
+    case = CASES["bracket_loose_pad"]
+    c = case.model.coords
+    dist = np.linalg.norm(c.xyz[:, None, :] - c.xyz[None, :, :], axis=-1)
+    i, j = np.nonzero((dist < 1e-9) & ~np.eye(c.node.size, dtype=bool))
+    assert tuple(int(n) for n in np.unique(c.node[np.concatenate([i, j])])) == \
+        case.expected.defect_nodes
+
+
+def test_sliding_rack_mode_is_a_pure_x_translation_over_unrestrained_bases():
+    """The rigid-body mode (LAPACK) moves every ux by the same amount and
+    nothing else; the bases (defect nodes) keep their ux free, uy supported."""
+    case = CASES["rack_no_sway_support"]
+    m = case.model
+    _, V = np.linalg.eigh(m.K.toarray())
+    v = V[:, 0] / V[np.argmax(np.abs(V[:, 0])), 0]
+    is_ux = m.dofs.dof == DOF_NAMES.index("ux")
+    np.testing.assert_allclose(v[is_ux], 1.0, atol=1e-8)
+    np.testing.assert_allclose(v[~is_ux], 0.0, atol=1e-8)
+    assert set(case.supports) == {(n, "uy") for n in case.expected.defect_nodes}
+    assert {(n, "ux") for n in case.expected.defect_nodes} <= {
+        (int(n), DOF_NAMES[int(d)]) for n, d in zip(m.dofs.node, m.dofs.dof)}
+
+
 def test_penalty_tie_is_ill_conditioned_but_not_singular():
     """The tie's two softest scaled modes (coincident nodes moving together)
     are tiny but clearly above the zero level (LAPACK)."""
@@ -266,3 +320,36 @@ def test_scikit_fem_dof_table_matches_nodal_dofs():
     rot[ref.dofs.dof == 0] = -xyz[ref.dofs.dof == 0, 1]
     rot[ref.dofs.dof == 1] = xyz[ref.dofs.dof == 1, 0]
     assert np.abs(ref.K @ rot).max() <= 1e-10 * abs(ref.K).max() * np.abs(xyz).max()
+
+
+# ------------------------------------------------------------------ read back by the tool's own reader
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_load_model_reads_the_exported_files(name):
+    """conditioning.load_model on matrices/<name>* gives the scenario's model."""
+    from conditioning.inputs import load_model
+
+    m = CASES[name].model
+    got = load_model(MATRICES / f"{name}.mtx", dofs=MATRICES / f"{name}_dofs.csv",
+                     coords=MATRICES / f"{name}_coords.csv", load=MATRICES / f"{name}_load.mtx")
+    assert (got.K != m.K).nnz == 0
+    np.testing.assert_array_equal(got.dofs.node, m.dofs.node)
+    np.testing.assert_array_equal(got.dofs.dof, m.dofs.dof)
+    np.testing.assert_array_equal(got.load, m.load)
+    np.testing.assert_array_equal(got.coords.lookup(m.coords.node), m.coords.xyz)
+
+
+def test_load_model_applies_the_fix_file():
+    """load_model(<name>_free.mtx, fix=<name>_free_fix.csv) equals <name>.mtx with its maps."""
+    from conditioning.inputs import load_model
+
+    stem = MATRICES / f"{FIX_VARIANT}_free"
+    got = load_model(f"{stem}.mtx", dofs=f"{stem}_dofs.csv", coords=f"{stem}_coords.csv",
+                     load=f"{stem}_load.mtx", fix=f"{stem}_fix.csv")
+    m = CASES[FIX_VARIANT].model
+    assert got.restrained == m.restrained
+    np.testing.assert_array_equal(got.load, m.load)
+    assert (got.K != m.K).nnz == 0
+    np.testing.assert_array_equal(got.dofs.node, m.dofs.node)
+    np.testing.assert_array_equal(got.dofs.dof, m.dofs.dof)

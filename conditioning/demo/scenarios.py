@@ -76,6 +76,10 @@ class Expected:
     """Node ids that move in the zero and near-zero energy modes (sorted)."""
     penalty_nodes: tuple[int, ...] = ()
     """Node ids at the ends of penalty springs (sorted)."""
+    defect_nodes: tuple[int, ...] = ()
+    """Node ids where the modelling defect sits and the fix belongs (sorted): the
+    corners of a panel without its diagonal, base plates missing a support,
+    coincident nodes that were never merged, the ends of a penalty spring."""
     ill_conditioned: bool = False
     """True when even the diagonally scaled matrix (unit diagonal) is singular
     or has kappa_2 above 1e10, so a float64 solve loses most of its 16 digits."""
@@ -217,7 +221,8 @@ def footbridge_spring_bearings() -> DemoCase:
         f"({PENALTY_FACTOR:.0e} x chord stiffness): huge raw condition number that "
         "diagonal scaling removes.",
         asm, coords, [], loads,
-        Expected(rigid_body_modes=0, penalty_nodes=(1, _NPANEL + 1), large_raw_condition=True,
+        Expected(rigid_body_modes=0, penalty_nodes=(1, _NPANEL + 1),
+                 defect_nodes=(1, _NPANEL + 1), large_raw_condition=True,
                  finding="Large raw condition number caused only by the stiff support "
                          "springs at nodes 1 and 7; scaled, the matrix is well conditioned."))
 
@@ -284,6 +289,7 @@ def rack_no_sway_support() -> DemoCase:
         "slide sideways (one rigid-body mode in ux).",
         asm, coords, supports, loads,
         Expected(rigid_body_modes=1, mode_nodes=tuple(int(n) for n in coords.node),
+                 defect_nodes=tuple(int(n) for n in node[0]),
                  ill_conditioned=True, large_raw_condition=True,
                  finding="One rigid-body mode: the whole frame translates in x; add a "
                          "horizontal support at a base plate."))
@@ -305,7 +311,8 @@ def rack_penalty_tie() -> DemoCase:
         f"springs ({TIE_PENALTY_FACTOR:.0e} x beam stiffness) between coincident nodes 31 "
         "and 301: badly conditioned even after diagonal scaling.",
         asm, coords, supports, loads,
-        Expected(rigid_body_modes=0, penalty_nodes=(old, new), ill_conditioned=True,
+        Expected(rigid_body_modes=0, penalty_nodes=(old, new), defect_nodes=(old, new),
+                 ill_conditioned=True,
                  large_raw_condition=True,
                  finding="No rigid-body mode, but the penalty tie between nodes 31 and 301 "
                          "makes K nearly singular in the scaled sense; use a rigid "
@@ -340,6 +347,9 @@ def bracket_loose_pad() -> DemoCase:
     asm = plane_stress_quad(nodes, xy, np.vstack([plate_q, pad_q]),
                             E=E_STEEL, nu=NU_STEEL, t=_THICK)
     supports = [(int(n), d) for n in plate_ids[:, 0] for d in ("ux", "uy")]
+    # Plate nodes on the top edge under the pad: coincident with the pad's bottom row.
+    top_x = np.linspace(0.0, w, nx + 1)
+    seam = plate_ids[-1][(top_x >= px) & (top_x <= px + pw)]
     # 6 kN down on the free right edge, 2 kN down on the pad's top (invented).
     loads: dict[NodeDof, float] = {}
     right = plate_ids[:, -1]
@@ -353,9 +363,11 @@ def bracket_loose_pad() -> DemoCase:
         "(coincident nodes not merged): the pad floats freely, 3 rigid-body modes.",
         asm, _coordinates(nodes, xy), supports, loads,
         Expected(rigid_body_modes=3, mode_nodes=tuple(int(n) for n in np.sort(pad_ids.ravel())),
+                 defect_nodes=tuple(int(n) for n in np.sort(np.concatenate([pad_ids[0], seam]))),
                  ill_conditioned=True, large_raw_condition=True,
                  finding="Three rigid-body modes, all in the pad (nodes 201-215): it is not "
-                         "connected to the plate; merge the coincident nodes."))
+                         "connected to the plate; merge its nodes 201-205 with the "
+                         "coincident plate nodes 83-87."))
 
 
 # ---------------------------------------------------------------- braced mast (2D truss)
@@ -394,25 +406,28 @@ def _mast(missing_panel: Optional[int]):
                                    (int(right[top]), "uy"): -1500.0}
     moving = tuple(int(n) for n in np.sort(np.concatenate([left[missing_panel + 1:],
                                                            right[missing_panel + 1:]])))
+    panel_corners = tuple(int(n) for n in np.sort(np.concatenate(
+        [left[missing_panel:missing_panel + 2], right[missing_panel:missing_panel + 2]])))
     member = E_STEEL * _MAST_BAR["A"] / _MAST_PANEL
-    return asm, _coordinates(nodes, xy), supports, loads, moving, member, int(left[top])
+    return (asm, _coordinates(nodes, xy), supports, loads, moving, panel_corners, member,
+            int(left[top]))
 
 
 def mast_missing_brace() -> DemoCase:
-    asm, coords, supports, loads, moving, _, _ = _mast(_MISSING_PANEL)
+    asm, coords, supports, loads, moving, corners, _, _ = _mast(_MISSING_PANEL)
     return _case(
         "mast_missing_brace",
         "Braced mast (pin-jointed truss) with the diagonal of its third panel left "
         "out: a mechanism, the upper part sways sideways.",
         asm, coords, supports, loads,
-        Expected(rigid_body_modes=1, mode_nodes=moving,
+        Expected(rigid_body_modes=1, mode_nodes=moving, defect_nodes=corners,
                  ill_conditioned=True, large_raw_condition=True,
                  finding="One mechanism: the panel between levels 2 and 3 has no diagonal, "
                          f"so nodes {', '.join(map(str, moving))} sway freely in x."))
 
 
 def mast_soft_spring() -> DemoCase:
-    asm, coords, supports, loads, moving, member, top_left = _mast(_MISSING_PANEL)
+    asm, coords, supports, loads, moving, corners, member, top_left = _mast(_MISSING_PANEL)
     k = SOFT_FACTOR * member
     asm = ground_spring(asm, (top_left, "ux"), k)
     return _case(
@@ -421,7 +436,7 @@ def mast_soft_spring() -> DemoCase:
         f"({SOFT_FACTOR:.0e} x bar stiffness): a near-mechanism that loses nearly all digits.",
         asm, coords, supports, loads,
         Expected(rigid_body_modes=0, near_zero_modes=1, mode_nodes=moving,
-                 penalty_nodes=(), ill_conditioned=True, large_raw_condition=True,
+                 defect_nodes=corners, ill_conditioned=True, large_raw_condition=True,
                  finding="No exact mechanism, but the sway of nodes "
                          f"{', '.join(map(str, moving))} is held only by the soft spring at "
                          f"node {top_left}: the float64 solution keeps only a few digits."))
