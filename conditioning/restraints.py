@@ -205,7 +205,7 @@ def _row_weights(model: Model, Q, geometry: _Geometry) -> NDArray[np.float64]:
 # ---------------------------------------------------------------- geometry
 def _geometry(model: Model, part_of_row) -> _Geometry:
     if part_of_row is None:
-        _, part = connected_components(sp.csr_array(model.K != 0), directed=False)
+        part = _parts(model)
     else:
         part = np.asarray(part_of_row, dtype=np.intp)
         if part.shape != (model.n,):
@@ -219,6 +219,21 @@ def _geometry(model: Model, part_of_row) -> _Geometry:
     centroid /= np.maximum(count, 1.0)[:, None]
     planar = model.coords.dim == 2 and not np.isin(model.dofs.dof, (2, 3, 4)).any()
     return _Geometry(part, xyz, centroid, planar)
+
+
+def _parts(model: Model) -> NDArray[np.intp]:
+    """Connected parts of the graph of K with the rows of one node joined (a
+    node is one physical point even when its DOFs do not couple, as in an
+    axis-aligned truss)."""
+    graph = sp.csr_array(model.K != 0)
+    if model.dofs is not None:
+        _, node_index = np.unique(model.dofs.node, return_inverse=True)
+        nn = int(node_index.max()) + 1 if node_index.size else 0
+        link = sp.csr_array((np.ones(model.n), (np.arange(model.n), node_index.ravel())), shape=(model.n, nn))
+        graph = sp.bmat([[graph, link], [link.T, None]], format="csr")
+    _, labels = connected_components(graph, directed=False)
+    _, part = np.unique(labels[: model.n], return_inverse=True)
+    return part.ravel().astype(np.intp)
 
 
 def _rigid_motions(model: Model, geometry: _Geometry, rows) -> tuple[list[str], NDArray[np.float64]]:
