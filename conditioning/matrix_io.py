@@ -337,20 +337,19 @@ class _GuardedStream(io.RawIOBase):
 def _open_binary(name: str):
     """Open a file for reading, decompressing gzip or bzip2 by content."""
     try:
-        fh = open(name, "rb")
-        magic = fh.read(3)
-        fh.seek(0)
+        with open(name, "rb") as probe:
+            magic = probe.read(3)
+        if magic.startswith(_GZIP_MAGIC):
+            return gzip.open(name, "rb")
+        if magic.startswith(_BZIP2_MAGIC):
+            return bz2.open(name, "rb")
+        return open(name, "rb")
     except FileNotFoundError:
         raise InputError(name, "file not found") from None
     except IsADirectoryError:
         raise InputError(name, "is a directory, not a file") from None
     except OSError as exc:
         raise InputError(name, f"cannot be opened: {exc.strerror or exc}") from None
-    if magic.startswith(_GZIP_MAGIC):
-        return gzip.GzipFile(fileobj=fh, mode="rb")
-    if magic.startswith(_BZIP2_MAGIC):
-        return bz2.BZ2File(fh, mode="rb")
-    return fh
 
 
 def _compression(name: str) -> str:
@@ -464,7 +463,10 @@ def _translate_mm_error(name: str, exc: Exception) -> InputError:
     if "out of bounds" in msg:
         which = "row" if "Row" in msg else "column" if "Column" in msg else "an"
         return InputError(name, f"{where}{which} index out of range (indices run from 1 to the size line's order)")
-    if "Too many lines" in msg:
+    if "Header dimension line" in msg or "can't be negative" in msg or (not where and "Invalid integer" in msg):
+        return InputError(name, f"{where}the size line must hold rows, columns and (coordinate format) "
+                                f"the number of entries, as non-negative integers ({msg})")
+    if "Too many lines" in msg or "Too many values" in msg:
         return InputError(name, f"{where}more entries than the size line announces")
     if "Invalid floating-point" in msg:
         return InputError(name, f"{where}value is not a number")
@@ -593,7 +595,7 @@ def _read_harwell_boeing(name: str):
         raise InputError(name, f"line 3: matrix is {nrows} x {ncols}; a stiffness matrix must be square")
     _require_plausible_size(name, "coordinate", nrows, nnz)
     notes = [f"read a {nrows} x {ncols} Harwell-Boeing {mxtype} matrix ({nnz} stored entries)"]
-    header = [lines[0].ljust(80), lines[1].ljust(80), lines[2].ljust(80), lines[3]]
+    header = [lines[0][:80].ljust(80), lines[1].ljust(80), lines[2].ljust(80), lines[3]]
     body = lines[4:]
     if rhs_lines:
         header[1] = header[1][:56] + "0".rjust(14) + header[1][70:]

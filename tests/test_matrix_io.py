@@ -264,6 +264,8 @@ BAD_MATRIX_TEXT = {
     "garbled_size": (BANNER_SYM + "300000000 300000000 1\n1 1 1\n", "size line announces order 300000000"),
     "dense_too_large": ("%%MatrixMarket matrix array real general\n90000 90000\n1\n", "dense (array) format"),
     "dense_short": ("%%MatrixMarket matrix array real general\n2 2\n1\n2\n3\n", "fewer entries than the size line says"),
+    "size_line_short": (BANNER_SYM + "2 2\n1 1 1\n", "the size line must hold rows, columns"),
+    "size_line_negative": (BANNER_SYM + "-2 -2 1\n1 1 1\n", "line 2: the size line must hold"),
     "order_zero": (BANNER_SYM + "0 0 0\n", "no rows"),
     "hb_complex": ("title".ljust(72) + "key\n" + "1".rjust(14) * 4 + "\nCSA" + " " * 11 + "1".rjust(14) * 3
                    + "0".rjust(14) + "\n(1I1) (1I1) (1E9.1)\n", "line 3: the file holds complex values"),
