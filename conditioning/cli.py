@@ -215,7 +215,12 @@ def _console(to_stderr: bool):
 
 
 def _check_outputs(args) -> None:
-    """Refuse, before the work, output options the inputs cannot support."""
+    """Refuse, before the work, options out of range and outputs the inputs
+    cannot support."""
+    if getattr(args, "samples", 0) < 0:
+        raise UsageError(f"--samples {args.samples}: must be 0 or more")
+    if getattr(args, "min_digits", 0.0) < 0 or not math.isfinite(getattr(args, "min_digits", 0.0)):
+        raise UsageError(f"--min-digits {args.min_digits}: must be a number of digits >= 0")
     for opt in ("modes_vtk", "modes_csv", "html", "json"):
         value = getattr(args, opt, None)
         if value and value != "-":
