@@ -15,6 +15,7 @@ from conditioning.demo.assemble import (
     apply_restraints,
     combine,
     frame2d,
+    frame3d,
     ground_spring,
     load_vector,
     plane_stress_quad,
@@ -340,3 +341,75 @@ def test_matrices_are_exactly_symmetric_without_explicit_zeros():
     assert isinstance(K, sp.csr_array)
     assert (K != K.T).nnz == 0
     assert np.all(K.data != 0)
+
+
+# ------------------------------------------------------------------ 3D frame
+
+
+def _unit(v):
+    v = np.asarray(v, float)
+    return v / np.linalg.norm(v)
+
+
+@pytest.mark.parametrize("axis", [(1.0, 0.0, 0.0), (0.0, 0.0, 1.0), (2.0, -1.0, 1.5)])
+def test_space_cantilever_bending_torsion_and_stretch(axis):
+    """Cantilever along ``axis``: tip deflections PL^3/(3EI_z) along local y and
+    PL^3/(3EI_y) along local z, twist TL/(GJ), stretch PL/(EA) (classical
+    Euler-Bernoulli and Saint-Venant torsion closed forms, e.g. Gere and
+    Goodno, *Mechanics of Materials*; from memory)."""
+    L, A, Iy, Iz, J = 3000.0, 1500.0, 2.2e6, 7.9e6, 1.1e5
+    G = E_STEEL / (2 * 1.3)
+    e1 = _unit(axis)
+    v = np.array([0.0, 0.0, 1.0]) if abs(e1[2]) < 1 - 1e-6 else np.array([1.0, 0.0, 0.0])
+    e2 = _unit(v - (v @ e1) * e1)
+    e3 = np.cross(e1, e2)
+    n_el = 3
+    nodes = np.arange(1, n_el + 2)
+    xyz = np.linspace(0.0, L, n_el + 1)[:, None] * e1
+    asm = frame3d(nodes, xyz, np.column_stack([nodes[:-1], nodes[1:]]),
+                   E=E_STEEL, G=G, A=A, Iy=Iy, Iz=Iz, J=J)
+    fixed = [(1, d) for d in DOF_NAMES]
+    tip = int(nodes[-1])
+    P, T = 900.0, 2.0e5
+    translations, rotations = ("ux", "uy", "uz"), ("rx", "ry", "rz")
+
+    def tip_response(force, moment):
+        loads = {(tip, d): f for d, f in zip(translations, force)}
+        loads.update({(tip, d): m for d, m in zip(rotations, moment)})
+        red, u = solve(asm, fixed, loads)
+        return (np.array([at(red, u, tip, d) for d in translations]),
+                np.array([at(red, u, tip, d) for d in rotations]))
+
+    disp, _ = tip_response(P * e2, np.zeros(3))
+    assert disp @ e2 == pytest.approx(P * L**3 / (3 * E_STEEL * Iz), rel=1e-10)
+    disp, _ = tip_response(P * e3, np.zeros(3))
+    assert disp @ e3 == pytest.approx(P * L**3 / (3 * E_STEEL * Iy), rel=1e-10)
+    _, rot = tip_response(np.zeros(3), T * e1)
+    assert rot @ e1 == pytest.approx(T * L / (G * J), rel=1e-10)
+    disp, _ = tip_response(P * e1, np.zeros(3))
+    assert disp @ e1 == pytest.approx(P * L / (E_STEEL * A), rel=1e-10)
+
+
+def test_space_frame_in_a_plane_reduces_to_the_plane_frame():
+    """A frame lying in the XY plane: the (ux, uy, rz) rows of the space frame
+    equal the plane frame with I = I_y (with the reference vector global Z,
+    in-plane bending is about the local y axis)."""
+    nodes = [1, 2, 3, 4]
+    xy = np.array([[0.0, 0.0], [0.0, 3000.0], [4000.0, 3500.0], [4500.0, 0.0]])
+    members = [[1, 2], [2, 3], [3, 4], [1, 3]]
+    plane = frame2d(nodes, xy, members, E=E_STEEL, A=4000.0, I=3e7)
+    space = frame3d(nodes, np.column_stack([xy, np.zeros(4)]), members, E=E_STEEL,
+                     G=8.1e4, A=4000.0, Iy=3e7, Iz=1e7, J=2e5)
+    idx = space.rows((int(n), DOF_NAMES[int(d)]) for n, d in zip(plane.dofs.node, plane.dofs.dof))
+    np.testing.assert_allclose(space.K.toarray()[np.ix_(idx, idx)], plane.K.toarray(),
+                               rtol=0, atol=1e-9 * abs(plane.K).max())
+
+
+def test_free_space_frame_has_six_rigid_body_modes():
+    """An unsupported space frame has 6 zero-energy modes (textbook fact,
+    common practice)."""
+    xyz = [[0, 0, 0], [0, 0, 3000], [4000, 0, 3000], [4000, 2500, 3000], [4000, 2500, 0]]
+    asm = frame3d([1, 2, 3, 4, 5], xyz, [[1, 2], [2, 3], [3, 4], [4, 5]], E=E_STEEL,
+                   G=8.1e4, A=3000.0, Iy=1e7, Iz=2e7, J=5e5)
+    assert asm.n == 30
+    assert zero_eigenvalues(asm.K) == 6

@@ -5,7 +5,7 @@ Everything here is invented data, not a real structure. The models are small
 seconds; each one carries the answer a correct diagnosis should reach.
 
 :mod:`conditioning.demo.assemble`
-    Element stiffness routines (2D/3D truss, 2D frame, plane-stress quad),
+    Element stiffness routines (2D/3D truss, 2D/3D frame, plane-stress quad),
     springs, restraints and load vectors.
 :mod:`conditioning.demo.scenarios`
     The named demo cases and their export to Matrix Market and CSV files
@@ -24,6 +24,7 @@ from conditioning.demo.assemble import (
     apply_restraints,
     combine,
     frame2d,
+    frame3d,
     ground_spring,
     load_vector,
     plane_stress_quad,
@@ -55,6 +56,7 @@ __all__ = [
     "export",
     "export_all",
     "frame2d",
+    "frame3d",
     "ground_spring",
     "load_vector",
     "plane_stress_quad",

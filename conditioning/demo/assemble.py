@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import logging
 from dataclasses import dataclass
-from typing import Iterable, Mapping
+from typing import Iterable, Mapping, Optional
 
 import numpy as np
 import scipy.sparse as sp
@@ -47,6 +47,7 @@ NodeDof = tuple[int, str]
 FRAME2D_LAYOUT = ("ux", "uy", "rz")
 TRUSS2D_LAYOUT = ("ux", "uy")
 TRUSS3D_LAYOUT = ("ux", "uy", "uz")
+FRAME3D_LAYOUT = DOF_NAMES
 
 # Enough room for the 6 components when a (node, dof) pair is packed into one key.
 _KEY_STRIDE = 8
@@ -193,6 +194,87 @@ def frame2d(nodes: ArrayLike, xy: ArrayLike, members: ArrayLike, *,
     T[:, 3:, 3:] = R
     ke = np.einsum("eji,ejk,ekl->eil", T, k, T)
     return _scatter(ids, conn, ke, FRAME2D_LAYOUT)
+
+
+def frame3d(nodes: ArrayLike, xyz: ArrayLike, members: ArrayLike, *,
+            E: ArrayLike, G: ArrayLike, A: ArrayLike, Iy: ArrayLike, Iz: ArrayLike,
+            J: ArrayLike, ref: Optional[ArrayLike] = None) -> Assembly:
+    """Euler-Bernoulli beam-columns in space (dofs ux, uy, uz, rx, ry, rz per node).
+
+    Parameters
+    ----------
+    nodes : (m,) int
+        Node ids (unique, any order).
+    xyz : (m, 3) float
+        Node positions (mm in the demo).
+    members : (e, 2) int
+        End node ids of each member.
+    E, G : float or (e,) float
+        Young's and shear modulus (MPa).
+    A, Iy, Iz, J : float or (e,) float
+        Area (mm^2), second moments of area about the local y and z axes and
+        torsion constant (mm^4).
+    ref : (3,) or (e, 3) float, optional
+        A vector in each member's local x-y plane. Default: global Z, or
+        global X for members parallel to Z.
+
+    Returns
+    -------
+    Assembly
+        K with translational rows in N/mm and rotational rows in N mm/rad.
+
+    Notes
+    -----
+    Local axes: e1 along the member (node 1 to node 2), e2 the part of
+    ``ref`` normal to e1, e3 = e1 x e2. In local axes the stiffness is the
+    textbook 12 x 12 space-frame matrix ([1]_, from memory): EA/L on (u1, u2),
+    GJ/L on (th_x1, th_x2), the beam block of :func:`frame2d` with EI_z on
+    (v1, th_z1, v2, th_z2) and with EI_y and the signs of the 6L terms flipped
+    on (w1, th_y1, w2, th_y2) (because th_y = -dw/dx). In global axes
+    k_e = T^T k_local T with T = diag(R, R, R, R), R = [e1; e2; e3].
+    """
+    ids, pos, conn = _nodes_and_connectivity(nodes, xyz, members, nen=2, dim=3)
+    d = pos[conn[:, 1]] - pos[conn[:, 0]]
+    L = _lengths(d)
+    ne = L.size
+    E, G, A, Iy, Iz, J = (_per_element(v, ne) for v in (E, G, A, Iy, Iz, J))
+
+    e1 = d / L[:, None]
+    if ref is None:
+        v = np.broadcast_to([0.0, 0.0, 1.0], (ne, 3)).copy()
+        v[np.abs(e1[:, 2]) > 1.0 - 1e-6] = [1.0, 0.0, 0.0]
+    else:
+        v = np.broadcast_to(np.asarray(ref, dtype=float), (ne, 3))
+    e2 = v - np.sum(v * e1, axis=1)[:, None] * e1
+    norm = np.linalg.norm(e2, axis=1)
+    parallel = norm <= 1e-9 * np.linalg.norm(v, axis=1)
+    if np.any(parallel):
+        raise ValueError(f"member {int(np.flatnonzero(parallel)[0])} is parallel to its "
+                         "reference vector; give another ref")
+    e2 = e2 / norm[:, None]
+    e3 = np.cross(e1, e2)
+
+    k = np.zeros((ne, 12, 12))
+    for (i, j), stiff in (((0, 6), E * A / L), ((3, 9), G * J / L)):
+        k[:, i, i] = k[:, j, j] = stiff
+        k[:, i, j] = k[:, j, i] = -stiff
+    bend = np.array([[12.0, 6.0, -12.0, 6.0],
+                     [6.0, 4.0, -6.0, 2.0],
+                     [-12.0, -6.0, 12.0, -6.0],
+                     [6.0, 2.0, -6.0, 4.0]])
+    power = np.array([[3, 2, 3, 2], [2, 1, 2, 1], [3, 2, 3, 2], [2, 1, 2, 1]])
+    flip = np.array([1.0, -1.0, 1.0, -1.0])          # th_y = -dw/dx flips the 6L terms
+    for dofs, EI, pattern in ((np.array([1, 5, 7, 11]), E * Iz, bend),
+                              (np.array([2, 4, 8, 10]), E * Iy, bend * np.outer(flip, flip))):
+        k[:, dofs[:, None], dofs[None, :]] = (
+            pattern * EI[:, None, None] / L[:, None, None] ** power)
+
+    R = np.stack([e1, e2, e3], axis=1)                # rows are the local axes
+    T = np.zeros((ne, 12, 12))
+    for b in range(4):
+        T[:, 3 * b:3 * b + 3, 3 * b:3 * b + 3] = R
+    ke = np.einsum("eji,ejk,ekl->eil", T, k, T)
+    return _scatter(ids, conn, ke, FRAME3D_LAYOUT)
 
 
 def plane_stress_quad(nodes: ArrayLike, xy: ArrayLike, quads: ArrayLike, *,
@@ -450,6 +532,6 @@ def _keys(dofs: DofTable) -> NDArray[np.int64]:
 
 
 __all__ = [
-    "Assembly", "NodeDof", "truss2d", "truss3d", "frame2d", "plane_stress_quad",
+    "Assembly", "NodeDof", "truss2d", "truss3d", "frame2d", "frame3d", "plane_stress_quad",
     "spring", "ground_spring", "apply_restraints", "load_vector", "combine",
 ]
