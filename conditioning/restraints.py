@@ -82,7 +82,8 @@ def suggest_restraints(
     -----
     With Q an orthonormal basis (n x r) and row weights w, the first r
     pivots of the column-pivoted QR of (diag(w) Q)^T are the rows chosen
-    (Golub and Van Loan's subset selection, [1]_). Restraining rows R
+    (Golub and Van Loan's subset selection, [1]_; the pivoting of
+    Businger and Golub, [2]_, as in LAPACK xGEQP3 behind scipy.linalg.qr). Restraining rows R
     removes the span exactly when Q[R] is nonsingular: for a positive
     semidefinite K, a motion u with u_R = 0 and zero energy lies in the span
     and so is 0. This is verified (smallest singular value of Q[R] above
@@ -95,8 +96,11 @@ def suggest_restraints(
     References
     ----------
     .. [1] G. H. Golub, C. F. Van Loan (2013), "Matrix Computations", 4th ed.,
-           Johns Hopkins University Press, section 5.5.7 "Subset selection
-           using the SVD" / QR with column pivoting (from memory).
+           Johns Hopkins University Press, chapter 5: QR with column pivoting
+           and subset selection (from memory).
+    .. [2] P. Businger, G. H. Golub (1965), "Linear least squares solutions
+           by Householder transformations", Numer. Math. 7, pp. 269-276
+           (QR with column pivoting; from memory).
 
     Examples
     --------

@@ -104,3 +104,13 @@ def test_rows_without_stiffness_are_not_listed():
     assert 4 not in [e.row for e in result.worst]
     assert len(result.worst) == 4
     assert "1 row(s) without stiffness" in result.method
+
+
+def test_docstring_example_runs():
+    """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
+    import doctest
+
+    import conditioning.decay
+
+    result = doctest.testmod(conditioning.decay)
+    assert result.attempted > 0 and result.failed == 0

@@ -250,3 +250,13 @@ def test_vectorised_on_a_large_chain():
     elapsed = time.perf_counter() - t0
     assert [j.nodes for j in jumps] == [[1001, 2001]]
     assert elapsed < 10.0
+
+
+def test_docstring_example_runs():
+    """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
+    import doctest
+
+    import conditioning.jumps
+
+    result = doctest.testmod(conditioning.jumps)
+    assert result.attempted > 0 and result.failed == 0

@@ -223,3 +223,13 @@ def test_basis_rank_and_shape_checks():
     assert suggest_restraints(model, np.zeros((6, 0))) == []
     with pytest.raises(ValueError, match="n = 6"):
         suggest_restraints(model, np.ones(5))
+
+
+def test_docstring_example_runs():
+    """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
+    import doctest
+
+    import conditioning.restraints
+
+    result = doctest.testmod(conditioning.restraints)
+    assert result.attempted > 0 and result.failed == 0
