@@ -619,6 +619,8 @@ def _read_harwell_boeing(name: str):
         problem = " ".join(str(exc).split())
         if "could not be read to its end" in problem:
             problem = "non-numeric data in the pointer, index or value section"
+        elif "indices must be" in problem:
+            problem = f"row index out of range (indices run from 1 to {nrows})"
         elif "should have the same size" in problem:
             problem = "fewer values or indices than the header announces (cut short?)"
         raise InputError(name, f"cannot be read as Harwell-Boeing: {problem}") from None

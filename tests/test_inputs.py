@@ -155,6 +155,8 @@ BAD_CONTEXT = {
     "fix_not_in_map": ("node,dof\n1,ux\n3,uy\n", "fix", "line 3: restraint on node 3 uy, which is not in the DOF map"),
     "fix_unknown_name": ("node,dof\n1,uq\n", "fix", "line 2: unknown dof 'uq'"),
     "fix_everything": ("1,ux\n1,uy\n2,ux\n2,uy\n", "fix", "restraints remove all 4 rows"),
+    "dofs_not_utf8": ("node,dof\n1,ux\n1,\xfcy\n", "dofs", "not UTF-8 text"),
+    "load_nul_byte": ("1\n2\x00\n3\n4\n", "load", "NUL byte"),
 }
 
 
@@ -164,7 +166,7 @@ def test_bad_context_file_raises_input_error_naming_it(tmp_path, case):
     matrix = tmp_path / "k.mtx"
     scipy.io.mmwrite(matrix, sp.coo_array(chain(4)), symmetry="symmetric")
     bad = tmp_path / f"{case}.csv"
-    bad.write_text(text)
+    bad.write_bytes(text.encode("latin-1"))
     kwargs = {option: bad}
     if option != "dofs":
         kwargs["dofs"] = _two_node_map(tmp_path)

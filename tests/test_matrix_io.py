@@ -344,6 +344,20 @@ def test_harwell_boeing_truncated_and_garbled(tmp_path):
         read_matrix(garbled)
 
 
+def test_harwell_boeing_index_out_of_range(tmp_path):
+    """A row index beyond the order announced on line 3 is refused."""
+    p = tmp_path / "chain.rua"
+    scipy.io.hb_write(p, sp.csc_array(np.array([[2.0, -1.0], [-1.0, 2.0]])))
+    lines = p.read_text().splitlines()
+    assert lines[5].split() == ["1", "2", "1", "2"]  # row indices, scipy's writer layout
+    lines[5] = lines[5][:-1] + "9"
+    bad = tmp_path / "bad.rua"
+    bad.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match="row index out of range") as info:
+        read_matrix(bad)
+    assert info.value.path == str(bad)
+
+
 # --------------------------------------------------------------------------- #
 # Vectors
 # --------------------------------------------------------------------------- #
