@@ -114,12 +114,16 @@ def build_findings(
                            [], "Each part must be supported on its own, or connected to the rest."))
     if spectrum is not None:
         for mode in spectrum.modes:
+            nearly = "" if mode.exact else "nearly "
+            held = "" if mode.exact else (" It is held only by a very small stiffness (for example a "
+                                          "soft spring), so K is invertible but badly conditioned.")
+            severity = "error" if mode.exact else "warning"
             if mode.kind == "rigid-body":
                 out.append(Finding(
-                    "error", "support.rigid-body-mode",
-                    f"Part {mode.part} can move as a rigid body ({_motion_text(mode)}); "
+                    severity, "support.rigid-body-mode",
+                    f"Part {mode.part} can {nearly}move as a rigid body ({_motion_text(mode)}); "
                     f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
-                    f"{_list_nodes(mode.nodes)}.",
+                    f"{_list_nodes(mode.nodes)}.{held}",
                     mode.nodes,
                     "Add supports in the directions that move, or connect the part to the supported "
                     "structure; the suggested restraints below are one minimal choice."))
@@ -127,9 +131,9 @@ def build_findings(
                 where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
                          "rigidly, meeting at " if mode.groups else "located at ")
                 out.append(Finding(
-                    "error", "support.mechanism",
-                    f"Internal mechanism in part {mode.part}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
-                    f"scaled eigenvalue {mode.eigenvalue:.2e}."
+                    severity, "support.mechanism",
+                    f"Internal {'near-' if not mode.exact else ''}mechanism in part {mode.part}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
+                    f"scaled eigenvalue {mode.eigenvalue:.2e}.{held}"
                     + ("" if model.coords is not None else
                        " Without coordinates a rotation of a part cannot be told from a mechanism."),
                     mode.nodes,
@@ -152,7 +156,9 @@ def build_findings(
                            f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
                            "from a missing support; see the stiffness jumps.", [], ""))
     for j in jumps:
-        sev = "warning" if j.digits_cost >= 6 else "note"
+        # A stiff spring to ground is absorbed by diagonal scaling; a stiff
+        # link between DOFs is not.
+        sev = "warning" if (j.digits_cost >= 6 and j.kind == "coupling") else "note"
         out.append(Finding(sev, "stiffness.jump",
                            f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
                            f"{j.ratio:.1e}, costs about {j.digits_cost:.1f} digits.",
@@ -204,22 +210,28 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         status = "warnings"
     if any(f.severity == "error" for f in findings):
         status = "errors"
-    free = (spectrum.count if spectrum is not None else 0)
-    if free or structure.empty_rows.size:
-        kinds = {}
-        for m in (spectrum.modes if spectrum is not None else []):
+    modes = spectrum.modes if spectrum is not None else []
+    exact = [m for m in modes if m.exact]
+    near = [m for m in modes if not m.exact]
+
+    def detail(ms):
+        kinds: dict[str, int] = {}
+        for m in ms:
             kinds[m.kind] = kinds.get(m.kind, 0) + 1
-        detail = ", ".join(f"{v} {k}" for k, v in kinds.items())
-        total = len(spectrum.modes) if spectrum is not None else structure.empty_rows.size
-        return f"singular: {total} free mode(s) ({detail})", status
+        return ", ".join(f"{v} {k}" for k, v in kinds.items())
+
+    if exact or structure.empty_rows.size:
+        total = len(exact) if modes else structure.empty_rows.size
+        return f"singular: {total} free mode(s) ({detail(exact)})", status
+    prefix = f"{len(near)} near-singular mode(s) ({detail(near)}); " if near else ""
     if digits is not None and digits.samples:
         worst = min(s.trustworthy_digits for s in digits.samples)
         n = int(np.floor(max(worst, 0.0)))
         if status == "healthy":
             return f"healthy: trustworthy to {n} significant digits (measured)", status
-        return f"ill-conditioned but trustworthy to {n} significant digits (measured)", status
+        return f"ill-conditioned: {prefix}trustworthy to {n} significant digits (measured)", status
     if condition is not None and condition.scaled_estimate:
         n = int(np.floor(max(16 - math.log10(condition.scaled_estimate), 0)))
         word = "healthy" if status == "healthy" else "ill-conditioned"
-        return f"{word}: about {n} significant digits (estimated from the scaled condition number, not measured)", status
+        return f"{word}: {prefix}about {n} significant digits (estimated from the scaled condition number, not measured)", status
     return ("healthy" if status == "healthy" else "warnings found"), status

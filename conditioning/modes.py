@@ -205,6 +205,8 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
     n = model.n
     d = np.abs(K.diagonal())
     lam_max = spectrum.lambda_max
+    # Zero at working precision, with a little room for the Rayleigh quotient's own error.
+    zero = 10 * spectrum.zero_level
     modes: list[NearSingularMode] = []
     columns: list[NDArray] = []
     # DOFs without stiffness: each is its own mode.
@@ -213,7 +215,7 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
         e[row] = 1.0
         name = model.dofs.dof_name(row) if model.dofs is not None else "uniform"
         modes.append(NearSingularMode(0.0, 0.0, "dof-without-stiffness", {name: 1.0},
-                                      model.nodes_of([row]), int(structure.part_of_row[row]), float("nan")))
+                                      model.nodes_of([row]), int(structure.part_of_row[row]) + 1, float("nan")))
         columns.append(e)
     idx = np.flatnonzero(active)
     V = spectrum.vectors[:, spectrum.first:spectrum.first + spectrum.count]
@@ -269,8 +271,8 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
                 share = c**2 / np.sum(c**2)
                 motion = {name: float(v) for name, v in zip(rb.motions, share) if v > 1e-6}
                 lam = _rayleigh_scaled(K, u, d)
-                modes.append(NearSingularMode(lam, lam / lam_max, "rigid-body", motion, node_list, int(p),
-                                              1.0, [], u / np.max(np.abs(u))))
+                modes.append(NearSingularMode(lam, lam / lam_max, "rigid-body", motion, node_list, int(p) + 1,
+                                              1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= zero))
                 columns.append(u)
                 rigid_vecs.append(u_part)
             # (3) what is left of the part's null space is a mechanism.
@@ -295,9 +297,9 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
                     top = rows[np.argsort(-np.abs(u_part))[:10]]
                     meeting = model.nodes_of(top)
                 lam = _rayleigh_scaled(K, u, d)
-                modes.append(NearSingularMode(lam, lam / lam_max, "mechanism", {}, meeting, int(p),
+                modes.append(NearSingularMode(lam, lam / lam_max, "mechanism", {}, meeting, int(p) + 1,
                                               share if model.coords is not None else float("nan"),
-                                              groups, u / np.max(np.abs(u))))
+                                              groups, u / np.max(np.abs(u)), exact=abs(lam) <= zero))
                 columns.append(u)
     basis = np.column_stack(columns) if columns else np.zeros((n, 0))
     return LocatedModes(modes, basis, stiff_links)

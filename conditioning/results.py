@@ -122,7 +122,7 @@ class NearSingularMode:
     nodes (mechanism), the node (DOF without stiffness). 1-based rows without
     a DOF map."""
     part: int
-    """Connected part the mode lives on (label of StructureResult.part_of_row)."""
+    """Connected part the mode lives on, 1-based (StructureResult.part_of_row + 1)."""
     rigid_share: float
     """Fraction of the mode (in the 2-norm squared) explained by rigid motions
     of its part; nan without coordinates."""
@@ -130,6 +130,10 @@ class NearSingularMode:
     """For a mechanism: node groups that move rigidly together."""
     vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """The mode in K's DOFs (u = D^-1/2 v, unit max-norm); not serialised."""
+    exact: bool = True
+    """True when the eigenvalue is zero at working precision (|lambda| <=
+    n*eps*lambda_max(S)): K is singular. False for a nearly free mode that
+    some small stiffness (a soft spring) still holds."""
 
 
 @dataclass(frozen=True)
