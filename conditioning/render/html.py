@@ -115,7 +115,8 @@ def _findings(r: results.Report) -> str:
     items = []
     order = {"error": 0, "warning": 1, "note": 2}
     for f in sorted(r.findings, key=lambda f: order.get(f.severity, 3)):
-        nodes = f" (nodes {_e(summarise_ids(f.nodes, 12))})" if f.nodes else ""
+        listed = summarise_ids(f.nodes, 12)
+        nodes = f" (nodes {_e(listed)})" if f.nodes and listed not in f.message else ""
         advice = f"<br>Advice: {_e(f.advice)}" if f.advice else ""
         items.append(f'<li><span class="sev-{_e(f.severity)}">{_e(f.severity)}</span> '
                      f'<code>{_e(f.code)}</code> {_e(f.message)}{nodes}{advice}</li>')

@@ -299,8 +299,9 @@ def _findings(r: results.Report, max_ids: int):
         line.append(f"{f.severity:<7} ", style=_SEVERITY_STYLE.get(f.severity, ""))
         line.append(f"[{f.code}] ", style="dim")
         line.append(f.message)
-        if f.nodes:
-            line.append(f" (nodes {summarise_ids(f.nodes, max_ids)})")
+        listed = summarise_ids(f.nodes, max_ids)
+        if f.nodes and listed not in f.message:
+            line.append(f" (nodes {listed})")
         rows.append(line)
         if f.advice:
             rows.append(Text(f"        advice: {f.advice}"))
