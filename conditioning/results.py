@@ -243,6 +243,18 @@ class DigitsSample:
     confirmation: Optional[str] = None
     """How an independent re-solve confirmed the reference, if one ran."""
     per_dof_digits: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    forward_error: Optional[float] = None
+    """Measured ||x - x_ref||_inf / ||x_ref||_inf of the float64 (or audited)
+    solution (dimensionless)."""
+    resolution: Optional[float] = None
+    """Relative accuracy of the reference itself (certified radius, error
+    bound or estimate); trustworthy_digits never exceeds -log10 of it."""
+    at_ceiling: bool = False
+    """True when the measured error is below the reference's resolution, so
+    trustworthy_digits is only the ceiling the measurement can show."""
+    backward_error: Optional[float] = None
+    """||f - K x||_inf / (||K||_inf ||x||_inf + ||f||_inf) of the measured
+    solution, residual in double-double (dimensionless)."""
 
 
 @dataclass(frozen=True)
