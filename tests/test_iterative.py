@@ -1,0 +1,105 @@
+"""Factorization-free smallest eigenpairs, checked against LAPACK
+(numpy.linalg.eigvalsh of the dense scaled matrix) on scikit-fem models."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from conditioning.factorization import diagonal_scaling, scaled_matrix
+from conditioning.iterative import iterative_spectrum
+from conditioning.memory import fits, predict_factor_memory
+from conditioning.model import Coordinates, DofTable, Model
+from conditioning.ordering import nested_dissection
+
+skfem = pytest.importorskip("skfem", reason="scikit-fem (test extra) builds the reference models")
+from skfem import Basis, ElementHex1, ElementQuad1, ElementVector, MeshHex, MeshQuad, asm  # noqa: E402
+from skfem.models.elasticity import lame_parameters, linear_elasticity  # noqa: E402
+
+
+def free_body(n: int, dim: int) -> Model:
+    """Unsupported elastic square/cube of n^dim elements (scikit-fem), with
+    DOF map and coordinates; 3 (2D) or 6 (3D) rigid-body modes."""
+    x = np.linspace(0.0, 2.0, n + 1)
+    mesh = MeshQuad.init_tensor(x, x) if dim == 2 else MeshHex.init_tensor(x, x, x)
+    elem = ElementQuad1() if dim == 2 else ElementHex1()
+    lam, mu = lame_parameters(1.0e4, 0.3)
+    K = sp.csr_array(asm(linear_elasticity(lam, mu), Basis(mesh, ElementVector(elem), intorder=2)))
+    rows = np.arange(K.shape[0])
+    xyz = np.zeros((mesh.p.shape[1], 3))
+    xyz[:, :dim] = mesh.p.T
+    ids = np.arange(1, xyz.shape[0] + 1, dtype=np.int64)
+    return Model(K, dofs=DofTable((rows // dim + 1).astype(np.int64), (rows % dim).astype(np.int8)),
+                 coords=Coordinates(ids, xyz, dim))
+
+
+def lapack_smallest(K, k):
+    S = scaled_matrix(K, diagonal_scaling(K)).toarray()
+    return np.linalg.eigvalsh(S)[:k]
+
+
+@pytest.mark.parametrize("dim,n,modes", [(2, 20, 3), (3, 6, 6)])
+def test_rigid_body_count_and_eigenvalues_match_lapack(dim, n, modes):
+    """An unsupported body has 3 (2D) or 6 (3D) rigid-body modes (textbook
+    fact, /work/shared/REFERENCES.md); LOBPCG finds that many near-zero
+    eigenvalues of S and the next ones as LAPACK does."""
+    model = free_body(n, dim)
+    assert model.n > 600  # the iterative path, not the dense fallback
+    res = iterative_spectrum(model, k=modes + 4, rng=0)
+    ref = lapack_smallest(model.K, modes + 4)
+    assert res.converged
+    assert "LOBPCG" in res.method
+    assert res.near_null_count == modes
+    assert np.all(np.abs(res.eigenvalues[:modes]) < 1e-10)
+    np.testing.assert_allclose(res.eigenvalues[modes:], ref[modes:], rtol=1e-7)
+    assert res.cannot and any("inertia" in c for c in res.cannot)
+
+
+def test_supported_body_has_no_near_null_mode():
+    """Clamp the left edge of the plate: the smallest eigenvalue of S is
+    clearly positive, as LAPACK confirms."""
+    model = free_body(24, 2)
+    xyz = model.coords.xyz[model.dofs.node - 1]
+    keep = np.flatnonzero(xyz[:, 0] > 0)
+    K = sp.csr_array(model.K[keep][:, keep])
+    clamped = Model(K, dofs=model.dofs.take(keep), coords=model.coords)
+    res = iterative_spectrum(clamped, k=4, rng=1)
+    ref = lapack_smallest(K, 4)
+    assert res.near_null_count == 0
+    np.testing.assert_allclose(res.eigenvalues, ref, rtol=1e-7)
+
+
+def test_row_without_stiffness_is_a_zero_mode():
+    """A DOF with no stiffness at all is an exact zero eigenvalue (common practice)."""
+    model = free_body(20, 2)
+    xyz = model.coords.xyz[model.dofs.node - 1]
+    keep = np.flatnonzero(xyz[:, 0] > 0)
+    K = sp.lil_array(model.K[keep][:, keep])
+    K[5, :] = 0.0
+    K[:, 5] = 0.0
+    K = sp.csr_array(K)
+    K.eliminate_zeros()
+    res = iterative_spectrum(Model(K, dofs=model.dofs.take(keep), coords=model.coords), k=3, rng=2)
+    assert res.near_null_count == 1
+    assert res.eigenvalues[0] == 0.0 and res.eigenvectors[5, 0] == 1.0
+
+
+def test_model_too_big_for_the_limit_takes_the_iterative_path(monkeypatch):
+    """Memory guard: under CONDITIONING_MEMORY_LIMIT=1M the factor of a
+    free 3D body (about 2 MB predicted) does not fit; the prediction says so
+    without factorizing, and the factorization-free path still finds the 6
+    rigid-body modes LAPACK finds."""
+    monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "1M")
+    model = free_body(6, 3)
+    xyz = model.coords.xyz[model.dofs.node - 1]
+    factorized = []
+    monkeypatch.setattr(spla, "splu", lambda *a, **k: factorized.append(1))
+    pred = predict_factor_memory(model.K, nested_dissection(model.K, xyz))
+    assert not fits(pred)
+    assert factorized == []
+    monkeypatch.undo()  # the incomplete factorization uses spilu, not splu
+    res = iterative_spectrum(model, k=8, rng=3)
+    ref = lapack_smallest(model.K, 8)
+    assert res.near_null_count == int(np.count_nonzero(ref < 1e-10)) == 6
