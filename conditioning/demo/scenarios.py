@@ -37,6 +37,7 @@ from conditioning.demo.assemble import (
     apply_restraints,
     combine,
     frame2d,
+    frame3d,
     ground_spring,
     load_vector,
     plane_stress_quad,
@@ -474,6 +475,39 @@ def lattice_tower_3d() -> DemoCase:
                  finding="Well supported and well conditioned; the solution can be trusted."))
 
 
+# ---------------------------------------------------------------- monorail beam (3D frame)
+
+# An invented hoist monorail: a straight steel beam along X, 12 m long in 24
+# beam-column elements, on three pinned hangers (translations restrained, no
+# rotation). Nothing stops the beam from spinning about its own axis.
+_RAIL = dict(A=5380.0, Iy=6.04e6, Iz=8.36e7, J=2.0e5)   # mm^2, mm^4; Iz about the strong axis
+_G_STEEL = E_STEEL / (2.0 * (1.0 + NU_STEEL))
+
+
+def monorail_no_torsion_support() -> DemoCase:
+    n_el, length = 24, 12000.0
+    nodes = np.arange(1, n_el + 2)
+    xyz = np.column_stack([np.linspace(0.0, length, n_el + 1), np.zeros(n_el + 1),
+                           np.full(n_el + 1, 4000.0)])
+    asm = frame3d(nodes, xyz, np.column_stack([nodes[:-1], nodes[1:]]),
+                  E=E_STEEL, G=_G_STEEL, **_RAIL)       # local y = global Z (vertical)
+    hangers = (int(nodes[0]), int(nodes[n_el // 2]), int(nodes[-1]))
+    supports = [(hangers[0], "ux")] + [(n, d) for n in hangers for d in ("uy", "uz")]
+    # Hoist at a quarter point: 10 kN down, 0.5 kN sideways, 50 mm eccentric (invented).
+    hoist = int(nodes[n_el // 4])
+    loads: dict[NodeDof, float] = {(hoist, "uz"): -10000.0, (hoist, "uy"): 500.0,
+                                   (hoist, "rx"): 10000.0 * 50.0}
+    return _case(
+        "monorail_no_torsion_support",
+        "Hoist monorail as a 3D frame on three pinned hangers: nothing restrains the "
+        "rotation about its own axis (one rigid-body mode in rx).",
+        asm, _coordinates(nodes, xyz), supports, loads,
+        Expected(rigid_body_modes=1, mode_nodes=tuple(int(n) for n in nodes),
+                 defect_nodes=hangers, ill_conditioned=True, large_raw_condition=True,
+                 finding="One rigid-body mode: the beam spins about its axis (rx at every "
+                         "node); restrain rx at a hanger (nodes 1, 13, 25)."))
+
+
 # ---------------------------------------------------------------- catalogue and export
 
 
@@ -487,7 +521,7 @@ def scenarios() -> dict[str, DemoCase]:
     """
     cases = [footbridge(), footbridge_spring_bearings(), rack_no_sway_support(),
              bracket_loose_pad(), rack_penalty_tie(), mast_missing_brace(),
-             mast_soft_spring(), lattice_tower_3d()]
+             mast_soft_spring(), lattice_tower_3d(), monorail_no_torsion_support()]
     return {c.name: c for c in cases}
 
 
