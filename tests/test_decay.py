@@ -65,10 +65,12 @@ def test_bcsstk01_matches_lapack_ldl_same_ordering():
 
 
 def test_singular_chain_reports_lower_bound():
-    """A free-free chain is singular (rigid translation; common practice):
-    the shared factorization is shifted and the method says the decay is a
-    lower bound. The true decay at the last pivot is infinite; the shifted one
-    is still far above the log10 2 of the supported chain (closed form above)."""
+    """A free-free chain (tridiag(-1, 2, -1) with end diagonals 1) is singular.
+    Its natural-order pivots are d_1 = ... = d_{n-1} = 1 and d_n = 0 (the
+    recurrence d_k = K_kk - 1/d_{k-1}; closed form), so the true decay is 1 at
+    the first row, 2 inside and infinite at the last. The shared factorization
+    is shifted; every reported decay is a lower bound of the true one, close
+    to it away from the null space, and large (not infinite) at the last row."""
     n = 50
     K = second_difference(n).tolil()
     K[0, 0] = K[n - 1, n - 1] = 1.0
@@ -76,9 +78,15 @@ def test_singular_chain_reports_lower_bound():
     assert np.linalg.matrix_rank(K.toarray()) == n - 1  # LAPACK SVD: one null vector
     fac = factorize(K, ordering="NATURAL")
     assert fac.shift != 0.0
-    result = diagonal_decay(Model(K), fac)
+    result = diagonal_decay(Model(K), fac, worst=n)
     assert "lower bound" in result.method
-    assert result.max_digits > 3.0
+    true = np.r_[1.0, 2.0 * np.ones(n - 2), np.inf]
+    rows = np.array([e.row for e in result.worst])
+    ratio = np.array([e.ratio for e in result.worst])
+    assert np.all(ratio <= true[rows] * (1 + 1e-12))
+    inner = rows < n - 1
+    np.testing.assert_allclose(ratio[inner], true[rows[inner]], rtol=1e-5)
+    assert result.worst[0].row == n - 1 and math.log10(2.0) + 3 < result.max_digits < math.inf
 
 
 def test_negative_pivot_is_infinite_decay():

@@ -114,7 +114,10 @@ def test_free_plate_2d_scikit_fem_three_translations():
     xyz = model.coords.lookup(np.array([r.node for r in restraints]))
     assert any(x in (0.0, 6.0) and y in (0.0, 3.0) for x, y, _ in xyz)
     assert is_positive_definite(reduced(model.K, restraints))
-    assert any("rotation rz" in r.reason and "lever arm" in r.reason for r in restraints)
+    # The rotation is held by two uy (or ux) supports as far apart as the plate
+    # allows: its length 6 (geometry of the invented plate).
+    arms = [float(r.reason.split("lever arm of ")[1].split()[0]) for r in restraints if "rotation rz" in r.reason]
+    assert arms and max(arms) == pytest.approx(6.0)
 
 
 def test_free_frame_prefers_translations_over_rotations():
