@@ -252,7 +252,7 @@ def _coupling_jump(model, stats, rows, types, pair, stiffness, excess) -> Stiffn
     names = _type_names(model, types)
     where = _pair_text(model, pair)
     text = (
-        f"the link between {where} ({names}) has stiffness {stiffness:.3g}, {ratio:.3g} times the "
+        f"The link between {where} ({names}) has stiffness {stiffness:.3g}, {ratio:.3g} times the "
         f"typical diagonal stiffness {typical:.3g} of that DOF type (median over its DOFs). "
         f"Scaling the matrix cannot remove this: along the motion the two ends share, the "
         f"scaled matrix has an eigenvalue about 1/{ratio:.3g} of its others, so the condition "
@@ -307,7 +307,7 @@ def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupl
         advice, ordinary = _advice(stats, types, float(d[rows[k]]))
         where = model.row_label(int(rows[k]))
         text = (
-            f"the diagonal stiffness at {where} is {d[rows[k]]:.3g}, {10.0**worst:.3g} times the "
+            f"The diagonal stiffness at {where} is {d[rows[k]]:.3g}, {10.0**worst:.3g} times the "
             f"typical diagonal of its DOF type, with no equally stiff link to another DOF: it looks "
             f"like a support or spring to ground given by a large number. It raises the raw "
             f"condition number by that ratio; symmetric diagonal scaling removes most of it, so "
@@ -324,8 +324,9 @@ def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupl
 
 def _with_part(jump: StiffnessJump, structure: StructureResult) -> StiffnessJump:
     parts = sorted({int(structure.part_of_row[r]) for r in jump.rows})
-    label = "part " + ", ".join(str(p) for p in parts) if len(parts) == 1 else "parts " + ", ".join(str(p) for p in parts)
-    return replace(jump, reasoning=f"In {label}: " + jump.reasoning)
+    names = ", ".join(str(p) for p in parts)
+    label = f"Part {names}" if len(parts) == 1 else f"Parts {names}"
+    return replace(jump, reasoning=f"{label}. " + jump.reasoning)
 
 
 __all__ = ["find_stiffness_jumps"]

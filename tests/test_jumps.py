@@ -260,3 +260,21 @@ def test_docstring_example_runs():
 
     result = doctest.testmod(conditioning.jumps)
     assert result.attempted > 0 and result.failed == 0
+
+
+def test_jump_names_its_part_when_the_model_has_several():
+    """Two chains that do not touch, a 1e12 tie in the second: the jump's
+    reasoning names the part holding it (labels from the structure stage,
+    graph components by scipy.sparse.csgraph)."""
+    from conditioning.structure import check_structure
+
+    a, b = fixed_free_chain(10), fixed_free_chain(12, links=[(2, 7)], P=1e12)
+    K = sp.csr_array(sp.block_diag([a.K, b.K]))
+    table = DofTable(np.r_[a.dofs.node, b.dofs.node + 100], np.r_[a.dofs.dof, b.dofs.dof])
+    model = Model(K, dofs=table)
+    structure = check_structure(model)
+    assert structure.parts == 2
+    jumps = find_stiffness_jumps(model, structure)
+    assert [j.nodes for j in jumps] == [[103, 108]]
+    part = int(structure.part_of_row[10 + 2])
+    assert jumps[0].reasoning.startswith(f"Part {part}. The link between node 103 and node 108")
