@@ -121,9 +121,9 @@ def _subdivide(nodes, xy, members, parts: int, first_new_id: int):
     nodes = np.asarray(nodes, dtype=np.int64)
     xy = np.asarray(xy, dtype=float)
     members = np.asarray(members, dtype=np.int64)
-    pos = {int(n): i for i, n in enumerate(nodes)}
-    a = xy[[pos[int(i)] for i in members[:, 0]]]
-    b = xy[[pos[int(j)] for j in members[:, 1]]]
+    order = np.argsort(nodes)
+    ends = order[np.searchsorted(nodes[order], members)]                # (e, 2) positions
+    a, b = xy[ends[:, 0]], xy[ends[:, 1]]
     frac = np.arange(1, parts) / parts                                  # (parts - 1,)
     new_xy = a[:, None, :] + frac[None, :, None] * (b - a)[:, None, :]  # (e, parts-1, d)
     new_ids = first_new_id + np.arange(members.shape[0] * (parts - 1)).reshape(-1, parts - 1)
@@ -164,8 +164,8 @@ def _case(name: str, description: str, asm: Assembly, coords: Coordinates,
 
 # An invented 12 m pedestrian bridge side frame: 6 panels of 2000 mm, 1500 mm deep,
 # welded (rigid) joints, every member split into 2 beam elements.
-_CHORD = dict(A=2400.0, I=3.6e6)      # mm^2, mm^4 (a hollow section of about 120 x 120 x 6)
-_WEB = dict(A=1100.0, I=0.9e6)        # mm^2, mm^4
+_CHORD = dict(A=2400.0, I=3.6e6)      # mm^2, mm^4 (invented, a small hollow section)
+_WEB = dict(A=1100.0, I=0.9e6)        # mm^2, mm^4 (invented)
 _PANEL, _DEPTH, _NPANEL = 2000.0, 1500.0, 6
 
 
