@@ -648,22 +648,19 @@ def _require_finite_entries(source: str, rows, cols, vals) -> None:
 
 
 def _require_single_triangle(source: str, rows, cols) -> None:
-    """A symmetric-labelled file must not store both (i, j) and (j, i)."""
-    if rows.size == 0:
-        return
-    lo, hi = np.minimum(rows, cols), np.maximum(rows, cols)
-    n = int(hi.max()) + 1
-    key_stored = rows * n + cols
-    key_pair = lo * n + hi
-    pairs_twice = np.unique(key_pair).size < np.unique(key_stored).size
-    if pairs_twice:
-        # find one example for the message
-        order = np.lexsort((rows > cols, key_pair))
-        kp = key_pair[order]
-        dup = np.flatnonzero((kp[1:] == kp[:-1]) & ((rows > cols)[order][1:] != (rows > cols)[order][:-1]))
-        i, j = (int(lo[order][dup[0]]) + 1, int(hi[order][dup[0]]) + 1) if dup.size else (0, 0)
-        raise InputError(source, f"labelled symmetric (one triangle stored) but stores both ({j}, {i}) and "
-                                 f"({i}, {j}); relabel it 'general' or keep one triangle")
+    """A symmetric-labelled file must not store both (i, j) and (j, i) (off-diagonal entries given)."""
+    below = rows > cols
+    if below.all() or not below.any():
+        return  # the usual case: one triangle only
+    n = int(max(rows.max(), cols.max())) + 1
+    lower_keys = np.sort(rows[below] * n + cols[below])
+    mirrored = cols[~below] * n + rows[~below]  # upper entries moved to the lower triangle
+    pos = np.minimum(np.searchsorted(lower_keys, mirrored), lower_keys.size - 1)
+    hits = np.flatnonzero(lower_keys[pos] == mirrored)
+    if hits.size:
+        i, j = int(cols[~below][hits[0]]) + 1, int(rows[~below][hits[0]]) + 1
+        raise InputError(source, f"labelled symmetric (one triangle stored) but stores both ({i}, {j}) and "
+                                 f"({j}, {i}); relabel it 'general' or keep one triangle")
 
 
 def _require_finite_vector(name: str, vec: NDArray[np.float64], what: str) -> None:
