@@ -247,7 +247,7 @@ def assemble_symmetric(rows, cols, vals, n: int, *, stored: Stored, source: str,
         mirror = (lower == 0) != (upper == 0)
         if mirror:
             side = "lower" if lower else "upper"
-            notes.append(f"the file is labelled general but stores only the {side} triangle "
+            notes.append(f"the input is not labelled symmetric but stores only the {side} triangle "
                          f"({lower + upper} off-diagonal entries); mirrored to a symmetric matrix")
     if mirror:
         rows, cols, vals = (np.concatenate([rows, cols[off]]), np.concatenate([cols, rows[off]]),
