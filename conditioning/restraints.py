@@ -38,6 +38,10 @@ ROTATION_WEIGHT = 0.1
 #: A motion is called rigid when rigid motions of its part explain it to
 #: within this relative residual (2-norm).
 RIGID_RESIDUAL = 0.1
+#: Relative size below which a component of a motion counts as zero; mode
+#: bases from eigensolvers or from a matrix mixing units carry noise of about
+#: 1e-8..1e-6 of their largest entry.
+MOTION_TOL = 1e-4
 
 
 @dataclass(frozen=True)
@@ -273,7 +277,7 @@ def _reason(model: Model, geometry: _Geometry, motion, row: int, dof: str) -> st
     """Plain words for what restraining ``row`` stops (``motion``: the unit
     motion C_k that only this restraint holds)."""
     where = "this DOF" if dof == "-" else f"{dof} here"
-    support = np.flatnonzero(np.abs(motion) > 1e-8 * np.abs(motion).max())
+    support = np.flatnonzero(np.abs(motion) > MOTION_TOL * np.abs(motion).max())
     if support.size == 1:
         return f"restrain {where}: the DOF has no stiffness of its own (or connect it to the structure)"
     label = int(np.bincount(geometry.part[support], weights=motion[support] ** 2).argmax())
@@ -324,15 +328,15 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
 def _motion_without_coords(model: Model, motion, rows) -> str:
     """Without coordinates only a uniform translation of one DOF type is recognisable."""
     m = motion[rows]
-    moving = np.abs(m) > 1e-8 * np.abs(m).max()
+    moving = np.abs(m) > MOTION_TOL * np.abs(m).max()
     if model.dofs is not None:
         dof = model.dofs.dof[rows]
         types = np.unique(dof[moving])
         if types.size == 1 and types[0] < 3:
             of_type = dof == types[0]
-            if np.all(moving[of_type]) and np.allclose(m[of_type], m[of_type][0], rtol=1e-6):
+            if np.all(moving[of_type]) and np.allclose(m[of_type], m[of_type][0], rtol=MOTION_TOL, atol=0):
                 return f"the translation {DOF_NAMES[int(types[0])]}"
-    elif np.all(moving) and np.allclose(m, m[0], rtol=1e-6):
+    elif np.all(moving) and np.allclose(m, m[0], rtol=MOTION_TOL, atol=0):
         return "a uniform motion of all its rows"
     return "a free motion (rotation or mechanism; coordinates would say which)"
 

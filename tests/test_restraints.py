@@ -236,3 +236,17 @@ def test_docstring_example_runs():
 
     result = doctest.testmod(conditioning.restraints)
     assert result.attempted > 0 and result.failed == 0
+
+
+def test_frame_without_coordinates_still_names_a_translation():
+    """Without coordinates rotations cannot be recognised, but a uniform
+    translation of one DOF type can: of the 3 restraints of the free N-mm
+    frame, the one whose motion is the ux translation says so, even though
+    LAPACK's null space of this mixed-unit matrix carries round-off of about
+    1e-8 of its largest entry. Positive definite after removal (eigvalsh)."""
+    frame = portal_frame_mm()
+    model = Model(frame.K, dofs=frame.dofs)
+    restraints = suggest_restraints(model, scipy.linalg.null_space(model.K.toarray(), rcond=1e-12))
+    assert len(restraints) == 3
+    assert [r.dof for r in restraints if "translation" in r.reason] == ["ux"]
+    assert is_positive_definite(reduced(model.K, restraints))
