@@ -413,3 +413,54 @@ def test_free_space_frame_has_six_rigid_body_modes():
                    G=8.1e4, A=3000.0, Iy=1e7, Iz=2e7, J=5e5)
     assert asm.n == 30
     assert zero_eigenvalues(asm.K) == 6
+
+
+# ------------------------------------------------------------------ rigid motions, any geometry
+
+
+def _rigid_field(asm: Assembly, xyz: np.ndarray, nodes, t: np.ndarray, w: np.ndarray):
+    """Nodal vector of the rigid motion u = t + w x r, rotations = w (small angles)."""
+    pos = np.searchsorted(np.asarray(nodes), asm.dofs.node)
+    r = xyz[pos]
+    u = t[None, :] + np.cross(w[None, :], r)
+    full = np.concatenate([u, np.broadcast_to(w, u.shape)], axis=1)     # ux uy uz rx ry rz
+    return full[np.arange(asm.n), asm.dofs.dof.astype(int)]
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(0, 2**32 - 1))
+def test_rigid_motions_cost_no_energy(seed):
+    """K r = 0 for every rigid translation and infinitesimal rotation r, for
+    every element type on random geometry (a rigid motion strains nothing;
+    common practice, the basis of the rigid-body-mode count)."""
+    rng = np.random.default_rng(seed)
+    m = 6
+    nodes = np.arange(10, 10 + m)
+    xyz = rng.uniform(-2000.0, 2000.0, (m, 3))
+    bars = np.column_stack([nodes[:-1], nodes[1:]])
+    bars = np.vstack([bars, [[nodes[0], nodes[-1]], [nodes[1], nodes[4]]]])
+    plane = xyz.copy()
+    plane[:, 2] = 0.0
+    # A convex quad mesh: two squares with jittered corners.
+    qxy = np.array([[0, 0], [1, 0], [2, 0], [0, 1], [1, 1], [2, 1]], float) * 500.0
+    qxy += rng.uniform(-100.0, 100.0, qxy.shape)
+    qnodes = np.arange(1, 7)
+    qxyz = np.column_stack([qxy, np.zeros(6)])
+    cases = [
+        (truss2d(nodes, plane[:, :2], bars, E=E_STEEL, A=300.0), plane, nodes, True),
+        (frame2d(nodes, plane[:, :2], bars, E=E_STEEL, A=300.0, I=4e6), plane, nodes, True),
+        (plane_stress_quad(qnodes, qxy, [[1, 2, 5, 4], [2, 3, 6, 5]], E=E_STEEL, nu=0.3, t=5.0),
+         qxyz, qnodes, True),
+        (truss3d(nodes, xyz, bars, E=E_STEEL, A=300.0), xyz, nodes, False),
+        (frame3d(nodes, xyz, bars, E=E_STEEL, G=8.1e4, A=300.0, Iy=2e6, Iz=5e6, J=1e5),
+         xyz, nodes, False),
+    ]
+    for asm, coords, ids, in_plane in cases:
+        t = rng.normal(size=3)
+        w = rng.normal(size=3) * 1e-3
+        if in_plane:
+            t[2] = 0.0
+            w[:2] = 0.0
+        r = _rigid_field(asm, coords, ids, t, w)
+        scale = abs(asm.K).max() * np.abs(r).max()
+        assert np.abs(asm.K @ r).max() <= 1e-10 * scale
