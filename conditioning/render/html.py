@@ -237,12 +237,20 @@ def _figures(r: results.Report, model: Optional[Model]) -> str:
             wanted.append(("Trustworthy digits per node",
                            "Worst component of each node; over the node positions when given.",
                            lambda: plots.digits_png(model, sample)))
-        if r.spectrum is not None:
+        if r.spectrum is not None and r.spectrum.modes:
+            edges: list = []
+
+            def shared_edges():
+                if not edges:
+                    edges.append(plots.node_edges(model))
+                return edges[0]
+
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
                                "the model size); circles mark the nodes that locate the mode.",
-                               lambda mode=mode, k=k: plots.mode_shape_png(model, mode, k)))
+                               lambda mode=mode, k=k: plots.mode_shape_png(
+                                   model, mode, k, shared_edges())))
     if not wanted:
         return ""
     try:

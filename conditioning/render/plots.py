@@ -146,13 +146,15 @@ def digits_png(model: Model, sample: results.DigitsSample) -> bytes:
     return _png(fig)
 
 
-def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int) -> Optional[bytes]:
+def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int,
+                   edges: Optional[NDArray[np.intp]] = None) -> Optional[bytes]:
     """Mode ``k`` drawn as a displaced shape over the node positions.
 
     The node graph of K (nodes coupled by a stored entry) is drawn undeformed
     in grey and displaced in colour; 3D models are shown in an isometric
     projection. Returns None when the model has no map, no coordinates, or
-    the mode no vector.
+    the mode no vector. ``edges`` (from :func:`node_edges`) saves
+    recomputing the node graph for every mode.
     """
     Figure = require_matplotlib()
     if model.dofs is None or model.coords is None or mode.vector is None:
@@ -171,14 +173,18 @@ def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int) -> Opti
     moved = _project(xyz + scale * trans, dim)
     fig = Figure(figsize=(6.5, 4.2))
     ax = fig.subplots()
-    edges = _node_edges(model, nodes)
-    if edges is not None:
+    if edges is None:
+        edges = node_edges(model)
+    # Only what moves is drawn in colour (more than 1% of the largest motion).
+    moving = np.linalg.norm(trans, axis=1) > 0.01 * amp if amp > 0 else np.zeros(len(nodes), bool)
+    if edges is not None and edges.size:
         from matplotlib.collections import LineCollection
 
         ax.add_collection(LineCollection(base[edges], colors="#bbbbbb", lw=0.8))
-        ax.add_collection(LineCollection(moved[edges], colors="#c0392b", lw=1.0))
+        live = edges[moving[edges].any(axis=1)]
+        ax.add_collection(LineCollection(moved[live], colors="#c0392b", lw=1.0))
     ax.plot(base[:, 0], base[:, 1], ".", color="#999999", ms=3)
-    ax.plot(moved[:, 0], moved[:, 1], ".", color="#c0392b", ms=4)
+    ax.plot(moved[moving, 0], moved[moving, 1], ".", color="#c0392b", ms=4)
     located = np.isin(nodes, np.asarray(mode.nodes, dtype=np.int64))
     if located.any() and located.sum() < nodes.size:
         ax.plot(base[located, 0], base[located, 1], "o", mfc="none", color="#1a5276", ms=8,
@@ -207,8 +213,13 @@ def _project(xyz: NDArray[np.float64], dim: int) -> NDArray[np.float64]:
     return np.column_stack([(x - y) * c, z + (x + y) * s])
 
 
-def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.intp]]:
-    """Pairs of node positions (indices into ``nodes``) coupled in K."""
+def node_edges(model: Model) -> Optional[NDArray[np.intp]]:
+    """Pairs of nodes coupled in K, as indices into ``model.dofs.nodes``;
+    None when there are more than :data:`MAX_EDGES` (then only points are
+    drawn) or no DOF map."""
+    if model.dofs is None or model.K.nnz > 60 * MAX_EDGES:
+        return None
+    nodes = model.dofs.nodes
     coo = model.K.tocoo()
     a = np.searchsorted(nodes, model.dofs.node[coo.row])
     b = np.searchsorted(nodes, model.dofs.node[coo.col])
