@@ -201,6 +201,7 @@ def _bearing_supports() -> list[NodeDof]:
 
 
 def footbridge() -> DemoCase:
+    """Healthy 2D frame (ux, uy, rz): 114 dofs after a pinned and a roller bearing."""
     asm, coords, loads = _footbridge()
     return _case(
         "footbridge",
@@ -211,6 +212,7 @@ def footbridge() -> DemoCase:
 
 
 def footbridge_spring_bearings() -> DemoCase:
+    """The footbridge with its three bearing restraints replaced by stiff ground springs."""
     asm, coords, loads = _footbridge()
     member = E_STEEL * _CHORD["A"] / (_PANEL / 2)       # axial stiffness of a chord element, N/mm
     k = PENALTY_FACTOR * member
@@ -282,6 +284,7 @@ def _rack(beams_split_at: Optional[tuple[int, int]] = None):
 
 
 def rack_no_sway_support() -> DemoCase:
+    """2D rack frame whose base plates restrain uy only: one rigid-body mode in ux."""
     asm, coords, loads, node, _ = _rack()
     supports = [(int(n), "uy") for n in node[0]]       # ux forgotten at every base plate
     return _case(
@@ -297,6 +300,7 @@ def rack_no_sway_support() -> DemoCase:
 
 
 def rack_penalty_tie() -> DemoCase:
+    """2D rack frame with one beam end tied to its upright by penalty springs."""
     # The top-level beam of the first bay ends at joint 31 on the first upright; its
     # end node 301 is a separate coincident node tied to 31 by penalty springs in ux
     # and uy (a pinned beam-end connector modelled with penalties).
@@ -339,6 +343,7 @@ def _quad_grid(x0, y0, width, height, nx, ny, first_id):
 
 
 def bracket_loose_pad() -> DemoCase:
+    """Plane-stress bracket with an unconnected pad: three rigid-body modes in the pad."""
     w, h, nx, ny = _PLATE
     plate_ids, plate_xy, plate_q = _quad_grid(0.0, 0.0, w, h, nx, ny, first_id=1)
     pw, ph, pnx, pny, px = _PAD
@@ -415,6 +420,7 @@ def _mast(missing_panel: Optional[int]):
 
 
 def mast_missing_brace() -> DemoCase:
+    """2D braced truss mast with one diagonal missing: one mechanism."""
     asm, coords, supports, loads, moving, corners, _, _ = _mast(_MISSING_PANEL)
     return _case(
         "mast_missing_brace",
@@ -428,6 +434,7 @@ def mast_missing_brace() -> DemoCase:
 
 
 def mast_soft_spring() -> DemoCase:
+    """The mechanism of :func:`mast_missing_brace` held only by a very soft spring."""
     asm, coords, supports, loads, moving, corners, member, top_left = _mast(_MISSING_PANEL)
     k = SOFT_FACTOR * member
     asm = ground_spring(asm, (top_left, "ux"), k)
@@ -449,6 +456,7 @@ def mast_soft_spring() -> DemoCase:
 # 2000 mm, corners ids 10*level + corner (1..4), one diagonal on each face of each
 # panel and one plan diagonal at each level above the base.
 def lattice_tower_3d() -> DemoCase:
+    """Healthy 3D space truss (ux, uy, uz) on four pinned feet."""
     side, panel, nlev = 1500.0, 2000.0, 3
     square = np.array([[0.0, 0.0], [side, 0.0], [side, side], [0.0, side]])
     levels = np.arange(nlev + 1)
@@ -485,6 +493,7 @@ _G_STEEL = E_STEEL / (2.0 * (1.0 + NU_STEEL))
 
 
 def monorail_no_torsion_support() -> DemoCase:
+    """3D frame (6 dofs per node) free to spin about its own straight axis."""
     n_el, length = 24, 12000.0
     nodes = np.arange(1, n_el + 2)
     xyz = np.column_stack([np.linspace(0.0, length, n_el + 1), np.zeros(n_el + 1),
@@ -517,7 +526,10 @@ def scenarios() -> dict[str, DemoCase]:
     Returns
     -------
     dict of str to DemoCase
-        In a fixed order: healthy first, then one case per kind of defect.
+        In a fixed order: footbridge (healthy), footbridge_spring_bearings,
+        rack_no_sway_support, bracket_loose_pad, rack_penalty_tie,
+        mast_missing_brace, mast_soft_spring, lattice_tower_3d (healthy),
+        monorail_no_torsion_support. Iterate ``.values()`` for the cases.
     """
     cases = [footbridge(), footbridge_spring_bearings(), rack_no_sway_support(),
              bracket_loose_pad(), rack_penalty_tie(), mast_missing_brace(),
