@@ -227,7 +227,7 @@ def _coupling_jumps(model: Model, stats: _TypeStats, links, limit: int) -> list[
         k = members[np.argmax(excess[members])]
         rows = sorted({int(r) for r in np.concatenate([i[members], j[members]])})
         types = sorted({int(x) for x in t[members]})
-        jumps.append(_coupling_jump(model, stats, rows, types, pairs[k], float(v[k]), worst))
+        jumps.append(_coupling_jump(model, stats, rows, types, pairs[k], float(v[k]), worst, int(t[k])))
     return jumps
 
 
@@ -245,9 +245,9 @@ def _advice(stats: _TypeStats, types, current: float):
     return (target if target < current else None), ordinary
 
 
-def _coupling_jump(model, stats, rows, types, pair, stiffness, excess) -> StiffnessJump:
+def _coupling_jump(model, stats, rows, types, pair, stiffness, excess, worst_type) -> StiffnessJump:
     ratio = 10.0**excess
-    typical = 10.0 ** float(max(stats.median[t] for t in types))
+    typical = 10.0 ** float(stats.median[worst_type])
     advice, ordinary = _advice(stats, types, stiffness)
     names = _type_names(model, types)
     where = _pair_text(model, pair)
