@@ -131,7 +131,7 @@ def reference_solve(
     A = K.toarray() if sp.issparse(K) else np.asarray(K, dtype=np.float64)
     t0 = time.perf_counter()
     if method == "certified" and n <= FLINT_MAX_N:
-        hi, lo, rad, engine = _flint_solve(A, Fm, 128 + int(3.33 * extra))
+        hi, lo, rad, engine = _flint_solve(A, Fm, 160 + int(3.33 * extra))
     elif method == "arbitrary precision" and n <= MPMATH_MAX_N:
         hi, lo, engine = _mpmath_solve(A, Fm, 40 + extra)
         rad = None
@@ -162,7 +162,7 @@ def _flint_solve(A, F, prec: int):
             if ok:
                 hi, lo, rad = _split_balls(X, n, k)
                 scale = np.max(np.abs(hi), axis=0, initial=0.0)
-                if np.all(np.isfinite(rad)) and np.all(rad <= 1e-30 * np.maximum(scale, np.finfo(float).tiny)):
+                if np.all(np.isfinite(rad)) and np.all(rad <= 1e-24 * np.maximum(scale, np.finfo(float).tiny)):
                     return hi, lo, rad, f"python-flint arb_mat.solve (ball arithmetic, {prec} bits)"
         if prec >= 2048:
             raise ValueError("the matrix is singular or too ill-conditioned for ball arithmetic at 2048 bits")

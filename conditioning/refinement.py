@@ -85,6 +85,10 @@ class RefinementResult:
     bound_trusted: bool
     """True when the normwise bound is given (the componentwise one may still
     be withdrawn, e.g. for a zero displacement component)."""
+    error_estimate: float
+    """Estimated ||x_ref - x||_inf / ||x_ref||_inf from the last corrections
+    and the residual resolution, given even when the bound is withdrawn
+    (inf when the iteration did not converge)."""
     kappa_normwise: float
     """Estimated kappa_inf(S), S = D^-1/2 K D^-1/2 (Hager-Higham, a lower bound)."""
     kappa_componentwise: float
@@ -241,6 +245,7 @@ def refine(
         history=state.history, method=method, gmres_used=gmres_used,
         normwise_bound=norm_bound, componentwise_bound=comp_bound,
         bound_trusted=norm_bound is not None,
+        error_estimate=state.bound(kappa, componentwise=False) if state.converged else math.inf,
         kappa_normwise=float(kappa), kappa_componentwise=float(kappa_c),
     )
 
