@@ -286,7 +286,6 @@ class _GuardedStream(io.RawIOBase):
     def __init__(self, raw, first_line: bytes | None = None):
         super().__init__()
         self._raw = raw
-        self._pending = b""
         self._skip_first_line = first_line is not None
         self._pending = first_line or b""
         self._last = b"\n"
