@@ -29,7 +29,6 @@ from typing import Optional
 
 import numpy as np
 import scipy.io
-from numpy.typing import NDArray
 
 from conditioning.demo.assemble import (
     Assembly,
