@@ -44,8 +44,9 @@ def test_condition_figure_and_how_obtained():
 def test_digits_show_method_and_withdrawn_bound():
     report, _ = healthy_report(digits=9.0)
     text = render_text(report, width=200)
-    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-1]
+    load, load_worst = [ln for ln in text.splitlines() if ln.startswith("load  ")][-2:]
     assert "9.0" in load and "double-double refinement, measured" in load
+    assert load_worst.split() == ["load", "4", "(9.0),", "5", "(9.3)"]
     worst = [ln for ln in text.splitlines() if ln.startswith("worst-case")][0]
     assert "withdrawn" in worst
 

@@ -251,37 +251,47 @@ def _digits(r: results.Report, max_ids: int):
     t.add_column("sample", no_wrap=True)
     t.add_column("trustworthy digits", justify="right")
     t.add_column("digits lost", justify="right")
-    t.add_column("how obtained", no_wrap=True)
+    t.add_column("how obtained")
     t.add_column("converged")
-    t.add_column("error bound")
-    t.add_column("worst nodes (digits)")
+    t.add_column("error bound", justify="right")
+    worst = _grid()
     for s in dg.samples:
-        worst = ", ".join(f"{w.node} ({fmt_digits(w.digits)})" for w in s.worst_nodes[:max_ids])
-        if len(s.worst_nodes) > max_ids:
-            worst += f" and {len(s.worst_nodes) - max_ids:,} more"
         bound = (fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
                  else "withdrawn")
         t.add_row(s.sample, fmt_digits(s.trustworthy_digits), fmt_digits(s.digits_lost),
-                  _how_digits(s.method),
-                  "yes" if s.converged else f"no: {s.stop_reason}", bound, worst or "-")
+                  _how_digits(s.method), "yes" if s.converged else f"no: {s.stop_reason}",
+                  bound)
+        if s.worst_nodes:
+            shown = ", ".join(f"{w.node} ({fmt_digits(w.digits)})"
+                              for w in s.worst_nodes[:max_ids // 2 or 1])
+            more = len(s.worst_nodes) - (max_ids // 2 or 1)
+            worst.add_row(s.sample, shown + (f" and {more:,} more" if more > 0 else ""))
     lines = [t]
-    pred = []
-    if dg.predicted_raw is not None:
-        pred.append(f"from the raw condition number {fmt_digits(dg.predicted_raw)}")
-    if dg.predicted_scaled is not None:
-        pred.append(f"from the scaled one {fmt_digits(dg.predicted_scaled)}")
-    if pred:
-        lines.append(Text("Rule-of-thumb prediction (16 - log10 kappa): " + ", ".join(pred)
-                          + " digits."))
+    if worst.row_count:
+        lines.append(Text("Worst nodes, node (trustworthy digits):"))
+        lines.append(worst)
     if dg.summary:
         lines.append(Text(dg.summary))
-    if dg.factorization_flops:
-        lines.append(Text(f"The factorization took about {fmt_number(dg.factorization_flops)} "
-                          "operations; digits are lost to conditioning, not to the operation "
-                          "count.", style="dim"))
-    for s in dg.samples:
-        if s.confirmation:
-            lines.append(Text(f"{s.sample}: {s.confirmation}", style="dim"))
+    else:
+        pred = []
+        if dg.predicted_raw is not None:
+            pred.append(f"from the raw condition number {fmt_digits(dg.predicted_raw)}")
+        if dg.predicted_scaled is not None:
+            pred.append(f"from the scaled one {fmt_digits(dg.predicted_scaled)}")
+        if pred:
+            lines.append(Text("Rule-of-thumb prediction (16 - log10 kappa): "
+                              + ", ".join(pred) + " digits."))
+        if dg.factorization_flops:
+            lines.append(Text(f"The factorization took about "
+                              f"{fmt_number(dg.factorization_flops)} operations; digits are "
+                              "lost to conditioning, not to the operation count.", style="dim"))
+    confirmed = [s for s in dg.samples if s.confirmation]
+    if confirmed:
+        first = confirmed[0]
+        more = (f" (and {len(confirmed) - 1} more sample(s) confirmed; all in the JSON report)"
+                if len(confirmed) > 1 else "")
+        lines.append(Text(f"Independent confirmation, {first.sample}: {first.confirmation}{more}",
+                          style="dim"))
     return Group(*lines)
 
 
