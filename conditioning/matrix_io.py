@@ -32,7 +32,6 @@ import os
 import re
 import warnings
 import zlib
-from pathlib import Path
 from typing import Literal, Union
 
 import numpy as np
