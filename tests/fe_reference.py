@@ -82,8 +82,9 @@ def solid_block(nx: int = 3, ny: int = 2, nz: int = 2, size=(30.0, 20.0, 20.0),
 
 
 def quad_plate(p: NDArray[np.float64], t: NDArray[np.intp], *, E: float = 210000.0,
-               nu: float = 0.3, thickness: float = 1.0, intorder: int = 3) -> FEReference:
-    """Plane-stress bilinear quad plate on a given mesh (3 rigid-body modes).
+               nu: float = 0.3, thickness: float = 1.0, intorder: int = 3,
+               plane: str = "stress") -> FEReference:
+    """Bilinear quad plate on a given mesh, plane stress or plane strain (3 rigid-body modes).
 
     ``p`` is (2, m) vertex positions, ``t`` is (4, e) counter-clockwise vertex
     indices, as scikit-fem's MeshQuad takes them. ``intorder=3`` selects the
@@ -91,16 +92,23 @@ def quad_plate(p: NDArray[np.float64], t: NDArray[np.intp], *, E: float = 210000
     """
     mesh = skfem.MeshQuad(np.asarray(p, dtype=float), np.asarray(t))
     basis = skfem.Basis(mesh, skfem.ElementVector(skfem.ElementQuad1()), intorder=intorder)
-    K = thickness * linear_elasticity(*plane_stress(E, nu)).assemble(basis)
+    lame = {"stress": plane_stress, "strain": lame_parameters}[plane](E, nu)
+    K = thickness * linear_elasticity(*lame).assemble(basis)
     return _from_basis(basis, K, 2)
 
 
 def free_plate(nx: int = 4, ny: int = 2, size=(40.0, 20.0), E: float = 210000.0,
-               nu: float = 0.3, thickness: float = 2.0, origin=(0.0, 0.0)) -> FEReference:
-    """Free rectangular 2D plate in plane stress (3 rigid-body modes)."""
+               nu: float = 0.3, thickness: float = 2.0, origin=(0.0, 0.0),
+               plane: str = "stress") -> FEReference:
+    """Free rectangular 2D plate, plane stress or strain (3 rigid-body modes)."""
     mesh = skfem.MeshQuad.init_tensor(np.linspace(origin[0], origin[0] + size[0], nx + 1),
                                       np.linspace(origin[1], origin[1] + size[1], ny + 1))
-    return quad_plate(mesh.p, mesh.t, E=E, nu=nu, thickness=thickness)
+    return quad_plate(mesh.p, mesh.t, E=E, nu=nu, thickness=thickness, plane=plane)
+
+
+def free_plate_strain() -> FEReference:
+    """Free rectangular 2D slice in plane strain (3 rigid-body modes)."""
+    return free_plate(plane="strain", nu=0.45)
 
 
 def two_blocks(gap: float = 5.0) -> FEReference:

@@ -299,7 +299,8 @@ def _zero_count(K, rtol=1e-10) -> int:
 
 
 @pytest.mark.parametrize("build, expected", [
-    (fer.solid_block, 6), (fer.free_plate, 3), (fer.two_blocks, 12), (fer.two_plates, 6)])
+    (fer.solid_block, 6), (fer.free_plate, 3), (fer.free_plate_strain, 3),
+    (fer.two_blocks, 12), (fer.two_plates, 6)])
 def test_scikit_fem_free_bodies_have_textbook_rigid_body_counts(build, expected):
     """Free body: 6 zero eigenvalues in 3D, 3 in 2D, per body (numpy eigvalsh)."""
     ref = build()
@@ -307,7 +308,7 @@ def test_scikit_fem_free_bodies_have_textbook_rigid_body_counts(build, expected)
     assert _zero_count(ref.K) == expected
 
 
-@pytest.mark.parametrize("build", [fer.solid_block, fer.free_plate])
+@pytest.mark.parametrize("build", [fer.solid_block, fer.free_plate, fer.free_plate_strain])
 def test_scikit_fem_one_restraint_too_few(build):
     """3-2-1 supports remove every rigid-body mode; leaving out any one of them
     (each direction in turn) leaves exactly one."""
