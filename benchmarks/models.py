@@ -157,6 +157,7 @@ def _restrain(name, K, f, fixed, dpn, xyz, rigid) -> GeneratedModel:
     keep = np.setdiff1d(np.arange(K.shape[0]), fixed)
     Kr = sp.csr_array(K[keep][:, keep])
     Kr.sum_duplicates()
+    Kr.eliminate_zeros()  # cancelled couplings, as a reader that drops zeros sees them
     return GeneratedModel(name=name, K=Kr, node=(keep // dpn + 1).astype(np.int64),
                           dof=(keep % dpn).astype(np.int8), node_xyz=xyz, load=f[keep],
                           rigid_modes=rigid)
@@ -177,7 +178,7 @@ def export(model: GeneratedModel, directory: Path) -> dict[str, Path]:
     directory.mkdir(parents=True, exist_ok=True)
     paths = {k: directory / f"{model.name}_{k}{ext}" for k, ext in
              (("K", ".mtx"), ("load", ".mtx"), ("dofs", ".csv"), ("coords", ".csv"))}
-    scipy.io.mmwrite(paths["K"], sp.coo_array(sp.triu(model.K)), symmetry="symmetric",
+    scipy.io.mmwrite(paths["K"], sp.coo_array(model.K), symmetry="symmetric",
                      comment="invented benchmark model (conditioning benchmarks)")
     scipy.io.mmwrite(paths["load"], model.load.reshape(-1, 1))
     names = ("ux", "uy", "uz")

@@ -52,7 +52,9 @@ def nested_dissection(
         Matrix whose nonzero pattern (of A + A^T) is the graph to order; the
         values are not used.
     coords : (n, 3) float64 array, optional
-        Position of each row's node (any length unit). With positions each
+        Position of each row's node (any length unit); rows at the same
+        position are kept together (without positions, rows with identical
+        sparsity patterns are). With positions each
         part is cut at the median of its longest extent (geometric
         bisection); without, at the middle level of a breadth-first level
         structure rooted at a pseudo-peripheral node.
@@ -100,7 +102,7 @@ def nested_dissection(
             raise ValueError(f"coords has shape {coords.shape}; expected ({n}, 3), one position per row")
     if n == 0:
         return np.zeros(0, dtype=np.intp)
-    group, first = supervariables(A)
+    group, first = supervariables(A) if coords is None else _coincident(coords)
     edges = _quotient_edges(A, group, first.size)
     xyz = None if coords is None else coords[first]
     node_position = _dissect(first.size, edges, xyz, max(int(leaf_size), 1))
@@ -178,6 +180,21 @@ def supervariables(A: sp.csr_array) -> tuple[NDArray[np.intp], NDArray[np.intp]]
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
     return rank[group.ravel()].astype(np.intp), first[order].astype(np.intp)
+
+
+def _coincident(coords: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """Group rows at identical positions (the DOFs of a node), as :func:`supervariables` does."""
+    order = np.lexsort(coords.T[::-1])
+    c = coords[order]
+    new = np.r_[True, np.any(c[1:] != c[:-1], axis=1)]
+    label = np.empty(coords.shape[0], dtype=np.intp)
+    label[order] = np.cumsum(new) - 1
+    first = np.full(int(new.sum()), coords.shape[0], dtype=np.intp)
+    np.minimum.at(first, label, np.arange(coords.shape[0]))
+    rank = np.empty_like(first)
+    by_first = np.argsort(first, kind="stable")
+    rank[by_first] = np.arange(first.size)
+    return rank[label], first[by_first]
 
 
 def _hash_rows(h, rows, vals):

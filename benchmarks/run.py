@@ -1,0 +1,438 @@
+"""Benchmark harness: the diagnosis against a bare scipy baseline, per size.
+
+    python benchmarks/run.py [--sizes small|medium|full] [--out results.jsonl]
+
+For each generated model (benchmarks/models.py, exported to a temporary
+directory as Matrix Market + CSV), every measured job runs in a child
+process of its own and reports its wall times and peak resident memory
+(VmHWM; reset between stages through /proc/self/clear_refs where the kernel
+allows it):
+
+* ``baseline``: scipy.io.mmread of the export, splu with SuperLU's
+  MMD(A'+A), symmetric mode, diagonal pivoting, one solve;
+* ``orderings`` (small and medium): fill, time and peak of SuperLU's MMD(A'+A)
+  and COLAMD against our nested dissection (geometric and graph);
+* ``predict``: the factor size predicted before factorizing, against the fill
+  the diagnosis's factorization reports;
+* ``diagnose``: conditioning.diagnose on the exported files, per stage;
+* ``iterative``: the factorization-free spectrum (models whose predicted
+  factor does not fit, and the free variants at small sizes);
+* ``ddspmv``: the double-double residual K x against float64 K @ x.
+
+Results are printed as they come and appended, one JSON object per job, to
+``--out``. Development runs: ``--sizes small`` (about a minute).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+if str(REPO) not in sys.path:
+    sys.path.insert(0, str(REPO))
+
+SIZES = {
+    # (kind, n, free): plate n -> 2 n (n+1) rows; cube n -> 3 n (n+1)^2 rows
+    "small": [("plate", 70, False), ("cube", 10, False), ("plate", 70, True), ("cube", 10, True)],
+    "medium": [("plate", 158, False), ("cube", 20, False), ("cube", 20, True)],
+    "full": [("plate", 300, False), ("cube", 32, False), ("plate", 707, False), ("cube", 46, False)],
+}
+ORDERING_SIZES = ("small", "medium")
+
+
+# ----------------------------------------------------------------- in child
+def _status(field: str) -> int:
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith(field + ":"):
+                return int(line.split()[1]) * 1024
+    return 0
+
+
+def _reset_peak() -> bool:
+    try:
+        with open("/proc/self/clear_refs", "w") as fh:
+            fh.write("5")
+        return True
+    except OSError:
+        return False
+
+
+class _Meter:
+    """Wall time and peak RSS per stage of one child job."""
+
+    def __init__(self):
+        self.stages: dict[str, dict] = {}
+        self.t0 = time.perf_counter()
+
+    def start(self, name):
+        _reset_peak()
+        self.stages[name] = {"t": time.perf_counter()}
+
+    def stop(self, name):
+        st = self.stages[name]
+        st["seconds"] = time.perf_counter() - st.pop("t")
+        st["peak_bytes"] = _status("VmHWM")
+
+    def result(self, **extra):
+        return {"stages": self.stages, "seconds": time.perf_counter() - self.t0,
+                "peak_bytes": max([s["peak_bytes"] for s in self.stages.values()] + [_status("VmHWM")]),
+                **extra}
+
+
+def job_export(args):
+    from benchmarks import models
+
+    m = _Meter()
+    m.start("generate")
+    model = (models.plate if args.kind == "plate" else models.cube)(args.n, free=args.free)
+    m.stop("generate")
+    m.start("write")
+    paths = models.export(model, Path(args.dir))
+    m.stop("write")
+    return m.result(rows=int(model.K.shape[0]), nnz=int(model.K.nnz), rigid_modes=model.rigid_modes,
+                    paths={k: str(v) for k, v in paths.items()})
+
+
+def _read_baseline(paths):
+    import numpy as np
+    import scipy.io
+    import scipy.sparse as sp
+
+    K = sp.csc_array(scipy.io.mmread(paths["K"]))
+    f = np.asarray(scipy.io.mmread(paths["load"])).ravel()
+    return K, f
+
+
+def job_baseline(args, paths):
+    import numpy as np
+    import scipy.sparse.linalg as spla
+
+    m = _Meter()
+    m.start("read")
+    K, f = _read_baseline(paths)
+    m.stop("read")
+    m.start("factor")
+    lu = spla.splu(K, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options=dict(SymmetricMode=True))
+    m.stop("factor")
+    m.start("solve")
+    x = lu.solve(f)
+    m.stop("solve")
+    res = float(np.linalg.norm(K @ x - f) / np.linalg.norm(f))
+    return m.result(fill=int(lu.nnz), relative_residual=res)
+
+
+def _coords_of_rows(paths, n):
+    import numpy as np
+
+    node = np.loadtxt(paths["dofs"], delimiter=",", skiprows=1, usecols=1, dtype=np.int64)
+    xyz = np.loadtxt(paths["coords"], delimiter=",", skiprows=1, usecols=(1, 2, 3))
+    return xyz[node - 1]
+
+
+def job_orderings(args, paths):
+    import scipy.sparse as sp
+    import scipy.sparse.linalg as spla
+
+    from conditioning.ordering import nested_dissection
+
+    K, _ = _read_baseline(paths)
+    xyz = _coords_of_rows(paths, K.shape[0])
+    out = {}
+    for name in ("MMD_AT_PLUS_A", "COLAMD", "nd-geometric", "nd-graph"):
+        _reset_peak()
+        t0 = time.perf_counter()
+        if name.startswith("nd"):
+            perm = nested_dissection(sp.csr_array(K), xyz if name == "nd-geometric" else None)
+            t_order = time.perf_counter() - t0
+            A = sp.csc_array(K[perm][:, perm])
+            spec = "NATURAL"
+        else:
+            t_order, A, spec = 0.0, K, name
+        t1 = time.perf_counter()
+        lu = spla.splu(A, permc_spec=spec, diag_pivot_thresh=0.0, options=dict(SymmetricMode=True))
+        out[name] = {"order_seconds": t_order, "factor_seconds": time.perf_counter() - t1,
+                     "fill": int(lu.nnz), "peak_bytes": _status("VmHWM")}
+        del lu, A
+    return {"orderings": out, "peak_bytes": _status("VmHWM")}
+
+
+def job_predict(args, paths):
+    import scipy.sparse as sp
+
+    from conditioning.memory import fits, memory_limit, predict_factor_memory
+    from conditioning.ordering import choose_ordering
+
+    K, _ = _read_baseline(paths)
+    K = sp.csr_array(K)
+    xyz = _coords_of_rows(paths, K.shape[0])
+    m = _Meter()
+    m.start("choose+order")
+    choice = choose_ordering(K, xyz)
+    perm = choice(K, xyz) if callable(choice) else None
+    m.stop("choose+order")
+    m.start("predict")
+    pred = predict_factor_memory(K, perm, coords=xyz)
+    m.stop("predict")
+    m.start("predict-mmd-proxy")
+    proxy = predict_factor_memory(K, None, coords=xyz) if perm is not None else pred
+    m.stop("predict-mmd-proxy")
+    return m.result(ordering=getattr(choice, "ordering_name", str(choice)), predicted_bytes=pred.bytes,
+                    predicted_fill=pred.factor_entries, predicted_flops=pred.flops,
+                    proxy_fill=proxy.factor_entries, limit_bytes=memory_limit(), fits=fits(pred),
+                    method=pred.method)
+
+
+def job_diagnose(args, paths):
+    import conditioning
+
+    m = _Meter()
+
+    def progress(stage, fraction):
+        if fraction is None:
+            m.start(stage)
+        else:
+            m.stop(stage)
+
+    report = conditioning.diagnose(paths["K"], dofs=paths["dofs"], coords=paths["coords"],
+                                   load=paths["load"], progress=progress)
+    fi = report.factorization
+    return m.result(status=report.status, modes=report.spectrum.count if report.spectrum else None,
+                    ordering=fi.ordering if fi else None, fill=fi.fill if fi else None,
+                    timings=report.timings, verdict=report.verdict)
+
+
+def job_iterative(args, paths):
+    import numpy as np
+
+    from conditioning.iterative import iterative_spectrum
+    from conditioning.model import Coordinates, DofTable, Model
+
+    m = _Meter()
+    m.start("read")
+    K, _ = _read_baseline(paths)
+    node = np.loadtxt(paths["dofs"], delimiter=",", skiprows=1, usecols=1, dtype=np.int64)
+    dof = np.array([{"ux": 0, "uy": 1, "uz": 2}[d] for d in
+                    np.loadtxt(paths["dofs"], delimiter=",", skiprows=1, usecols=2, dtype=str)], dtype=np.int8)
+    xyz = np.loadtxt(paths["coords"], delimiter=",", skiprows=1, usecols=(1, 2, 3))
+    model = Model(K.tocsr(), dofs=DofTable(node, dof),
+                  coords=Coordinates(np.arange(1, xyz.shape[0] + 1), xyz, 3))
+    m.stop("read")
+    m.start("lobpcg")
+    res = iterative_spectrum(model, k=8, rng=0)
+    m.stop("lobpcg")
+    return m.result(near_null=res.near_null_count, converged=res.converged,
+                    smallest=[float(v) for v in res.eigenvalues[:4]],
+                    max_residual=float(res.residual_norms.max()), method=res.method)
+
+
+def job_ddspmv(args, paths):
+    import numpy as np
+
+    try:
+        from conditioning.doubledouble import dd_operator, dd_residual
+    except ImportError as exc:
+        return {"skipped": f"conditioning.doubledouble not available ({exc})"}
+    K, f = _read_baseline(paths)
+    K = K.tocsr()
+    x = np.random.default_rng(0).standard_normal(K.shape[0])
+
+    def best(fn, repeat=5):
+        times = []
+        for _ in range(repeat):
+            t0 = time.perf_counter()
+            fn()
+            times.append(time.perf_counter() - t0)
+        return min(times)
+
+    t_f64 = best(lambda: f - K @ x)
+    t0 = time.perf_counter()
+    op = dd_operator(K)
+    t_prep = time.perf_counter() - t0
+    t_dd = best(lambda: dd_residual(op, x, None, f))
+    return {"float64_seconds": t_f64, "dd_seconds": t_dd, "dd_prepare_seconds": t_prep,
+            "ratio": t_dd / t_f64, "peak_bytes": _status("VmHWM")}
+
+
+JOBS = {"export": job_export, "baseline": job_baseline, "orderings": job_orderings,
+        "predict": job_predict, "diagnose": job_diagnose, "iterative": job_iterative,
+        "ddspmv": job_ddspmv}
+
+
+# ---------------------------------------------------------------- in parent
+def machine() -> dict:
+    info = {"nproc": os.cpu_count(), "platform": platform.platform(), "python": platform.python_version()}
+    try:
+        with open("/proc/cpuinfo") as fh:
+            info["cpu"] = next(line.split(":", 1)[1].strip() for line in fh if line.startswith("model name"))
+        with open("/proc/meminfo") as fh:
+            mem = {line.split(":")[0]: int(line.split()[1]) * 1024 for line in fh}
+        info["mem_total_bytes"] = mem.get("MemTotal")
+        info["mem_available_bytes"] = mem.get("MemAvailable")
+    except (OSError, StopIteration):
+        pass
+    import numpy
+    import scipy
+
+    info["numpy"] = numpy.__version__
+    info["scipy"] = scipy.__version__
+    try:
+        from threadpoolctl import threadpool_info
+
+        info["blas"] = [(d.get("internal_api"), d.get("version"), d.get("num_threads")) for d in threadpool_info()]
+    except ImportError:
+        cfg = numpy.show_config(mode="dicts") if hasattr(numpy, "show_config") else {}
+        try:
+            blas = cfg["Build Dependencies"]["blas"]
+            info["blas"] = f"{blas.get('name')} {blas.get('version')} (numpy build config; threadpoolctl absent)"
+        except (KeyError, TypeError):
+            info["blas"] = "unknown (threadpoolctl absent)"
+    return info
+
+
+def run_child(job: str, spec, directory: Path, paths, timeout: float) -> dict:
+    kind, n, free = spec
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--job", job, "--kind", kind, "--n", str(n),
+           "--dir", str(directory)] + (["--free"] if free else [])
+    if paths:
+        cmd += ["--paths", json.dumps({k: str(v) for k, v in paths.items()})]
+    t0 = time.perf_counter()
+    try:
+        proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return {"error": f"timeout after {timeout:.0f} s", "wall": time.perf_counter() - t0}
+    wall = time.perf_counter() - t0
+    lines = [ln for ln in proc.stdout.splitlines() if ln.startswith("{")]
+    if proc.returncode != 0 or not lines:
+        tail = proc.stderr.strip().splitlines()[-3:]
+        return {"error": f"exit {proc.returncode}: {' | '.join(tail)}", "wall": wall}
+    out = json.loads(lines[-1])
+    out["wall"] = wall
+    return out
+
+
+def gib(b) -> str:
+    return "-" if b is None else f"{b / 2**30:.2f}G"
+
+
+def summarize(name, rows, results) -> list[str]:
+    base, diag = results.get("baseline", {}), results.get("diagnose", {})
+    lines = [f"== {name}: {rows} rows"]
+    if "seconds" in base:
+        lines.append(f"  baseline   {base['seconds']:8.2f} s  peak {gib(base['peak_bytes'])}  fill {base['fill']}"
+                     f"  (read {base['stages']['read']['seconds']:.2f} s, factor "
+                     f"{base['stages']['factor']['seconds']:.2f} s, solve {base['stages']['solve']['seconds']:.2f} s)")
+    elif base:
+        lines.append(f"  baseline   {base.get('error') or base.get('skipped')}")
+    if "seconds" in diag:
+        lines.append(f"  diagnosis  {diag['seconds']:8.2f} s  peak {gib(diag['peak_bytes'])}  fill {diag.get('fill')}"
+                     f"  ordering {diag.get('ordering')}  modes {diag.get('modes')}  status {diag.get('status')}")
+        for stage, st in diag["stages"].items():
+            lines.append(f"    {stage:18s} {st['seconds']:8.2f} s  peak {gib(st['peak_bytes'])}")
+        if "seconds" in base:
+            lines.append(f"  RATIO time {diag['seconds'] / base['seconds']:.2f}x  peak "
+                         f"{diag['peak_bytes'] / base['peak_bytes']:.2f}x  (diagnosis / baseline)")
+    elif diag:
+        lines.append(f"  diagnosis  {diag.get('error')}")
+    pred = results.get("predict", {})
+    if "predicted_fill" in pred:
+        actual = diag.get("fill")
+        acc = f"  actual {actual} ({pred['predicted_fill'] / actual - 1:+.1%})" if actual else ""
+        lines.append(f"  predicted  fill {pred['predicted_fill']}{acc}  bytes {gib(pred['predicted_bytes'])}"
+                     f"  ({pred['stages']['predict']['seconds']:.2f} s; ordering {pred['ordering']} "
+                     f"{pred['stages']['choose+order']['seconds']:.2f} s; fits {pred['fits']})")
+    for k, v in results.get("orderings", {}).get("orderings", {}).items():
+        lines.append(f"  order {k:14s} fill {v['fill']:>11d}  order {v['order_seconds']:6.2f} s  factor "
+                     f"{v['factor_seconds']:7.2f} s  peak {gib(v['peak_bytes'])}")
+    it = results.get("iterative", {})
+    if "seconds" in it:
+        lines.append(f"  iterative  {it['seconds']:8.2f} s  peak {gib(it['peak_bytes'])}  near-null "
+                     f"{it['near_null']}  converged {it['converged']}  max residual {it['max_residual']:.1e}")
+    dd = results.get("ddspmv", {})
+    if "ratio" in dd:
+        lines.append(f"  dd spmv    {dd['ratio']:.1f}x float64 K@x ({dd['dd_seconds'] * 1e3:.1f} ms vs "
+                     f"{dd['float64_seconds'] * 1e3:.2f} ms; operator setup {dd['dd_prepare_seconds']:.2f} s)")
+    elif dd:
+        lines.append(f"  dd spmv    {dd.get('skipped') or dd.get('error')}")
+    return lines
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("--sizes", choices=sorted(SIZES), default="small")
+    p.add_argument("--out", default=None, help="JSON-lines file to append results to")
+    p.add_argument("--timeout", type=float, default=1500.0, help="seconds allowed per child job")
+    p.add_argument("--only", default=None, help="comma-separated model names to run (e.g. plate2d-300)")
+    p.add_argument("--jobs", default="baseline,predict,diagnose,orderings,iterative,ddspmv")
+    p.add_argument("--job", help=argparse.SUPPRESS)
+    p.add_argument("--kind", help=argparse.SUPPRESS)
+    p.add_argument("--n", type=int, help=argparse.SUPPRESS)
+    p.add_argument("--free", action="store_true", help=argparse.SUPPRESS)
+    p.add_argument("--dir", help=argparse.SUPPRESS)
+    p.add_argument("--paths", help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.job:  # child
+        fn = JOBS[args.job]
+        out = fn(args) if args.job == "export" else fn(args, json.loads(args.paths))
+        print(json.dumps(out))
+        return 0
+
+    out_path = Path(args.out) if args.out else None
+    desc = machine()
+    print("machine:", json.dumps(desc))
+    if out_path:
+        with out_path.open("a") as fh:
+            fh.write(json.dumps({"machine": desc, "sizes": args.sizes, "date": time.strftime("%Y-%m-%d %H:%M:%S")}) + "\n")
+    wanted = set(args.jobs.split(","))
+    with tempfile.TemporaryDirectory(prefix="conditioning-bench-") as tmp:
+        for spec in SIZES[args.sizes]:
+            kind, n, free = spec
+            name = f"{'plate2d' if kind == 'plate' else 'cube3d'}-{n}{'-free' if free else ''}"
+            if args.only and name not in args.only.split(","):
+                continue
+            directory = Path(tmp) / name
+            exp = run_child("export", spec, directory, None, args.timeout)
+            if "error" in exp:
+                print(f"== {name}: export failed: {exp['error']}")
+                continue
+            paths = exp["paths"]
+            results = {"export": exp}
+            print(f"-- {name}: {exp['rows']} rows, {exp['nnz']} entries, generated and written in "
+                  f"{exp['seconds']:.1f} s", flush=True)
+            plan = run_child("predict", spec, directory, paths, args.timeout) if "predict" in wanted else {}
+            results["predict"] = plan
+            fits = plan.get("fits", True)
+            for job in ("baseline", "diagnose", "orderings", "iterative", "ddspmv"):
+                if job not in wanted:
+                    continue
+                if job == "orderings" and args.sizes not in ORDERING_SIZES:
+                    continue
+                if job in ("baseline", "diagnose") and not fits:
+                    results[job] = {"skipped": "predicted factor does not fit in the memory limit"}
+                    continue
+                if job == "iterative" and fits and not (free or args.sizes == "small"):
+                    continue
+                results[job] = run_child(job, spec, directory, paths, args.timeout)
+                status = results[job].get("error", "ok")
+                print(f"   {job}: {status} ({results[job].get('wall', 0):.1f} s)", flush=True)
+                if out_path:
+                    with out_path.open("a") as fh:
+                        fh.write(json.dumps({"model": name, "rows": exp["rows"], "job": job,
+                                             "result": results[job]}) + "\n")
+            if out_path and plan:
+                with out_path.open("a") as fh:
+                    fh.write(json.dumps({"model": name, "rows": exp["rows"], "job": "predict", "result": plan}) + "\n")
+            print("\n".join(summarize(name, exp["rows"], results)), flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
