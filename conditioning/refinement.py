@@ -54,6 +54,9 @@ RATIO_THRESHOLD = 0.5
 #: Maximum residuals per right-hand side (xPORFSX's ITHRESH default is 10; more
 #: here, because double-double refinement goes twice as deep).
 MAX_STEPS = 20
+#: Backward error ||r|| / (||K|| ||x|| + ||f||) at which the double-double
+#: residual cannot be reduced further (a few units of u^2 = 1.2e-32).
+BACKWARD_RESOLUTION = 64 * U**2
 #: Maximum outer steps of GMRES-based refinement.
 MAX_GMRES_STEPS = 10
 
@@ -191,12 +194,15 @@ def refine(
     successive ||d||_inf it stops when
 
     * ||d||/||x|| <= 4 u^2: converged, below the double-double resolution;
-    * rho > 1/2 and ||d||/||x|| <= gamma kappa u^2 with gamma = max(10, sqrt(n)):
-      converged, stalled at what double-double residuals can resolve;
-    * rho > 1/2 otherwise: not contracting; GMRES-based refinement [2]_ takes
-      over (if allowed), solving (F^-1 K) d = F^-1 r with F the float64 factors
-      (scipy ``gmres``, relative tolerance 1e-12), with the same stopping tests;
+    * rho > 1/2 and either ||d||/||x|| <= gamma kappa u^2 with
+      gamma = max(10, sqrt(n)), or the backward error ||r|| / (||K|| ||x|| + ||f||)
+      <= 64 u^2: converged, stalled at what double-double residuals can resolve;
+    * rho > 1/2 otherwise: not contracting;
     * the step limit: not converged.
+
+    When plain refinement did not converge, GMRES-based refinement [2]_ takes
+    over (if allowed), solving (F^-1 K) d = F^-1 r with F the float64 factors
+    (scipy ``gmres``, relative tolerance 1e-12), with the same stopping tests.
 
     Error bound (Demmel et al. [1]_ section 4, xPORFSX): with rho_max the
     largest ratio while the corrections were contracting,
@@ -226,7 +232,7 @@ def refine(
     state = _State(op, f, kappa, gamma)
     x_hi, x_lo = state.run(x_hi, x_lo, fac.solve, max_steps, plain=True)
     gmres_used = False
-    if not state.converged and allow_gmres and state.reason.startswith("not contracting"):
+    if not state.converged and allow_gmres and "not finite" not in state.reason:
         gmres_used = True
         logger.info("plain refinement %s; switching to GMRES-based refinement", state.reason)
         x_hi, x_lo = state.run(x_hi, x_lo, _gmres_correction(op.K, fac), MAX_GMRES_STEPS, plain=False)
@@ -304,10 +310,10 @@ class _State:
                 self._finish(dx, dz, True, f"{label}converged: correction {dx:.1e} below the double-double resolution")
                 return x_hi, x_lo
             if rho > RATIO_THRESHOLD:
-                if dx <= floor:
+                if dx <= floor or res <= BACKWARD_RESOLUTION:
                     self._finish(dx, dz, True,
-                                 f"{label}converged: correction stalled at {dx:.1e}, the resolution of "
-                                 f"double-double residuals for kappa {self.kappa:.1e}")
+                                 f"{label}converged: correction stalled at {dx:.1e} with backward error "
+                                 f"{res:.1e}, the resolution of double-double residuals")
                 else:
                     self._finish(prev_dx, prev_dz, False,
                                  f"not contracting: correction ratio {rho:.2f} > {RATIO_THRESHOLD} "
