@@ -132,11 +132,15 @@ def digits_png(model: Model, sample: results.DigitsSample) -> bytes:
     ax = fig.subplots()
     if model.coords is not None and model.dofs is not None and model.coords.has(nodes).all():
         xy = _project(model.coords.lookup(nodes), model.coords.dim)
-        sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="viridis_r", s=_marker(nodes.size),
-                        edgecolors="none")
+        sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="RdYlGn", s=_marker(nodes.size),
+                        edgecolors="#555555", linewidths=0.3)
         fig.colorbar(sc, ax=ax, label="trustworthy digits")
         ax.set_aspect("equal", adjustable="datalim")
-        ax.set_xlabel("x" if model.coords.dim == 2 else "projection")
+        if model.coords.dim == 2:
+            ax.set_xlabel("x")
+            ax.set_ylabel("y")
+        else:
+            ax.set_xlabel("isometric projection")
     else:
         ax.plot(nodes, digits, ".", color="#2c5d8a")
         ax.set_xlabel("node" if model.dofs is not None else "row")
