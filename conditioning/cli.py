@@ -333,8 +333,11 @@ def _run_compare(args) -> int:
     return exit_status(after, args.min_digits)
 
 
-def _configure_logging(verbose: int) -> None:
+def _configure_logging(verbose: int, quiet: bool = False) -> None:
+    """-v: INFO, -vv: DEBUG; default WARNING; --quiet: ERROR only."""
     level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
+    if quiet and verbose <= 0:
+        level = logging.ERROR
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
     root = logging.getLogger("conditioning")
@@ -353,7 +356,7 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     try:
         args = parser.parse_args(argv)
         verbose = args.verbose
-        _configure_logging(verbose)
+        _configure_logging(verbose, quiet=args.quiet)
         run = {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare}
         return run[args.command](args)
     except SystemExit as exc:  # --help, --version

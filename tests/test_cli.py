@@ -232,13 +232,22 @@ def test_compare_before_and_after_a_fix(tmp_path, capsys):
 def test_demo_command_runs_every_case(tmp_path, capsys):
     from conditioning.demo.scenarios import scenarios
 
-    assert main(["demo", "--quiet", "--json", str(tmp_path)]) == 0
+    assert main(["demo", "--quiet", "--json", str(tmp_path), "--html", str(tmp_path)]) == 0
     out = capsys.readouterr().out
     names = list(scenarios())
     for name in names:
         assert name in out
         assert _strict((tmp_path / f"{name}.json").read_text())["schema"]
+        assert "</html>" in (tmp_path / f"{name}.html").read_text()
     assert out.count("Verdict:") == len(names)
+
+
+def test_verbose_logs_the_stages(capsys):
+    """-v logs each stage's time (INFO) on stderr; stdout keeps the report."""
+    assert main(["diagnose", *_demo_args("lattice_tower_3d"), "-v"]) in (0, 1)
+    out, err = capsys.readouterr()
+    assert "INFO conditioning.api: stage factorization" in err
+    assert out.startswith("Verdict:")
 
 
 # ------------------------------------------- end to end: reference matrices
