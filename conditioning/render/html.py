@@ -150,7 +150,7 @@ def _condition(r: results.Report) -> str:
                                  c.scaled_method),
                                 ("1-norm, raw K", c.one_norm_estimate, c.one_norm_method)):
         rows.append([name, "singular" if value is None else fmt_number(value),
-                     how_obtained(method), method])
+                     "-" if value is None else how_obtained(method), method])
     text = ""
     if c.scaling_gain_digits is not None:
         text = (f"<p>Scaling removes {c.scaling_gain_digits:.1f} digits of the raw figure "

@@ -148,8 +148,8 @@ def _condition(r: results.Report):
             ("1-norm, raw K", c.one_norm_estimate, c.one_norm_method))
     notes = []
     for i, (name, value, method) in enumerate(rows, start=1):
-        t.add_row(name, fmt_number(value) if value is not None else sing,
-                  f"{how_obtained(method)} [{i}]")
+        how = how_obtained(method) if value is not None else "-"
+        t.add_row(name, fmt_number(value) if value is not None else sing, f"{how} [{i}]")
         notes.append(Text(f"[{i}] {method}", style="dim"))
     parts = [t]
     if c.singular:
