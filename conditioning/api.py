@@ -13,14 +13,15 @@ from contextlib import contextmanager
 from typing import Callable, Optional, Union
 
 import numpy as np
+import scipy.sparse as sp
 
 from conditioning.condition import condition_numbers
-from conditioning.factorization import factorize
+from conditioning.factorization import FactorizationTooLarge, factorize
 from conditioning.findings import build_findings, verdict
 from conditioning.model import DOF_NAMES, Model
 from conditioning.modes import locate_modes
-from conditioning.results import ModelSummary, Report, SpectrumResult
-from conditioning.spectrum import GAP_RULE, scaled_spectrum
+from conditioning.results import ConditionResult, Finding, ModelSummary, Report, SpectrumResult
+from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, scaled_spectrum
 from conditioning.structure import check_structure
 
 logger = logging.getLogger(__name__)
@@ -86,6 +87,7 @@ def diagnose(
     min_digits: float = 4.0,
     ordering="auto",
     measure: bool = True,
+    memory_limit: Optional[int] = None,
     progress: Optional[ProgressCallback] = None,
 ) -> Report:
     """Diagnose a stiffness matrix: supports, modes, condition, jumps, digits.
@@ -107,6 +109,11 @@ def diagnose(
     measure : bool
         Measure digits in extended precision (the slowest stage after the
         factorization); False skips it.
+    memory_limit : int, optional
+        Bytes the factorization may use (default: ``CONDITIONING_MEMORY_LIMIT``
+        or a share of the available memory). When the factor's predicted size
+        exceeds it, the spectrum is computed without a factorization (LOBPCG)
+        and the report says what that path could not do.
     progress : callable, optional
         ``progress(stage, fraction)``, for progress bars.
 
@@ -134,9 +141,16 @@ def diagnose(
     K = model.K
     with stage("structure"):
         structure = check_structure(model)
-    with stage("factorization"):
-        fac = factorize(K, ordering=ordering, coords=_row_coordinates(model),
-                        active=np.diff(K.indptr) > 0)
+    if memory_limit is None:
+        from conditioning.memory import memory_limit as default_limit
+
+        memory_limit = default_limit()
+    try:
+        with stage("factorization"):
+            fac = factorize(K, ordering=ordering, coords=_row_coordinates(model),
+                            active=np.diff(K.indptr) > 0, memory_limit=memory_limit)
+    except FactorizationTooLarge as too_large:
+        return _without_factorization(model, structure, stage, too_large)
     with stage("spectrum"):
         spec = scaled_spectrum(K, fac)
     with stage("modes"):
@@ -184,5 +198,69 @@ def diagnose(
     return Report(
         summary=summarize(model), structure=structure, factorization=fac.info, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
+        findings=findings, verdict=line, status=status, timings=stage.timings,
+    )
+
+
+def _without_factorization(model: Model, structure, stage: _Stages, too_large: FactorizationTooLarge) -> Report:
+    """The diagnosis when the factor would not fit: spectrum by LOBPCG, no digits."""
+    from conditioning.factorization import diagonal_scaling, scaled_matrix
+    from conditioning.iterative import iterative_spectrum
+
+    K = model.K
+    with stage("spectrum (factorization-free)"):
+        it = iterative_spectrum(model)
+    active = np.diff(K.indptr) > 0
+    idx = np.flatnonzero(active)
+    s = diagonal_scaling(K)
+    Sa = sp.csr_array(scaled_matrix(K, s)[idx][:, idx])
+    lam_max = _largest(Sa)
+    n_empty = int(K.shape[0] - idx.size)
+    values = it.eigenvalues[n_empty:]
+    vectors = it.eigenvectors[idx][:, n_empty:]
+    first, count, gap = _split(values, lam_max, idx.size)
+    zero = idx.size * np.finfo(float).eps * lam_max
+    spec = ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, None, None, None,
+                          first, it.method)
+    with stage("modes"):
+        located = locate_modes(model, structure, s, active, spec)
+    exact = sum(1 for m in located.modes if m.exact)
+    s_min = float(np.min(np.abs(values))) if values.size else None
+    singular = bool(exact or n_empty)
+    s_kappa = None if singular or not s_min else lam_max / s_min
+    condition = ConditionResult(
+        singular=singular, lambda_max=_largest(sp.csr_array(K)), lambda_min=None, estimate=None,
+        estimate_method="not computed: no factorization (the factor would not fit in memory)",
+        scaled_estimate=s_kappa, scaled_lambda_min=s_min, scaled_lambda_max=lam_max,
+        scaled_method=f"2-norm of S from LOBPCG's smallest and Lanczos' largest eigenvalue ({it.method})"
+        + ("" if it.converged else "; LOBPCG did not converge: the smallest eigenvalue is an upper bound"),
+        one_norm_estimate=None, one_norm_method="not computed: no factorization",
+        scaling_gain_digits=None,
+    )
+    spectrum = SpectrumResult(
+        smallest=values[:12], count=len(located.modes), gap=gap, gap_rule=GAP_RULE, inertia_count=None,
+        inertia_agrees=None, negative_eigenvalues=int(first), modes=located.modes, method=it.method,
+    )
+    restraints = []
+    if located.basis.shape[1]:
+        from conditioning.restraints import suggest_restraints
+
+        restraints = suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+    from conditioning.jumps import find_stiffness_jumps
+
+    jumps = find_stiffness_jumps(model, structure)
+    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, None, None,
+                              stiff_link_eigenvalues=located.stiff_link_eigenvalues)
+    pred = too_large.prediction
+    findings.append(Finding(
+        "warning", "analysis.factorization-free",
+        f"The factorization would need about {pred.bytes / 2**30:.1f} GiB ({pred.method}), more than the "
+        f"{too_large.limit / 2**30:.1f} GiB allowed, so the spectrum was computed without one "
+        f"({it.method}). Not available on this path: {'; '.join(it.cannot)}.",
+        [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis."))
+    line, status = verdict(findings, spectrum, structure, None, condition)
+    return Report(
+        summary=summarize(model), structure=structure, factorization=None, condition=condition,
+        spectrum=spectrum, restraints=restraints, jumps=jumps, decay=None, digits=None,
         findings=findings, verdict=line, status=status, timings=stage.timings,
     )

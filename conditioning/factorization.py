@@ -36,6 +36,25 @@ OrderingFunction = Callable[[sp.csr_array, Optional[NDArray[np.float64]]], NDArr
 Ordering = Union[str, OrderingFunction]
 
 EPS = float(np.finfo(np.float64).eps)
+#: Below this many rows the factor's size is not predicted (it always fits).
+PREDICT_ABOVE = 20000
+
+
+class FactorizationTooLarge(MemoryError):
+    """The predicted factor does not fit the memory limit (raised before factorizing).
+
+    Attributes
+    ----------
+    prediction : conditioning.results.FactorMemoryPrediction
+    limit : int
+        Bytes allowed.
+    """
+
+    def __init__(self, prediction, limit: int):
+        self.prediction = prediction
+        self.limit = int(limit)
+        super().__init__(f"the factorization would need about {prediction.bytes / 2**30:.1f} GiB "
+                         f"(limit {limit / 2**30:.1f} GiB)")
 SUPERLU_ORDERINGS = ("MMD_AT_PLUS_A", "MMD_ATA", "COLAMD", "NATURAL")
 
 
@@ -139,11 +158,19 @@ def _superlu(A: sp.csc_array, permc_spec: str):
     )
 
 
-def _factor_once(S: sp.csr_array, ordering: Ordering, coords):
+def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None):
     """splu of S with the ordering; returns (lu, perm or None, pivots in S's order, info-ish)."""
     perm = None
     if callable(ordering):
         perm = np.asarray(ordering(S, coords), dtype=np.intp)
+    if memory_limit is not None and S.shape[0] > PREDICT_ABOVE:
+        from conditioning.memory import predict_factor_memory
+
+        prediction = predict_factor_memory(S, perm, coords=coords)
+        logger.info("predicted factor memory %.2f GiB (%s)", prediction.bytes / 2**30, prediction.method)
+        if prediction.bytes > memory_limit:
+            raise FactorizationTooLarge(prediction, memory_limit)
+    if callable(ordering):
         A = sp.csc_array(S[perm][:, perm])
         name = getattr(ordering, "ordering_name", getattr(ordering, "__name__", "custom"))
         spec = "NATURAL"
@@ -177,6 +204,7 @@ def factorize(
     ordering: Ordering = "auto",
     coords: Optional[NDArray[np.float64]] = None,
     active: Optional[NDArray[np.bool_]] = None,
+    memory_limit: Optional[int] = None,
 ) -> SharedFactorization:
     """Factor the scaled stiffness S = D^-1/2 K D^-1/2 once, for every stage.
 
@@ -197,6 +225,11 @@ def factorize(
     active : (n,) bool, optional
         Rows to factor (default: rows with any stored entry). Rows without
         stiffness are left out and make K singular.
+    memory_limit : int, optional
+        Bytes the factorization may use. When given, the factor's size is
+        predicted by symbolic analysis first (conditioning.memory), and
+        :class:`FactorizationTooLarge` is raised instead of factorizing when
+        it would not fit.
 
     Returns
     -------
@@ -227,11 +260,13 @@ def factorize(
         raise ValueError("the matrix has no stored nonzero entry")
     try:
         A = Sa if sigma == 0.0 else sp.csr_array(Sa - sigma * sp.eye_array(idx.size, format="csr"))
-        result = _factor_once(A, ordering, ca)
+        result = _factor_once(A, ordering, ca, memory_limit)
         tiny = np.min(np.abs(result[2])) <= idx.size * EPS * norm_inf
         if shift is None and tiny:
             logger.info("smallest pivot below n*eps*||S||: refactoring with a small negative shift")
             result = None
+    except FactorizationTooLarge:
+        raise
     except RuntimeError as exc:  # SuperLU: "Factor is exactly singular"
         if shift is not None:
             raise

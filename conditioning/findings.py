@@ -37,6 +37,7 @@ CODES = {
     "factor.diagonal-decay": "large diagonal decay at some pivots",
     "digits.below-minimum": "fewer trustworthy digits than required",
     "digits.refinement-not-converged": "the extended-precision reference did not converge",
+    "analysis.factorization-free": "the factor would not fit in memory; a reduced diagnosis ran",
     "digits.audited-solution": "the audited solution has fewer trustworthy digits than the tool's own",
 }
 
@@ -112,6 +113,9 @@ def build_findings(
                            f"The model has {structure.parts} parts that share no stiffness "
                            f"(sizes in rows: {_list_nodes([int(x) for x in sizes], 6)}).",
                            [], "Each part must be supported on its own, or connected to the rest."))
+    def who(mode):
+        return "The model" if structure.parts <= 1 else f"Part {mode.part}"
+
     if spectrum is not None:
         for mode in spectrum.modes:
             nearly = "" if mode.exact else "nearly "
@@ -121,7 +125,7 @@ def build_findings(
             if mode.kind == "rigid-body":
                 out.append(Finding(
                     severity, "support.rigid-body-mode",
-                    f"Part {mode.part} can {nearly}move as a rigid body ({_motion_text(mode)}); "
+                    f"{who(mode)} can {nearly}move as a rigid body ({_motion_text(mode)}); "
                     f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
                     f"{_list_nodes(mode.nodes)}.{held}",
                     mode.nodes,
@@ -132,7 +136,8 @@ def build_findings(
                          "rigidly, meeting at " if mode.groups else "located at ")
                 out.append(Finding(
                     severity, "support.mechanism",
-                    f"Internal {'near-' if not mode.exact else ''}mechanism in part {mode.part}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
+                    f"Internal {'near-' if not mode.exact else ''}mechanism"
+                    f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
                     f"scaled eigenvalue {mode.eigenvalue:.2e}.{held}"
                     + ("" if model.coords is not None else
                        " Without coordinates a rotation of a part cannot be told from a mechanism."),
