@@ -96,3 +96,23 @@ def test_format_helpers():
     assert how_obtained("arbitrary precision") == "measured"
     assert how_obtained("Hager-Higham 1-norm estimate (a lower bound)") == "bound"
     assert fmt_number(None) == "-" and fmt_number(float("inf")) == "inf"
+
+
+def test_ceiling_and_nearly_free_are_marked():
+    """A figure limited by the reference's resolution is shown as a lower
+    bound; a mode held by a small stiffness is not called free."""
+    import dataclasses
+
+    report, _ = healthy_report(digits=13.6)
+    capped = [dataclasses.replace(s, at_ceiling=(s.sample == "load")) for s in
+              report.digits.samples]
+    report = dataclasses.replace(report, digits=dataclasses.replace(report.digits,
+                                                                    samples=capped))
+    text = render_text(report, width=200)
+    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-2]
+    assert ">= 13.6" in load
+    singular, _ = singular_report()
+    held = dataclasses.replace(singular.spectrum.modes[0], exact=False)
+    singular = dataclasses.replace(singular, spectrum=dataclasses.replace(
+        singular.spectrum, modes=[held]))
+    assert "rigid-body (nearly free)" in render_text(singular, width=200)

@@ -174,7 +174,8 @@ def _modes(r: results.Report) -> str:
     head += f'. <span class="how">{_e(sp.method)}</span></p>'
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
-    rows = [[str(k), m.kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+    rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
+             fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
              fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-",
              str(m.part), summarise_ids(m.nodes, 12)] for k, m in enumerate(sp.modes, start=1)]
     return ("<h2>Near-singular modes</h2>" + head
@@ -209,7 +210,10 @@ def _digits(r: results.Report) -> str:
     rows = []
     for s in dg.samples:
         worst = ", ".join(f"{w.node} ({fmt_digits(w.digits)})" for w in s.worst_nodes[:8])
-        rows.append([s.sample, fmt_digits(s.trustworthy_digits), fmt_digits(s.digits_lost),
+        shown = fmt_digits(s.trustworthy_digits)
+        if getattr(s, "at_ceiling", False):
+            shown = f">= {shown}"
+        rows.append([s.sample, shown, fmt_digits(s.digits_lost),
                      s.method, "yes" if s.converged else f"no ({s.stop_reason})",
                      fmt_number(s.normwise_bound) if s.bound_trusted else "withdrawn",
                      worst or "-"])

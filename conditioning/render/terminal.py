@@ -193,7 +193,8 @@ def _modes(r: results.Report, max_ids: int):
         for i, m in enumerate(sp.modes, start=1):
             motion = fmt_motion(m.motion) if m.motion else (
                 f"groups: {len(m.groups)}" if m.groups else "-")
-            t.add_row(str(i), m.kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+            kind = m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)"
+            t.add_row(str(i), kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
                       motion, str(m.part), summarise_ids(m.nodes, max_ids))
         lines.append(t)
     return Group(*lines)
@@ -258,7 +259,7 @@ def _digits(r: results.Report, max_ids: int):
     for s in dg.samples:
         bound = (fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
                  else "withdrawn")
-        t.add_row(s.sample, fmt_digits(s.trustworthy_digits), fmt_digits(s.digits_lost),
+        t.add_row(s.sample, _digits_shown(s), fmt_digits(s.digits_lost),
                   _how_digits(s.method), "yes" if s.converged else f"no: {s.stop_reason}",
                   bound)
         if s.worst_nodes:
@@ -267,6 +268,9 @@ def _digits(r: results.Report, max_ids: int):
             more = len(s.worst_nodes) - (max_ids // 2 or 1)
             worst.add_row(s.sample, shown + (f" and {more:,} more" if more > 0 else ""))
     lines = [t]
+    if any(getattr(s, "at_ceiling", False) for s in dg.samples):
+        lines.append(Text(">= : the error is below what the reference can resolve; the true "
+                          "figure is at least this.", style="dim"))
     if worst.row_count:
         lines.append(Text("Worst nodes, node (trustworthy digits):"))
         lines.append(worst)
@@ -293,6 +297,12 @@ def _digits(r: results.Report, max_ids: int):
         lines.append(Text(f"Independent confirmation, {first.sample}: {first.confirmation}{more}",
                           style="dim"))
     return Group(*lines)
+
+
+def _digits_shown(s: results.DigitsSample) -> str:
+    """Trustworthy digits; ``>= 13.6`` when the reference cannot resolve more."""
+    text = fmt_digits(s.trustworthy_digits)
+    return f">= {text}" if getattr(s, "at_ceiling", False) else text
 
 
 def _how_digits(method: str) -> str:
