@@ -147,3 +147,18 @@ def test_every_key_is_documented():
     collect(report_to_dict(singular))
     missing = sorted(keys - documented)
     assert not missing, f"undocumented keys: {missing}"
+
+
+def test_report_fields_are_all_written():
+    """Every Report field reaches the JSON, under the layout's name for it or
+    its own (so a stage added later is not silently dropped)."""
+    import dataclasses
+
+    from conditioning.results import Report
+
+    renamed = {"restraints": "suggested_restraints", "jumps": "stiffness_jumps",
+               "decay": "diagonal_decay"}
+    report, _ = healthy_report()
+    data = report_to_dict(report)
+    for f in dataclasses.fields(Report):
+        assert renamed.get(f.name, f.name) in data, f.name
