@@ -278,3 +278,32 @@ def test_reference_singular_matrix_is_exit_3(tmp_path, capsys):
     out = tmp_path / "m01.json"
     assert main(["diagnose", str(path), "--json", str(out), "--quiet"]) == 3
     assert _strict(out.read_text())["condition"]["singular"] is True
+
+
+def test_audited_solution_with_a_known_error(tmp_path, capsys):
+    """--solution: a displacement vector with an error planted on purpose,
+    1e-6 of the largest displacement in one component, must come out with
+    6.0 trustworthy digits (-log10 of the planted relative error; the
+    reference solve is scipy's spsolve, far more accurate than 1e-6)."""
+    import scipy.io
+    import scipy.sparse.linalg as spla
+
+    from conditioning import load_model
+
+    args = _demo_args("footbridge")
+    model = load_model(args[0], dofs=args[2], coords=args[4], load=args[6])
+    x = spla.spsolve(model.K.tocsc(), model.load)
+    bad = x.copy()
+    k = int(np.argmax(np.abs(x)))
+    bad[k] += 1e-6 * np.abs(x).max()
+    sol = tmp_path / "solution.mtx"
+    scipy.io.mmwrite(str(sol), bad.reshape(-1, 1), precision=17)
+    out = tmp_path / "audit.json"
+    code = main(["diagnose", *args, "--solution", str(sol), "--json", str(out), "--quiet"])
+    data = _strict(out.read_text())
+    audit = [d for d in data["digits"] if d["sample"] == "solution"]
+    assert len(audit) == 1
+    assert audit[0]["trustworthy_digits"] == pytest.approx(6.0, abs=0.05)
+    assert code in (0, 1)          # 6 digits is above the default --min-digits 4
+    assert main(["diagnose", *args, "--solution", str(sol), "--min-digits", "7",
+                 "--quiet"]) == 3
