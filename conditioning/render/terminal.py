@@ -401,8 +401,9 @@ class ComparisonView:
                                    ("still there", self.c.findings_kept, "")):
             for f in items:
                 text = f"{word}: {f.severity} [{f.code}] {f.message}"
-                if f.nodes:
-                    text += f" (nodes {summarise_ids(f.nodes, self.max_ids)})"
+                listed = summarise_ids(f.nodes, self.max_ids)
+                if f.nodes and listed not in f.message:
+                    text += f" (nodes {listed})"
                 lines.append(Text(text, style=style))
         return Group(*lines) if lines else Text("no findings in either report")
 
