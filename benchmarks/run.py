@@ -75,7 +75,7 @@ class _Meter:
 
     def start(self, name):
         _reset_peak()
-        self.stages[name] = {"t": time.perf_counter()}
+        self.stages[name] = {"t": time.perf_counter(), "rss_start_bytes": _status("VmRSS")}
 
     def stop(self, name):
         st = self.stages[name]
@@ -346,6 +346,9 @@ def summarize(name, rows, results) -> list[str]:
     if "predicted_fill" in pred:
         actual = diag.get("fill")
         acc = f"  actual {actual} ({pred['predicted_fill'] / actual - 1:+.1%})" if actual else ""
+        fst = base.get("stages", {}).get("factor")
+        if fst:
+            acc += f"; baseline factor added {gib(fst['peak_bytes'] - fst['rss_start_bytes'])}"
         lines.append(f"  predicted  fill {pred['predicted_fill']}{acc}  bytes {gib(pred['predicted_bytes'])}"
                      f"  ({pred['stages']['predict']['seconds']:.2f} s; ordering {pred['ordering']} "
                      f"{pred['stages']['choose+order']['seconds']:.2f} s; fits {pred['fits']})")

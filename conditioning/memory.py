@@ -25,7 +25,7 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.ordering import nested_dissection, supervariables
+from conditioning.ordering import _coincident, nested_dissection, supervariables
 from conditioning.results import FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
@@ -65,7 +65,10 @@ def predict_factor_memory(
         in advance: the nested-dissection ordering is analysed instead, as a
         proxy (less accurate, see ``confidence``).
     coords : (n, 3) float64 array, optional
-        Row positions, used only for the proxy ordering.
+        Row positions: rows at one position (a node's DOFs) are analysed as
+        one block with the union of their patterns (an upper bound that is
+        exact unless couplings inside the node cancel), which shrinks the
+        analysis by the DOFs per node; also used for the proxy ordering.
 
     Returns
     -------
@@ -100,7 +103,8 @@ def predict_factor_memory(
     perm = np.asarray(perm, dtype=np.intp)
     if perm.shape != (n,) or not np.array_equal(np.sort(perm), np.arange(n)):
         raise ValueError(f"perm must be a permutation of 0..{n - 1}")
-    counts, weights = cholesky_column_counts(K, perm)
+    node = None if coords is None else _coincident(np.asarray(coords, dtype=np.float64))[0]
+    counts, weights = cholesky_column_counts(K, perm, node=node)
     nnz_l = int(np.sum(weights * (weights + 1) // 2 + weights * (counts - weights)))
     fill = 2 * nnz_l - n
     # Flops: sum over the DOF columns of (column count)^2.
@@ -164,9 +168,13 @@ def available_memory() -> int:
 
 # ------------------------------------------------------------------ core
 def cholesky_column_counts(
-    K: sp.csr_array, perm: NDArray[np.intp]
+    K: sp.csr_array, perm: NDArray[np.intp], *, node: Optional[NDArray[np.intp]] = None
 ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     """Weighted column counts of the Cholesky factor of K[perm][:, perm].
+
+    ``node`` (optional, one label per row) groups rows to be merged when
+    consecutive in the elimination order; by default rows with identical
+    sparsity patterns are merged, which is exact.
 
     Returns
     -------
@@ -178,7 +186,7 @@ def cholesky_column_counts(
         Rows in each supernode.
     """
     n = K.shape[0]
-    group, _ = supervariables(K)
+    group = supervariables(K)[0] if node is None else np.asarray(node)
     g = group[perm]
     new = np.r_[True, g[1:] != g[:-1]]
     snode_of_pos = np.cumsum(new) - 1
