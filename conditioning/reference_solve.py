@@ -15,9 +15,13 @@ Size limits come from measurements on this project's 2-core test machine
 (bcsstk08 leading blocks, one right-hand side, 2026): python-flint LU at 128
 bits took 0.3 s for n = 400, 2.5 s for n = 800 and 5.0 s for n = 1074, so
 n = 2000 takes about half a minute; mpmath ``lu_solve`` at 40 digits took
-0.6 s for n = 50, 4.6 s for n = 100 and 10 s for n = 150. (arb_mat's
-default "precond" algorithm was about 4 to 10 times slower than "lu" for
-these matrices, so "lu" is used.)
+0.6 s for n = 50, 4.6 s for n = 100 and 10 s for n = 150. arb_mat's
+"precond" algorithm is about 10 times slower than "lu" at the same
+precision, but plain elimination in balls can widen the radii far beyond the
+true error (bcsstk06, bcsstk19, bcsstk20: no usable enclosure from "lu" at
+320 bits), while "precond" gave relative radii near 1e-47 at 160 bits
+(bcsstk06 n = 420: 3.2 s; bcsstk20 n = 485: 4.6 s; bcsstk19 n = 817: 18 s).
+So "lu" is tried first and "precond" only up to n = 1100.
 
 References
 ----------
@@ -44,6 +48,9 @@ logger = logging.getLogger(__name__)
 
 #: Largest n re-solved with python-flint (about 30 s for n = 2000, measured).
 FLINT_MAX_N = 2000
+#: Largest n for the slower preconditioned ball solver, used when the balls of
+#: plain elimination come out wide (18 s for bcsstk19, n = 817, at 160 bits).
+FLINT_PRECOND_MAX_N = 1100
 #: Largest n re-solved with mpmath (about 25 s for n = 200, extrapolated
 #: from 10 s at n = 150 as n^3).
 MPMATH_MAX_N = 200
@@ -146,27 +153,29 @@ def reference_solve(
 
 
 def _flint_solve(A, F, prec: int):
-    """arb_mat LU solve; doubles the precision until every ball is narrow."""
+    """arb_mat solve: Gaussian elimination in balls ("lu") at prec and 2 prec bits,
+    then, when the balls are still wide (the radii of interval elimination can
+    grow far beyond the true error), the preconditioned solver ("precond")."""
     import flint
 
     n, k = F.shape
     M = flint.arb_mat(n, n, A.ravel().tolist())
     B = flint.arb_mat(n, k, F.ravel().tolist())
-    while True:
-        with flint.ctx.workprec(prec):
+    attempts = [("lu", prec), ("lu", 2 * prec)]
+    if n <= FLINT_PRECOND_MAX_N:
+        attempts += [("precond", prec), ("precond", 2 * prec), ("precond", 4 * prec)]
+    for algorithm, bits in attempts:
+        with flint.ctx.workprec(bits):
             try:
-                X = M.solve(B, algorithm="lu")
-                ok = True
+                X = M.solve(B, algorithm=algorithm)
             except ZeroDivisionError:
-                ok = False
-            if ok:
-                hi, lo, rad = _split_balls(X, n, k)
-                scale = np.max(np.abs(hi), axis=0, initial=0.0)
-                if np.all(np.isfinite(rad)) and np.all(rad <= 1e-24 * np.maximum(scale, np.finfo(float).tiny)):
-                    return hi, lo, rad, f"python-flint arb_mat.solve (ball arithmetic, {prec} bits)"
-        if prec >= 2048:
-            raise ValueError("the matrix is singular or too ill-conditioned for ball arithmetic at 2048 bits")
-        prec *= 2
+                continue
+            hi, lo, rad = _split_balls(X, n, k)
+        scale = np.max(np.abs(hi), axis=0, initial=0.0)
+        if np.all(np.isfinite(rad)) and np.all(rad <= 1e-24 * np.maximum(scale, np.finfo(float).tiny)):
+            return hi, lo, rad, f"python-flint arb_mat.solve ({algorithm}, ball arithmetic, {bits} bits)"
+    raise ValueError(f"ball arithmetic gave no narrow enclosure (tried {attempts}); "
+                     "the matrix is singular or too ill-conditioned for a certified re-solve")
 
 
 def _split_balls(X, n: int, k: int):
