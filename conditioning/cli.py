@@ -12,6 +12,7 @@ Exit status
        digits than ``--min-digits`` (default 4)
 4      internal error of the tool (a bug; ``-v`` shows the traceback)
 130    interrupted (Ctrl-C)
+141    standard output closed early (e.g. piped into ``head``)
 =====  ==============================================================
 """
 
@@ -20,6 +21,7 @@ from __future__ import annotations
 import argparse
 import logging
 import math
+import os
 import sys
 from contextlib import contextmanager
 from pathlib import Path
@@ -32,6 +34,7 @@ log = logging.getLogger(__name__)
 
 EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL = 0, 1, 2, 3, 4
 EXIT_INTERRUPTED = 130
+EXIT_BROKEN_PIPE = 141
 
 ProgressCallback = Callable[[str, Optional[float]], None]
 
@@ -79,8 +82,11 @@ def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``conditioning`` command."""
     parser = _Parser(prog="conditioning",
                      description="Can the stiffness matrix of a linear static finite element "
-                                 "model be trusted? Exit status: 0 healthy, 1 warnings, "
-                                 "2 unusable input, 3 errors found.")
+                                 "model be trusted?",
+                     epilog="Exit status: 0 healthy; 1 warnings only; 2 unusable input or bad "
+                            "options; 3 errors found (singular, a free or nearly free mode, or "
+                            "fewer trustworthy digits than --min-digits); 4 internal error; "
+                            "130 interrupted.")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
@@ -361,6 +367,14 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
         return run[args.command](args)
     except SystemExit as exc:  # --help, --version
         return int(exc.code or 0) if not isinstance(exc.code, str) else EXIT_INPUT
+    except BrokenPipeError:
+        # The reader went away (| head): stop quietly, as other filters do.
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+        except (OSError, ValueError):
+            pass
+        return EXIT_BROKEN_PIPE
     except (UsageError, ConditioningError) as exc:
         _fail(str(exc))
         return EXIT_INPUT
