@@ -78,6 +78,7 @@ def render_html(report: results.Report, model: Optional[Model] = None) -> str:
         _modes(report),
         _restraints(report),
         _jumps(report),
+        _decay(report),
         _digits(report),
         _figures(report, model),
         f'<p class="caution">{_e(report.caution)}</p>',
@@ -199,6 +200,17 @@ def _jumps(r: results.Report) -> str:
              fmt_number(j.advice_value), j.reasoning] for j in r.jumps]
     return "<h2>Stiffness jumps</h2>" + _table(
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
+
+
+def _decay(r: results.Report) -> str:
+    d = r.decay
+    if d is None or not d.worst:
+        return ""
+    rows = [[e.label, fmt_number(e.ratio), f"{e.digits:.1f}"] for e in d.worst[:10]]
+    return ("<h2>Diagonal decay</h2>"
+            + f"<p>Largest: {d.max_digits:.1f} digits lost at a pivot. "
+              f'<span class="how">{_e(d.method)}</span></p>'
+            + _table(["row", "K_ii / D_ii", "digits"], rows, {1, 2}))
 
 
 def _digits(r: results.Report) -> str:
