@@ -269,6 +269,7 @@ def _write_outputs(report, model, args) -> None:
         from conditioning.render.html import write_html
 
         write_html(report, args.html, model=model)
+        _note_missing_matplotlib()
     if args.modes_vtk:
         from conditioning.render.modes_export import write_modes_vtu
 
@@ -277,6 +278,16 @@ def _write_outputs(report, model, args) -> None:
         from conditioning.render.modes_export import write_modes_csv
 
         write_modes_csv(report, model, args.modes_csv)
+
+
+def _note_missing_matplotlib() -> None:
+    from conditioning.render.plots import require_matplotlib
+
+    try:
+        require_matplotlib()
+    except ImportError:
+        print("conditioning: note: matplotlib is not installed, so the HTML report has no "
+              "figures (pip install 'fe-conditioning[report]')", file=sys.stderr)
 
 
 def _run_demo(args) -> int:

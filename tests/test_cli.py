@@ -307,3 +307,16 @@ def test_audited_solution_with_a_known_error(tmp_path, capsys):
     assert code in (0, 1)          # 6 digits is above the default --min-digits 4
     assert main(["diagnose", *args, "--solution", str(sol), "--min-digits", "7",
                  "--quiet"]) == 3
+
+
+def test_html_without_matplotlib_notes_it(fake_singular, tmp_path, capsys, monkeypatch):
+    """matplotlib hidden (None in sys.modules makes its import fail): the page
+    is still written and stderr says why it has no figures."""
+    import sys
+
+    for name in ("matplotlib", "matplotlib.figure"):
+        monkeypatch.setitem(sys.modules, name, None)
+    page = tmp_path / "r.html"
+    assert main(["diagnose", "k.mtx", "--html", str(page), "--quiet"]) == 3
+    assert "need matplotlib" in page.read_text()
+    assert "matplotlib is not installed" in capsys.readouterr().err
