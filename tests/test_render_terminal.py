@@ -116,3 +116,23 @@ def test_ceiling_and_nearly_free_are_marked():
     singular = dataclasses.replace(singular, spectrum=dataclasses.replace(
         singular.spectrum, modes=[held]))
     assert "rigid-body (nearly free)" in render_text(singular, width=200)
+
+
+def test_every_view_accepts_a_minimal_report(tmp_path):
+    """Stages that did not run (None) are said so, never a crash, in every view."""
+    import dataclasses
+    import json
+
+    from conditioning.render.html import render_html
+    from conditioning.render.json_report import dumps, report_to_dict
+    from conditioning.render.modes_export import write_modes_csv
+
+    report, model = healthy_report()
+    bare = dataclasses.replace(report, factorization=None, condition=None, spectrum=None,
+                               decay=None, digits=None, jumps=[], restraints=[], findings=[])
+    text = render_text(bare)
+    assert "not computed" in text and "not measured" in text and "no findings" in text
+    assert "<h1>" in render_html(bare, model)
+    data = json.loads(dumps(report_to_dict(bare)))
+    assert data["condition"] is None and data["near_singular_modes"] == [] and data["digits"] == []
+    assert write_modes_csv(bare, model, tmp_path / "m.csv") == 0
