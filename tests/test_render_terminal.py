@@ -136,3 +136,12 @@ def test_every_view_accepts_a_minimal_report(tmp_path):
     data = json.loads(dumps(report_to_dict(bare)))
     assert data["condition"] is None and data["near_singular_modes"] == [] and data["digits"] == []
     assert write_modes_csv(bare, model, tmp_path / "m.csv") == 0
+
+
+def test_scaling_sentence_depends_on_the_gain():
+    """Common practice (van der Sluis scaling): a raw figure far above the
+    scaled one is units mixing; within a digit, it is real conditioning."""
+    from conditioning.render._format import scaling_sentence
+
+    assert "Scaling removes 11.9 digits" in scaling_sentence(11.9)
+    assert "not an effect of units" in scaling_sentence(0.1)

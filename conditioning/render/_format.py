@@ -113,3 +113,16 @@ def fmt_motion(motion: dict[str, float], threshold: float = 0.01) -> str:
     if not parts:
         return "-"
     return ", ".join(f"{name} {share:.0%}" for share, name in parts)
+
+
+def scaling_sentence(gain_digits: float) -> str:
+    """What the difference between the raw and the scaled condition number means.
+
+    ``gain_digits`` is log10(raw / scaled) as the condition stage reports it.
+    """
+    if gain_digits >= 1.0:
+        return (f"Scaling removes {gain_digits:.1f} digits of the raw figure: units or "
+                "DOF-type mixing (rotations next to translations, mm next to m), mostly "
+                "harmless; the scaled figure is the one that governs the accuracy of the solve.")
+    return ("The raw and scaled figures agree within a digit: the conditioning is not an "
+            "effect of units or DOF-type mixing.")

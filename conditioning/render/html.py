@@ -20,7 +20,7 @@ from conditioning import results
 from conditioning.model import Model
 from conditioning.render import plots
 from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         summarise_ids)
+                                         scaling_sentence, summarise_ids)
 
 log = logging.getLogger(__name__)
 
@@ -154,9 +154,7 @@ def _condition(r: results.Report) -> str:
                      "-" if value is None else how_obtained(method), method])
     text = ""
     if c.scaling_gain_digits is not None:
-        text = (f"<p>Scaling removes {c.scaling_gain_digits:.1f} digits of the raw figure "
-                "(units or DOF-type mixing, mostly harmless); the scaled figure governs the "
-                "accuracy of the solve.</p>")
+        text = f"<p>{_e(scaling_sentence(c.scaling_gain_digits))}</p>"
     return ("<h2>Condition number</h2>"
             + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
 
@@ -234,7 +232,7 @@ def _digits(r: results.Report) -> str:
             f"digits. {_e(dg.summary)}</p>")
     return ("<h2>Digits of the displacements</h2>"
             + _table(["sample", "trustworthy digits", "digits lost", "method", "converged",
-                      "error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
+                      "reference error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
 
 
 def _figures(r: results.Report, model: Optional[Model]) -> str:

@@ -19,7 +19,7 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         summarise_ids)
+                                         scaling_sentence, summarise_ids)
 
 _STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
 _SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
@@ -156,9 +156,7 @@ def _condition(r: results.Report):
         parts.append(Text("K is singular at working precision: it has a null space "
                           "(see the near-singular modes).", style="red"))
     if c.scaling_gain_digits is not None:
-        parts.append(Text(f"Scaling removes {c.scaling_gain_digits:.1f} digits of the raw "
-                          "figure (units or DOF-type mixing, mostly harmless); the scaled "
-                          "figure is the one that governs the accuracy of the solve."))
+        parts.append(Text(scaling_sentence(c.scaling_gain_digits)))
     return Group(*parts, *notes)
 
 
@@ -254,7 +252,7 @@ def _digits(r: results.Report, max_ids: int):
     t.add_column("digits lost", justify="right")
     t.add_column("how obtained")
     t.add_column("converged")
-    t.add_column("error bound", justify="right")
+    t.add_column("reference error bound", justify="right")
     worst = _grid()
     for s in dg.samples:
         bound = (fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
