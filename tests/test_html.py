@@ -204,3 +204,16 @@ def test_every_section_of_a_full_report():
                    "Stiffness jumps", "diagonal-outlier", "Diagonal decay", "node 4 uy",
                    "Digits of the displacements", "double-double refinement", "withdrawn"):
         assert needle in text, needle
+
+
+def test_a_failing_figure_does_not_cost_the_page(monkeypatch):
+    pytest.importorskip("matplotlib")
+    from conditioning.render import plots
+
+    def broken(*a, **k):
+        raise ValueError("no luck")
+    monkeypatch.setattr(plots, "diagonal_histogram_png", broken)
+    report, model = singular_report()
+    page = render_html(report, model)
+    assert "could not be drawn (ValueError: no luck)" in page
+    assert len(_images(page)) == 4     # the other figures are still there

@@ -277,7 +277,13 @@ def _figures(r: results.Report, model: Optional[Model]) -> str:
                 f"<ul>{names}</ul></div>")
     out = ["<h2>Figures</h2>"]
     for title, caption, draw in wanted:
-        png = draw()
+        try:
+            png = draw()
+        except Exception as exc:  # a figure must never cost the whole report
+            log.warning("figure %r could not be drawn: %s", title, exc)
+            out.append(f'<p class="missing">{_e(title)}: could not be drawn '
+                       f"({_e(type(exc).__name__)}: {_e(exc)}).</p>")
+            continue
         if png is None:
             continue
         data = base64.b64encode(png).decode("ascii")
