@@ -115,12 +115,15 @@ def test_3d_geometric_fill_below_superlu_orderings():
 
 
 def test_choose_ordering_rule():
+    """The documented rule (docs/benchmarks.md): geometric nested dissection
+    for 3D and for 2D above 20,000 rows, SuperLU's MMD(A'+A) otherwise."""
     K2, xyz2 = skfem_elasticity(120, 2)   # 29,040 rows, flat
     K3, xyz3 = skfem_elasticity(14, 3)    # 9,450 rows, solid
     small, xyzs = skfem_elasticity(20, 2)  # 840 rows
     assert choose_ordering(K2, xyz2) is nested_dissection
     assert choose_ordering(K3, xyz3) is nested_dissection
     assert choose_ordering(small, xyzs) == "MMD_AT_PLUS_A"
+    assert choose_ordering(K3, None) == "MMD_AT_PLUS_A"  # no positions: SuperLU's own
 
 
 def test_benchmark_generator_matches_scikit_fem():
