@@ -108,6 +108,8 @@ def measure_digits(
         _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j)
         for j, name in enumerate(names)
     ]
+    if model.solution is not None and model.load is None:
+        logger.warning("a solution to audit was given without its load: the audit needs f to form f - K x")
     if model.solution is not None and model.load is not None:
         out.append(_sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
                            refs[0], confirmation, 0))

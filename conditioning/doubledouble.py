@@ -12,6 +12,14 @@ so that no Python loop over rows or entries is needed:
 ``numpy.add.reduceat`` adds the extracted parts of every row at once, and
 the extraction guarantees that those additions make no rounding error.
 
+Cost, measured on the plane-stress plate models of ``benchmarks/models.py``
+(2 shared cores, numpy 2.4): 50,244 rows / 871,837 entries, one right-hand
+side 16 ms against 0.40 ms for ``K @ x`` (40x), four right-hand sides 69 ms
+against 2.1 ms (33x); 179,400 rows / 3,035,742 entries, 60 ms against 3.2 ms
+(19x), four right-hand sides 264 ms against 8.3 ms (32x). About 30 passes
+of numpy over the stored entries, each about as costly as scipy's whole
+product, so the 15x goal is not reached with numpy alone.
+
 References
 ----------
 .. [1] T. Ogita, S. M. Rump and S. Oishi (2005), "Accurate Sum and Dot
