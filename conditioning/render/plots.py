@@ -132,15 +132,17 @@ def digits_png(model: Model, sample: results.DigitsSample) -> bytes:
     ax = fig.subplots()
     if model.coords is not None and model.dofs is not None and model.coords.has(nodes).all():
         xy = _project(model.coords.lookup(nodes), model.coords.dim)
-        sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="RdYlGn", s=_marker(nodes.size),
-                        edgecolors="#555555", linewidths=0.3)
+        # An absolute scale, 0 to 16 digits (float64 carries about 15.95), so a
+        # healthy model is green everywhere rather than stretched to its own range.
+        sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="RdYlGn", vmin=0.0, vmax=16.0,
+                        s=_marker(nodes.size), edgecolors="#555555", linewidths=0.3)
         fig.colorbar(sc, ax=ax, label="trustworthy digits")
         ax.set_aspect("equal", adjustable="datalim")
         if model.coords.dim == 2:
             ax.set_xlabel("x")
             ax.set_ylabel("y")
         else:
-            ax.set_xlabel("isometric projection")
+            ax.set_xlabel(f"3D view (azimuth {VIEW_AZIMUTH:g}, elevation {VIEW_ELEVATION:g} deg)")
     else:
         ax.plot(nodes, digits, ".", color="#2c5d8a")
         ax.set_xlabel("node" if model.dofs is not None else "row")
@@ -155,10 +157,11 @@ def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int,
     """Mode ``k`` drawn as a displaced shape over the node positions.
 
     The node graph of K (nodes coupled by a stored entry) is drawn undeformed
-    in grey and displaced in colour; 3D models are shown in an isometric
-    projection. Returns None when the model has no map, no coordinates, or
-    the mode no vector. ``edges`` (from :func:`node_edges`) saves
-    recomputing the node graph for every mode.
+    in grey and displaced in colour; 3D models are shown in an oblique
+    projection (:data:`VIEW_AZIMUTH`, :data:`VIEW_ELEVATION`). Returns None
+    when the model has no map, no coordinates, or the mode no vector.
+    ``edges`` (from :func:`node_edges`) saves recomputing the node graph for
+    every mode.
     """
     Figure = require_matplotlib()
     if model.dofs is None or model.coords is None or mode.vector is None:
@@ -208,13 +211,20 @@ def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int,
 
 
 # ------------------------------------------------------------------ helpers
+#: Viewing angles of the 3D projection (degrees): azimuth about z, elevation.
+#: Not 45 degrees, so square plans do not put corner nodes on top of each other.
+VIEW_AZIMUTH, VIEW_ELEVATION = 30.0, 20.0
+
+
 def _project(xyz: NDArray[np.float64], dim: int) -> NDArray[np.float64]:
-    """x-y for 2D; an isometric projection (view along (1, 1, 1)) for 3D."""
+    """x-y for 2D; for 3D an oblique parallel projection, z up."""
     if dim == 2:
         return xyz[:, :2]
-    c, s = math.cos(math.radians(30)), math.sin(math.radians(30))
+    az, el = math.radians(VIEW_AZIMUTH), math.radians(VIEW_ELEVATION)
     x, y, z = xyz[:, 0], xyz[:, 1], xyz[:, 2]
-    return np.column_stack([(x - y) * c, z + (x + y) * s])
+    horizontal = x * math.cos(az) - y * math.sin(az)
+    depth = x * math.sin(az) + y * math.cos(az)
+    return np.column_stack([horizontal, z * math.cos(el) + depth * math.sin(el)])
 
 
 def node_edges(model: Model) -> Optional[NDArray[np.intp]]:
