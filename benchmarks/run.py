@@ -168,27 +168,23 @@ def job_orderings(args, paths):
 def job_predict(args, paths):
     import scipy.sparse as sp
 
-    from conditioning.memory import fits, memory_limit, predict_factor_memory
-    from conditioning.ordering import choose_ordering
+    from conditioning.memory import plan_factorization, predict_factor_memory
 
     K, _ = _read_baseline(paths)
     K = sp.csr_array(K)
     xyz = _coords_of_rows(paths, K.shape[0])
     m = _Meter()
-    m.start("choose+order")
-    choice = choose_ordering(K, xyz)
-    perm = choice(K, xyz) if callable(choice) else None
-    m.stop("choose+order")
-    m.start("predict")
-    pred = predict_factor_memory(K, perm, coords=xyz)
-    m.stop("predict")
+    m.start("plan")
+    plan = plan_factorization(K, xyz)
+    m.stop("plan")
+    pred = plan.prediction
     m.start("predict-mmd-proxy")
-    proxy = predict_factor_memory(K, None, coords=xyz) if perm is not None else pred
+    proxy = predict_factor_memory(K, None, coords=xyz)
     m.stop("predict-mmd-proxy")
-    return m.result(ordering=getattr(choice, "ordering_name", str(choice)), predicted_bytes=pred.bytes,
-                    predicted_fill=pred.factor_entries, predicted_flops=pred.flops,
-                    proxy_fill=proxy.factor_entries, limit_bytes=memory_limit(), fits=fits(pred),
-                    method=pred.method)
+    return m.result(ordering=getattr(plan.ordering, "ordering_name", str(plan.ordering)),
+                    predicted_bytes=pred.bytes, predicted_fill=pred.factor_entries,
+                    predicted_flops=pred.flops, proxy_fill=proxy.factor_entries,
+                    limit_bytes=plan.limit_bytes, fits=plan.fits, method=pred.method)
 
 
 def job_diagnose(args, paths):
@@ -346,12 +342,15 @@ def summarize(name, rows, results) -> list[str]:
     if "predicted_fill" in pred:
         actual = diag.get("fill")
         acc = f"  actual {actual} ({pred['predicted_fill'] / actual - 1:+.1%})" if actual else ""
+        fst = diag.get("stages", {}).get("factorization")
+        if fst:
+            acc += f"; diagnosis factorization added {gib(fst['peak_bytes'] - fst['rss_start_bytes'])}"
         fst = base.get("stages", {}).get("factor")
         if fst:
-            acc += f"; baseline factor added {gib(fst['peak_bytes'] - fst['rss_start_bytes'])}"
-        lines.append(f"  predicted  fill {pred['predicted_fill']}{acc}  bytes {gib(pred['predicted_bytes'])}"
-                     f"  ({pred['stages']['predict']['seconds']:.2f} s; ordering {pred['ordering']} "
-                     f"{pred['stages']['choose+order']['seconds']:.2f} s; fits {pred['fits']})")
+            acc += f"; baseline splu added {gib(fst['peak_bytes'] - fst['rss_start_bytes'])}"
+        lines.append(f"  predicted  fill {pred['predicted_fill']}{acc}; predicted bytes {gib(pred['predicted_bytes'])}"
+                     f"  (ordering {pred['ordering']} + prediction {pred['stages']['plan']['seconds']:.2f} s;"
+                     f" fits {pred['fits']}; MMD proxy fill {pred['proxy_fill']})")
     for k, v in results.get("orderings", {}).get("orderings", {}).items():
         lines.append(f"  order {k:14s} fill {v['fill']:>11d}  order {v['order_seconds']:6.2f} s  factor "
                      f"{v['factor_seconds']:7.2f} s  peak {gib(v['peak_bytes'])}")

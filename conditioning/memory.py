@@ -6,8 +6,7 @@ The structure of the Cholesky factor of P K P^T follows from the pattern
 alone (symbolic analysis): the elimination tree and the column counts of L.
 SuperLU in symmetric mode with diagonal pivoting produces exactly that
 structure (U = D L^T), so the count predicts its fill; its bytes follow from
-its storage scheme, with a growth factor for the work arrays it reallocates
-while it factors, calibrated on the benchmark models (docs/benchmarks.md).
+bytes per entry calibrated on the benchmark models (docs/benchmarks.md).
 
 The symbolic analysis runs on the graph of *supernodes*: consecutive rows of
 the elimination order with identical sparsity patterns (the DOFs of a node)
@@ -19,26 +18,30 @@ from __future__ import annotations
 import logging
 import os
 import re
+from dataclasses import dataclass
 from typing import Optional
 
 import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.ordering import _coincident, nested_dissection, supervariables
+from conditioning.ordering import _coincident, choose_ordering, nested_dissection, supervariables
 from conditioning.results import FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
 
-#: Bytes per stored factor entry in SuperLU: an 8-byte value, plus a 4-byte
-#: row index for the half of the entries kept in U's column-compressed part
-#: (the L part is indexed once per supernode, not per entry).
-BYTES_PER_ENTRY = 10.0
-#: Peak over final storage while SuperLU grows its arrays (it reallocates by
-#: a factor 1.5 and copies), and the CSC copy of the matrix it factors;
-#: calibrated from peak RSS of splu on the benchmark models
-#: (docs/benchmarks.md).
-GROWTH = 1.6
+#: Bytes per stored factor entry while SuperLU factors and holds the factor
+#: (an 8-byte value, row indices per supernode and per entry of U's
+#: column-compressed part, array growth); measured 9.7 to 13.4 on the
+#: benchmark models (peak RSS over fill, docs/benchmarks.md).
+SUPERLU_BYTES_PER_ENTRY = 12.0
+#: Peak bytes per factor entry of reading the pivots through scipy's
+#: ``SuperLU.U`` (a CSC copy of U, about half the entries, built through a
+#: temporary), as the shared factorization does; measured 15.2.
+PIVOT_READ_BYTES_PER_ENTRY = 15.0
+#: Bytes per stored entry of K for the copies made around the factorization
+#: (scaled matrix, its active part, the permuted CSC matrix: 12 bytes each).
+MATRIX_COPY_BYTES_PER_NNZ = 36.0
 #: Share of MemAvailable a factorization may plan to use by default.
 DEFAULT_SHARE = 0.7
 #: Relative accuracy of the byte prediction measured on the benchmark models.
@@ -73,8 +76,11 @@ def predict_factor_memory(
     Returns
     -------
     FactorMemoryPrediction
-        Predicted factor entries (L + U as SuperLU counts them), flops and
-        bytes, with the method and its measured accuracy.
+        Predicted factor entries (L + U as SuperLU counts them), flops, and
+        the bytes the shared factorization (conditioning.factorization) adds
+        at its peak: SuperLU's storage, the copy of U it reads the pivots
+        from, and the matrix copies, with the method and its measured
+        accuracy.
 
     Notes
     -----
@@ -82,6 +88,16 @@ def predict_factor_memory(
     compression [1]_ and the column counts of L by the algorithm of Gilbert,
     Ng and Peyton [2]_ (in the form of CSparse's ``cs_counts`` [3]_), both in
     O(|A| alpha(|A|, n)) time, weighted by the rows per supernode.
+
+    Examples
+    --------
+    A tridiagonal matrix in its natural order factors without fill: L and U
+    are bidiagonal, 3n - 2 entries together.
+
+    >>> import numpy as np, scipy.sparse as sp
+    >>> T = sp.csr_array(sp.diags_array([-1.0, 2.0, -1.0], offsets=[-1, 0, 1], shape=(50, 50)))
+    >>> predict_factor_memory(T, np.arange(50)).factor_entries
+    148
 
     References
     ----------
@@ -109,13 +125,87 @@ def predict_factor_memory(
     fill = 2 * nnz_l - n
     # Flops: sum over the DOF columns of (column count)^2.
     flops = float(np.sum(_dof_column_square_sums(counts, weights)))
-    nbytes = int(GROWTH * BYTES_PER_ENTRY * fill + 24 * K.nnz)
+    nbytes = int((SUPERLU_BYTES_PER_ENTRY + PIVOT_READ_BYTES_PER_ENTRY) * fill
+                 + MATRIX_COPY_BYTES_PER_NNZ * K.nnz)
     method = ("symbolic Cholesky column counts (elimination tree, Gilbert-Ng-Peyton) "
               + ("of a nested-dissection proxy ordering" if proxy else "of the given ordering"))
     return FactorMemoryPrediction(
         bytes=nbytes, factor_entries=fill, flops=flops, method=method,
         confidence=BYTES_ACCURACY if not proxy else 2 * BYTES_ACCURACY,
     )
+
+
+@dataclass(frozen=True)
+class FactorizationPlan:
+    """The ordering to factor with and whether its factor fits, decided together.
+
+    Attributes
+    ----------
+    ordering : str or callable
+        What to pass as ``factorize(..., ordering=...)``: a SuperLU name, or
+        a callable that returns the permutation already computed here (and
+        recomputes it only if called on a matrix of another size).
+    prediction : FactorMemoryPrediction
+    fits : bool
+        ``prediction.bytes`` within :func:`memory_limit` (or the given limit).
+    limit_bytes : int
+    """
+
+    ordering: object
+    prediction: FactorMemoryPrediction
+    fits: bool
+    limit_bytes: int
+
+
+def plan_factorization(
+    K: sp.sparray,
+    coords: Optional[NDArray[np.float64]] = None,
+    *,
+    limit_bytes: Optional[int] = None,
+) -> FactorizationPlan:
+    """Choose the ordering, predict the factor's size, and check it fits.
+
+    Parameters
+    ----------
+    K : (n, n) sparse array
+        The matrix the shared factorization will factor.
+    coords : (n, 3) float64 array, optional
+        Position of each row's node.
+    limit_bytes : int, optional
+        Memory allowed; default :func:`memory_limit`.
+
+    Returns
+    -------
+    FactorizationPlan
+
+    Examples
+    --------
+    >>> import scipy.sparse as sp
+    >>> T = sp.csr_array(sp.diags_array([-1.0, 2.0, -1.0], offsets=[-1, 0, 1], shape=(50, 50)))
+    >>> plan = plan_factorization(T, limit_bytes=10**9)
+    >>> plan.ordering, plan.fits
+    ('MMD_AT_PLUS_A', True)
+    """
+    K = sp.csr_array(K)
+    choice = choose_ordering(K, coords)
+    perm = None
+    ordering = choice
+    if callable(choice):
+        perm = choice(K, coords)
+        ordering = _precomputed(perm, choice)
+    prediction = predict_factor_memory(K, perm, coords=coords)
+    limit = memory_limit() if limit_bytes is None else int(limit_bytes)
+    return FactorizationPlan(ordering, prediction, prediction.bytes <= limit, limit)
+
+
+def _precomputed(perm, fallback):
+    def ordering(pattern, coords=None):
+        if pattern.shape[0] == perm.size:
+            return perm
+        return fallback(pattern, coords)
+
+    ordering.ordering_name = getattr(fallback, "ordering_name", "custom")
+    return ordering
 
 
 def fits(prediction: FactorMemoryPrediction, limit_bytes: Optional[int] = None) -> bool:

@@ -30,7 +30,7 @@ logger = logging.getLogger(__name__)
 Permutation = NDArray[np.intp]
 
 #: Parts with at most this many nodes are not cut further (default).
-LEAF_SIZE = 24
+LEAF_SIZE = 8
 #: Largest 2D model (rows) for which SuperLU's own MMD(A'+A) is kept by
 #: :func:`choose_ordering`; see docs/benchmarks.md for the measurements.
 MMD_MAX_ROWS_2D = 20_000

@@ -110,3 +110,24 @@ def test_memory_guard_small_limit(monkeypatch):
     assert fits(pred)
     assert fits(pred, limit_bytes=pred.bytes) and not fits(pred, limit_bytes=pred.bytes - 1)
     assert calls == []
+
+
+def test_plan_reuses_the_ordering_and_guards_memory(monkeypatch):
+    """plan_factorization: nested dissection for a 3D model with positions
+    (the documented rule), its permutation handed to the shared
+    factorization unchanged, and the prediction within 3% of the fill
+    SuperLU then reports."""
+    from conditioning.factorization import factorize
+    from conditioning.memory import plan_factorization
+
+    K, xyz = skfem_elasticity(10, 3)  # 3,630 rows
+    monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "64k")
+    plan = plan_factorization(K, xyz)
+    assert not plan.fits and plan.limit_bytes == 64 * 1024
+    monkeypatch.delenv("CONDITIONING_MEMORY_LIMIT")
+    plan = plan_factorization(K, xyz)
+    assert plan.fits and callable(plan.ordering)
+    assert plan.ordering.ordering_name == "nested-dissection"
+    fac = factorize(K, ordering=plan.ordering, coords=xyz)
+    assert fac.info.ordering == "nested-dissection"
+    assert abs(plan.prediction.factor_entries / fac.info.fill - 1) < 0.03
