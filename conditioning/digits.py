@@ -34,7 +34,7 @@ from numpy.typing import NDArray
 
 from conditioning.doubledouble import U, dd_operator, dd_residual
 from conditioning.model import DOF_NAMES, Model
-from conditioning.refinement import RefinementResult, refine, scaled_condition_estimate
+from conditioning.refinement import RefinementResult, refine_block, scaled_condition_estimate
 from conditioning.reference_solve import ReferenceSolution, choose_reference_method, reference_solve
 from conditioning.results import (
     ConditionResult,
@@ -102,7 +102,7 @@ def measure_digits(
     X = fac.solve(F)
     op = dd_operator(K)
     kappa = scaled_condition_estimate(K, fac)
-    refs = [refine(K, fac, F[:, j], x0=X[:, j], kappa=kappa, operator=op) for j in range(F.shape[1])]
+    refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op)
     confirmation = _confirm(K, F, kappa) if confirm else None
     out = [
         _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j)
@@ -163,7 +163,8 @@ def worst_case_load(K, fac, spectrum: Optional[SpectrumResult] = None) -> Option
             S = sp.csr_array(S.multiply(s[:, None]).multiply(s[None, :]))
             opinv = spla.LinearOperator((n, n), matvec=lambda b: fac.solve_scaled(np.ravel(b)), dtype=np.float64)
             try:
-                _, V = spla.eigsh(S, k=1, sigma=0.0, which="LM", OPinv=opinv, v0=np.ones(n), tol=1e-8)
+                _, V = spla.eigsh(S, k=1, sigma=0.0, which="LM", OPinv=opinv, v0=np.ones(n), tol=1e-6,
+                                  ncv=min(n - 1, 8))
             except (spla.ArpackNoConvergence, spla.ArpackError) as exc:
                 logger.warning("smallest eigenvector not found (%s); no worst-case sample", exc)
                 return None

@@ -220,39 +220,97 @@ def refine(
     accuracy. GMRES convergence beyond kappa u ~ 1 is reported as converged
     but its bounds are withdrawn under this rule.
     """
-    op = dd_operator(operator if operator is not None else K)
     f = np.asarray(f, dtype=np.float64)
-    n = f.size
+    return refine_block(K, fac, f[:, None], X0=None if x0 is None else np.asarray(x0)[:, None], kappa=kappa,
+                        operator=operator, max_steps=max_steps, allow_gmres=allow_gmres,
+                        want_componentwise=want_componentwise)[0]
+
+
+def refine_block(
+    K: sp.sparray,
+    fac,
+    F: NDArray[np.float64],
+    *,
+    X0: Optional[NDArray[np.float64]] = None,
+    kappa: Optional[float] = None,
+    operator: Optional[DDOperator] = None,
+    max_steps: int = MAX_STEPS,
+    allow_gmres: bool = True,
+    want_componentwise: bool = True,
+) -> list[RefinementResult]:
+    """:func:`refine` for a block of loads at once (one result per column of F).
+
+    The plain refinement of all columns runs in lockstep, so each step is one
+    block residual and one block solve; a column leaves the block when it
+    stops. GMRES-based refinement, when needed, runs column by column.
+
+    Parameters
+    ----------
+    F : (n, k) float64
+        Loads, one per column; X0 optional (n, k) starting solutions.
+    Other parameters as in :func:`refine`.
+
+    Returns
+    -------
+    list of RefinementResult, one per column of F
+    """
+    op = dd_operator(operator if operator is not None else K)
+    F = np.asarray(F, dtype=np.float64)
+    n, k = F.shape
     if fac.shift != 0.0 or fac.singular:
         raise ValueError("refinement needs an unshifted factorization of a nonsingular K")
     if kappa is None or not np.isfinite(kappa):
         kappa = scaled_condition_estimate(op.K, fac)
     gamma = max(10.0, math.sqrt(n))
-    x_hi = fac.solve(f) if x0 is None else np.asarray(x0, dtype=np.float64).copy()
-    x_lo = np.zeros(n)
-    state = _State(op, f, kappa, gamma)
-    x_hi, x_lo = state.run(x_hi, x_lo, fac.solve, max_steps, plain=True)
-    gmres_used = False
-    if not state.converged and allow_gmres and "not finite" not in state.reason:
-        gmres_used = True
-        logger.info("plain refinement %s; switching to GMRES-based refinement", state.reason)
-        x_hi, x_lo = state.run(x_hi, x_lo, _gmres_correction(op.K, fac), MAX_GMRES_STEPS, plain=False)
+    X_hi = fac.solve(F) if X0 is None else np.array(X0, dtype=np.float64)
+    X_lo = np.zeros_like(X_hi)
+    states = [_State(op, F[:, j], kappa, gamma) for j in range(k)]
+    for st in states:
+        st.begin(plain=True)
+    active = list(range(k))
+    for _ in range(max_steps):
+        if not active:
+            break
+        R_hi, R_lo = dd_residual(op, X_hi[:, active], X_lo[:, active], F[:, active])
+        D = fac.solve(R_hi + R_lo)
+        still = []
+        for c, j in enumerate(active):
+            X_hi[:, j], X_lo[:, j], done = states[j].step(R_hi[:, c], D[:, c], X_hi[:, j], X_lo[:, j])
+            if not done:
+                still.append(j)
+        active = still
+    for j in active:
+        states[j].stop_for_limit(max_steps)
+    results = []
+    for j, st in enumerate(states):
+        x_hi, x_lo = X_hi[:, j].copy(), X_lo[:, j].copy()
+        gmres_used = False
+        if not st.converged and allow_gmres and "not finite" not in st.reason:
+            gmres_used = True
+            logger.info("plain refinement %s; switching to GMRES-based refinement", st.reason)
+            x_hi, x_lo = st.run(x_hi, x_lo, _gmres_correction(op.K, fac), MAX_GMRES_STEPS, plain=False)
+        results.append(_result(st, fac, op, x_hi, x_lo, kappa, gamma, gmres_used, want_componentwise))
+    return results
+
+
+def _result(st, fac, op, x_hi, x_lo, kappa, gamma, gmres_used, want_componentwise) -> RefinementResult:
+    """Bounds, trust flag and the result record of one refined column."""
+    trusted_norm = st.converged and kappa * gamma * U < 1.0
     kappa_c = math.inf
-    if want_componentwise and state.converged:
+    if want_componentwise and trusted_norm:
         kappa_c = componentwise_condition_estimate(op.K, fac, x_hi)
-    trusted_norm = state.converged and kappa * gamma * U < 1.0
     trusted_comp = trusted_norm and np.isfinite(kappa_c) and kappa_c * gamma * U < 1.0
-    norm_bound = state.bound(kappa, componentwise=False) if trusted_norm else None
-    comp_bound = state.bound(kappa_c, componentwise=True) if trusted_comp else None
-    if not state.converged:
-        logger.warning("refinement stopped without converging: %s", state.reason)
+    norm_bound = st.bound(kappa, componentwise=False) if trusted_norm else None
+    comp_bound = st.bound(kappa_c, componentwise=True) if trusted_comp else None
+    if not st.converged:
+        logger.warning("refinement stopped without converging: %s", st.reason)
     method = "GMRES refinement with double-double residuals" if gmres_used else "double-double refinement"
     return RefinementResult(
-        x_hi=x_hi, x_lo=x_lo, converged=state.converged, stop_reason=state.reason,
-        history=state.history, method=method, gmres_used=gmres_used,
+        x_hi=x_hi, x_lo=x_lo, converged=st.converged, stop_reason=st.reason,
+        history=st.history, method=method, gmres_used=gmres_used,
         normwise_bound=norm_bound, componentwise_bound=comp_bound,
         bound_trusted=norm_bound is not None,
-        error_estimate=state.bound(kappa, componentwise=False) if state.converged else math.inf,
+        error_estimate=st.bound(kappa, componentwise=False) if st.converged else math.inf,
         kappa_normwise=float(kappa), kappa_componentwise=float(kappa_c),
     )
 
@@ -289,44 +347,61 @@ class _State:
         self.last_dx = math.inf
         self.last_dz = math.inf
 
-    def run(self, x_hi, x_lo, correct, max_steps: int, *, plain: bool):
-        prev_dx = prev_dz = math.inf
+    def begin(self, *, plain: bool) -> None:
+        """Start a phase (plain or GMRES): ratios restart from the next step."""
+        self.prev_dx = self.prev_dz = math.inf
+        self.label = "" if plain else "GMRES "
+
+    def step(self, r_hi, d, x_hi, x_lo):
+        """Record one correction d of the residual r and apply it; (x_hi, x_lo, stop?)."""
+        label = self.label
         floor = self.gamma * max(self.kappa, 1.0) * U**2
-        label = "" if plain else "GMRES "
+        x_norm = float(np.max(np.abs(x_hi), initial=0.0))
+        if not np.all(np.isfinite(d)) or x_norm == 0.0:
+            self.reason = f"{label}correction is not finite"
+            return x_hi, x_lo, True
+        dx = float(np.max(np.abs(d))) / x_norm
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dz = float(np.max(np.abs(d) / np.abs(x_hi), initial=0.0))
+        res = float(np.max(np.abs(r_hi))) / (self.norm_K * x_norm + float(np.max(np.abs(self.f))))
+        self.history.append(RefinementStep(len(self.history) + 1, dx, res))
+        prev_dx, prev_dz = self.prev_dx, self.prev_dz
+        rho = dx / prev_dx if prev_dx > 0 else 0.0
+        if dx <= 4 * U**2:
+            x_hi, x_lo = dd_add(x_hi, x_lo, d, np.zeros_like(d))
+            self._finish(dx, dz, True, f"{label}converged: correction {dx:.1e} below the double-double resolution")
+            return x_hi, x_lo, True
+        if rho > RATIO_THRESHOLD:
+            if dx <= floor or res <= BACKWARD_RESOLUTION:
+                self._finish(dx, dz, True,
+                             f"{label}converged: correction stalled at {dx:.1e} with backward error "
+                             f"{res:.1e}, the resolution of double-double residuals")
+            else:
+                self._finish(prev_dx, prev_dz, False,
+                             f"not contracting: correction ratio {rho:.2f} > {RATIO_THRESHOLD} "
+                             f"at correction {dx:.1e} ({label.strip() or 'plain'} refinement)")
+            return x_hi, x_lo, True
+        if np.isfinite(prev_dx):
+            self.rho_max = max(self.rho_max, rho)
+            rho_c = dz / prev_dz if prev_dz > 0 and np.isfinite(prev_dz) else 0.0
+            self.rho_max_comp = max(self.rho_max_comp, min(rho_c, 1.0))
+        x_hi, x_lo = dd_add(x_hi, x_lo, d, np.zeros_like(d))
+        self.prev_dx, self.prev_dz = dx, dz
+        return x_hi, x_lo, False
+
+    def stop_for_limit(self, max_steps: int) -> None:
+        self._finish(self.prev_dx, self.prev_dz, False,
+                     f"{self.label}step limit {max_steps} reached at correction {self.prev_dx:.1e}")
+
+    def run(self, x_hi, x_lo, correct, max_steps: int, *, plain: bool):
+        """A whole phase for one column with the correction solver ``correct``."""
+        self.begin(plain=plain)
         for _ in range(max_steps):
             r_hi, r_lo = dd_residual(self.op, x_hi, x_lo, self.f)
-            d = correct(r_hi + r_lo)
-            x_norm = float(np.max(np.abs(x_hi), initial=0.0))
-            if not np.all(np.isfinite(d)) or x_norm == 0.0:
-                self.reason = f"{label}correction is not finite"
+            x_hi, x_lo, done = self.step(r_hi, correct(r_hi + r_lo), x_hi, x_lo)
+            if done:
                 return x_hi, x_lo
-            dx = float(np.max(np.abs(d))) / x_norm
-            with np.errstate(divide="ignore", invalid="ignore"):
-                dz = float(np.max(np.abs(d) / np.abs(x_hi), initial=0.0))
-            res = float(np.max(np.abs(r_hi))) / (self.norm_K * x_norm + float(np.max(np.abs(self.f))))
-            self.history.append(RefinementStep(len(self.history) + 1, dx, res))
-            rho = dx / prev_dx if prev_dx > 0 else 0.0
-            if dx <= 4 * U**2:
-                x_hi, x_lo = dd_add(x_hi, x_lo, d, np.zeros_like(d))
-                self._finish(dx, dz, True, f"{label}converged: correction {dx:.1e} below the double-double resolution")
-                return x_hi, x_lo
-            if rho > RATIO_THRESHOLD:
-                if dx <= floor or res <= BACKWARD_RESOLUTION:
-                    self._finish(dx, dz, True,
-                                 f"{label}converged: correction stalled at {dx:.1e} with backward error "
-                                 f"{res:.1e}, the resolution of double-double residuals")
-                else:
-                    self._finish(prev_dx, prev_dz, False,
-                                 f"not contracting: correction ratio {rho:.2f} > {RATIO_THRESHOLD} "
-                                 f"at correction {dx:.1e} ({label.strip() or 'plain'} refinement)")
-                return x_hi, x_lo
-            if len(self.history) > 1 and np.isfinite(rho):
-                self.rho_max = max(self.rho_max, rho)
-                rho_c = dz / prev_dz if prev_dz > 0 and np.isfinite(prev_dz) else 0.0
-                self.rho_max_comp = max(self.rho_max_comp, min(rho_c, 1.0))
-            x_hi, x_lo = dd_add(x_hi, x_lo, d, np.zeros_like(d))
-            prev_dx, prev_dz = dx, dz
-        self._finish(prev_dx, prev_dz, False, f"{label}step limit {max_steps} reached at correction {prev_dx:.1e}")
+        self.stop_for_limit(max_steps)
         return x_hi, x_lo
 
     def _finish(self, dx, dz, converged, reason):
