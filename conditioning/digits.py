@@ -35,7 +35,13 @@ from numpy.typing import NDArray
 from conditioning.doubledouble import U, dd_operator, dd_residual
 from conditioning.model import DOF_NAMES, Model
 from conditioning.refinement import RefinementResult, refine_block, scaled_condition_estimate
-from conditioning.reference_solve import ReferenceSolution, choose_reference_method, reference_solve
+from conditioning.reference_solve import (
+    FLINT_MAX_N,
+    MPMATH_MAX_N,
+    ReferenceSolution,
+    choose_reference_method,
+    reference_solve,
+)
 from conditioning.results import (
     ConditionResult,
     DigitsResult,
@@ -209,6 +215,10 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
     else:
         resolution = ref.error_estimate
         converged = ref.converged
+        note = (f"no arbitrary-precision re-solve (n = {model.n}; limits {FLINT_MAX_N} with python-flint, "
+                f"{MPMATH_MAX_N} with mpmath): the figure rests on {ref.method}, "
+                f"{len(ref.history)} residuals, last correction {ref.history[-1].correction_norm:.1e}"
+                if ref.history else "no arbitrary-precision re-solve and no refinement step")
     err_vec = np.abs((x - x_hi) - x_lo)
     forward = float(np.max(err_vec)) / scale
     trust = _digits(forward + resolution)

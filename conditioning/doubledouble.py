@@ -229,6 +229,17 @@ def dd_residual(
 
     The analysis assumes no overflow or underflow: entries and products
     between about 2^-900 and 2^990 in magnitude.
+
+    Examples
+    --------
+    r = f - K x for x = 1 + 2^-60 (a double-double) with the second difference
+    matrix tridiag(-1, 2, -1): exact, where float64 would lose the 2^-60.
+
+    >>> import numpy as np, scipy.sparse as sp
+    >>> K = sp.diags_array([[-1.0] * 2, [2.0] * 3, [-1.0] * 2], offsets=[-1, 0, 1], format="csr")
+    >>> r_hi, r_lo = dd_residual(K, np.ones(3), np.full(3, 2.0**-60), np.zeros(3))
+    >>> [float(v) for v in r_hi], [float(v) for v in r_lo * 2.0**60]
+    ([-1.0, 0.0, -1.0], [-1.0, 0.0, -1.0])
     """
     op = dd_operator(K)
     x_hi = np.asarray(x_hi, dtype=np.float64)

@@ -127,3 +127,27 @@ def test_residual_of_exact_solution_is_zero():
     f = K @ x
     r_hi, r_lo = dd_residual(K, x, None, f)
     assert not np.any(r_hi) and not np.any(r_lo)
+
+
+def test_residual_long_rows_wide_range_heavy_cancellation():
+    """Dense 300 x 300 rows (n_i = 300), entries over 10^+-30, f = fl(K x): the
+    stated bound holds row by row against mpmath's exact residual."""
+    rng = np.random.default_rng(9)
+    n = 300
+    A = rng.standard_normal((n, n)) * 10.0 ** rng.uniform(-30, 30, (n, n))
+    K = sp.csr_array(A)
+    x_hi = rng.standard_normal(n) * 10.0 ** rng.uniform(-30, 30, n)
+    f = K @ x_hi
+    r_hi, r_lo = dd_residual(K, x_hi, None, f)
+    rows = _exact_errors(K[:40], x_hi, np.zeros(n), f[:40], r_hi[:40], r_lo[:40])
+    _check_rows(rows)
+
+
+def test_doctest_example_second_difference():
+    """The docstring example of dd_residual (second difference matrix, closed form)."""
+    import doctest
+
+    import conditioning.doubledouble as module
+
+    failures, _ = doctest.testmod(module)
+    assert failures == 0
