@@ -20,7 +20,9 @@ from conditioning.factorization import FactorizationTooLarge, factorize
 from conditioning.findings import build_findings, verdict
 from conditioning.model import DOF_NAMES, Model
 from conditioning.modes import locate_modes
-from conditioning.results import ConditionResult, Finding, ModelSummary, Report, SpectrumResult
+from conditioning.results import (
+    ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
+)
 from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, scaled_spectrum
 from conditioning.structure import check_structure
 
@@ -172,12 +174,8 @@ def diagnose(
         modes=located.modes,
         method=spec.method,
     )
-    restraints = []
-    if located.basis.shape[1]:
-        from conditioning.restraints import suggest_restraints
-
-        with stage("restraints"):
-            restraints = suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+    with stage("restraints"):
+        restraints = _restraints(model, structure, located)
     from conditioning.jumps import find_stiffness_jumps
     from conditioning.decay import diagonal_decay
 
@@ -200,6 +198,19 @@ def diagnose(
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings,
     )
+
+
+def _restraints(model: Model, structure, located) -> list[Restraint]:
+    """A DOF without stiffness is restrained by itself; the rest by the restraints stage."""
+    out = [Restraint(node=model.nodes_of([r])[0],
+                     dof=model.dofs.dof_name(r) if model.dofs is not None else "row",
+                     row=int(r), reason="the DOF has no stiffness of its own")
+           for r in structure.empty_rows]
+    if located.basis.shape[1]:
+        from conditioning.restraints import suggest_restraints
+
+        out += suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+    return out
 
 
 def _without_factorization(model: Model, structure, stage: _Stages, too_large: FactorizationTooLarge) -> Report:
@@ -241,11 +252,7 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
         smallest=values[:12], count=len(located.modes), gap=gap, gap_rule=GAP_RULE, inertia_count=None,
         inertia_agrees=None, negative_eigenvalues=int(first), modes=located.modes, method=it.method,
     )
-    restraints = []
-    if located.basis.shape[1]:
-        from conditioning.restraints import suggest_restraints
-
-        restraints = suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+    restraints = _restraints(model, structure, located)
     from conditioning.jumps import find_stiffness_jumps
 
     jumps = find_stiffness_jumps(model, structure)

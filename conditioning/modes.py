@@ -39,6 +39,8 @@ logger = logging.getLogger(__name__)
 RIGID_TOL = 1e-2
 #: Above this many moving nodes a mechanism is located by its largest motions only.
 MECHANISM_NODE_LIMIT = 20000
+#: Unit vectors kept for at most this many DOFs without stiffness.
+VECTORS_KEPT = 100
 TRANSLATION_ORDER = ("ux", "uy", "uz", "uniform", "rx", "ry", "rz")
 
 
@@ -50,8 +52,9 @@ class LocatedModes:
     ----------
     modes : list of NearSingularMode
     basis : (n, m) float64
-        The genuine near-null space in K's DOFs (columns = mode vectors),
-        including unit vectors of DOFs without stiffness.
+        The near-null space of the rows with stiffness, in K's DOFs (columns =
+        mode vectors); DOFs without stiffness are not in it (each is its own
+        null vector, e_i).
     stiff_link_eigenvalues : list of float
         Small eigenvalues of S explained by very stiff links (not modes).
     """
@@ -209,14 +212,17 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
     zero = 10 * spectrum.zero_level
     modes: list[NearSingularMode] = []
     columns: list[NDArray] = []
-    # DOFs without stiffness: each is its own mode.
-    for row in structure.empty_rows:
-        e = np.zeros(n)
-        e[row] = 1.0
+    # DOFs without stiffness: each is its own mode (a unit vector). Their
+    # vectors are kept for the first few only: there may be very many.
+    for k, row in enumerate(structure.empty_rows):
+        e = None
+        if k < VECTORS_KEPT:
+            e = np.zeros(n)
+            e[row] = 1.0
         name = model.dofs.dof_name(row) if model.dofs is not None else "uniform"
         modes.append(NearSingularMode(0.0, 0.0, "dof-without-stiffness", {name: 1.0},
-                                      model.nodes_of([row]), int(structure.part_of_row[row]) + 1, float("nan")))
-        columns.append(e)
+                                      model.nodes_of([row]), int(structure.part_of_row[row]) + 1, float("nan"),
+                                      [], e))
     idx = np.flatnonzero(active)
     V = spectrum.vectors[:, spectrum.first:spectrum.first + spectrum.count]
     W = np.zeros((n, V.shape[1]))

@@ -122,7 +122,7 @@ def suggest_restraints(
     geometry = _geometry(model, part_of_row)
     chosen = _choose_rows(Q, _row_weights(model, Q, geometry))
     if chosen is None:
-        logger.warning("weighted row choice was rank deficient; using unweighted pivoting")
+        logger.info("weighted row choice was rank deficient; using unweighted pivoting")
         chosen = _choose_rows(Q, np.ones(model.n))
     if chosen is None:  # cannot happen for an orthonormal Q; kept as a guard
         raise RuntimeError("no well-conditioned set of rows found for the mode basis")
