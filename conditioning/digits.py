@@ -13,7 +13,8 @@ Definitions (u = 2^-53, unit round-off of float64):
 
     forward error       e = ||x - x_ref||_inf / ||x_ref||_inf
     trustworthy digits  t = -log10(e + rho),  rho the reference's own relative
-                        accuracy, so t never exceeds what the reference can show
+                        accuracy, so t never exceeds what the reference can show;
+                        at most log10(1/u), the digits a float64 number carries
     digits lost         log10(1/u) - t  (log10(2^53) = 15.95)
 
 The rule of thumb "16 - log10(kappa)" is shown next to the measurement for
@@ -249,12 +250,16 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
 
 
 def _digits(relative_error: float) -> float:
-    """-log10 of a relative error, clipped to [0, 17]; 0 when unknown (inf/nan)."""
+    """-log10 of a relative error, clipped to [0, log10(1/u)]; 0 when unknown (inf/nan).
+
+    A float64 number carries at most log10(2^53) = 15.95 digits: an error
+    below u is rounding luck and is not reported as more digits.
+    """
     if not math.isfinite(relative_error) or relative_error >= 1.0:
         return 0.0
     if relative_error <= 0.0:
-        return 17.0
-    return float(min(17.0, -math.log10(relative_error)))
+        return FLOAT64_DIGITS
+    return float(min(FLOAT64_DIGITS, -math.log10(relative_error)))
 
 
 def _digits_of(engine: str) -> int:
@@ -276,11 +281,11 @@ def _per_dof_digits(model: Model, err, x_ref, res_abs, resolution) -> NDArray[np
             ref_scale[rows] = float(np.max(np.abs(x_ref[rows]), initial=0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = (err + res_abs) / ref_scale
-    digits = np.where(np.isfinite(rel) & (rel > 0), -np.log10(np.where(rel > 0, rel, 1.0)), 17.0)
-    digits = np.where(ref_scale > 0, digits, 17.0)
+    digits = np.where(np.isfinite(rel) & (rel > 0), -np.log10(np.where(rel > 0, rel, 1.0)), FLOAT64_DIGITS)
+    digits = np.where(ref_scale > 0, digits, FLOAT64_DIGITS)
     if not math.isfinite(resolution):
         digits = np.zeros(n)
-    return np.clip(digits, 0.0, 17.0)
+    return np.clip(digits, 0.0, FLOAT64_DIGITS)
 
 
 def _worst_nodes(model: Model, per_dof) -> list[NodeDigits]:

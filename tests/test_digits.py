@@ -85,7 +85,7 @@ def external_error(A: np.ndarray, f: np.ndarray, x: np.ndarray) -> tuple[float, 
 
 
 def digits_of(err: float) -> float:
-    return 0.0 if err >= 1 else min(17.0, -math.log10(err))
+    return 0.0 if err >= 1 else min(53 * math.log10(2), -math.log10(err)) if err > 0 else 53 * math.log10(2)
 
 
 def condition_for(A: np.ndarray) -> ConditionResult:
