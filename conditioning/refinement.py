@@ -357,6 +357,9 @@ class _State:
         label = self.label
         floor = self.gamma * max(self.kappa, 1.0) * U**2
         x_norm = float(np.max(np.abs(x_hi), initial=0.0))
+        if x_norm == 0.0 and not np.any(d) and not np.any(r_hi):
+            self._finish(0.0, 0.0, True, f"{label}converged: zero load, x = 0 exactly")
+            return x_hi, x_lo, True
         if not np.all(np.isfinite(d)) or x_norm == 0.0:
             self.reason = f"{label}correction is not finite"
             return x_hi, x_lo, True
