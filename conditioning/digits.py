@@ -110,16 +110,16 @@ def measure_digits(
     op = dd_operator(K)
     kappa = scaled_condition_estimate(K, fac)
     refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op)
-    confirmation = _confirm(K, F, kappa) if confirm else None
+    confirmation, why_not = _confirm(K, F, kappa) if confirm else (None, "arbitrary-precision re-solve not requested")
     out = [
-        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j)
+        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not)
         for j, name in enumerate(names)
     ]
     if model.solution is not None and model.load is None:
         logger.warning("a solution to audit was given without its load: the audit needs f to form f - K x")
     if model.solution is not None and model.load is not None:
         out.append(_sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
-                           refs[0], confirmation, 0))
+                           refs[0], confirmation, 0, why_not))
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
                         summary=_summary(out, predicted_raw, predicted_scaled, flops))
 
@@ -181,19 +181,21 @@ def worst_case_load(K, fac, spectrum: Optional[SpectrumResult] = None) -> Option
 
 
 # --------------------------------------------------------------- reference
-def _confirm(K, F, kappa) -> Optional[ReferenceSolution]:
+def _confirm(K, F, kappa) -> tuple[Optional[ReferenceSolution], str]:
+    """The arbitrary-precision re-solve, or None and why not."""
     method = choose_reference_method(K.shape[0])
     if method is None:
-        return None
+        return None, (f"no arbitrary-precision re-solve: n = {K.shape[0]} is above the limits "
+                      f"({FLINT_MAX_N} with python-flint, {MPMATH_MAX_N} with mpmath)")
     try:
-        return reference_solve(K, F, method=method, kappa=kappa)
+        return reference_solve(K, F, method=method, kappa=kappa), ""
     except ValueError as exc:
         logger.warning("arbitrary-precision re-solve failed: %s", exc)
-        return None
+        return None, f"arbitrary-precision re-solve failed ({exc})"
 
 
-def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[ReferenceSolution], j: int
-            ) -> DigitsSample:
+def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[ReferenceSolution], j: int,
+            why_not: str = "") -> DigitsSample:
     """Measure one sample: forward error, digits, per node, bounds."""
     x_hi, x_lo, method = ref.x_hi, ref.x_lo, "double-double refinement"
     scale = float(np.max(np.abs(ref.x_hi)))
@@ -216,10 +218,9 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
     else:
         resolution = ref.error_estimate
         converged = ref.converged
-        note = (f"no arbitrary-precision re-solve (n = {model.n}; limits {FLINT_MAX_N} with python-flint, "
-                f"{MPMATH_MAX_N} with mpmath): the figure rests on {ref.method}, "
-                f"{len(ref.history)} residuals, last correction {ref.history[-1].correction_norm:.1e}"
-                if ref.history else "no arbitrary-precision re-solve and no refinement step")
+        note = (f"{why_not}: the figure rests on {ref.method}, {len(ref.history)} residuals, "
+                f"last correction {ref.history[-1].correction_norm:.1e}"
+                if ref.history else f"{why_not}; no refinement step")
     err_vec = np.abs((x - x_hi) - x_lo)
     forward = float(np.max(err_vec)) / scale
     trust = _digits(forward + resolution)

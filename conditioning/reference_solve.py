@@ -161,9 +161,9 @@ def _flint_solve(A, F, prec: int):
     n, k = F.shape
     M = flint.arb_mat(n, n, A.ravel().tolist())
     B = flint.arb_mat(n, k, F.ravel().tolist())
-    attempts = [("lu", prec), ("lu", 2 * prec)]
-    if n <= FLINT_PRECOND_MAX_N:
-        attempts += [("precond", prec), ("precond", 2 * prec), ("precond", 4 * prec)]
+    attempts = [("lu", prec)]
+    if n <= FLINT_PRECOND_MAX_N:  # the larger models get one attempt only, to stay near a minute
+        attempts += [("lu", 2 * prec), ("precond", prec), ("precond", 2 * prec), ("precond", 4 * prec)]
     for algorithm, bits in attempts:
         with flint.ctx.workprec(bits):
             try:
