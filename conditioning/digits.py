@@ -115,9 +115,9 @@ def measure_digits(
         _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not)
         for j, name in enumerate(names)
     ]
-    if model.solution is not None and model.load is None:
-        logger.warning("a solution to audit was given without its load: the audit needs f to form f - K x")
-    if model.solution is not None and model.load is not None:
+    if model.solution is not None and (not names or names[0] != "load"):
+        logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
+    elif model.solution is not None:
         out.append(_sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
                            refs[0], confirmation, 0, why_not))
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
