@@ -13,8 +13,10 @@ Two engines, both dense and O(n^3), for models up to a size limit:
 
 Size limits come from measurements on this project's 2-core test machine
 (bcsstk08 leading blocks, one right-hand side, 2026): python-flint LU at 128
-bits took 0.3 s for n = 400, 2.5 s for n = 800 and 5.0 s for n = 1074, so
-n = 2000 takes about half a minute; mpmath ``lu_solve`` at 40 digits took
+bits took 0.3 s for n = 400, 2.5 s for n = 800 and 5.0 s for n = 1074, and
+39 s for a diagonally dominant n = 2000 matrix at 163 bits (relative radius
+3e-33); for bcsstk14 (n = 1806, kappa 1.2e10) the balls came out wide after
+11 s, and above n = 1100 no second attempt is made; mpmath ``lu_solve`` at 40 digits took
 0.6 s for n = 50, 4.6 s for n = 100 and 10 s for n = 150. arb_mat's
 "precond" algorithm is about 10 times slower than "lu" at the same
 precision, but plain elimination in balls can widen the radii far beyond the
@@ -46,7 +48,7 @@ from numpy.typing import NDArray
 
 logger = logging.getLogger(__name__)
 
-#: Largest n re-solved with python-flint (about 30 s for n = 2000, measured).
+#: Largest n re-solved with python-flint (39 s for n = 2000, measured).
 FLINT_MAX_N = 2000
 #: Largest n for the slower preconditioned ball solver, used when the balls of
 #: plain elimination come out wide (18 s for bcsstk19, n = 817, at 160 bits).
