@@ -13,12 +13,12 @@ so that no Python loop over rows or entries is needed:
 the extraction guarantees that those additions make no rounding error.
 
 Cost, measured on the plane-stress plate models of ``benchmarks/models.py``
-(2 shared cores, numpy 2.4): 50,244 rows / 871,837 entries, one right-hand
-side 16 ms against 0.40 ms for ``K @ x`` (40x), four right-hand sides 69 ms
-against 2.1 ms (33x); 179,400 rows / 3,035,742 entries, 60 ms against 3.2 ms
-(19x), four right-hand sides 264 ms against 8.3 ms (32x). About 30 passes
-of numpy over the stored entries, each about as costly as scipy's whole
-product, so the 15x goal is not reached with numpy alone.
+(2 shared cores, numpy 2.4, best of 7): 179,400 rows / 3,035,742 entries,
+one right-hand side 37 to 39 ms against 2.2 ms for ``K @ x`` (17x), four
+right-hand sides 207 ms against 7.5 ms (28x); 50,244 rows / 871,837
+entries, 12 ms against 0.39 ms (30x). The algorithm makes about 26 numpy
+passes over the stored entries, each about as costly as scipy's whole
+product, so the goal of 15x is near but not reached with numpy alone.
 
 References
 ----------
@@ -296,7 +296,7 @@ def _residual_block(op: DDOperator, x, sigma_row, block, M: int, q1, q2, rem,
     np.multiply(al, b, out=s)
     np.subtract(s, e, out=e)                         # e = al*bl - (((p - ah bh) - al bh) - ah bl)
     # Step 2: ExtractVector against sigma_i = 2^M 2^ceil(log2 t_i).
-    s[:] = np.repeat(sigma_row[rows], counts)
+    s = np.repeat(sigma_row[rows], counts)
     np.add(s, p, out=v)
     np.subtract(v, s, out=v)                         # q
     np.subtract(p, v, out=p)                         # p' = p - q (exact)
