@@ -34,7 +34,7 @@ import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
 from conditioning.doubledouble import U, dd_operator, dd_residual
-from conditioning.model import DOF_NAMES, Model
+from conditioning.model import Model
 from conditioning.refinement import RefinementResult, refine_block, scaled_condition_estimate
 from conditioning.reference_solve import (
     FLINT_MAX_N,
