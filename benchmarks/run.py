@@ -367,6 +367,15 @@ def summarize(name, rows, results) -> list[str]:
     return lines
 
 
+def _estimate(previous, kind, job, plan):
+    """Seconds of ``job`` scaled from the previous model of the same kind by
+    the ratio of predicted factorization flops; None without a previous one."""
+    if (kind, job) not in previous or "predicted_flops" not in plan or job in ("ddspmv",):
+        return None
+    seconds, flops = previous[(kind, job)]
+    return seconds * plan["predicted_flops"] / max(flops, 1.0)
+
+
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--sizes", choices=sorted(SIZES), default="small")
@@ -394,6 +403,7 @@ def main(argv=None) -> int:
         with out_path.open("a") as fh:
             fh.write(json.dumps({"machine": desc, "sizes": args.sizes, "date": time.strftime("%Y-%m-%d %H:%M:%S")}) + "\n")
     wanted = set(args.jobs.split(","))
+    previous: dict[tuple[str, str], tuple[float, float]] = {}  # (kind, job) -> (seconds, flops)
     with tempfile.TemporaryDirectory(prefix="conditioning-bench-") as tmp:
         for spec in SIZES[args.sizes]:
             kind, n, free = spec
@@ -417,12 +427,22 @@ def main(argv=None) -> int:
                     continue
                 if job == "orderings" and args.sizes not in ORDERING_SIZES:
                     continue
-                if job in ("baseline", "diagnose") and not fits:
-                    results[job] = {"skipped": "predicted factor does not fit in the memory limit"}
+                if job == "diagnose" and not fits:
+                    results[job] = {"skipped": f"predicted factorization {gib(plan.get('predicted_bytes'))} "
+                                               f"exceeds the memory limit {gib(plan.get('limit_bytes'))}"}
+                    print(f"   {job}: {results[job]['skipped']}", flush=True)
+                    continue
+                est = _estimate(previous, kind, job, plan)
+                if est is not None and est > args.timeout:
+                    results[job] = {"skipped": f"estimated {est:.0f} s from the previous {kind} model "
+                                               f"(time x predicted flops ratio) exceeds the {args.timeout:.0f} s limit"}
+                    print(f"   {job}: {results[job]['skipped']}", flush=True)
                     continue
                 if job == "iterative" and fits and not (free or args.sizes == "small"):
                     continue
                 results[job] = run_child(job, spec, directory, paths, args.timeout)
+                if "seconds" in results[job] and "predicted_flops" in plan:
+                    previous[(kind, job)] = (results[job]["seconds"], plan["predicted_flops"])
                 status = results[job].get("error", "ok")
                 print(f"   {job}: {status} ({results[job].get('wall', 0):.1f} s)", flush=True)
                 if out_path:
