@@ -173,6 +173,7 @@ def diagnose(
         negative_eigenvalues=int(spec.negative),
         modes=located.modes,
         method=spec.method,
+        smallest_vector=_smallest_vector(spec, fac.active),
     )
     with stage("restraints"):
         restraints = _restraints(model, structure, located)
@@ -198,6 +199,16 @@ def diagnose(
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings,
     )
+
+
+def _smallest_vector(spec: ScaledSpectrum, active) -> Optional[np.ndarray]:
+    """The eigenvector of S's smallest eigenvalue (beyond true negative ones), on all rows."""
+    j = spec.first
+    if spec.vectors.shape[1] <= j:
+        return None
+    v = np.zeros(active.size)
+    v[active] = spec.vectors[:, j]
+    return v
 
 
 def _restraints(model: Model, structure, located) -> list[Restraint]:

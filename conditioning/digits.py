@@ -157,7 +157,9 @@ def worst_case_load(K, fac, spectrum: Optional[SpectrumResult] = None) -> Option
     """
     s = fac.scale
     u = None
-    if spectrum is not None and spectrum.modes and spectrum.modes[0].vector is not None:
+    if spectrum is not None and spectrum.smallest_vector is not None:
+        v = np.asarray(spectrum.smallest_vector, dtype=np.float64)
+    elif spectrum is not None and spectrum.modes and spectrum.modes[0].vector is not None:
         u = np.asarray(spectrum.modes[0].vector, dtype=np.float64)  # u = D^-1/2 v
         v = u / s
     else:

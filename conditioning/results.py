@@ -158,6 +158,9 @@ class SpectrumResult:
     """Eigenvalues of K below zero beyond round-off (indefinite stiffness)."""
     modes: list[NearSingularMode]
     method: str
+    smallest_vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """Unit eigenvector of S for its smallest eigenvalue, in S's coordinates
+    (v; the displacement shape is D^-1/2 v), all rows; not serialised."""
 
 
 @dataclass(frozen=True)
