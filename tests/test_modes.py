@@ -173,3 +173,49 @@ def test_slender_cantilever_in_mm_is_not_near_singular():
     assert report.spectrum.count == 0
     assert not report.condition.singular
     assert report.condition.estimate > 1e8
+
+
+def _frame_model(frame, ids, xyz, dim):
+    keep_nodes = np.unique(frame.dofs.node)
+    pos = np.searchsorted(ids, keep_nodes)
+    return Model(frame.K, dofs=frame.dofs,
+                 coords=Coordinates(keep_nodes.astype(np.int64), np.asarray(xyz, float)[pos], dim))
+
+
+def test_free_space_frame_has_six_rigid_body_modes_with_rotation_dofs():
+    """A free 3D frame (demo assembler; 6 DOFs per node, rotations included):
+    6 rigid-body modes (common practice), each a pure translation or rotation;
+    the nodes' rotation DOFs turn with the body."""
+    from conditioning.demo import assemble
+
+    ids = np.arange(1, 9)
+    xyz = np.array([[0, 0, 0], [3000, 0, 0], [3000, 2000, 0], [0, 2000, 0],
+                    [0, 0, 2500], [3000, 0, 2500], [3000, 2000, 2500], [0, 2000, 2500]], float)
+    members = np.array([[1, 2], [2, 3], [3, 4], [4, 1], [5, 6], [6, 7], [7, 8], [8, 5],
+                        [1, 5], [2, 6], [3, 7], [4, 8]])
+    frame = assemble.frame3d(ids, xyz, members, E=210000.0, G=81000.0, A=5000.0,
+                             Iy=2e7, Iz=3e7, J=1e6)
+    model = _frame_model(frame, ids, xyz, 3)
+    report = diagnose(model, measure=False)
+    assert report.spectrum.count == 6 == _lapack_nullity(model.K)
+    assert _kinds(report) == ["rigid-body"] * 6
+    names = sorted(max(m.motion, key=m.motion.get) for m in report.spectrum.modes)
+    assert names == ["rx", "ry", "rz", "ux", "uy", "uz"]
+    assert all(max(m.motion.values()) > 0.999 for m in report.spectrum.modes)
+    # Restraining the suggested DOFs leaves K positive definite (LAPACK eigvalsh).
+    rows = [r.row for r in report.restraints]
+    keep = np.setdiff1d(np.arange(model.n), rows)
+    assert np.linalg.eigvalsh(model.K.toarray()[np.ix_(keep, keep)])[0] > 0
+
+
+def test_free_plane_frame_has_three_rigid_body_modes():
+    """A free portal frame in the plane (ux, uy, rz per node): 3 rigid-body modes."""
+    from conditioning.demo import assemble
+
+    ids = np.array([1, 2, 3, 4])
+    xy = np.array([[0, 0], [0, 3000], [4000, 3000], [4000, 0]], float)
+    frame = assemble.frame2d(ids, xy, np.array([[1, 2], [2, 3], [3, 4]]), E=210000.0, A=4000.0, I=5e7)
+    model = _frame_model(frame, ids, np.column_stack([xy, np.zeros(4)]), 2)
+    report = diagnose(model, measure=False)
+    assert report.spectrum.count == 3 == _lapack_nullity(model.K)
+    assert sorted(max(m.motion, key=m.motion.get) for m in report.spectrum.modes) == ["rz", "ux", "uy"]
