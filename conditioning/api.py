@@ -24,7 +24,7 @@ from conditioning.results import (
     ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
 )
 from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, scaled_spectrum
-from conditioning.structure import check_structure
+from conditioning.structure import check_structure, rows_with_stiffness
 
 logger = logging.getLogger(__name__)
 
@@ -150,7 +150,7 @@ def diagnose(
     try:
         with stage("factorization"):
             fac = factorize(K, ordering=ordering, coords=_row_coordinates(model),
-                            active=np.diff(K.indptr) > 0, memory_limit=memory_limit)
+                            active=rows_with_stiffness(K), memory_limit=memory_limit)
     except FactorizationTooLarge as too_large:
         return _without_factorization(model, structure, stage, too_large)
     with stage("spectrum"):
@@ -232,7 +232,7 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
     K = model.K
     with stage("spectrum (factorization-free)"):
         it = iterative_spectrum(model)
-    active = np.diff(K.indptr) > 0
+    active = rows_with_stiffness(K)
     idx = np.flatnonzero(active)
     s = diagonal_scaling(K)
     Sa = sp.csr_array(scaled_matrix(K, s)[idx][:, idx])

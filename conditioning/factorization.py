@@ -238,11 +238,9 @@ def factorize(
     K = sp.csr_array(K)
     n = K.shape[0]
     if active is None:
-        active = np.diff(K.indptr) > 0
-        if K.nnz:
-            nz_rows = np.zeros(n, dtype=bool)
-            nz_rows[np.repeat(np.arange(n), np.diff(K.indptr))[K.data != 0]] = True
-            active = nz_rows
+        from conditioning.structure import rows_with_stiffness
+
+        active = rows_with_stiffness(K)
     idx = np.flatnonzero(active)
     s = diagonal_scaling(K)
     S = scaled_matrix(K, s)

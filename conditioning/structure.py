@@ -16,6 +16,16 @@ from conditioning.model import Model
 from conditioning.results import Asymmetry, StructureResult
 
 
+def rows_with_stiffness(K: sp.csr_array) -> np.ndarray:
+    """(n,) bool: rows holding at least one nonzero entry (stored zeros do not count)."""
+    K = sp.csr_array(K)
+    n = K.shape[0]
+    rows = np.repeat(np.arange(n), np.diff(K.indptr))
+    out = np.zeros(n, dtype=bool)
+    out[rows[K.data != 0]] = True
+    return out
+
+
 def _asymmetry(K: sp.csr_array) -> Asymmetry:
     """Largest |K_ij - K_ji| relative to max |K|, and where."""
     A = sp.csr_array(K - K.T)
@@ -56,8 +66,9 @@ def check_structure(model: Model) -> StructureResult:
     """
     K = sp.csr_array(model.K)
     n = K.shape[0]
-    row_nnz = np.diff(K.indptr)
-    empty = np.flatnonzero(row_nnz == 0)
+    has_stiffness = rows_with_stiffness(K)
+    row_nnz = np.where(has_stiffness, np.diff(K.indptr), 0)
+    empty = np.flatnonzero(~has_stiffness)
     diag = K.diagonal()
     zero_diag = np.flatnonzero((diag == 0) & (row_nnz > 0))
     negative = np.flatnonzero(diag < 0)
