@@ -41,11 +41,12 @@ if str(REPO) not in sys.path:
 
 SIZES = {
     # (kind, n, free): plate n -> 2 n (n+1) rows; cube n -> 3 n (n+1)^2 rows
+    "tiny": [("plate", 8, False), ("cube", 4, True)],  # harness smoke test (tests/test_memory_benchmark_harness.py)
     "small": [("plate", 70, False), ("cube", 10, False), ("plate", 70, True), ("cube", 10, True)],
     "medium": [("plate", 158, False), ("cube", 20, False), ("cube", 20, True)],
     "full": [("plate", 300, False), ("cube", 32, False), ("plate", 707, False), ("cube", 46, False)],
 }
-ORDERING_SIZES = ("small", "medium")
+ORDERING_SIZES = ("tiny", "small", "medium")
 
 
 # ----------------------------------------------------------------- in child
@@ -438,7 +439,7 @@ def main(argv=None) -> int:
                                                f"(time x predicted flops ratio) exceeds the {args.timeout:.0f} s limit"}
                     print(f"   {job}: {results[job]['skipped']}", flush=True)
                     continue
-                if job == "iterative" and fits and not (free or args.sizes == "small"):
+                if job == "iterative" and fits and not (free or args.sizes in ("tiny", "small")):
                     continue
                 results[job] = run_child(job, spec, directory, paths, args.timeout)
                 if "seconds" in results[job] and "predicted_flops" in plan:
