@@ -377,6 +377,61 @@ def _estimate(previous, kind, job, plan):
     return seconds * plan["predicted_flops"] / max(flops, 1.0)
 
 
+def tables(path: Path) -> str:
+    """Markdown tables of a results file written with ``--out``."""
+    by_model: dict[str, dict] = {}
+    rows_of: dict[str, int] = {}
+    for line in Path(path).read_text().splitlines():
+        rec = json.loads(line)
+        if "model" in rec:
+            by_model.setdefault(rec["model"], {})[rec["job"]] = rec["result"]
+            rows_of[rec["model"]] = rec["rows"]
+
+    def fmt_job(r):
+        if "seconds" not in r:
+            return r.get("skipped") or r.get("error") or "-"
+        return f"{r['seconds']:.1f} s, {gib(r['peak_bytes'])}"
+
+    out = ["| model | rows | baseline | diagnosis | time ratio | peak ratio | ordering | modes |",
+           "|---|---|---|---|---|---|---|---|"]
+    for name, res in by_model.items():
+        b, d = res.get("baseline", {}), res.get("diagnose", {})
+        ratio_t = ratio_m = "-"
+        if "seconds" in b and "seconds" in d:
+            ratio_t = f"{d['seconds'] / b['seconds']:.2f}x"
+            ratio_m = f"{d['peak_bytes'] / b['peak_bytes']:.2f}x"
+        out.append(f"| {name} | {rows_of[name]:,} | {fmt_job(b)} | {fmt_job(d)} | {ratio_t} | {ratio_m} | "
+                   f"{d.get('ordering', '-')} | {d.get('modes', '-')} |")
+    out += ["", "| model | stage | seconds | peak |", "|---|---|---|---|"]
+    for name, res in by_model.items():
+        for job in ("baseline", "diagnose"):
+            for stage, st in res.get(job, {}).get("stages", {}).items():
+                out.append(f"| {name} | {job}: {stage} | {st['seconds']:.2f} | {gib(st['peak_bytes'])} |")
+    out += ["", "| model | predicted fill | actual fill | predicted bytes | factorization stage added | "
+            "plan time | fits |", "|---|---|---|---|---|---|---|"]
+    for name, res in by_model.items():
+        p_, d = res.get("predict", {}), res.get("diagnose", {})
+        if "predicted_fill" not in p_:
+            continue
+        fst = d.get("stages", {}).get("factorization")
+        added = gib(fst["peak_bytes"] - fst["rss_start_bytes"]) if fst else "-"
+        actual = d.get("fill")
+        err = f" ({p_['predicted_fill'] / actual - 1:+.1%})" if actual else ""
+        out.append(f"| {name} | {p_['predicted_fill']:,} | {actual or '-'}{err} | {gib(p_['predicted_bytes'])} | "
+                   f"{added} | {p_['stages']['plan']['seconds']:.1f} s | {p_['fits']} |")
+    out += ["", "| model | iterative (LOBPCG + ILU) | near-null | converged | max residual | dd spmv ratio |",
+            "|---|---|---|---|---|---|"]
+    for name, res in by_model.items():
+        it, dd = res.get("iterative", {}), res.get("ddspmv", {})
+        ratio = f"{dd['ratio']:.1f}x" if "ratio" in dd else "-"
+        if "seconds" in it:
+            out.append(f"| {name} | {fmt_job(it)} | {it['near_null']} | {it['converged']} | "
+                       f"{it['max_residual']:.1e} | {ratio} |")
+        else:
+            out.append(f"| {name} | {it.get('skipped') or it.get('error') or 'not run'} | - | - | - | {ratio} |")
+    return "\n".join(out)
+
+
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--sizes", choices=sorted(SIZES), default="small")
@@ -384,6 +439,7 @@ def main(argv=None) -> int:
     p.add_argument("--timeout", type=float, default=1500.0, help="seconds allowed per child job")
     p.add_argument("--only", default=None, help="comma-separated model names to run (e.g. plate2d-300)")
     p.add_argument("--jobs", default="baseline,predict,diagnose,orderings,iterative,ddspmv")
+    p.add_argument("--tables", default=None, help="print Markdown tables of a results file and exit")
     p.add_argument("--job", help=argparse.SUPPRESS)
     p.add_argument("--kind", help=argparse.SUPPRESS)
     p.add_argument("--n", type=int, help=argparse.SUPPRESS)
@@ -397,6 +453,9 @@ def main(argv=None) -> int:
         print(json.dumps(out))
         return 0
 
+    if args.tables:
+        print(tables(Path(args.tables)))
+        return 0
     out_path = Path(args.out) if args.out else None
     desc = machine()
     print("machine:", json.dumps(desc))
