@@ -310,6 +310,8 @@ class IterativeSpectrum:
     """Eigensolver and preconditioner used, in words."""
     cannot: tuple[str, ...]
     """What this path does not provide, for the report."""
+    lambda_max: Optional[float] = None
+    """Largest eigenvalue of S (Lanczos), the scale of the gap rule."""
 
 
 # --------------------------------------------------------------- findings
