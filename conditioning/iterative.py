@@ -27,11 +27,11 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.factorization import diagonal_scaling, scaled_matrix
+from conditioning.factorization import EPS, diagonal_scaling, scaled_matrix
 from conditioning.model import Model
 from conditioning.results import IterativeSpectrum
 from conditioning.rigid_body import rigid_basis
-from conditioning.spectrum import _split
+from conditioning.spectrum import ScaledSpectrum, _split
 
 logger = logging.getLogger(__name__)
 
@@ -110,11 +110,7 @@ def iterative_spectrum(
     if k < 1:
         raise ValueError(f"k = {k}; ask for at least one eigenpair")
     rng = np.random.default_rng(rng)
-    has_stiffness = np.diff(K.indptr) > 0
-    if K.nnz:
-        has_stiffness = np.zeros(n, dtype=bool)
-        rows = np.repeat(np.arange(n), np.diff(K.indptr))
-        has_stiffness[rows[K.data != 0]] = True
+    has_stiffness = _rows_with_stiffness(K)
     empty = np.flatnonzero(~has_stiffness)
     active = np.flatnonzero(has_stiffness)
     s = diagonal_scaling(K)
@@ -130,7 +126,8 @@ def iterative_spectrum(
     else:
         X = _starting_block(model, active, s, ka, rng)
         M, pre_name = _preconditioner(Sa, model, active)
-        vals, vecs, converged = _lobpcg_core(Sa, X, M, tol, maxiter)
+        vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter)
+        converged = False  # decided from the residuals below
         method = f"LOBPCG (scipy.sparse.linalg.lobpcg) preconditioned by {pre_name}"
     res = np.linalg.norm(Sa @ vecs - vecs * vals, axis=0) if ka else np.zeros(0)
     if active.size > DENSE_LIMIT:
@@ -149,8 +146,49 @@ def iterative_spectrum(
     logger.info("iterative spectrum: %d eigenpairs, %s, converged=%s", ka, method, converged)
     return IterativeSpectrum(
         eigenvalues=values, eigenvectors=full, residual_norms=residuals, converged=converged,
-        near_null_count=int(empty.size + count), method=method, cannot=CANNOT,
+        near_null_count=int(empty.size + count), method=method, cannot=CANNOT, lambda_max=lam_max,
     )
+
+
+def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectrum:
+    """The factorization-free eigenpairs in the form the mode stages read.
+
+    Parameters
+    ----------
+    result : IterativeSpectrum
+        From :func:`iterative_spectrum` on ``model``.
+    model : Model
+
+    Returns
+    -------
+    ScaledSpectrum
+        Eigenpairs on the rows with stiffness (rows without any are left to
+        the structure stage, as with a factorization), the split by the
+        spectrum stage's gap rule, and no inertia count (``None``): there
+        are no pivots to count.
+    """
+    n_empty = int(np.count_nonzero(~_rows_with_stiffness(model.K)))
+    active = _rows_with_stiffness(model.K)
+    values = np.asarray(result.eigenvalues[n_empty:])
+    vectors = np.asarray(result.eigenvectors[active][:, n_empty:])
+    na = int(active.sum())
+    lam_max = float(result.lambda_max) if result.lambda_max is not None else 1.0
+    first, count, gap = _split(values, lam_max, max(na, 1))
+    zero = na * EPS * lam_max
+    split_point = None
+    if count > 0 and first + count < values.size:
+        split_point = float(np.sqrt(max(values[first + count - 1], zero) * values[first + count]))
+    return ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, split_point,
+                          None, None, first, result.method)
+
+
+def _rows_with_stiffness(K) -> NDArray[np.bool_]:
+    K = sp.csr_array(K)
+    n = K.shape[0]
+    rows = np.repeat(np.arange(n), np.diff(K.indptr))
+    out = np.zeros(n, dtype=bool)
+    out[rows[K.data != 0]] = True
+    return out
 
 
 def _lambda_max(Sa: sp.csr_array) -> float:
@@ -207,4 +245,4 @@ def _lobpcg_core(Sa, X, M, tol: float, maxiter: int):
         warnings.simplefilter("ignore", UserWarning)
         vals, vecs = spla.lobpcg(Sa, X, M=M, tol=tol, maxiter=maxiter, largest=False)
     order = np.argsort(vals)
-    return vals[order], vecs[:, order], True
+    return vals[order], vecs[:, order]

@@ -103,3 +103,21 @@ def test_model_too_big_for_the_limit_takes_the_iterative_path(monkeypatch):
     res = iterative_spectrum(model, k=8, rng=3)
     ref = lapack_smallest(model.K, 8)
     assert res.near_null_count == int(np.count_nonzero(ref < 1e-10)) == 6
+
+
+def test_modes_located_without_a_factorization():
+    """The factorization-free eigenpairs feed the mode stage unchanged: the
+    free plate's 3 rigid-body modes are located as rigid-body motions
+    (two translations and the in-plane rotation; textbook count)."""
+    from conditioning.iterative import as_scaled_spectrum
+    from conditioning.modes import locate_modes
+    from conditioning.structure import check_structure
+
+    model = free_body(20, 2)
+    res = iterative_spectrum(model, k=6, rng=4)
+    spec = as_scaled_spectrum(res, model)
+    assert spec.count == 3 and spec.inertia_count is None
+    located = locate_modes(model, check_structure(model), diagonal_scaling(model.K),
+                           np.ones(model.n, dtype=bool), spec)
+    assert len(located.modes) == 3
+    assert all(m.kind == "rigid-body" for m in located.modes)
