@@ -214,7 +214,7 @@ def _smallest_vector(spec: ScaledSpectrum, active) -> Optional[np.ndarray]:
 def _restraints(model: Model, structure, located) -> list[Restraint]:
     """A DOF without stiffness is restrained by itself; the rest by the restraints stage."""
     out = [Restraint(node=model.nodes_of([r])[0],
-                     dof=model.dofs.dof_name(r) if model.dofs is not None else "row",
+                     dof=model.dofs.dof_name(r) if model.dofs is not None else "-",
                      row=int(r), reason="the DOF has no stiffness of its own")
            for r in structure.empty_rows]
     if located.basis.shape[1]:

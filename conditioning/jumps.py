@@ -323,7 +323,7 @@ def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupl
 
 
 def _with_part(jump: StiffnessJump, structure: StructureResult) -> StiffnessJump:
-    parts = sorted({int(structure.part_of_row[r]) for r in jump.rows})
+    parts = sorted({int(structure.part_of_row[r]) + 1 for r in jump.rows})  # 1-based, as in the report
     names = ", ".join(str(p) for p in parts)
     label = f"Part {names}" if len(parts) == 1 else f"Parts {names}"
     return replace(jump, reasoning=f"{label}. " + jump.reasoning)

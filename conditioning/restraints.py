@@ -281,7 +281,7 @@ def _reason(model: Model, geometry: _Geometry, motion, row: int, dof: str) -> st
     if support.size == 1:
         return f"restrain {where}: the DOF has no stiffness of its own (or connect it to the structure)"
     label = int(np.bincount(geometry.part[support], weights=motion[support] ** 2).argmax())
-    part = "the structure" if np.unique(geometry.part).size == 1 else f"part {label}"
+    part = "the structure" if np.unique(geometry.part).size == 1 else f"part {label + 1}"
     rows = np.flatnonzero(geometry.part == label)
     if geometry.xyz is None:
         return f"restrain {where}: stops {_motion_without_coords(model, motion, rows)} of {part}"

@@ -169,7 +169,7 @@ def test_two_separate_chains_one_restraint_each():
     assert basis.shape[1] == 2
     restraints = suggest_restraints(model, basis)
     assert sorted(r.node // 100 for r in restraints) == [0, 1]
-    assert {r.reason.split("of part ")[1] for r in restraints} == {"0", "1"}
+    assert {r.reason.split("of part ")[1] for r in restraints} == {"1", "2"}  # parts numbered from 1
     assert is_positive_definite(reduced(K, restraints))
 
 
