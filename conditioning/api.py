@@ -10,6 +10,7 @@ from __future__ import annotations
 import logging
 import time
 from contextlib import contextmanager
+from dataclasses import replace
 from typing import Callable, Optional, Union
 
 import numpy as np
@@ -23,7 +24,7 @@ from conditioning.modes import locate_modes
 from conditioning.results import (
     ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
 )
-from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, scaled_spectrum
+from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, count_below, scaled_spectrum
 from conditioning.structure import check_structure, rows_with_stiffness
 
 logger = logging.getLogger(__name__)
@@ -154,22 +155,19 @@ def diagnose(
     except FactorizationTooLarge as too_large:
         return _without_factorization(model, structure, stage, too_large)
     with stage("spectrum"):
-        spec = scaled_spectrum(K, fac)
+        spec = scaled_spectrum(K, fac, check_inertia=False)
     with stage("modes"):
         located = locate_modes(model, structure, fac.scale, fac.active, spec)
     with stage("condition"):
         free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
         condition = condition_numbers(K, fac, spec, free_modes=free)
-    inertia_agrees = None
-    if spec.inertia_count is not None and spec.inertia_expected is not None:
-        inertia_agrees = spec.inertia_count == spec.inertia_expected
     spectrum = SpectrumResult(
         smallest=spec.values[: max(12, spec.first + spec.count + 1)],
         count=len(located.modes),
         gap=spec.gap,
         gap_rule=GAP_RULE,
-        inertia_count=spec.inertia_count,
-        inertia_agrees=inertia_agrees,
+        inertia_count=None,
+        inertia_agrees=None,
         negative_eigenvalues=int(spec.negative),
         modes=located.modes,
         method=spec.method,
@@ -191,11 +189,23 @@ def diagnose(
         with stage("digits"):
             digits = measure_digits(model, fac, condition=condition, spectrum=spectrum,
                                     samples=samples, seed=seed)
+    if spec.split_point is not None:
+        # Sylvester's cross-check of the mode count needs one more factorization;
+        # it runs last, after the shared factor is released, so the two never
+        # coexist in memory.
+        info = fac.info
+        fac.release()
+        with stage("inertia check"):
+            count = count_below(K, fac, spec.split_point)
+        spectrum = replace(spectrum, inertia_count=count,
+                           inertia_agrees=None if count is None else count == spec.inertia_expected)
+    else:
+        info = fac.info
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
                               min_digits=min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     line, status = verdict(findings, spectrum, structure, digits, condition)
     return Report(
-        summary=summarize(model), structure=structure, factorization=fac.info, condition=condition,
+        summary=summarize(model), structure=structure, factorization=info, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings,
     )

@@ -115,6 +115,10 @@ class SharedFactorization:
         out[self.active] = self.solve_active(b[self.active])
         return out
 
+    def release(self) -> None:
+        """Free the factors (solves are no longer possible); pivots and info stay."""
+        self._lu = None
+
     def solve_active(self, b: NDArray[np.float64]) -> NDArray[np.float64]:
         """(S_a - sigma*I)^-1 b for b indexed by the active rows only."""
         b = np.asarray(b, dtype=np.float64)

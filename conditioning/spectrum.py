@@ -93,14 +93,15 @@ def _largest(A: sp.csr_array) -> float:
     if A.shape[0] <= 2:
         return float(np.linalg.eigvalsh(A.toarray())[-1])
     v0 = np.ones(A.shape[0])
-    return float(spla.eigsh(A, k=1, which="LA", tol=1e-8, v0=v0, return_eigenvectors=False)[0])
+    # 1e-6 relative is ample for a condition number quoted to 3 figures.
+    return float(spla.eigsh(A, k=1, which="LA", tol=1e-6, v0=v0, return_eigenvectors=False)[0])
 
 
 def _smallest_sparse(Sa, fac: SharedFactorization, k: int) -> tuple[NDArray, NDArray]:
     na = Sa.shape[0]
     op = spla.LinearOperator((na, na), matvec=fac.solve_active, dtype=np.float64)
     v0 = np.random.default_rng(12345).standard_normal(na)  # fixed: results repeat
-    vals, vecs = spla.eigsh(Sa, k=k, sigma=fac.shift, which="LM", OPinv=op, tol=1e-12, v0=v0)
+    vals, vecs = spla.eigsh(Sa, k=k, sigma=fac.shift, which="LM", OPinv=op, tol=1e-10, v0=v0)
     order = np.argsort(vals)
     return vals[order], vecs[:, order]
 
@@ -126,7 +127,27 @@ def _split(values: NDArray, lam_max: float, n: int) -> tuple[int, int, Optional[
     return first, m, gap
 
 
-def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[int] = None) -> ScaledSpectrum:
+def count_below(K: sp.csr_array, fac: SharedFactorization, c: float) -> Optional[int]:
+    """Eigenvalues of S (active rows) below c, from the pivots' signs of S - c*I.
+
+    Sylvester's law of inertia: S - c*I = L D L^T has as many negative pivots
+    as S has eigenvalues below c. Costs one more factorization; None when
+    SuperLU had to pivot off the diagonal (the count would not be an inertia)
+    or S - c*I was exactly singular.
+    """
+    idx = np.flatnonzero(fac.active)
+    Sa = sp.csr_array(scaled_matrix(K, fac.scale)[idx][:, idx])
+    ordering = fac.info.ordering if fac.info.ordering in ("MMD_AT_PLUS_A", "COLAMD", "NATURAL") else "auto"
+    try:
+        check = factorize(Sa, shift=c, ordering=ordering)
+    except RuntimeError as exc:  # c hit an eigenvalue exactly
+        logger.warning("inertia check failed: %s", exc)
+        return None
+    return check.info.negative_pivots if check.info.symmetric_pivoting else None
+
+
+def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[int] = None,
+                    check_inertia: bool = True) -> ScaledSpectrum:
     """Smallest eigenpairs of S (active rows), the near-singular split and its inertia check.
 
     Parameters
@@ -135,8 +156,13 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
     fac : SharedFactorization
         The shared factorization of S - sigma*I on ``fac.active``.
     k : int, optional
-        Number of smallest eigenpairs to start with (default 12); doubled
+        Number of smallest eigenpairs to start with (default 8); doubled
         while all computed ones are below the mode threshold.
+    check_inertia : bool
+        Count the eigenvalues below the split point from the inertia of
+        S - c*I now (one more factorization, while ``fac`` is alive). The
+        pipeline defers it with :func:`count_below` until the shared factor
+        has been released.
 
     Returns
     -------
@@ -155,7 +181,7 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
         values, vectors = w[: max(kk, first + count + 1)], V[:, : max(kk, first + count + 1)]
     else:
         lam_max = _largest(Sa)
-        kk = min(na - 2, k or 12)
+        kk = min(na - 2, k or 8)
         while True:
             values, vectors = _smallest_sparse(Sa, fac, kk)
             first, count, gap = _split(values, lam_max, na)
@@ -165,19 +191,13 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
         method = (f"shift-and-invert Lanczos (ARPACK eigsh, shift {fac.shift:.3g}) for the "
                   f"{values.size} smallest, Lanczos for lambda_max")
     zero = na * EPS * lam_max
-    split_point = inertia_count = expected = None
+    split_point = expected = None
     if count > 0 and first + count < values.size:
         lo = max(values[first + count - 1], zero)
         hi = values[first + count]
         split_point = float(np.sqrt(lo * hi))
         expected = int(fac.info.negative_pivots + np.count_nonzero((values >= fac.shift) & (values < split_point)))
-        try:
-            check = factorize(Sa, shift=split_point, ordering=fac.info.ordering
-                              if fac.info.ordering in ("MMD_AT_PLUS_A", "COLAMD", "NATURAL") else "auto")
-            if check.info.symmetric_pivoting:
-                inertia_count = check.info.negative_pivots
-        except RuntimeError as exc:  # an exactly singular S - c*I: c hit an eigenvalue
-            logger.warning("inertia check failed: %s", exc)
+    inertia_count = count_below(K, fac, split_point) if (check_inertia and split_point is not None) else None
     negative = first if na <= DENSE_LIMIT else int(fac.info.negative_pivots)
     return ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, split_point,
                           inertia_count, expected, negative, method)
