@@ -41,9 +41,12 @@ def test_second_difference_kappa2_closed_form(n):
     expected = 1.0 / math.tan(math.pi / (2 * (n + 1))) ** 2
     _, spec, cond = _stages(second_difference(n))
     assert not cond.singular and spec.count == 0
-    assert cond.estimate == pytest.approx(expected, rel=1e-6)
+    # Dense LAPACK below 1,200 rows; above, Lanczos at ARPACK tolerance 1e-3,
+    # whose Ritz value for lambda_max approaches from below (documented in spectrum._largest).
+    rel = 1e-9 if n <= 1200 else 1e-3
+    assert cond.estimate == pytest.approx(expected, rel=rel)
     # Unit diagonal after scaling by 1/2: the scaled condition is the same number.
-    assert cond.scaled_estimate == pytest.approx(expected, rel=1e-6)
+    assert cond.scaled_estimate == pytest.approx(expected, rel=rel)
 
 
 def _pd_rows(limit: int):
