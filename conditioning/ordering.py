@@ -35,7 +35,7 @@ LEAF_SIZE = 8
 #: :func:`choose_ordering`; see docs/benchmarks.md for the measurements.
 MMD_MAX_ROWS_2D = 20_000
 #: Below this many rows the ordering's own cost is not worth paying.
-MIN_ROWS = 2_000
+MIN_ROWS = 5_000
 
 
 def nested_dissection(
@@ -333,13 +333,40 @@ def _bisect_geometric(alive, part, xyz, ei, ej, position, m):
     size = np.bincount(p, minlength=nparts)
     upper = np.zeros(m, dtype=bool)
     upper[alive] = rank >= size[p] // 2
-    # Separator: lower-side nodes with a neighbour on the upper side.
+    # Separator: a minimum vertex cover of the edges cut by the median plane.
     cut = (~upper[ei]) & upper[ej]
     sep = np.zeros(m, dtype=bool)
-    sep[ei[cut]] = True
+    sep[_minimum_vertex_cover(ei[cut], ej[cut])] = True
     side = np.where(upper[alive], 1, 0)
     side[sep[alive]] = 2
     return side
+
+
+def _minimum_vertex_cover(left, right) -> NDArray[np.intp]:
+    """Smallest vertex set touching every edge (left[k], right[k]) of a bipartite graph.
+
+    Maximum matching (Hopcroft-Karp, csgraph.maximum_bipartite_matching),
+    then Koenig's theorem: with Z the vertices reached from unmatched left
+    vertices by alternating paths, the cover is (left \\ Z) + (right & Z),
+    as large as the matching.
+    """
+    if left.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    lv, li = np.unique(left, return_inverse=True)
+    rv, ri = np.unique(right, return_inverse=True)
+    nl, nr = lv.size, rv.size
+    B = sp.csr_array((np.ones(left.size, dtype=np.int8), (li.ravel(), ri.ravel())), shape=(nl, nr))
+    match = csgraph.maximum_bipartite_matching(B, perm_type="column")  # left -> right or -1
+    matched = match >= 0
+    # Alternating graph: source -> unmatched left; left -> right (edges);
+    # right -> its matched left.
+    src = nl + nr
+    i = np.concatenate([np.full(int((~matched).sum()), src), li.ravel(), nl + match[matched]])
+    j = np.concatenate([np.flatnonzero(~matched), nl + ri.ravel(), np.flatnonzero(matched)])
+    G = sp.csr_array((np.ones(i.size, dtype=np.int8), (i, j)), shape=(src + 1, src + 1))
+    reached = np.zeros(src + 1, dtype=bool)
+    reached[csgraph.breadth_first_order(G, src, directed=True, return_predecessors=False)] = True
+    return np.concatenate([lv[~reached[:nl]], rv[reached[nl:src]]]).astype(np.intp)
 
 
 def _reduce_by(out, labels, values, ufunc):

@@ -99,7 +99,7 @@ def test_limit_from_environment_and_meminfo(monkeypatch):
 def test_memory_guard_small_limit(monkeypatch):
     """A 3D model whose factor needs tens of MB does not fit under a 4 MB
     limit, and the check runs before any factorization."""
-    K, xyz = skfem_elasticity(10, 3)  # 3,630 rows
+    K, xyz = skfem_elasticity(12, 3)  # 6,084 rows
     calls = []
     monkeypatch.setattr(spla, "splu", lambda *a, **k: calls.append(1))
     pred = predict_factor_memory(K, nested_dissection(K, xyz))
@@ -120,7 +120,7 @@ def test_plan_reuses_the_ordering_and_guards_memory(monkeypatch):
     from conditioning.factorization import factorize
     from conditioning.memory import plan_factorization
 
-    K, xyz = skfem_elasticity(10, 3)  # 3,630 rows
+    K, xyz = skfem_elasticity(12, 3)  # 6,084 rows
     monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "64k")
     plan = plan_factorization(K, xyz)
     assert not plan.fits and plan.limit_bytes == 64 * 1024
