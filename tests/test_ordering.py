@@ -168,3 +168,17 @@ def test_benchmark_generator_matches_scikit_fem():
         A = ours.K[a][:, a].toarray()
         B = thick * K_ref[b][:, b].toarray()
         np.testing.assert_allclose(A, B, rtol=1e-12, atol=1e-12 * np.abs(B).max())
+
+
+def test_docstring_examples_of_the_scale_modules():
+    """The Examples sections of ordering, memory and iterative run as written."""
+    import doctest
+
+    import conditioning.iterative
+    import conditioning.memory
+    import conditioning.ordering
+
+    for module in (conditioning.ordering, conditioning.memory, conditioning.iterative):
+        failed, attempted = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
+        assert failed == 0
+    assert doctest.testmod(conditioning.memory).attempted >= 2
