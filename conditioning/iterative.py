@@ -44,6 +44,8 @@ ILU_SHIFT = 1e-6
 #: Cap on the incomplete factor's entries, as a multiple of nnz(S).
 ILU_FILL = 8.0
 ILU_DROP = 1e-5
+#: LOBPCG iterations between convergence checks of the wanted pairs.
+ROUND = 25
 
 CANNOT = (
     "no inertia count: the number of near-singular modes rests on the "
@@ -124,9 +126,12 @@ def iterative_spectrum(
         method = "dense symmetric eigensolver (LAPACK syevd via numpy.linalg.eigh), small matrix"
         converged = True
     else:
-        X = _starting_block(model, active, s, ka, rng)
+        # A block wider than the wanted eigenpairs converges faster: the
+        # rate for pair j depends on lambda_j / lambda_(block + 1).
+        block = min(ka + max(4, ka // 2), active.size // 5)
+        X = _starting_block(model, active, s, max(block, ka), rng)
         M, pre_name = _preconditioner(Sa, model, active)
-        vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter)
+        vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter, ka)
         converged = False  # decided from the residuals below
         method = f"LOBPCG (scipy.sparse.linalg.lobpcg) preconditioned by {pre_name}"
     res = np.linalg.norm(Sa @ vecs - vecs * vals, axis=0) if ka else np.zeros(0)
@@ -240,9 +245,20 @@ def _block_jacobi(Sa: sp.csr_array, model: Model, active):
     return spla.LinearOperator((n, n), matvec=lu.solve, matmat=lu.solve, dtype=np.float64)
 
 
-def _lobpcg_core(Sa, X, M, tol: float, maxiter: int):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)
-        vals, vecs = spla.lobpcg(Sa, X, M=M, tol=tol, maxiter=maxiter, largest=False)
-    order = np.argsort(vals)
-    return vals[order], vecs[:, order]
+def _lobpcg_core(Sa, X, M, tol: float, maxiter: int, k: int):
+    """LOBPCG in rounds of :data:`ROUND` iterations, restarted from the
+    current block, until the k smallest pairs (not the whole block) have
+    residuals below tol."""
+    done = 0
+    while True:
+        steps = min(ROUND, maxiter - done)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)
+            vals, vecs = spla.lobpcg(Sa, X, M=M, tol=tol, maxiter=steps, largest=False)
+        done += steps
+        order = np.argsort(vals)
+        vals, vecs = vals[order], vecs[:, order]
+        res = np.linalg.norm(Sa @ vecs[:, :k] - vecs[:, :k] * vals[:k], axis=0)
+        if np.all(res <= tol) or done >= maxiter:
+            return vals[:k], vecs[:, :k]
+        X = vecs
