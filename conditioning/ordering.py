@@ -18,7 +18,7 @@ node) are merged first and expanded again at the end.
 from __future__ import annotations
 
 import logging
-from typing import Optional
+from typing import Callable, Optional, Union
 
 import numpy as np
 import scipy.sparse as sp
@@ -119,7 +119,9 @@ def nested_dissection(
 nested_dissection.ordering_name = "nested-dissection"
 
 
-def choose_ordering(K: sp.csr_array, coords: Optional[NDArray[np.float64]] = None):
+def choose_ordering(
+    K: sp.csr_array, coords: Optional[NDArray[np.float64]] = None
+) -> Union[str, Callable[..., Permutation]]:
     """The fill-reducing ordering to use for K: a SuperLU name or a callable.
 
     Parameters
@@ -138,16 +140,19 @@ def choose_ordering(K: sp.csr_array, coords: Optional[NDArray[np.float64]] = Non
     Notes
     -----
     The rule, from the measurements in docs/benchmarks.md (SuperLU fill and
-    factor time, 2D plane-stress quads and 3D hexahedra, 10k to 180k rows):
+    factor time; 2D plane-stress quadrilaterals and 3D hexahedra from 3.6k
+    to 305k rows, unstructured triangles and tetrahedra from scikit-fem):
 
-    * without positions: SuperLU's MMD(A'+A). Our graph (level-structure)
-      bisection left 0-30% more fill than MMD and cost seconds to compute;
-    * below :data:`MIN_ROWS` rows: MMD(A'+A) (either is instant);
+    * without positions: SuperLU's MMD(A'+A); our graph (level-structure)
+      bisection left as much or more fill (up to 25% more) and costs seconds;
+    * below :data:`MIN_ROWS` rows: MMD(A'+A) (both are instant, and nested
+      dissection lost by 14% on a 2,499-row tetrahedral ball);
     * 3D (positions spread in all three directions): geometric nested
-      dissection, which left 20-35% less fill than MMD(A'+A) and factored
-      in about half the time from 10k rows on;
+      dissection: 40% less fill and a third of MMD's factor time on
+      hexahedral cubes, 10% less fill on tetrahedra;
     * 2D or shell-like: nested dissection above :data:`MMD_MAX_ROWS_2D`
-      rows (fill within 7% of MMD's, factor time 10-20% lower), MMD below.
+      rows (2% less fill, factor time about 25% lower at 50k rows), MMD
+      below.
     """
     n = K.shape[0]
     if coords is None or n < MIN_ROWS:
