@@ -47,8 +47,8 @@ def _lambda_min_raw(K: sp.csr_array, fac: SharedFactorization) -> float:
         return float(np.linalg.eigvalsh(K.toarray())[0])
     op = spla.LinearOperator((n, n), matvec=fac.solve, dtype=np.float64)
     v0 = np.random.default_rng(54321).standard_normal(n)
-    mu = spla.eigsh(op, k=1, which="LA", tol=1e-6, v0=v0, return_eigenvectors=False)
-    mu_neg = spla.eigsh(op, k=1, which="SA", tol=1e-6, v0=v0, return_eigenvectors=False) \
+    mu = spla.eigsh(op, k=1, which="LA", tol=1e-4, v0=v0, return_eigenvectors=False)
+    mu_neg = spla.eigsh(op, k=1, which="SA", tol=1e-4, v0=v0, return_eigenvectors=False) \
         if fac.info.negative_pivots else None
     # The eigenvalue of K nearest zero is 1/mu for the mu of largest magnitude.
     cands = [float(mu[0])] + ([float(mu_neg[0])] if mu_neg is not None else [])
