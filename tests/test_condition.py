@@ -89,7 +89,7 @@ def test_reference_kappa2_matches_published(name):
 
 
 @pytest.mark.parametrize("name, published_rank", [
-    ("bcsstm01", 24), ("bcsstm03", 72), ("bcsstm04", 66),
+    ("bcsstm01", 24), ("bcsstm03", 72), ("bcsstm04", 66), ("bcsstm13", 1241),
 ])
 def test_singular_reference_rank_deficiency(name, published_rank):
     """SJSU Singular Matrix Collection numrank (SJ_Index, see PROVENANCE.md): the
