@@ -37,6 +37,8 @@ logger = logging.getLogger(__name__)
 
 #: Eigenpairs sought by default (rigid-body modes of a free 3D body: 6).
 DEFAULT_K = 8
+#: Most eigenpairs sought when every computed one is near-null.
+MAX_K = 256
 #: Below this many rows the spectrum is computed densely (LAPACK eigh).
 DENSE_LIMIT = 600
 #: Shift of the incomplete factorization, relative to the unit diagonal of S.
@@ -126,12 +128,19 @@ def iterative_spectrum(
         method = "dense symmetric eigensolver (LAPACK syevd via numpy.linalg.eigh), small matrix"
         converged = True
     else:
-        # A block wider than the wanted eigenpairs converges faster: the
-        # rate for pair j depends on lambda_j / lambda_(block + 1).
-        block = min(ka + max(4, ka // 2), active.size // 5)
-        X = _starting_block(model, active, s, max(block, ka), rng)
         M, pre_name = _preconditioner(Sa, model, active)
-        vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter, ka)
+        lam_max = _lambda_max(Sa)
+        while True:
+            # A block wider than the wanted eigenpairs converges faster: the
+            # rate for pair j depends on lambda_j / lambda_(block + 1).
+            block = min(ka + max(4, ka // 2), active.size // 5)
+            X = _starting_block(model, active, s, max(block, ka), rng)
+            vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter, ka)
+            first, count, _ = _split(vals, lam_max, active.size)
+            # All computed pairs near-null: there may be more; ask for twice as many.
+            if first + count < ka or 2 * ka > min(MAX_K, active.size // 6):
+                break
+            ka *= 2
         converged = False  # decided from the residuals below
         method = f"LOBPCG (scipy.sparse.linalg.lobpcg) preconditioned by {pre_name}"
     res = np.linalg.norm(Sa @ vecs - vecs * vals, axis=0) if ka else np.zeros(0)
@@ -143,7 +152,8 @@ def iterative_spectrum(
     full[active, empty.size:] = vecs
     values = np.concatenate([np.zeros(empty.size), vals])
     residuals = np.concatenate([np.zeros(empty.size), res])
-    lam_max = _lambda_max(Sa)
+    if active.size <= DENSE_LIMIT:
+        lam_max = _lambda_max(Sa)
     first, count, _ = _split(vals, lam_max, max(active.size, 1))
     if not converged:
         warnings.warn(f"LOBPCG: largest residual {res.max():.1e} did not reach the requested tolerance {tol:.1e}",

@@ -121,3 +121,21 @@ def test_modes_located_without_a_factorization():
                            np.ones(model.n, dtype=bool), spec)
     assert len(located.modes) == 3
     assert all(m.kind == "rigid-body" for m in located.modes)
+
+
+def test_more_modes_than_asked_for_are_all_found():
+    """Three separate free plates (3 rigid-body modes each, textbook count)
+    and k = 4: the search widens until the 9 near-null eigenvalues are all
+    found, as LAPACK's eigvalsh counts them."""
+    one = free_body(12, 2)
+    K = sp.csr_array(sp.block_diag([one.K] * 3))
+    n1 = one.n
+    rows = np.arange(3 * n1)
+    node = (rows // 2 + 1).astype(np.int64)
+    xyz = np.vstack([one.coords.xyz + [3.0 * c, 0.0, 0.0] for c in range(3)])
+    model = Model(K, dofs=DofTable(node, (rows % 2).astype(np.int8)),
+                  coords=Coordinates(np.arange(1, xyz.shape[0] + 1, dtype=np.int64), xyz, 2))
+    assert model.n > 600
+    res = iterative_spectrum(model, k=4, rng=5)
+    ref = lapack_smallest(K, 12)
+    assert res.near_null_count == int(np.count_nonzero(ref < 1e-10)) == 9
