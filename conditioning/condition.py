@@ -40,20 +40,30 @@ from conditioning.spectrum import DENSE_LIMIT, ScaledSpectrum, _largest
 logger = logging.getLogger(__name__)
 
 
-def _lambda_min_raw(K: sp.csr_array, fac: SharedFactorization) -> float:
-    """Smallest eigenvalue of K by Lanczos on K^-1 = D^-1/2 S^-1 D^-1/2 (K nonsingular)."""
+def _lambda_min_raw(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum) -> float:
+    """Eigenvalue of K nearest zero, by Lanczos on K^-1 = D^-1/2 S^-1 D^-1/2 (K nonsingular).
+
+    The Lanczos start is the smallest eigenvector of S mapped to K's DOFs,
+    usually close to K's own, so that few solves are needed.
+    """
     n = K.shape[0]
     if n <= DENSE_LIMIT:
-        return float(np.linalg.eigvalsh(K.toarray())[0])
+        w = np.linalg.eigvalsh(K.toarray())
+        return float(w[np.argmin(np.abs(w))])
     op = spla.LinearOperator((n, n), matvec=fac.solve, dtype=np.float64)
-    v0 = np.random.default_rng(54321).standard_normal(n)
-    mu = spla.eigsh(op, k=1, which="LA", tol=1e-4, v0=v0, return_eigenvectors=False)
-    mu_neg = spla.eigsh(op, k=1, which="SA", tol=1e-4, v0=v0, return_eigenvectors=False) \
-        if fac.info.negative_pivots else None
-    # The eigenvalue of K nearest zero is 1/mu for the mu of largest magnitude.
-    cands = [float(mu[0])] + ([float(mu_neg[0])] if mu_neg is not None else [])
-    m = max(cands, key=abs)
-    return 1.0 / m
+    v0 = None
+    if spectrum.vectors.shape[1] > spectrum.first:
+        v0 = np.zeros(n)
+        v0[fac.active] = spectrum.vectors[:, spectrum.first]
+        v0 = fac.scale * v0
+        v0 /= np.linalg.norm(v0)
+    if fac.info.negative_pivots == 0:
+        # K positive definite: 1/lambda_min is the largest eigenvalue of K^-1.
+        return 1.0 / _largest(op, rtol=1e-4, v0=v0)
+    if v0 is None:
+        v0 = np.random.default_rng(54321).standard_normal(n)
+    mu = spla.eigsh(op, k=1, which="LM", tol=1e-4, v0=v0, return_eigenvectors=False)
+    return 1.0 / float(mu[0])
 
 
 def _one_norm_condition(K: sp.csr_array, fac: SharedFactorization) -> float:
@@ -103,7 +113,7 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method="not computed: K is singular", scaling_gain_digits=None,
         )
-    lam_min = _lambda_min_raw(K, fac)
+    lam_min = _lambda_min_raw(K, fac, spectrum)
     kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
     s_kappa = spectrum.lambda_max / s_lmin if s_lmin else math.inf
     how_min = "dense eigensolver (LAPACK)" if dense else "Lanczos on K^-1 through the shared factorization"

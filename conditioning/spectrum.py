@@ -89,7 +89,7 @@ class ScaledSpectrum:
     method: str
 
 
-def _largest(A: sp.csr_array, rtol: float = 1e-3, max_steps: int = 600) -> float:
+def _largest(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None) -> float:
     """lambda_max of a symmetric matrix by plain Lanczos, to relative accuracy ``rtol``.
 
     Returns the largest Ritz value theta of the Lanczos tridiagonal T_m, which
@@ -109,9 +109,9 @@ def _largest(A: sp.csr_array, rtol: float = 1e-3, max_steps: int = 600) -> float
            pp. 341-349 (from memory).
     """
     n = A.shape[0]
-    if n <= 50:
+    if n <= 50 and sp.issparse(A):
         return float(np.linalg.eigvalsh(A.toarray())[-1])
-    q = np.random.default_rng(2024).standard_normal(n)
+    q = np.random.default_rng(2024).standard_normal(n) if v0 is None else np.array(v0, dtype=np.float64)
     q /= np.linalg.norm(q)
     q_prev = np.zeros(n)
     alphas: list[float] = []
@@ -194,7 +194,8 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
     fac : SharedFactorization
         The shared factorization of S - sigma*I on ``fac.active``.
     k : int, optional
-        Number of smallest eigenpairs to start with (default 8); doubled
+        Number of smallest eigenpairs to start with (default 4: a healthy
+        model needs no more, and each pair costs solves); doubled
         while all computed ones are below the mode threshold.
     check_inertia : bool
         Count the eigenvalues below the split point from the inertia of
@@ -219,7 +220,7 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
         values, vectors = w[: max(kk, first + count + 1)], V[:, : max(kk, first + count + 1)]
     else:
         lam_max = _largest(Sa)
-        kk = min(na - 2, k or 8)
+        kk = min(na - 2, k or 4)
         while True:
             values, vectors = _smallest_sparse(Sa, fac, kk)
             first, count, gap = _split(values, lam_max, na)
