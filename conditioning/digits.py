@@ -109,7 +109,10 @@ def measure_digits(
     X = fac.solve(F)
     op = dd_operator(K)
     kappa = scaled_condition_estimate(K, fac)
-    refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op)
+    # The componentwise bound (a few solves per sample) for the sample that
+    # matters most: the user's load, else the first random one.
+    want = [j == 0 for j in range(len(names))]
+    refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op, want_componentwise=want)
     confirmation, why_not = _confirm(K, F, kappa) if confirm else (None, "arbitrary-precision re-solve not requested")
     out = [
         _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not)

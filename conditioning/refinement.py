@@ -36,7 +36,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass, field
-from typing import Optional
+from typing import Optional, Sequence, Union
 
 import numpy as np
 import scipy.sparse as sp
@@ -236,7 +236,7 @@ def refine_block(
     operator: Optional[DDOperator] = None,
     max_steps: int = MAX_STEPS,
     allow_gmres: bool = True,
-    want_componentwise: bool = True,
+    want_componentwise: Union[bool, Sequence[bool]] = True,
 ) -> list[RefinementResult]:
     """:func:`refine` for a block of loads at once (one result per column of F).
 
@@ -248,6 +248,9 @@ def refine_block(
     ----------
     F : (n, k) float64
         Loads, one per column; X0 optional (n, k) starting solutions.
+    want_componentwise : bool or sequence of k bools
+        Per column: estimate the componentwise condition number for the
+        componentwise bound (a few solves per column).
     Other parameters as in :func:`refine`.
 
     Returns
@@ -281,6 +284,8 @@ def refine_block(
         active = still
     for j in active:
         states[j].stop_for_limit(max_steps)
+    want = [bool(want_componentwise)] * k if isinstance(want_componentwise, (bool, np.bool_)) \
+        else [bool(w) for w in want_componentwise]
     results = []
     for j, st in enumerate(states):
         x_hi, x_lo = X_hi[:, j].copy(), X_lo[:, j].copy()
@@ -289,7 +294,7 @@ def refine_block(
             gmres_used = True
             logger.info("plain refinement %s; switching to GMRES-based refinement", st.reason)
             x_hi, x_lo = st.run(x_hi, x_lo, _gmres_correction(op.K, fac), MAX_GMRES_STEPS, plain=False)
-        results.append(_result(st, fac, op, x_hi, x_lo, kappa, gamma, gmres_used, want_componentwise))
+        results.append(_result(st, fac, op, x_hi, x_lo, kappa, gamma, gmres_used, want[j]))
     return results
 
 

@@ -242,6 +242,9 @@ class DigitsSample:
     """Error bound on the reference in the manner of Demmel et al. (2006);
     None when the bound cannot be trusted (withdrawn)."""
     componentwise_bound: Optional[float]
+    """max_i |x_i - x_ref,i| / |x_ref,i| bound on the reference; None when
+    withdrawn (cannot be trusted) or not computed: only the first sample (the
+    user's load, else random-1) gets one, as it costs a few solves each."""
     bound_trusted: bool
     confirmation: Optional[str] = None
     """How an independent re-solve confirmed the reference, if one ran."""
