@@ -24,7 +24,7 @@ from conditioning.modes import locate_modes
 from conditioning.results import (
     ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
 )
-from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, _split, count_below, scaled_spectrum
+from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, count_below, scaled_spectrum
 from conditioning.structure import check_structure, rows_with_stiffness
 
 logger = logging.getLogger(__name__)
@@ -236,24 +236,19 @@ def _restraints(model: Model, structure, located) -> list[Restraint]:
 
 def _without_factorization(model: Model, structure, stage: _Stages, too_large: FactorizationTooLarge) -> Report:
     """The diagnosis when the factor would not fit: spectrum by LOBPCG, no digits."""
-    from conditioning.factorization import diagonal_scaling, scaled_matrix
-    from conditioning.iterative import iterative_spectrum
+    from conditioning.factorization import diagonal_scaling
+    from conditioning.iterative import as_scaled_spectrum, iterative_spectrum
 
     K = model.K
     with stage("spectrum (factorization-free)"):
         it = iterative_spectrum(model)
+    spec = as_scaled_spectrum(it, model)
     active = rows_with_stiffness(K)
-    idx = np.flatnonzero(active)
     s = diagonal_scaling(K)
-    Sa = sp.csr_array(scaled_matrix(K, s)[idx][:, idx])
-    lam_max = _largest(Sa)
-    n_empty = int(K.shape[0] - idx.size)
-    values = it.eigenvalues[n_empty:]
-    vectors = it.eigenvectors[idx][:, n_empty:]
-    first, count, gap = _split(values, lam_max, idx.size)
-    zero = idx.size * np.finfo(float).eps * lam_max
-    spec = ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, None, None, None,
-                          first, it.method)
+    lam_max = spec.lambda_max
+    values = spec.values
+    gap = spec.gap
+    first = spec.first
     with stage("modes"):
         located = locate_modes(model, structure, s, active, spec)
     exact = sum(1 for m in located.modes if m.exact)

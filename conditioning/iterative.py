@@ -31,7 +31,8 @@ from conditioning.factorization import EPS, diagonal_scaling, scaled_matrix
 from conditioning.model import Model
 from conditioning.results import IterativeSpectrum
 from conditioning.rigid_body import rigid_basis
-from conditioning.spectrum import ScaledSpectrum, _split
+from conditioning.spectrum import ScaledSpectrum, _largest, _split
+from conditioning.structure import rows_with_stiffness
 
 logger = logging.getLogger(__name__)
 
@@ -114,7 +115,7 @@ def iterative_spectrum(
     if k < 1:
         raise ValueError(f"k = {k}; ask for at least one eigenpair")
     rng = np.random.default_rng(rng)
-    has_stiffness = _rows_with_stiffness(K)
+    has_stiffness = rows_with_stiffness(K)
     empty = np.flatnonzero(~has_stiffness)
     active = np.flatnonzero(has_stiffness)
     s = diagonal_scaling(K)
@@ -182,8 +183,8 @@ def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectru
         spectrum stage's gap rule, and no inertia count (``None``): there
         are no pivots to count.
     """
-    n_empty = int(np.count_nonzero(~_rows_with_stiffness(model.K)))
-    active = _rows_with_stiffness(model.K)
+    n_empty = int(np.count_nonzero(~rows_with_stiffness(model.K)))
+    active = rows_with_stiffness(model.K)
     values = np.asarray(result.eigenvalues[n_empty:])
     vectors = np.asarray(result.eigenvectors[active][:, n_empty:])
     na = int(active.sum())
@@ -197,20 +198,9 @@ def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectru
                           None, None, first, result.method)
 
 
-def _rows_with_stiffness(K) -> NDArray[np.bool_]:
-    K = sp.csr_array(K)
-    n = K.shape[0]
-    rows = np.repeat(np.arange(n), np.diff(K.indptr))
-    out = np.zeros(n, dtype=bool)
-    out[rows[K.data != 0]] = True
-    return out
-
-
 def _lambda_max(Sa: sp.csr_array) -> float:
-    if Sa.shape[0] <= 2:
-        return float(np.linalg.eigvalsh(Sa.toarray())[-1]) if Sa.shape[0] else 1.0
-    return float(spla.eigsh(Sa, k=1, which="LA", tol=1e-6, v0=np.ones(Sa.shape[0]),
-                            return_eigenvectors=False)[0])
+    """lambda_max(S) by the spectrum stage's Lanczos (1.0 for an empty matrix)."""
+    return _largest(Sa) if Sa.shape[0] else 1.0
 
 
 def _starting_block(model: Model, active, s, k: int, rng) -> NDArray[np.float64]:
