@@ -264,7 +264,46 @@ def _csv_pairs(source: str) -> tuple[list[int], list[int], list[int]]:
     return nodes, dofs, lines
 
 
+def _fast_table(source: str, header: str, ncols: int) -> Optional[NDArray]:
+    """The body of a plain CSV file as an (m, ncols) array of strings, or None.
+
+    A fast path for large, regular files: only when the first line is exactly
+    ``header`` (case and blanks aside) and every other line is a data line
+    with ``ncols`` cells. Anything else (comments, blank lines, quoting, a
+    different column order) returns None and the line-by-line reader, which
+    names the offending line, takes over.
+    """
+    try:
+        with open(source, "rb") as fh:
+            data = fh.read()
+        text = data.decode("utf-8-sig")
+    except (OSError, UnicodeDecodeError):
+        return None
+    if "\x00" in text or '"' in text or "#" in text:
+        return None
+    lines = text.splitlines()
+    if len(lines) < 2 or lines[0].replace(" ", "").lower() != header:
+        return None
+    body = lines[1:]
+    if not body[-1].strip():
+        body = body[:-1]
+    cells = ",".join(body).split(",")
+    if len(cells) != ncols * len(body) or any(not line.strip() for line in body):
+        return None
+    return np.char.strip(np.array(cells, dtype=str)).reshape(len(body), ncols)
+
+
 def _dof_pairs_from_csv(source: str):
+    table = _fast_table(source, "node,dof", 2)
+    if table is not None:
+        try:
+            node = table[:, 0].astype(np.int64)
+            names, inverse = np.unique(np.char.lower(table[:, 1]), return_inverse=True)
+            if all(str(v) in _DOF_INDEX for v in names):
+                dof = np.array([_DOF_INDEX[str(v)] for v in names], dtype=np.int8)[inverse.ravel()]
+                return node, dof, list(range(2, node.size + 2))
+        except (ValueError, OverflowError):
+            pass  # a bad cell: the line-by-line reader says which
     nodes, dofs, lines = _csv_pairs(source)
     return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8), lines
 
@@ -331,6 +370,19 @@ def _coordinates(coords, table: Optional[DofTable], notes: list[str]) -> Optiona
 
 
 def _coordinates_from_csv(source: str):
+    for header, ncols in (("node,x,y,z", 4), ("node,x,y", 3)):
+        table = _fast_table(source, header, ncols)
+        if table is None:
+            continue
+        try:
+            node = table[:, 0].astype(np.int64)
+            xyz = np.zeros((node.size, 3))
+            xyz[:, : ncols - 1] = table[:, 1:].astype(np.float64)
+        except (ValueError, OverflowError):
+            break  # a bad cell: the line-by-line reader says which
+        if np.all(np.isfinite(xyz)):
+            return node, xyz, ncols == 4, list(range(2, node.size + 2))
+        break
     rows = read_csv_rows(source)
     header = _header_columns(source, rows, ("node", "x", "y"), ("z",))
     if header is not None:
