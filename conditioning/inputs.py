@@ -264,14 +264,14 @@ def _csv_pairs(source: str) -> tuple[list[int], list[int], list[int]]:
     return nodes, dofs, lines
 
 
-def _fast_table(source: str, header: str, ncols: int) -> Optional[NDArray]:
-    """The body of a plain CSV file as an (m, ncols) array of strings, or None.
+def _fast_table(source: str, columns: tuple[str, ...]) -> Optional[NDArray]:
+    """The named columns of a plain CSV file as an (m, len(columns)) string array, or None.
 
-    A fast path for large, regular files: only when the first line is exactly
-    ``header`` (case and blanks aside) and every other line is a data line
-    with ``ncols`` cells. Anything else (comments, blank lines, quoting, a
-    different column order) returns None and the line-by-line reader, which
-    names the offending line, takes over.
+    A fast path for large, regular files: only when the first line is a
+    header naming every one of ``columns`` (any order, other columns allowed)
+    and every other line is a data line with as many cells as the header.
+    Anything else (comments, blank lines, quoting, no header) returns None
+    and the line-by-line reader, which names the offending line, takes over.
     """
     try:
         with open(source, "rb") as fh:
@@ -282,19 +282,24 @@ def _fast_table(source: str, header: str, ncols: int) -> Optional[NDArray]:
     if "\x00" in text or '"' in text or "#" in text:
         return None
     lines = text.splitlines()
-    if len(lines) < 2 or lines[0].replace(" ", "").lower() != header:
+    if len(lines) < 2:
+        return None
+    names = [c.strip().lower() for c in lines[0].split(",")]
+    if not all(c in names for c in columns) or len(set(names)) != len(names):
         return None
     body = lines[1:]
     if not body[-1].strip():
         body = body[:-1]
+    ncols = len(names)
     cells = ",".join(body).split(",")
-    if len(cells) != ncols * len(body) or any(not line.strip() for line in body):
+    if not body or len(cells) != ncols * len(body) or any(not line.strip() for line in body):
         return None
-    return np.char.strip(np.array(cells, dtype=str)).reshape(len(body), ncols)
+    table = np.array(cells, dtype=str).reshape(len(body), ncols)
+    return np.char.strip(table[:, [names.index(c) for c in columns]])
 
 
 def _dof_pairs_from_csv(source: str):
-    table = _fast_table(source, "node,dof", 2)
+    table = _fast_table(source, ("node", "dof"))
     if table is not None:
         try:
             node = table[:, 0].astype(np.int64)
@@ -370,8 +375,9 @@ def _coordinates(coords, table: Optional[DofTable], notes: list[str]) -> Optiona
 
 
 def _coordinates_from_csv(source: str):
-    for header, ncols in (("node,x,y,z", 4), ("node,x,y", 3)):
-        table = _fast_table(source, header, ncols)
+    for header in (("node", "x", "y", "z"), ("node", "x", "y")):
+        ncols = len(header)
+        table = _fast_table(source, header)
         if table is None:
             continue
         try:

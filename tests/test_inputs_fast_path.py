@@ -14,7 +14,7 @@ from conditioning.inputs import _coordinates_from_csv, _csv_pairs, _dof_pairs_fr
 def test_dof_map_fast_path_equals_line_by_line(tmp_path):
     p = tmp_path / "map.csv"
     p.write_text("node,dof\n" + "".join(f"{i // 3 + 1},{['ux', 'UY', ' rz'][i % 3]}\n" for i in range(300)))
-    assert _fast_table(str(p), "node,dof", 2) is not None
+    assert _fast_table(str(p), ("node", "dof")) is not None
     node, dof, lines = _dof_pairs_from_csv(str(p))
     ref_node, ref_dof, ref_lines = _csv_pairs(str(p))
     assert np.array_equal(node, ref_node) and np.array_equal(dof, ref_dof) and list(lines) == ref_lines
@@ -32,12 +32,12 @@ def test_coordinates_fast_path_equals_line_by_line(tmp_path):
     "node,dof\n1,ux\n# comment\n2,uy\n",        # comments: line-by-line reader
     "node,dof\n1,ux\n\n2,uy\n",                 # blank line
     'node,dof\n"1",ux\n2,uy\n',                 # quoting
-    "dof,node\nux,1\nuy,2\n",                   # other column order
+    "1,ux\n2,uy\n",                             # no header
 ])
 def test_irregular_files_take_the_line_by_line_reader(tmp_path, text):
     p = tmp_path / "map.csv"
     p.write_text(text)
-    assert _fast_table(str(p), "node,dof", 2) is None
+    assert _fast_table(str(p), ("node", "dof")) is None
     node, dof, _ = _dof_pairs_from_csv(str(p))
     assert list(node) == [1, 2] and list(dof) == [0, 1]
 
@@ -47,3 +47,11 @@ def test_bad_cell_still_named_by_line(tmp_path):
     p.write_text("node,dof\n1,ux\n2,uq\n")
     with pytest.raises(InputError, match="line 3"):
         _dof_pairs_from_csv(str(p))
+
+
+def test_extra_columns_and_any_order(tmp_path):
+    """A map written as row,dof,node (columns found by name) reads the same."""
+    p = tmp_path / "map.csv"
+    p.write_text("row,dof,node\n1,ux,4\n2,uy,4\n3,rz,9\n")
+    node, dof, lines = _dof_pairs_from_csv(str(p))
+    assert list(node) == [4, 4, 9] and list(dof) == [0, 1, 5] and lines == [2, 3, 4]
