@@ -24,7 +24,7 @@ from conditioning.modes import locate_modes
 from conditioning.results import (
     ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
 )
-from conditioning.spectrum import GAP_RULE, ScaledSpectrum, _largest, count_below, scaled_spectrum
+from conditioning.spectrum import GAP_RULE, ScaledSpectrum, largest_eigenvalue, count_below, scaled_spectrum
 from conditioning.structure import check_structure, rows_with_stiffness
 
 logger = logging.getLogger(__name__)
@@ -256,7 +256,7 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
     singular = bool(exact or n_empty)
     s_kappa = None if singular or not s_min else lam_max / s_min
     condition = ConditionResult(
-        singular=singular, lambda_max=_largest(sp.csr_array(K)), lambda_min=None, estimate=None,
+        singular=singular, lambda_max=largest_eigenvalue(sp.csr_array(K)), lambda_min=None, estimate=None,
         estimate_method="not computed: no factorization (the factor would not fit in memory)",
         scaled_estimate=s_kappa, scaled_lambda_min=s_min, scaled_lambda_max=lam_max,
         scaled_method=f"2-norm of S from LOBPCG's smallest and Lanczos' largest eigenvalue ({it.method})"

@@ -31,7 +31,7 @@ from conditioning.factorization import EPS, diagonal_scaling, scaled_matrix
 from conditioning.model import Model
 from conditioning.results import IterativeSpectrum
 from conditioning.rigid_body import rigid_basis
-from conditioning.spectrum import ScaledSpectrum, _largest, _split
+from conditioning.spectrum import ScaledSpectrum, largest_eigenvalue, split_near_singular
 from conditioning.structure import rows_with_stiffness
 
 logger = logging.getLogger(__name__)
@@ -137,7 +137,7 @@ def iterative_spectrum(
             block = min(ka + max(4, ka // 2), active.size // 5)
             X = _starting_block(model, active, s, max(block, ka), rng)
             vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter, ka)
-            first, count, _ = _split(vals, lam_max, active.size)
+            first, count, _ = split_near_singular(vals, lam_max, active.size)
             # All computed pairs near-null: there may be more; ask for twice as many.
             if first + count < ka or 2 * ka > min(MAX_K, active.size // 6):
                 break
@@ -155,7 +155,7 @@ def iterative_spectrum(
     residuals = np.concatenate([np.zeros(empty.size), res])
     if active.size <= DENSE_LIMIT:
         lam_max = _lambda_max(Sa)
-    first, count, _ = _split(vals, lam_max, max(active.size, 1))
+    first, count, _ = split_near_singular(vals, lam_max, max(active.size, 1))
     if not converged:
         warnings.warn(f"LOBPCG: largest residual {res.max():.1e} did not reach the requested tolerance {tol:.1e}",
                       RuntimeWarning, stacklevel=2)
@@ -189,7 +189,7 @@ def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectru
     vectors = np.asarray(result.eigenvectors[active][:, n_empty:])
     na = int(active.sum())
     lam_max = float(result.lambda_max) if result.lambda_max is not None else 1.0
-    first, count, gap = _split(values, lam_max, max(na, 1))
+    first, count, gap = split_near_singular(values, lam_max, max(na, 1))
     zero = na * EPS * lam_max
     split_point = None
     if count > 0 and first + count < values.size:
@@ -200,7 +200,7 @@ def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectru
 
 def _lambda_max(Sa: sp.csr_array) -> float:
     """lambda_max(S) by the spectrum stage's Lanczos (1.0 for an empty matrix)."""
-    return _largest(Sa) if Sa.shape[0] else 1.0
+    return largest_eigenvalue(Sa) if Sa.shape[0] else 1.0
 
 
 def _starting_block(model: Model, active, s, k: int, rng) -> NDArray[np.float64]:

@@ -89,7 +89,7 @@ class ScaledSpectrum:
     method: str
 
 
-def _largest(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None) -> float:
+def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None) -> float:
     """lambda_max of a symmetric matrix by plain Lanczos, to relative accuracy ``rtol``.
 
     Returns the largest Ritz value theta of the Lanczos tridiagonal T_m, which
@@ -144,8 +144,16 @@ def _smallest_sparse(Sa, fac: SharedFactorization, k: int) -> tuple[NDArray, NDA
     return vals[order], vecs[:, order]
 
 
-def _split(values: NDArray, lam_max: float, n: int) -> tuple[int, int, Optional[float]]:
-    """(first, count, gap) of the near-singular eigenvalues in ascending ``values``."""
+def split_near_singular(values: NDArray, lam_max: float, n: int) -> tuple[int, int, Optional[float]]:
+    """Apply :data:`GAP_RULE` to ascending eigenvalues of S.
+
+    Returns
+    -------
+    (first, count, gap)
+        ``values[first:first + count]`` are the near-singular eigenvalues
+        (``first`` = number of eigenvalues below -n*eps*lambda_max, true
+        negatives); ``gap`` is the ratio across the split, None without modes.
+    """
     zero = n * EPS * lam_max
     first = int(np.count_nonzero(values < -zero))
     a = np.maximum(values[first:], zero)
@@ -216,14 +224,14 @@ def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[in
         method = "dense symmetric eigensolver (LAPACK syevd), all eigenvalues"
         kk = min(na, max(k or 12, 12))
         values, vectors = w, V
-        first, count, gap = _split(values, lam_max, na)
+        first, count, gap = split_near_singular(values, lam_max, na)
         values, vectors = w[: max(kk, first + count + 1)], V[:, : max(kk, first + count + 1)]
     else:
-        lam_max = _largest(Sa)
+        lam_max = largest_eigenvalue(Sa)
         kk = min(na - 2, k or 4)
         while True:
             values, vectors = _smallest_sparse(Sa, fac, kk)
-            first, count, gap = _split(values, lam_max, na)
+            first, count, gap = split_near_singular(values, lam_max, na)
             if first + count < values.size or kk >= min(na - 2, 512):
                 break
             kk = min(na - 2, 2 * kk)

@@ -42,7 +42,7 @@ def test_second_difference_kappa2_closed_form(n):
     _, spec, cond = _stages(second_difference(n))
     assert not cond.singular and spec.count == 0
     # Dense LAPACK below 1,200 rows; above, Lanczos at ARPACK tolerance 1e-3,
-    # whose Ritz value for lambda_max approaches from below (documented in spectrum._largest).
+    # whose Ritz value for lambda_max approaches from below (documented in spectrum.largest_eigenvalue).
     rel = 1e-9 if n <= 1200 else 1e-3
     assert cond.estimate == pytest.approx(expected, rel=rel)
     # Unit diagonal after scaling by 1/2: the scaled condition is the same number.
