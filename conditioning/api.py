@@ -251,9 +251,11 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
     first = spec.first
     with stage("modes"):
         located = locate_modes(model, structure, s, active, spec)
-    exact = sum(1 for m in located.modes if m.exact)
+    # The same rule as the factorized path: a DOF without stiffness or a free
+    # mode (other than such a DOF) makes K singular.
+    free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
     s_min = float(np.min(np.abs(values))) if values.size else None
-    singular = bool(exact or n_empty)
+    singular = bool(free or structure.empty_rows.size)
     s_kappa = None if singular or not s_min else lam_max / s_min
     condition = ConditionResult(
         singular=singular, lambda_max=largest_eigenvalue(sp.csr_array(K)), lambda_min=None, estimate=None,
