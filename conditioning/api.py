@@ -188,7 +188,7 @@ def diagnose(
 
         with stage("digits"):
             digits = measure_digits(model, fac, condition=condition, spectrum=spectrum,
-                                    samples=samples, seed=seed)
+                                    samples=samples, seed=seed, structure=structure)
     if spec.split_point is not None:
         # Sylvester's cross-check of the mode count needs one more factorization;
         # it runs last, after the shared factor is released, so the two never
@@ -203,7 +203,7 @@ def diagnose(
         info = fac.info
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
                               min_digits=min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
-    line, status = verdict(findings, spectrum, structure, digits, condition)
+    line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=min_digits)
     return Report(
         summary=summarize(model), structure=structure, factorization=info, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,

@@ -124,43 +124,22 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 # -------------------------------------------------------------- exit status
-def governing_digits(report: results.Report) -> Optional[float]:
-    """The trustworthy digits the ``--min-digits`` test applies to.
+def exit_status(report: results.Report) -> int:
+    """Exit status of a diagnosis: the report's status, mapped one to one.
 
-    The lowest over every measured sample (the user's load, the random
-    loads, the worst-case load and an audited solution), as the diagnosis's
-    own ``digits.below-minimum`` finding does. None when no digits were
-    measured. A NaN (not measured) counts as 0 digits, so it can never pass
-    the test by accident.
+    ``errors`` -> 3, ``warnings`` -> 1, ``healthy`` -> 0. The status is decided
+    once, by :func:`conditioning.findings.status_of` (a singular K, a free or
+    nearly free mode and fewer digits than ``--min-digits`` are all error
+    findings), so the JSON ``status`` and the exit status always agree.
     """
-    if report.digits is None or not report.digits.samples:
-        return None
-    values = [0.0 if s.trustworthy_digits is None or math.isnan(s.trustworthy_digits)
-              else float(s.trustworthy_digits) for s in report.digits.samples]
-    return min(values)
+    return {"errors": EXIT_ERRORS, "warnings": EXIT_WARNINGS}.get(report.status, EXIT_HEALTHY)
 
 
-def exit_status(report: results.Report, min_digits: float = 4.0) -> int:
-    """Exit status of a diagnosis: 0 healthy, 1 warnings only, 3 errors found."""
-    if report.status == "errors":
-        return EXIT_ERRORS
-    if report.condition is not None and report.condition.singular:
-        return EXIT_ERRORS
-    if report.spectrum is not None and report.spectrum.count > 0:
-        return EXIT_ERRORS
-    digits = governing_digits(report)
-    if digits is not None and digits < min_digits:
-        return EXIT_ERRORS
-    if report.status == "warnings":
-        return EXIT_WARNINGS
-    return EXIT_HEALTHY
-
-
-def _min_digits_line(report: results.Report, min_digits: float) -> Optional[str]:
-    digits = governing_digits(report)
-    if digits is not None and digits < min_digits:
-        return (f"Fewer trustworthy digits ({digits:.1f}) than required by --min-digits "
-                f"({min_digits:g}).")
+def _min_digits_line(report: results.Report) -> Optional[str]:
+    """The ``digits.below-minimum`` finding's message, shown under the verdict."""
+    for finding in report.findings:
+        if finding.code == "digits.below-minimum":
+            return finding.message
     return None
 
 
@@ -249,7 +228,7 @@ def _run_diagnose(args) -> int:
         model = _load(args.matrix, args, progress)
         report = _diagnose(model, args, progress)
     console = _console(to_stderr=args.json == "-")
-    extra = _min_digits_line(report, args.min_digits)
+    extra = _min_digits_line(report)
     if args.quiet:
         console.print(verdict_line(report))
         if extra:
@@ -257,7 +236,7 @@ def _run_diagnose(args) -> int:
     else:
         console.print(TerminalReport(report, extra_verdict=extra))
     _write_outputs(report, model, args)
-    return exit_status(report, args.min_digits)
+    return exit_status(report)
 
 
 def _write_outputs(report, model, args) -> None:
@@ -360,7 +339,7 @@ def _run_compare(args) -> int:
         from conditioning.render.json_report import write_comparison_json
 
         write_comparison_json(comparison, args.json)
-    return exit_status(after, args.min_digits)
+    return exit_status(after)
 
 
 def _configure_logging(verbose: int, quiet: bool = False) -> None:

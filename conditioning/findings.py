@@ -13,10 +13,14 @@ from typing import Optional, Sequence
 import numpy as np
 
 from conditioning.model import Model
+from conditioning.doubledouble import U
 from conditioning.results import (
     ConditionResult, DiagonalDecay, DigitsResult, Finding, NearSingularMode, Restraint,
-    SpectrumResult, StiffnessJump, StructureResult,
+    SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
+
+#: Digits of float64, log10(2^53).
+FLOAT64_DIGITS = -math.log10(U)
 
 #: Every finding code, with its meaning. Codes are stable across versions.
 CODES = {
@@ -38,7 +42,8 @@ CODES = {
     "digits.below-minimum": "fewer trustworthy digits than required",
     "digits.refinement-not-converged": "the extended-precision reference did not converge",
     "analysis.factorization-free": "the factor would not fit in memory; a reduced diagnosis ran",
-    "digits.audited-solution": "the audited solution has fewer trustworthy digits than the tool's own",
+    "solution.does-not-fit": "the supplied solution does not solve this K and f to working precision",
+    "solution.free-mode-component": "K is singular: the supplied solution's component along the free modes is arbitrary",
 }
 
 
@@ -51,6 +56,40 @@ def _list_nodes(nodes: Sequence[int], limit: int = 8) -> str:
 def _motion_text(mode: NearSingularMode) -> str:
     parts = sorted(mode.motion.items(), key=lambda kv: -kv[1])
     return ", ".join(f"{name} {share:.0%}" for name, share in parts)
+
+
+def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
+    """What the audit of a supplied solution found (see :class:`SolutionAudit`)."""
+    out = []
+    written = ""
+    if audit.digits_written is not None:
+        written = (f" Its values carry only {audit.digits_written} significant figures"
+                   + (", which alone explains a backward error of this size."
+                      if 10.0 ** -audit.digits_written >= 0.1 * audit.backward_error else "."))
+    if audit.free_mode_share is not None:
+        load = ""
+        if audit.load_free_mode_share is not None and audit.load_free_mode_share > 1e-8:
+            load = (f" The load itself has a component along the free modes ({audit.load_free_mode_share:.1e} "
+                    "of it): no static equilibrium exists for it.")
+        out.append(Finding(
+            "error", "solution.free-mode-component",
+            f"K is singular, so a solution is determined only up to its free modes: the supplied solution's "
+            f"component along them is {audit.free_mode_share:.1e} of it, so it keeps "
+            f"{audit.trustworthy_digits:.1f} trustworthy digits (bound).{load}",
+            [], "Restrain the free modes (see the suggested restraints) and solve again; until then, "
+                "no displacement of this model is defined."))
+    elif not audit.fits:
+        ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U)
+        out.append(Finding(
+            "error", "solution.does-not-fit",
+            f"The supplied solution does not solve this K and f: its backward error {audit.backward_error:.1e} "
+            f"is {ratio:.0e} times that of the tool's own float64 solve "
+            f"({audit.allowed_backward_error:.1e}). It keeps {audit.trustworthy_digits:.1f} trustworthy digits, "
+            f"and the cause is the vector, not the conditioning of K.{written}",
+            [], "Check that the displacements belong to this load case and this export (same DOF order, "
+                "same restraints), were written with at least 15 significant figures, and come from a "
+                "solver that converged (an iterative solver stopped early leaves a residual)."))
+    return out
 
 
 def build_findings(
@@ -121,7 +160,9 @@ def build_findings(
             nearly = "" if mode.exact else "nearly "
             held = "" if mode.exact else (" It is held only by a very small stiffness (for example a "
                                           "soft spring), so K is invertible but badly conditioned.")
-            severity = "error" if mode.exact else "warning"
+            # A nearly free mode (held by a soft spring) is an error too: K's
+            # scaled condition number is then at least 1e8 (the gap rule).
+            severity = "error"
             if mode.kind == "rigid-body":
                 out.append(Finding(
                     severity, "support.rigid-body-mode",
@@ -160,17 +201,29 @@ def build_findings(
                            f"{len(stiff_link_eigenvalues)} small eigenvalue(s) of the scaled matrix "
                            f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
                            "from a missing support; see the stiffness jumps.", [], ""))
+    own = own_samples(digits)
+    measured_worst = min((s.trustworthy_digits for s in own), default=None)
     for j in jumps:
         # A stiff spring to ground is absorbed by diagonal scaling; a stiff
-        # link between DOFs is not.
+        # link between DOFs is not. Once digits are measured (the worst-case
+        # load excites the weakest mode), the measurement decides.
         sev = "warning" if (j.digits_cost >= 6 and j.kind == "coupling") else "note"
+        measured = ""
+        if measured_worst is not None:
+            lost = FLOAT64_DIGITS - measured_worst
+            measured = (f"; the measured solves lost {lost:.1f} digits in all"
+                        + ("" if lost + 1.0 >= j.digits_cost else
+                           ", so for these loads it did not cost that much"))
+            if measured_worst >= min_digits and sev == "warning" and lost + 1.0 < j.digits_cost:
+                sev = "note"
         out.append(Finding(sev, "stiffness.jump",
                            f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
-                           f"{j.ratio:.1e}, costs about {j.digits_cost:.1f} digits.",
+                           f"{j.ratio:.1e}, can cost up to {j.digits_cost:.1f} digits (estimated from "
+                           f"the ratio){measured}.",
                            j.nodes, j.reasoning))
     if condition is not None and not condition.singular:
         sk = condition.scaled_estimate
-        if sk is not None and sk > 1e8:
+        if sk is not None and sk > ILL_CONDITIONED:
             out.append(Finding("warning", "condition.ill-conditioned",
                                f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
                                "digits may be lost (see the measured digits).", [],
@@ -187,8 +240,15 @@ def build_findings(
                            model.nodes_of([decay.worst[0].row]),
                            "A pivot far smaller than its diagonal means the DOF is nearly unsupported "
                            "once the others are eliminated."))
+    audit = digits.audit if digits is not None else None
+    if audit is not None:
+        out.extend(_solution_findings(audit, rows_word))
     if digits is not None and digits.samples:
-        worst = min(digits.samples, key=lambda s: s.trustworthy_digits)
+        # A supplied solution that does not fit is the solution's fault, not
+        # K's: it has its own finding above.
+        judged = own + [s for s in digits.samples
+                        if s.sample == "solution" and (audit is None or audit.fits)]
+        worst = min(judged, key=lambda s: s.trustworthy_digits)
         if worst.trustworthy_digits < min_digits:
             out.append(Finding("error", "digits.below-minimum",
                                f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for sample "
@@ -207,36 +267,108 @@ def build_findings(
     return out
 
 
+#: A scaled condition number above this is "ill-conditioned": more than half
+#: of float64's 16 digits may be lost (common practice).
+ILL_CONDITIONED = 1e8
+
+#: The causes a verdict names, in the order :func:`verdict` tries them: the
+#: input first (every later figure rests on it), then what makes K unusable,
+#: then the supplied solution, then what costs digits.
+CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not fit",
+          "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
+          "healthy", "no defect found")
+
+
+def status_of(findings: Sequence[Finding]) -> str:
+    """``errors``, ``warnings`` or ``healthy``: the most severe finding decides.
+
+    The one rule for the report's status, which the command's exit status
+    maps one to one (3, 1, 0).
+    """
+    severities = {f.severity for f in findings}
+    return "errors" if "error" in severities else "warnings" if "warning" in severities else "healthy"
+
+
+def own_samples(digits: Optional[DigitsResult]) -> list:
+    """The samples of the tool's own solves (a supplied solution is audited apart)."""
+    if digits is None:
+        return []
+    return [s for s in digits.samples if s.sample != "solution"]
+
+
 def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structure: StructureResult,
-            digits: Optional[DigitsResult], condition: Optional[ConditionResult]) -> tuple[str, str]:
-    """(verdict line, status) with status one of healthy, warnings, errors."""
-    status = "healthy"
-    if any(f.severity == "warning" for f in findings):
-        status = "warnings"
-    if any(f.severity == "error" for f in findings):
-        status = "errors"
+            digits: Optional[DigitsResult], condition: Optional[ConditionResult],
+            *, min_digits: float = 4.0) -> tuple[str, str]:
+    """(verdict line, status): the first word is the cause, from :data:`CAUSES`.
+
+    The first cause whose evidence is present wins: an input finding of
+    warning or error severity (``input.*``); a free mode or a DOF without
+    stiffness; negative eigenvalues or pivots; a supplied solution that does
+    not solve K x = f; a nearly free mode; a stiffness jump when K is
+    ill-conditioned or digits fall below ``min_digits``; an ill-conditioned
+    scaled matrix (kappa_2(S) > 1e8); fewer measured digits than
+    ``min_digits`` although kappa_2(S) is moderate; else ``healthy``
+    (no warning or error) or ``no defect found`` (warnings about the
+    analysis itself, e.g. a reduced diagnosis). The status is
+    :func:`status_of` the findings.
+    """
+    status = status_of(findings)
+    codes = {f.code for f in findings if f.severity in ("error", "warning")}
     modes = spectrum.modes if spectrum is not None else []
     exact = [m for m in modes if m.exact]
     near = [m for m in modes if not m.exact]
 
-    def detail(ms):
-        kinds: dict[str, int] = {}
+    def kinds(ms):
+        counts: dict[str, int] = {}
         for m in ms:
-            kinds[m.kind] = kinds.get(m.kind, 0) + 1
-        return ", ".join(f"{v} {k}" for k, v in kinds.items())
+            counts[m.kind] = counts.get(m.kind, 0) + 1
+        return ", ".join(f"{v} {k}" for k, v in counts.items())
 
-    if exact or structure.empty_rows.size:
-        total = len(exact) if modes else structure.empty_rows.size
-        return f"singular: {total} free mode(s) ({detail(exact)})", status
-    prefix = f"{len(near)} near-singular mode(s) ({detail(near)}); " if near else ""
-    if digits is not None and digits.samples:
-        worst = min(s.trustworthy_digits for s in digits.samples)
-        n = int(np.floor(max(worst, 0.0)))
-        if status == "healthy":
-            return f"healthy: trustworthy to {n} significant digits (measured)", status
-        return f"ill-conditioned: {prefix}trustworthy to {n} significant digits (measured)", status
-    if condition is not None and condition.scaled_estimate:
-        n = int(np.floor(max(16 - math.log10(condition.scaled_estimate), 0)))
-        word = "healthy" if status == "healthy" else "ill-conditioned"
-        return f"{word}: {prefix}about {n} significant digits (estimated from the scaled condition number, not measured)", status
-    return ("healthy" if status == "healthy" else "warnings found"), status
+    own = own_samples(digits)
+    worst = min((s.trustworthy_digits for s in own), default=None)
+    if worst is not None:
+        figure = f"trustworthy to {int(math.floor(max(worst, 0.0)))} significant digits (measured)"
+    elif condition is not None and condition.scaled_estimate and not condition.singular:
+        n = int(math.floor(max(16 - math.log10(condition.scaled_estimate), 0)))
+        figure = f"about {n} significant digits (estimated from the scaled condition number, not measured)"
+    else:
+        figure = ""
+    tail = f"; {figure}" if figure else ""
+    audit = digits.audit if digits is not None else None
+
+    input_codes = sorted(c for c in codes if c.startswith("input."))
+    if input_codes:
+        what = "; ".join(CODES.get(c, c) for c in input_codes)
+        return f"suspect input: {what}{tail}", status
+    n_empty = int(structure.empty_rows.size)
+    if exact or n_empty:
+        total = len(exact) if modes else n_empty
+        detail = kinds(exact) if exact else f"{n_empty} dof-without-stiffness"
+        return f"singular: {total} free mode(s) ({detail})", status
+    negative = spectrum.negative_eigenvalues if spectrum is not None else 0
+    if negative or any(c in codes for c in ("stiffness.indefinite", "factor.negative-pivot")):
+        return f"indefinite: {negative or 'some'} negative eigenvalue(s); K is not a stable stiffness", status
+    if audit is not None and not audit.fits:
+        return (f"supplied solution does not fit: its backward error is {audit.backward_error:.1e}, "
+                f"far above what this K allows; it keeps {int(math.floor(audit.trustworthy_digits))} "
+                f"significant digits{tail.replace(';', '; the own solve is', 1) if tail else ''}"), status
+    if near:
+        return f"near-singular: {len(near)} nearly free mode(s) ({kinds(near)}){tail}", status
+    sk = condition.scaled_estimate if condition is not None and not condition.singular else None
+    ill = sk is not None and sk > ILL_CONDITIONED
+    below = worst is not None and worst < min_digits
+    troubled = ill or below
+    stiff_evidence = any(c.startswith("stiffness.") and c != "stiffness.indefinite"
+                         for c in {f.code for f in findings})
+    if (troubled and stiff_evidence) or any(c.startswith("stiffness.") and c != "stiffness.indefinite"
+                                            for c in codes):
+        return f"stiffness jump: stiff links next to soft parts cost digits{tail}", status
+    if ill or (below and sk is None):
+        return f"ill-conditioned{': ' + figure if figure else ''}", status
+    if below:
+        return f"fewer digits than required (--min-digits {min_digits:g}){tail}", status
+    if status == "healthy":
+        return f"healthy{': ' + figure if figure else ''}", status
+    limits = sorted(c for c in codes)
+    return (f"no defect found ({', '.join(CODES.get(c, c) for c in limits)})"
+            f"{tail}"), status

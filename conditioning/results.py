@@ -261,6 +261,50 @@ class DigitsSample:
     backward_error: Optional[float] = None
     """||f - K x||_inf / (||K||_inf ||x||_inf + ||f||_inf) of the measured
     solution, residual in double-double (dimensionless)."""
+    solution: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """The float64 solution whose digits were measured (the tool's own solve,
+    or the audited one), in K's DOF units; not serialised."""
+
+
+@dataclass(frozen=True)
+class SolutionAudit:
+    """How well a supplied solution x_s fits this K and f.
+
+    The normwise backward error eta(x) = ||f - K x||_inf / (||K||_inf
+    ||x||_inf + ||f||_inf), with the residual in double-double, is the
+    smallest relative change of K and f that x solves exactly (Rigal and
+    Gaches 1967; Higham, *Accuracy and Stability of Numerical Algorithms*,
+    2nd ed., Thm 7.1; from memory). A backward-stable float64 solve has
+    eta of a few u; a supplied solution whose eta is far above the tool's own
+    does not solve this K and f, whatever the conditioning.
+    """
+
+    backward_error: float
+    """eta(x_s) (dimensionless)."""
+    allowed_backward_error: Optional[float]
+    """eta of the tool's own float64 solve of the same K and f: what this K
+    allows; None when K is singular (no own solve)."""
+    fits: bool
+    """False when ``backward_error`` exceeds FIT_FACTOR (100) times
+    max(``allowed_backward_error``, u): the vector does not solve K x = f to
+    working precision."""
+    digits_written: Optional[int]
+    """Significant decimal digits the supplied values carry: the most any of
+    up to 2,000 sampled entries needs to be reproduced exactly; None when
+    they carry full float64 precision (17)."""
+    free_mode_share: Optional[float]
+    """Singular K only: ||P x_s||_inf / ||x_s||_inf, with P the orthogonal
+    projector onto the free modes (the component K does not determine);
+    None when K is nonsingular."""
+    load_free_mode_share: Optional[float]
+    """Singular K only: ||P f||_inf / ||f||_inf, the load's share along the
+    free modes (nonzero: no static equilibrium exists); None otherwise."""
+    trustworthy_digits: float
+    """Digits of x_s that can be trusted, rounded down to 0.1: measured
+    against the reference when K is nonsingular, else
+    -log10(free_mode_share) (0 when the free-mode component is arbitrary)."""
+    method: str
+    """How ``trustworthy_digits`` was obtained."""
 
 
 @dataclass(frozen=True)
@@ -274,6 +318,8 @@ class DigitsResult:
     """Which prediction was right and why, in one sentence."""
     skipped: Optional[str] = None
     """Why the stage did not run, if it did not."""
+    audit: Optional["SolutionAudit"] = None
+    """How the supplied solution fits K and f, when one was given."""
 
 
 # ------------------------------------------------------------------ scale

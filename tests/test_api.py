@@ -48,6 +48,34 @@ def test_model_too_big_for_the_memory_limit_takes_the_factorization_free_path(mo
         ["rx", "ry", "rz", "ux", "uy", "uz"]
 
 
+def test_supported_model_on_the_factorization_free_path(monkeypatch):
+    """A supported (non-singular) scikit-fem block clamped on one face, forced onto
+    the path without a factorization: no crash, not called singular, and its scaled
+    condition number agrees with the factorized run's and with LAPACK's (numpy eigvalsh
+    of S = D^-1/2 K D^-1/2) to the LOBPCG tolerance."""
+    fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")
+    ref = fe.solid_block(nx=6, ny=3, nz=3)
+    clamped = [(int(node), name) for node, x in zip(ref.coords.node, ref.coords.xyz[:, 0])
+               if x == ref.coords.xyz[:, 0].min() for name in ("ux", "uy", "uz")]
+    ref = fe.restrained(ref, clamped)
+    model = Model(ref.K, dofs=ref.dofs, coords=ref.coords)
+    full = conditioning.diagnose(model, measure=False)
+    monkeypatch.setattr(factorization, "PREDICT_ABOVE", 100)
+    free_path = conditioning.diagnose(model, memory_limit=1 << 12)
+    assert free_path.factorization is None and free_path.digits is None
+    assert not free_path.condition.singular and free_path.spectrum.count == 0
+    assert "analysis.factorization-free" in [f.code for f in free_path.findings]
+    d = 1 / np.sqrt(ref.K.diagonal())
+    w = np.linalg.eigvalsh(ref.K.toarray() * d[:, None] * d[None, :])  # LAPACK syevd
+    lapack = w[-1] / w[0]
+    assert free_path.condition.scaled_estimate == pytest.approx(lapack, rel=1e-3)
+    assert full.condition.scaled_estimate == pytest.approx(lapack, rel=1e-3)
+    assert full.verdict.startswith("healthy")
+    # No defect, but a reduced diagnosis: said, and the digits said to be estimated.
+    assert free_path.verdict.startswith("no defect found") and "reduced diagnosis" in free_path.verdict
+    assert "not measured" in free_path.verdict
+
+
 def test_memory_limit_from_the_environment(monkeypatch):
     """CONDITIONING_MEMORY_LIMIT sets the default limit (documented in memory.py)."""
     fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")

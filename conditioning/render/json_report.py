@@ -34,7 +34,7 @@ SCHEMA = "conditioning-report/1"
 COMPARE_SCHEMA = "conditioning-compare/1"
 
 #: Fields that are not serialised (large, or only meaningful with the model).
-_OMIT = {"vector", "part_of_row", "eigenvectors", "smallest_vector"}
+_OMIT = {"vector", "part_of_row", "eigenvectors", "smallest_vector", "solution"}
 
 #: Report fields :func:`report_to_dict` writes under its own layout.
 _HANDLED = {"summary", "structure", "factorization", "condition", "spectrum", "restraints",
