@@ -525,7 +525,8 @@ def _summary(samples: list[DigitsSample], pr, ps, flops: float) -> str:
         return "No load sample could be measured."
     worst = min(own, key=lambda s: s.trustworthy_digits)
     t = worst.trustworthy_digits
-    head = f"The float64 solution keeps at least {t:.1f} trustworthy digits (worst sample '{worst.sample}')"
+    head = (f"The float64 solution keeps at least {t:.1f} trustworthy digits, normwise (relative to the "
+            f"largest displacement; worst sample '{worst.sample}')")
     ops = (f"; the factorization's {flops:.1e} operations do not set this figure, "
            "the conditioning does")
     if pr is None and ps is None:

@@ -279,6 +279,12 @@ CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not
           "healthy", "no defect found")
 
 
+def _significant(digits: float) -> str:
+    """``"13 significant digits"``: whole digits, rounded down, never below 0."""
+    n = int(math.floor(max(digits, 0.0) + 1e-9))
+    return f"{n} significant digit{'' if n == 1 else 's'}"
+
+
 def status_of(findings: Sequence[Finding]) -> str:
     """``errors``, ``warnings`` or ``healthy``: the most severe finding decides.
 
@@ -327,10 +333,10 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     own = own_samples(digits)
     worst = min((s.trustworthy_digits for s in own), default=None)
     if worst is not None:
-        figure = f"trustworthy to {int(math.floor(max(worst, 0.0)))} significant digits (measured)"
+        figure = f"trustworthy to {_significant(worst)} (measured)"
     elif condition is not None and condition.scaled_estimate and not condition.singular:
-        n = int(math.floor(max(16 - math.log10(condition.scaled_estimate), 0)))
-        figure = f"about {n} significant digits (estimated from the scaled condition number, not measured)"
+        figure = (f"about {_significant(16 - math.log10(condition.scaled_estimate))} "
+                  "(estimated from the scaled condition number, not measured)")
     else:
         figure = ""
     tail = f"; {figure}" if figure else ""
@@ -349,9 +355,10 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if negative or any(c in codes for c in ("stiffness.indefinite", "factor.negative-pivot")):
         return f"indefinite: {negative or 'some'} negative eigenvalue(s); K is not a stable stiffness", status
     if audit is not None and not audit.fits:
-        return (f"supplied solution does not fit: its backward error is {audit.backward_error:.1e}, "
-                f"far above what this K allows; it keeps {int(math.floor(audit.trustworthy_digits))} "
-                f"significant digits{tail.replace(';', '; the own solve is', 1) if tail else ''}"), status
+        own_figure = f"; the tool's own solve is {figure}" if figure else ""
+        return (f"supplied solution does not fit: its backward error {audit.backward_error:.1e} is far "
+                f"above the {max(audit.allowed_backward_error or 0.0, U):.1e} this K allows; it keeps "
+                f"{_significant(audit.trustworthy_digits)}{own_figure}"), status
     if near:
         return f"near-singular: {len(near)} nearly free mode(s) ({kinds(near)}){tail}", status
     sk = condition.scaled_estimate if condition is not None and not condition.singular else None
