@@ -144,6 +144,11 @@ def diagnose(
     K = model.K
     with stage("structure"):
         structure = check_structure(model)
+    swallowed = _diagnose_rest_if_swallowed(model, structure, stage, samples=samples, seed=seed,
+                                            min_digits=min_digits, ordering=ordering, measure=measure,
+                                            memory_limit=memory_limit, progress=progress)
+    if swallowed is not None:
+        return swallowed
     if memory_limit is None:
         from conditioning.memory import memory_limit as default_limit
 
@@ -209,6 +214,26 @@ def diagnose(
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings,
     )
+
+
+def _diagnose_rest_if_swallowed(model: Model, structure, stage: _Stages, **options) -> Optional[Report]:
+    """When a penalty has swallowed the structure (K singular at working
+    precision only along the link), the report of the whole model from the
+    diagnosis of the rest with the linked rows held; None otherwise
+    (conditioning.penalty says why holding is the honest choice)."""
+    from conditioning.jumps import find_stiffness_jumps
+    from conditioning.penalty import hold_swallowed, restore_report, swallowed_rows
+
+    with stage("penalty check"):
+        jumps = find_stiffness_jumps(model, structure)
+        held = swallowed_rows(jumps)
+    if held.size == 0:
+        return None
+    rest, keep = hold_swallowed(model, held)
+    inner = diagnose(rest, **options)
+    report = restore_report(model, structure, summarize(model), jumps, inner, keep,
+                            min_digits=options["min_digits"])
+    return replace(report, timings={**stage.timings, **report.timings})
 
 
 def _smallest_vector(spec: ScaledSpectrum, active) -> Optional[np.ndarray]:

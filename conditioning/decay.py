@@ -19,6 +19,7 @@ does not depend on the model's units.
 from __future__ import annotations
 
 import logging
+import math
 
 import numpy as np
 
@@ -57,7 +58,8 @@ def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -
         worst first; a zero or negative pivot has ``digits = inf`` and is
         listed before all others (its ``ratio`` keeps its sign, or is inf for
         a zero pivot). ``max_digits`` is the largest ``digits`` (inf when a pivot is
-        zero or negative). Rows without any stiffness are not factored and
+        zero or negative). ``negative_pivots`` lists the rows whose pivot is
+        negative (K indefinite), by row, at most ``worst``. Rows without any stiffness are not factored and
         not listed; ``method`` says how many there are.
 
     Notes
@@ -109,7 +111,12 @@ def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -
     max_digits = float(np.max(digits[rows])) if rows.size else 0.0
     method = _method_text(fac, digits[rows], int(model.n - rows.size))
     logger.info("diagonal decay: worst %.2f digits over %d pivots", max_digits, rows.size)
-    return DiagonalDecay(worst=entries, max_digits=max_digits, method=method)
+    # Negative pivots are listed by row: the inertia, not digits, is their story.
+    negative = [
+        DecayEntry(row=int(r), label=model.row_label(int(r)), ratio=float(ratio[r]), digits=math.inf)
+        for r in np.flatnonzero(active & (np.asarray(fac.pivots) < 0))[:worst]
+    ]
+    return DiagonalDecay(worst=entries, max_digits=max_digits, method=method, negative_pivots=negative)
 
 
 def _decay_ratios(model: Model, fac: SharedFactorization):
@@ -151,8 +158,8 @@ def _method_text(fac: SharedFactorization, digits, inactive: int) -> str:
         )
     if bad:
         parts.append(
-            f"{bad} pivot(s) zero or negative (digits = inf): the factored matrix is not "
-            f"positive definite"
+            f"{bad} pivot(s) zero or negative: the factored matrix is not positive definite "
+            f"there, which is a sign of K, not digits lost (digits = inf in the data)"
         )
     if inactive:
         parts.append(f"{inactive} row(s) without stiffness were not factored and are not listed")

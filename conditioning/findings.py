@@ -34,11 +34,13 @@ CODES = {
     "support.mechanism": "an internal mechanism",
     "stiffness.indefinite": "negative eigenvalues: the stiffness is not positive semi-definite",
     "stiffness.jump": "a stiffness jump that costs digits",
+    "stiffness.penalty-swallowed": "a penalty so stiff that K no longer holds the structural stiffness of the DOFs it links",
     "stiffness.stiff-link-eigenvalue": "small scaled eigenvalues that stiff links explain",
     "spectrum.inertia-mismatch": "the eigenvalue count and the inertia count disagree",
     "condition.ill-conditioned": "the scaled condition number is large",
     "condition.units-only": "the raw condition number is large only through units or DOF-type mixing",
     "factor.diagonal-decay": "large diagonal decay at some pivots",
+    "factor.negative-pivot": "a negative pivot: K is indefinite at that DOF",
     "digits.below-minimum": "fewer trustworthy digits than required",
     "digits.refinement-not-converged": "the extended-precision reference did not converge",
     "analysis.factorization-free": "the factor would not fit in memory; a reduced diagnosis ran",
@@ -204,6 +206,9 @@ def build_findings(
     own = own_samples(digits)
     measured_worst = min((s.trustworthy_digits for s in own), default=None)
     for j in jumps:
+        if j.swallowed:
+            out.append(_swallowed_finding(model, j, rows_word))
+            continue
         # A stiff spring to ground is absorbed by diagonal scaling; a stiff
         # link between DOFs is not. Once digits are measured (the worst-case
         # load excites the weakest mode), the measurement decides.
@@ -234,10 +239,13 @@ def build_findings(
                                f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
                                "units or DOF-type mixing (rotations next to translations, mm next to m), "
                                "which a direct solver does not pay.", [], ""))
-    if decay is not None and decay.max_digits >= 8 and decay.worst:
+    if decay is not None and decay.negative_pivots:
+        out.append(_negative_pivot_finding(model, decay))
+    positive = [e for e in decay.worst if np.isfinite(e.digits)] if decay is not None else []
+    if positive and positive[0].digits >= 8:
         out.append(Finding("warning", "factor.diagonal-decay",
-                           f"Diagonal decay of {decay.max_digits:.1f} digits at {decay.worst[0].label}.",
-                           model.nodes_of([decay.worst[0].row]),
+                           f"Diagonal decay of {positive[0].digits:.1f} digits at {positive[0].label}.",
+                           model.nodes_of([positive[0].row]),
                            "A pivot far smaller than its diagonal means the DOF is nearly unsupported "
                            "once the others are eliminated."))
     audit = digits.audit if digits is not None else None
@@ -265,6 +273,40 @@ def build_findings(
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
     return out
+
+
+def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Finding:
+    """A penalty that swallowed the structure: all digits of the linked DOFs, never a mechanism."""
+    dofs = ", ".join(model.row_label(r) for r in j.rows[:6]) + (f" and {len(j.rows) - 6} more" if len(j.rows) > 6 else "")
+    kept = ("nothing" if not j.structure_digits_kept
+            else f"only about {j.structure_digits_kept:.1f} digits")
+    return Finding(
+        "error", "stiffness.penalty-swallowed",
+        f"A penalty link at {rows_word} {_list_nodes(j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
+        f"has swallowed the structure: K keeps {kept} of the structural stiffness of {dofs} (about "
+        f"{j.structural_stiffness:.2g}), so the displacements of these DOFs have no trustworthy digits. "
+        "This is a stiffness jump, not a mechanism: no restraint is needed. The rest of the model "
+        "was checked with these DOFs held.",
+        j.nodes,
+        "Lower the penalty to about 1e4 times the stiffness of the members it ties"
+        + (f" ({j.advice_value:.3g})" if j.advice_value is not None else "")
+        + ", or tie the DOFs with a constraint that eliminates one of them.")
+
+
+def _negative_pivot_finding(model: Model, decay: DiagonalDecay) -> Finding:
+    """Negative pivots, where they appeared, and what usually causes one."""
+    neg = decay.negative_pivots
+    where = ", ".join(e.label for e in neg[:6]) + (f" and {len(neg) - 6} more" if len(neg) > 6 else "")
+    return Finding(
+        "error", "factor.negative-pivot",
+        f"Negative pivot at {where}: once the DOFs eliminated before it are condensed out, the "
+        "stiffness left at this DOF is negative, so K is not positive definite: a Cholesky solver "
+        "stops here, and one that carries on returns displacements of a structure that is not "
+        "stable. Which DOF shows it depends on the elimination order; the cause is nearby.",
+        model.nodes_of([e.row for e in neg]),
+        "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
+        "spring or element entered with a negative stiffness, or a sign error in an element or "
+        "in the export. Check the loads of a geometric-stiffness step against the buckling load.")
 
 
 #: A scaled condition number above this is "ill-conditioned": more than half
@@ -309,8 +351,9 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
 
     The first cause whose evidence is present wins: an input finding of
     warning or error severity (``input.*``); a free mode or a DOF without
-    stiffness; negative eigenvalues or pivots; a supplied solution that does
-    not solve K x = f; a nearly free mode; a stiffness jump when K is
+    stiffness; negative eigenvalues or pivots; a penalty that swallowed the
+    structure; a supplied solution that does not solve K x = f; a nearly
+    free mode; a stiffness jump when K is
     ill-conditioned or digits fall below ``min_digits``; an ill-conditioned
     scaled matrix (kappa_2(S) > 1e8); fewer measured digits than
     ``min_digits`` although kappa_2(S) is moderate; else ``healthy``
@@ -351,9 +394,24 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         total = len(exact) if modes else n_empty
         detail = kinds(exact) if exact else f"{n_empty} dof-without-stiffness"
         return f"singular: {total} free mode(s) ({detail})", status
+    words = "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
-    if negative or any(c in codes for c in ("stiffness.indefinite", "factor.negative-pivot")):
-        return f"indefinite: {negative or 'some'} negative eigenvalue(s); K is not a stable stiffness", status
+    pivots = [f for f in findings if f.code == "factor.negative-pivot"]
+    if negative or pivots or "stiffness.indefinite" in codes:
+        count = f"{negative} negative eigenvalue{'' if negative == 1 else 's'}" if negative else ""
+        if pivots:
+            nodes = pivots[0].nodes
+            at = f"{words[:-1]} {nodes[0]}" if len(nodes) == 1 else f"{words} {_list_nodes(nodes, 4)}"
+            head = f"negative pivot at {at}" + (f" ({count})" if count else "")
+        else:
+            head = count or "negative eigenvalues"
+        return f"indefinite: {head}; K is not the stiffness of a stable structure{tail}", status
+    swallowed = [f for f in findings if f.code == "stiffness.penalty-swallowed"]
+    if swallowed:
+        nodes = sorted({v for f in swallowed for v in f.nodes})
+        rest = f"; elsewhere {figure}" if figure else ""
+        return (f"stiffness jump: a penalty swallowed the structure at {words} {_list_nodes(nodes)}, "
+                f"whose displacements keep no digits{rest}"), status
     if audit is not None and not audit.fits:
         own_figure = f"; the tool's own solve is {figure}" if figure else ""
         return (f"supplied solution does not fit: its backward error {audit.backward_error:.1e} is far "

@@ -40,6 +40,15 @@ MAD_TO_SIGMA = 1.4826
 #: Common practice: a penalty 10^3..10^4 times the largest ordinary stiffness
 #: of the same DOF type; we advise the upper end.
 PENALTY_FACTOR = 1.0e4
+#: Digits of float64, log10(2^53): what a swallowing penalty costs its DOFs.
+FLOAT64_DIGITS = 53 * np.log10(2.0)
+#: A link has swallowed the structure when the structure's share of each
+#: linked row is below SWALLOW_FACTOR * n * eps of the row's diagonal: the
+#: tied motion's scaled eigenvalue, about k / K_ii, is then at the zero level
+#: n eps lambda_max(S) of the spectrum stage, within the factor 10 the mode
+#: stage allows for round-off (the project's choice, matched to it).
+SWALLOW_FACTOR = 10.0
+EPS = float(np.finfo(np.float64).eps)
 
 
 @dataclass(frozen=True)
@@ -227,8 +236,68 @@ def _coupling_jumps(model: Model, stats: _TypeStats, links, limit: int) -> list[
         k = members[np.argmax(excess[members])]
         rows = sorted({int(r) for r in np.concatenate([i[members], j[members]])})
         types = sorted({int(x) for x in t[members]})
-        jumps.append(_coupling_jump(model, stats, rows, types, pairs[k], float(v[k]), worst, int(t[k])))
+        jump = _coupling_jump(model, stats, rows, types, pairs[k], float(v[k]), worst, int(t[k]))
+        jumps.append(_with_swallowing(model, jump, _structural_share(model, i, j, rows)))
     return jumps
+
+
+def _unit_class(model: Model) -> NDArray[np.intp]:
+    """0 for translations, 1 for rotations (their entries carry other units); all 0 without a map."""
+    if model.dofs is None:
+        return np.zeros(model.n, dtype=np.intp)
+    return (np.asarray(model.dofs.dof) >= 3).astype(np.intp)
+
+
+def _structural_share(model: Model, link_i, link_j, rows: list[int]) -> NDArray[np.float64]:
+    """Per row in ``rows``: the largest |K_rc|, c != r, of the same unit class
+    that is not a stiff link (K's units): the structure's share of the row,
+    read from its couplings because the diagonal may have lost it."""
+    K = model.K
+    n = model.n
+    stiff = np.concatenate([link_i * n + link_j, link_j * n + link_i])
+    cls = _unit_class(model)
+    out = np.zeros(len(rows))
+    for k, r in enumerate(rows):  # rows of the reported groups only
+        lo, hi = K.indptr[r], K.indptr[r + 1]
+        cols = np.asarray(K.indices[lo:hi], dtype=np.intp)
+        keep = (cols != r) & (cls[cols] == cls[r]) & ~np.isin(r * n + cols, stiff)
+        vals = np.abs(K.data[lo:hi][keep])
+        out[k] = float(vals.max()) if vals.size else 0.0
+    return out
+
+
+def _with_swallowing(model: Model, jump: StiffnessJump, share: NDArray[np.float64]) -> StiffnessJump:
+    """Set how much of the structure's stiffness the link's diagonals still hold.
+
+    fl(P + k) == P once k is below half an ulp of P, so the digits of k kept in
+    K_ii are log10(k / ulp(K_ii)); the link has swallowed the structure when
+    every linked row with a structural share keeps it below 10 n eps |K_ii|.
+    Rows without any share (a node held only by the link) do not count; a
+    link whose rows have no share at all is left to the mode stage.
+    """
+    d = np.abs(model.K.diagonal()[jump.rows])
+    kept = np.log10(np.where(share > 0, share, np.nan) / np.spacing(d))
+    if not np.any(share > 0):
+        return replace(jump, structural_stiffness=0.0)
+    digits_kept = float(max(0.0, np.nanmax(kept)))
+    lost = bool(np.all((share <= SWALLOW_FACTOR * model.n * EPS * d) | (share == 0)))
+    out = replace(jump, structural_stiffness=float(share.max()), structure_digits_kept=digits_kept, swallowed=lost)
+    if lost:
+        out = replace(out, digits_cost=float(FLOAT64_DIGITS), reasoning=_swallowed_text(model, out) + out.reasoning)
+    return out
+
+
+def _swallowed_text(model: Model, jump: StiffnessJump) -> str:
+    kept = jump.structure_digits_kept
+    held = ("nothing of it is left in K" if kept == 0.0 else
+            f"K holds only about {kept:.1f} of its digits")
+    return (
+        f"The structure's own stiffness of these DOFs, about {jump.structural_stiffness:.3g} (the "
+        f"largest other stiffness in their rows), is so small beside the link's that {held}: in "
+        "float64 the link has swallowed it. A solve therefore loses all digits of the displacements "
+        "of these DOFs, and K is singular at working precision along the link. This is not a "
+        "mechanism and needs no restraint; the rest of the model is diagnosed with these DOFs held. "
+    )
 
 
 def _type_names(model: Model, types) -> str:

@@ -186,6 +186,20 @@ class StiffnessJump:
     """A suggested stiffness for the link that stays effective with fewer
     digits lost, in K's units."""
     reasoning: str
+    structural_stiffness: Optional[float] = None
+    """For a coupling: the largest stiffness of the linked rows outside the
+    link (same unit class, translations or rotations), the structure's own
+    share of those rows, in K's units; None for a diagonal outlier."""
+    structure_digits_kept: Optional[float] = None
+    """For a coupling: decimal digits of that structural stiffness still held
+    next to the penalty in the diagonal, max(0, log10(k / ulp(K_ii))) over the
+    linked rows (about 15.65 - log10(K_ii / k)); 0 when swallowed."""
+    swallowed: bool = False
+    """True when the penalty has swallowed the structure: the structural
+    stiffness of every linked row is below 10 n eps |K_ii| (K is singular at
+    working precision along the link; below half an ulp nothing of it is left,
+    ``structure_digits_kept == 0``). ``digits_cost`` is then all the digits of
+    float64, log10(2^53) = 15.95, for the linked DOFs."""
 
 
 @dataclass(frozen=True)
@@ -203,7 +217,13 @@ class DiagonalDecay:
     worst: list[DecayEntry]
     """The rows with the largest decay, worst first."""
     max_digits: float
+    """Largest ``digits`` (decimal digits; inf when a pivot is zero or negative)."""
     method: str
+    negative_pivots: list[DecayEntry] = field(default_factory=list)
+    """Rows whose pivot is negative (at most ``worst`` of them, by row): K is
+    indefinite and the DOF pushes back negatively once the DOFs
+    eliminated before it are condensed out. ``ratio`` = K_ii / D_ii < 0 for a
+    positive diagonal; ``digits`` is inf."""
 
 
 # ----------------------------------------------------------------- digits

@@ -204,9 +204,13 @@ def _decay(r: results.Report) -> str:
     d = r.decay
     if d is None or not d.worst:
         return ""
-    rows = [[e.label, fmt_number(e.ratio), f"{e.digits:.1f}"] for e in d.worst[:10]]
+    negative = {e.row for e in d.negative_pivots}
+    rows = [[e.label, fmt_number(e.ratio), "negative pivot" if e.row in negative else f"{e.digits:.1f}"]
+            for e in d.worst[:10]]
+    largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
+               else f"Largest: {d.max_digits:.1f} digits lost at a pivot. ")
     return ("<h2>Diagonal decay</h2>"
-            + f"<p>Largest: {d.max_digits:.1f} digits lost at a pivot. "
+            + f"<p>{largest}"
               f'<span class="how">{_e(d.method)}</span></p>'
             + _table(["row", "K_ii / D_ii", "digits"], rows, {1, 2}))
 

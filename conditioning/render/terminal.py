@@ -234,9 +234,14 @@ def _decay(r: results.Report):
     if d is None or not d.worst:
         return None
     g = _grid()
-    g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
+    negative = {e.row for e in getattr(d, "negative_pivots", [])}
+    if negative:
+        g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
+    else:
+        g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
     for e in d.worst[:5]:
-        g.add_row(e.label, f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
+        g.add_row(e.label, f"negative pivot, K_ii/D_ii = {fmt_number(e.ratio)}" if e.row in negative
+                  else f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
     return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
