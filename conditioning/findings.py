@@ -42,6 +42,11 @@ CODES = {
 }
 
 
+#: Digits lost at one pivot from which the decay is a finding (the project's choice:
+#: half of float64's digits).
+DECAY_FINDING_DIGITS = 8
+
+
 def _list_nodes(nodes: Sequence[int], limit: int = 8) -> str:
     nodes = list(nodes)
     head = ", ".join(str(v) for v in nodes[:limit])
@@ -130,7 +135,8 @@ def build_findings(
                     f"{_list_nodes(mode.nodes)}.{held}",
                     mode.nodes,
                     "Add supports in the directions that move, or connect the part to the supported "
-                    "structure; the suggested restraints below are one minimal choice."))
+                    "structure" + ("; the report's suggested restraints are one minimal choice."
+                                   if restraints else ".")))
             elif mode.kind == "mechanism":
                 where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
                          "rigidly, meeting at " if mode.groups else "located at ")
@@ -159,7 +165,8 @@ def build_findings(
         out.append(Finding("note", "stiffness.stiff-link-eigenvalue",
                            f"{len(stiff_link_eigenvalues)} small eigenvalue(s) of the scaled matrix "
                            f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
-                           "from a missing support; see the stiffness jumps.", [], ""))
+                           "from a missing support" + ("; see the stiffness jumps." if jumps else "."),
+                           [], ""))
     for j in jumps:
         # A stiff spring to ground is absorbed by diagonal scaling; a stiff
         # link between DOFs is not.
@@ -174,14 +181,14 @@ def build_findings(
             out.append(Finding("warning", "condition.ill-conditioned",
                                f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
                                "digits may be lost (see the measured digits).", [],
-                               "Look at the near-singular modes and stiffness jumps for the cause."))
+                               _where_to_look(spectrum, jumps, decay)))
         if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
             out.append(Finding("note", "condition.units-only",
                                f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
                                f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
                                "units or DOF-type mixing (rotations next to translations, mm next to m), "
                                "which a direct solver does not pay.", [], ""))
-    if decay is not None and decay.max_digits >= 8 and decay.worst:
+    if decay is not None and decay.max_digits >= DECAY_FINDING_DIGITS and decay.worst:
         out.append(Finding("warning", "factor.diagonal-decay",
                            f"Diagonal decay of {decay.max_digits:.1f} digits at {decay.worst[0].label}.",
                            model.nodes_of([decay.worst[0].row]),
@@ -205,6 +212,22 @@ def build_findings(
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
     return out
+
+
+def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],
+                   decay: Optional[DiagonalDecay]) -> str:
+    """Advice that points only at sections of the report that hold something."""
+    shown = []
+    if spectrum is not None and spectrum.modes:
+        shown.append("near-singular modes")
+    if jumps:
+        shown.append("stiffness jumps")
+    if decay is not None and decay.worst and decay.max_digits >= DECAY_FINDING_DIGITS:
+        shown.append("diagonal decay")
+    if shown:
+        return f"Look at the {', '.join(shown[:-1]) + ' and ' if len(shown) > 1 else ''}{shown[-1]} for the cause."
+    return ("No near-singular mode or stiffness jump was found to explain it: look for elements "
+            "of very different stiffness or size meeting at a node.")
 
 
 def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structure: StructureResult,
