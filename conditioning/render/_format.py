@@ -159,7 +159,7 @@ def mode_count_lines(sp: results.SpectrumResult, jumps_shown: bool) -> list[str]
     below = sp.below_split
     only_modes = below is not None and below == sp.count - empty and not links
     if below is not None and sp.gap is not None and not only_modes:
-        parts = [f"{sp.count - empty} near-singular mode(s)"]
+        parts = [f"{sp.count - empty} near-singular mode(s)"] if sp.count > empty else []
         if links:
             parts.append(f"{links} from stiff links, not a missing support"
                          + (" (see the stiffness jumps)" if jumps_shown else ""))
