@@ -180,7 +180,9 @@ def build_findings(
         if sk is not None and sk > 1e8:
             out.append(Finding("warning", "condition.ill-conditioned",
                                f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
-                               "digits may be lost (see the measured digits).", [],
+                               "digits may be lost" + (" (see the measured digits)."
+                                                       if digits is not None and digits.samples
+                                                       else " (digits not measured)."), [],
                                _where_to_look(spectrum, jumps, decay)))
         if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
             out.append(Finding("note", "condition.units-only",

@@ -72,6 +72,7 @@ def _non_empty_sections(report) -> dict[str, bool]:
         "diagonal decay": bool(report.decay is not None and report.decay.worst),
         "suggested restraints": bool(report.restraints),
         "findings": bool(report.findings),
+        "measured digits": bool(report.digits is not None and report.digits.samples),
     }
 
 
@@ -198,7 +199,8 @@ def check_pointers(report, text: str) -> None:
         for m in re.finditer(r"Look at the (.+?) for the cause", sentence):
             for name in re.split(r", | and ", m.group(1)):
                 assert full.get(name), f"{m.group(0)!r} but '{name}' is empty"
-        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|diagonal decay)", sentence):
+        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|diagonal decay|measured digits)",
+                             sentence):
             assert full[m.group(1)], f"{m.group(0)!r} but that section is empty"
         if "suggested restraints" in sentence and "report's suggested restraints" in sentence:
             assert full["suggested restraints"]
