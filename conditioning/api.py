@@ -177,6 +177,8 @@ def diagnose(
         modes=located.modes,
         method=spec.method,
         smallest_vector=_smallest_vector(spec, fac.active),
+        below_split=spec.inertia_expected,
+        stiff_link_eigenvalues=list(located.stiff_link_eigenvalues),
     )
     with stage("restraints"):
         restraints = _restraints(model, structure, located)
@@ -294,6 +296,7 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
     spectrum = SpectrumResult(
         smallest=values[:12], count=len(located.modes), gap=gap, gap_rule=GAP_RULE, inertia_count=None,
         inertia_agrees=None, negative_eigenvalues=int(first), modes=located.modes, method=it.method,
+        stiff_link_eigenvalues=list(located.stiff_link_eigenvalues),
     )
     restraints = _restraints(model, structure, located)
     from conditioning.jumps import find_stiffness_jumps

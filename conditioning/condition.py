@@ -107,8 +107,7 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
     if singular:
         return ConditionResult(
             singular=True, lambda_max=lam_max, lambda_min=None, estimate=None,
-            estimate_method=f"singular: {free} near-singular mode(s) below the spectral gap"
-            + (", rows without stiffness" if fac.active.size > int(fac.active.sum()) else ""),
+            estimate_method=_singular_because(free, fac.active.size - int(fac.active.sum())),
             scaled_estimate=None, scaled_lambda_min=s_lmin, scaled_lambda_max=spectrum.lambda_max,
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method="not computed: K is singular", scaling_gain_digits=None,
@@ -129,3 +128,14 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
         "factor solves) times ||K||_1: a lower bound, usually within a factor 3 (as LAPACK xPOCON)",
         scaling_gain_digits=gain,
     )
+
+
+def _singular_because(free: int, empty: int) -> str:
+    """Why K is singular, counting what the mode table lists under the same names."""
+    why = []
+    if free:
+        why.append(f"{free} zero-energy mode(s) of S below the spectral gap")
+    if empty:
+        why.append(f"{empty} DOF(s) without stiffness")
+    return "singular: " + (" and ".join(why) if why else
+                           "the factorization met a zero pivot (it needed a shift)")

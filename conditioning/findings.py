@@ -49,6 +49,11 @@ CODES = {
 }
 
 
+#: Digits lost at one pivot from which the decay is a finding (the project's choice:
+#: half of float64's digits).
+DECAY_FINDING_DIGITS = 8
+
+
 def _list_nodes(nodes: Sequence[int], limit: int = 8) -> str:
     nodes = list(nodes)
     head = ", ".join(str(v) for v in nodes[:limit])
@@ -173,7 +178,8 @@ def build_findings(
                     f"{_list_nodes(mode.nodes)}.{held}",
                     mode.nodes,
                     "Add supports in the directions that move, or connect the part to the supported "
-                    "structure; the suggested restraints below are one minimal choice."))
+                    "structure" + ("; the report's suggested restraints are one minimal choice."
+                                   if restraints else ".")))
             elif mode.kind == "mechanism":
                 where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
                          "rigidly, meeting at " if mode.groups else "located at ")
@@ -202,7 +208,8 @@ def build_findings(
         out.append(Finding("note", "stiffness.stiff-link-eigenvalue",
                            f"{len(stiff_link_eigenvalues)} small eigenvalue(s) of the scaled matrix "
                            f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
-                           "from a missing support; see the stiffness jumps.", [], ""))
+                           "from a missing support" + ("; see the stiffness jumps." if jumps else "."),
+                           [], ""))
     own = own_samples(digits)
     measured_worst = min((s.trustworthy_digits for s in own), default=None)
     for j in jumps:
@@ -231,8 +238,10 @@ def build_findings(
         if sk is not None and sk > ILL_CONDITIONED:
             out.append(Finding("warning", "condition.ill-conditioned",
                                f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
-                               "digits may be lost (see the measured digits).", [],
-                               "Look at the near-singular modes and stiffness jumps for the cause."))
+                               "digits may be lost" + (" (see the measured digits)."
+                                                       if digits is not None and digits.samples
+                                                       else " (digits not measured)."), [],
+                               _where_to_look(spectrum, jumps, decay)))
         if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
             out.append(Finding("note", "condition.units-only",
                                f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
@@ -242,7 +251,7 @@ def build_findings(
     if decay is not None and decay.negative_pivots:
         out.append(_negative_pivot_finding(model, decay))
     positive = [e for e in decay.worst if np.isfinite(e.digits)] if decay is not None else []
-    if positive and positive[0].digits >= 8:
+    if positive and positive[0].digits >= DECAY_FINDING_DIGITS:
         out.append(Finding("warning", "factor.diagonal-decay",
                            f"Diagonal decay of {positive[0].digits:.1f} digits at {positive[0].label}.",
                            model.nodes_of([positive[0].row]),
@@ -342,6 +351,22 @@ def own_samples(digits: Optional[DigitsResult]) -> list:
     if digits is None:
         return []
     return [s for s in digits.samples if s.sample != "solution"]
+
+
+def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],
+                   decay: Optional[DiagonalDecay]) -> str:
+    """Advice that points only at sections of the report that hold something."""
+    shown = []
+    if spectrum is not None and spectrum.modes:
+        shown.append("near-singular modes")
+    if jumps:
+        shown.append("stiffness jumps")
+    if decay is not None and decay.worst and decay.max_digits >= DECAY_FINDING_DIGITS:
+        shown.append("diagonal decay")
+    if shown:
+        return f"Look at the {', '.join(shown[:-1]) + ' and ' if len(shown) > 1 else ''}{shown[-1]} for the cause."
+    return ("No near-singular mode or stiffness jump was found to explain it: look for elements "
+            "of very different stiffness or size meeting at a node.")
 
 
 def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structure: StructureResult,

@@ -161,6 +161,14 @@ class SpectrumResult:
     smallest_vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """Unit eigenvector of S for its smallest eigenvalue, in S's coordinates
     (v; the displacement shape is D^-1/2 v), all rows; not serialised."""
+    below_split: Optional[int] = None
+    """Eigenvalues of S below the split point as the eigen-solve found them
+    (true negative ones included, DOFs without stiffness not: they are left
+    out of S): the figure ``inertia_count`` is compared with. None without a
+    split."""
+    stiff_link_eigenvalues: list[float] = field(default_factory=list)
+    """Scaled eigenvalues below the split that stiff links explain (see the
+    stiffness jumps); they are not near-singular modes and not in ``modes``."""
 
 
 @dataclass(frozen=True)

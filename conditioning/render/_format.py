@@ -7,7 +7,10 @@ stages already produced into short, honest text.
 from __future__ import annotations
 
 import math
-from typing import Iterable, Optional
+from typing import TYPE_CHECKING, Iterable, Optional
+
+if TYPE_CHECKING:
+    from conditioning import results
 
 #: Words a ``method`` string is classified by, in order of precedence. Every
 #: figure in a view is tagged with one of these so the reader knows how it
@@ -126,3 +129,58 @@ def scaling_sentence(gain_digits: float) -> str:
                 "harmless; the scaled figure is the one that governs the accuracy of the solve.")
     return ("The raw and scaled figures agree within a digit: the conditioning is not an "
             "effect of units or DOF-type mixing.")
+
+
+def zero_diagonal_text(st: results.StructureResult, max_ids: int = 8) -> str:
+    """Every zero diagonal, by kind: a row with no entry at all has one too."""
+    empty, coupled = len(st.empty_rows), len(st.zero_diagonal)
+    if not empty and not coupled:
+        return "none"
+    with_coupling = (f"{coupled:,} in rows with coupling terms (rows "
+                     f"{summarise_ids([int(x) + 1 for x in st.zero_diagonal], max_ids)})")
+    if not coupled:
+        return f"{empty:,}, all in the DOFs without stiffness (no coupling terms either)"
+    if not empty:
+        return with_coupling
+    return f"{empty + coupled:,}: {empty:,} in the DOFs without stiffness, {with_coupling}"
+
+
+def mode_count_lines(sp: results.SpectrumResult, jumps_shown: bool) -> list[str]:
+    """The mode count, what lies below the split and the inertia cross-check,
+    worded so that each count says what it counts (a stiff-link eigenvalue is
+    below the split but is no mode; a DOF without stiffness is a mode outside S)."""
+    empty = sum(1 for m in sp.modes if m.kind == "dof-without-stiffness")
+    head = f"{sp.count} near-singular mode{'s' if sp.count != 1 else ''}"
+    if empty:
+        head += (f", {empty} of them DOF(s) without stiffness (each a mode of its own, "
+                 "outside the eigenvalues of S)")
+    lines = [head]
+    links = len(sp.stiff_link_eigenvalues)
+    below = sp.below_split
+    only_modes = below is not None and below == sp.count - empty and not links
+    if below is not None and sp.gap is not None and not only_modes:
+        parts = [f"{sp.count - empty} near-singular mode(s)"] if sp.count > empty else []
+        if links:
+            parts.append(f"{links} from stiff links, not a missing support"
+                         + (" (see the stiffness jumps)" if jumps_shown else ""))
+        if sp.negative_eigenvalues:
+            parts.append(f"{sp.negative_eigenvalues} negative")
+        rest = below - (sp.count - empty) - links - sp.negative_eigenvalues
+        if rest:
+            parts.append(f"{rest} not classified")
+        lines.append(f"{below} eigenvalue(s) of S below a gap of {fmt_number(sp.gap)}: "
+                     + ", ".join(parts))
+    elif sp.gap is not None:
+        lines[0] += f", separated by a gap of {fmt_number(sp.gap)}"
+    if sp.inertia_count is not None:
+        agree = {True: "agrees", False: "DISAGREES", None: "not compared"}[sp.inertia_agrees]
+        against = f" with the {below} computed" if below is not None and sp.inertia_agrees is not None else ""
+        lines.append(f"inertia count of the eigenvalues of S below the gap (negative pivots, "
+                     f"Sylvester's law): {sp.inertia_count}, {agree}{against}")
+    return lines
+
+
+def confirmed(sample: "results.DigitsSample") -> bool:
+    """True when the sample's reference is the independent re-solve (its method
+    is then "certified" or "arbitrary precision"), not refinement alone."""
+    return sample.method in ("certified", "arbitrary precision")

@@ -20,7 +20,8 @@ from conditioning import results
 from conditioning.model import Model
 from conditioning.render import plots
 from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         scaling_sentence, summarise_ids)
+                                         mode_count_lines, scaling_sentence, summarise_ids,
+                                         zero_diagonal_text)
 
 log = logging.getLogger(__name__)
 
@@ -126,7 +127,8 @@ def _findings(r: results.Report) -> str:
 
 def _summary(r: results.Report) -> str:
     s, st = r.summary, r.structure
-    rows = [["rows (DOFs)", f"{s.rows:,}"], ["stored entries", f"{s.stored_entries:,}"],
+    rows = [["rows (DOFs)", f"{s.rows:,}"],
+            ["nonzeros in K", f"{s.stored_entries:,} (both triangles; a symmetric file stores one)"],
             ["nodes", "no DOF map given" if s.nodes is None else f"{s.nodes:,}"
              + (f" ({s.dim}D)" if s.dim else "")],
             ["dof types", ", ".join(s.dof_types) or "-"],
@@ -134,6 +136,8 @@ def _summary(r: results.Report) -> str:
                                 f"{'given' if s.has_solution else 'not given'}"],
             ["connected parts", str(st.parts)],
             ["DOFs without stiffness", str(len(st.empty_rows))],
+            ["zero diagonal", zero_diagonal_text(st, 12)],
+            ["negative diagonal", f"{len(st.negative_diagonal):,}" if len(st.negative_diagonal) else "none"],
             ["asymmetry", "none" if st.asymmetry.row < 0 else fmt_number(st.asymmetry.relative)]]
     if s.restrained:
         rows.append(["restrained (removed)", f"{s.restrained:,}"])
@@ -163,14 +167,8 @@ def _modes(r: results.Report) -> str:
     sp = r.spectrum
     if sp is None:
         return ""
-    head = f"<p>{sp.count} near-singular mode(s)"
-    if sp.gap is not None:
-        head += f", gap ratio {_e(fmt_number(sp.gap))}"
-    head += f"; rule: {_e(sp.gap_rule)}"
-    if sp.inertia_count is not None:
-        head += (f"; inertia count {sp.inertia_count} "
-                 f"({'agrees' if sp.inertia_agrees else 'does not agree'})")
-    head += f'. <span class="how">{_e(sp.method)}</span></p>'
+    head = ("<p>" + "<br>".join(_e(line) for line in mode_count_lines(sp, bool(r.jumps)))
+            + f'<br>rule: {_e(sp.gap_rule)}. <span class="how">{_e(sp.method)}</span></p>')
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
     rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",

@@ -18,8 +18,9 @@ from rich.table import Table
 from rich.text import Text
 
 from conditioning import results
-from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         scaling_sentence, summarise_ids)
+from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
+                                         mode_count_lines, scaling_sentence, summarise_ids,
+                                         zero_diagonal_text)
 
 _STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
 _SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
@@ -98,7 +99,7 @@ def _model(r: results.Report):
     g = _grid()
     g.add_row("source", s.source)
     g.add_row("rows (DOFs)", f"{s.rows:,}")
-    g.add_row("stored entries", f"{s.stored_entries:,}")
+    g.add_row("nonzeros in K", f"{s.stored_entries:,} (both triangles; a symmetric file stores one)")
     if s.nodes is not None:
         g.add_row("nodes", f"{s.nodes:,}" + (f" ({s.dim}D)" if s.dim else ""))
     else:
@@ -122,11 +123,12 @@ def _structure(r: results.Report, max_ids: int):
     g.add_row("connected parts", f"{st.parts}" + (
         f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else ""))
     for name, rows in (("DOFs without stiffness", st.empty_rows),
-                       ("zero diagonal", st.zero_diagonal),
                        ("negative diagonal", st.negative_diagonal)):
         rows = list(rows)
         g.add_row(name, "none" if not rows else
                   f"{len(rows):,} (rows {summarise_ids([x + 1 for x in rows], max_ids)})")
+        if name.startswith("DOFs"):
+            g.add_row("zero diagonal", zero_diagonal_text(st, max_ids))
     a = st.asymmetry
     g.add_row("asymmetry", "none (symmetric)" if a.row < 0 else
               f"largest relative {fmt_number(a.relative)} at row {a.row + 1}, "
@@ -164,16 +166,8 @@ def _modes(r: results.Report, max_ids: int):
     sp = r.spectrum
     if sp is None:
         return Text("not computed", style="dim")
-    lines = []
-    head = f"{sp.count} near-singular mode{'s' if sp.count != 1 else ''}"
-    if sp.gap is not None:
-        head += f", separated by a gap of {fmt_number(sp.gap)}"
-    lines.append(Text(head))
-    if sp.inertia_count is not None:
-        agree = {True: "agrees", False: "DISAGREES", None: "not compared"}[sp.inertia_agrees]
-        lines.append(Text(f"inertia count (negative pivots, Sylvester's law): "
-                          f"{sp.inertia_count}, {agree}",
-                          style="red" if sp.inertia_agrees is False else ""))
+    lines = [Text(line, style="red" if "DISAGREES" in line else "")
+             for line in mode_count_lines(sp, bool(r.jumps))]
     if sp.negative_eigenvalues:
         lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
                           "stiffness is indefinite", style="red"))
@@ -292,14 +286,26 @@ def _digits(r: results.Report, max_ids: int):
             lines.append(Text(f"The factorization took about "
                               f"{fmt_number(dg.factorization_flops)} operations; digits are "
                               "lost to conditioning, not to the operation count.", style="dim"))
-    confirmed = [s for s in dg.samples if s.confirmation]
-    if confirmed:
-        first = confirmed[0]
-        more = (f" (and {len(confirmed) - 1} more sample(s) confirmed; all in the JSON report)"
-                if len(confirmed) > 1 else "")
-        lines.append(Text(f"Independent confirmation, {first.sample}: {first.confirmation}{more}",
-                          style="dim"))
+    lines.extend(_confirmation_lines(dg.samples))
     return Group(*lines)
+
+
+def _confirmation_lines(samples) -> list[Text]:
+    """One line for the confirmed samples, one for the others; a failed or
+    skipped re-solve is never counted as a confirmation."""
+    lines = []
+    for group, word in (([s for s in samples if s.confirmation and confirmed(s)],
+                         "Independent confirmation"),
+                        ([s for s in samples if s.confirmation and not confirmed(s)],
+                         "Not independently confirmed")):
+        if not group:
+            continue
+        more = (f" (likewise {len(group) - 1} more sample(s): "
+                f"{', '.join(s.sample for s in group[1:])}; all in the JSON report)"
+                if len(group) > 1 else "")
+        lines.append(Text(f"{word}, {group[0].sample}: {group[0].confirmation}{more}",
+                          style="dim" if word.startswith("Ind") else "yellow"))
+    return lines
 
 
 def _digits_shown(s: results.DigitsSample) -> str:
