@@ -133,6 +133,7 @@ def _summary(r: results.Report) -> str:
             ["load / solution", f"{'given' if s.has_load else 'not given'} / "
                                 f"{'given' if s.has_solution else 'not given'}"],
             ["connected parts", str(st.parts)],
+            ["diagonal-only rows (not counted as parts)", f"{len(st.placeholder_rows):,}"],
             ["DOFs without stiffness", str(len(st.empty_rows))],
             ["asymmetry", "none" if st.asymmetry.row < 0 else fmt_number(st.asymmetry.relative)]]
     if s.restrained:
