@@ -22,7 +22,7 @@ from conditioning.results import Asymmetry, StructureResult
 #: twice in full precision) ...
 ASYMMETRY_IGNORED = 1e-10
 #: ... or exceeds this share of max |K| and PAIR_DIFFERS of the entry itself:
-#: a small entry changed by far more than the 8th significant digit is not
+#: a small entry changed beyond its 6th significant digit is not
 #: round-off, while differences below 1e-12 of max |K| are cancellation noise
 #: of assembly (entries that should be 0), whatever their own size (the
 #: project's own choices).
