@@ -15,9 +15,10 @@ import numpy as np
 from conditioning.model import Model
 from conditioning.doubledouble import U
 from conditioning.results import (
-    ConditionResult, DiagonalDecay, DigitsResult, Finding, NearSingularMode, Restraint,
-    SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
+    Asymmetry, ConditionResult, DiagonalDecay, DigitsResult, Finding, NearSingularMode,
+    OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
+from conditioning.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
 
 #: Digits of float64, log10(2^53).
 FLOAT64_DIGITS = -math.log10(U)
@@ -26,6 +27,8 @@ FLOAT64_DIGITS = -math.log10(U)
 CODES = {
     "input.no-dof-map": "no DOF-to-node map: findings are by matrix row",
     "input.asymmetric": "the matrix is not symmetric",
+    "input.one-triangle-export": "a non-symmetric-labelled matrix holds one triangle plus a few stray entries",
+    "structure.placeholder-rows": "rows holding only a diagonal, no coupling (restrained DOFs kept as placeholders)",
     "structure.dof-without-stiffness": "rows with no stiffness at all",
     "structure.negative-diagonal": "negative diagonal entries",
     "structure.zero-diagonal": "zero diagonal entries in rows that have stiffness",
@@ -119,16 +122,11 @@ def build_findings(
         out.append(Finding("note", "input.no-dof-map",
                            "No DOF-to-node map was given, so rows are reported by index (1-based).",
                            [], "Give --dofs FILE or --dofs-per-node K for node-level findings."))
+    if structure.one_triangle is not None:
+        out.append(_one_triangle_finding(model, structure.one_triangle))
     a = structure.asymmetry
-    if a.relative > 1e-10:
-        sev = "warning" if a.relative > 1e-6 else "note"
-        out.append(Finding(sev, "input.asymmetric",
-                           f"The matrix is not symmetric: largest relative asymmetry {a.relative:.2e} "
-                           f"between {model.row_label(a.row)} and {model.row_label(a.col)}. "
-                           "The diagnosis uses the matrix as given.",
-                           model.nodes_of([a.row, a.col]),
-                           "A linear elastic stiffness is symmetric: check the export or the elements "
-                           "(follower loads, friction and some contact elements are not)."))
+    if asymmetry_reported(a):
+        out.append(_asymmetry_finding(model, a))
     if structure.empty_rows.size:
         nodes = model.nodes_of(structure.empty_rows)
         labels = ", ".join(model.row_label(r) for r in structure.empty_rows[:6])
@@ -159,6 +157,9 @@ def build_findings(
                            f"The model has {structure.parts} parts that share no stiffness "
                            f"(sizes in rows: {_list_nodes([int(x) for x in sizes], 6)}).",
                            [], "Each part must be supported on its own, or connected to the rest."))
+    if structure.placeholder_rows.size:
+        out.append(_placeholder_finding(model, structure))
+
     def who(mode):
         return "The model" if structure.parts <= 1 else f"Part {mode.part}"
 
@@ -367,6 +368,108 @@ def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump
         return f"Look at the {', '.join(shown[:-1]) + ' and ' if len(shown) > 1 else ''}{shown[-1]} for the cause."
     return ("No near-singular mode or stiffness jump was found to explain it: look for elements "
             "of very different stiffness or size meeting at a node.")
+
+
+def _percent(x: float) -> str:
+    return f"{x:.1%}" if x >= 1e-3 else f"{x:.1e}"
+
+
+def _entry_label(model: Model, i: int, j: int) -> str:
+    """``"row 3, column 17"`` or, with a DOF map, ``"node 2 uy / node 5 ux"`` (0-based i, j)."""
+    if model.dofs is None:
+        return f"row {i + 1}, column {j + 1}"
+    return f"{model.row_label(i)} / {model.row_label(j)}"
+
+
+def _asymmetry_finding(model: Model, a: Asymmetry) -> Finding:
+    # A pair that differs by more than 0.01% of its own size is not round-off
+    # of an export, even when the entry is small next to the largest one.
+    sev = "warning" if (a.relative > 1e-6 or (a.relative > ASYMMETRY_NOISE and a.pair_relative > 1e-4)) else "note"
+    kij, kji = a.pair_values
+    others = a.pairs - 1
+    return Finding(
+        sev, "input.asymmetric",
+        f"The matrix is not symmetric: at {_entry_label(model, a.row, a.col)} it holds {kij:.6g}, "
+        f"at the mirror position {kji:.6g}, a difference of {_percent(a.pair_relative)} of the entry "
+        f"({a.relative:.1e} of the largest entry of K)"
+        + (f"; {others:,} other pair(s) differ too" if others > 0 else "; no other pair differs")
+        + ". The diagnosis uses the matrix as given.",
+        model.nodes_of([a.row, a.col]),
+        "A linear elastic stiffness is symmetric. A single pair that differs points at the export "
+        "(an entry edited or written from another source); many point at the elements (follower "
+        "loads, friction and some contact elements are not symmetric). A solver that reads one "
+        "triangle uses one of the two values without noticing.")
+
+
+def _one_triangle_finding(model: Model, t: OneTriangleExport) -> Finding:
+    other = "upper" if t.triangle == "lower" else "lower"
+    m = int(t.stray_rows.size)
+    shown = "; ".join(_entry_label(model, int(i), int(j))
+                      for i, j in zip(t.stray_rows[:4], t.stray_cols[:4]))
+    more = f" and {m - 4:,} more" if m > 4 else ""
+    K = model.K
+    paired = np.flatnonzero(t.stray_paired)
+    differ = sum(1 for k in paired if K[t.stray_rows[k], t.stray_cols[k]] != K[t.stray_cols[k], t.stray_rows[k]])
+    what = [f"the {t.triangle} triangle mirrored"]
+    if m - paired.size:
+        what.append(f"{m - paired.size:,} stray entr{'y' if m - paired.size == 1 else 'ies'} with no "
+                    "partner mirrored as well")
+    if paired.size:
+        what.append(f"{paired.size:,} stray entr{'y' if paired.size == 1 else 'ies'} repeating a stored "
+                    "pair kept as stored"
+                    + (f" ({differ:,} differ from the {t.triangle} value: see the asymmetry finding)"
+                       if differ else " (equal to the mirrored value)"))
+    return Finding(
+        "warning", "input.one-triangle-export",
+        f"The matrix is not labelled symmetric, yet it stores only its {t.triangle} triangle "
+        f"({t.triangle_entries:,} off-diagonal entries) plus {m:,} entr{'y' if m == 1 else 'ies'} in the "
+        f"{other} triangle ({shown}{more}): it looks like a one-triangle export with stray entries. "
+        f"Diagnosed: {'; '.join(what)}. Read as stored, it would be a non-symmetric matrix, "
+        "which no linear elastic stiffness is.",
+        model.nodes_of(np.concatenate([t.stray_rows, t.stray_cols])),
+        "Re-export K labelled 'symmetric' (one triangle) or with both triangles in full, or mirror "
+        "the triangle yourself; find where the stray entries come from. If K is meant to be "
+        "non-symmetric, this diagnosis does not apply.")
+
+
+def _placeholder_finding(model: Model, structure: StructureResult) -> Finding:
+    rows = structure.placeholder_rows
+    diag = model.K.diagonal()
+    coupled = np.ones(model.n, dtype=bool)
+    coupled[rows] = False
+    coupled &= diag > 0
+    typical = float(np.median(diag[coupled])) if coupled.any() else None
+    look = looks_like_placeholder(diag[rows], typical)
+    sentences, advice = [], []
+
+    def listed(r):
+        if model.dofs is None:
+            return ("row " if r.size == 1 else "rows ") + _list_nodes([int(x) + 1 for x in r], 6)
+        head = ", ".join(model.row_label(int(x)) for x in r[:6])
+        return head + (f" and {r.size - 6:,} more" if r.size > 6 else "")
+
+    def rows_word(k):
+        return f"{k:,} rows" if k != 1 else "1 row"
+
+    if look.any():
+        r = rows[look]
+        values = np.unique(diag[r])
+        value = f"{values[0]:g}" if values.size == 1 else "a power of ten"
+        sentences.append(f"{rows_word(r.size)} look{'s' if r.size == 1 else ''} like restrained DOFs "
+                         f"kept as placeholders: a diagonal of {value} and no coupling ({listed(r)}).")
+        advice.append("Nothing to do if these DOFs are restrained on purpose: put no load on them and "
+                      "ignore their displacements.")
+    if (~look).any():
+        r = rows[~look]
+        lo, hi = float(diag[r].min()), float(diag[r].max())
+        span = f"{lo:.3g}" if lo == hi else f"{lo:.3g} to {hi:.3g}"
+        sentences.append(f"{rows_word(r.size)} hold{'s' if r.size == 1 else ''} only a diagonal ({span}) "
+                         f"and no coupling, as a DOF attached to nothing but a spring to ground ({listed(r)}).")
+        advice.append("If elements were meant to connect these DOFs, they are missing from the export.")
+    sentences.append("Such rows are not counted as parts and get no restraint advice; the displacement "
+                     "of each is its load divided by its diagonal.")
+    return Finding("note", "structure.placeholder-rows", " ".join(sentences),
+                   model.nodes_of(rows), " ".join(advice))
 
 
 def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structure: StructureResult,

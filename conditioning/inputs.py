@@ -21,6 +21,7 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Mapping
+from dataclasses import replace
 from typing import Optional, Sequence, Union
 
 import numpy as np
@@ -30,12 +31,14 @@ from numpy.typing import ArrayLike, NDArray
 from conditioning.errors import InputError
 from conditioning.matrix_io import (
     assemble_symmetric,
+    mirror_one_triangle_export,
     parse_float,
     read_csv_rows,
     read_matrix,
     read_vector,
 )
 from conditioning.model import DOF_NAMES, DOFS_PER_NODE_LAYOUT, Coordinates, DofTable, Model
+from conditioning.results import OneTriangleExport
 
 logger = logging.getLogger(__name__)
 
@@ -87,7 +90,10 @@ def load_model(
     Model
         ``K`` in full symmetric CSR storage (float64, no stored zeros),
         restrained rows removed, ``restrained`` their count and ``notes``
-        one sentence per thing the reader did.
+        one sentence per thing the reader did. A matrix stored as one
+        triangle plus a few stray entries of the other is mirrored
+        (:func:`conditioning.matrix_io.mirror_one_triangle_export`) and
+        ``one_triangle`` says where the strays were.
 
     Raises
     ------
@@ -105,6 +111,7 @@ def load_model(
     (3, '<array>')
     """
     K, source, notes = _read_stiffness(matrix)
+    K, one_triangle = mirror_one_triangle_export(K, notes)
     n = int(K.shape[0])
     table = _dof_map(dofs, dofs_per_node, n, source, notes)
     positions = _coordinates(coords, table, notes)
@@ -114,12 +121,13 @@ def load_model(
     if fix is not None:
         keep, restrained = _restraint_rows(fix, table, n, notes)
         K = _principal_submatrix(K, keep)
+        one_triangle = _restrict_export(one_triangle, keep, n)
         table = table.take(keep) if table is not None else None
         f = f[keep] if f is not None else None
         u = u[keep] if u is not None else None
     logger.info("model %s: n = %d, %d restrained", source, K.shape[0], restrained)
     return Model(K=K, source=source, dofs=table, coords=positions, load=f, solution=u,
-                 restrained=restrained, notes=tuple(notes))
+                 restrained=restrained, notes=tuple(notes), one_triangle=one_triangle)
 
 
 # --------------------------------------------------------------------------- #
@@ -161,6 +169,20 @@ def _matrix_from_array(A, notes: list[str]) -> sp.csr_array:
     notes.append(f"took a {A.shape[0]} x {A.shape[0]} matrix given as an array")
     return assemble_symmetric(rows, cols, vals, int(A.shape[0]), stored="general",
                               source=ARRAY_SOURCE, notes=notes)
+
+
+def _restrict_export(export: Optional[OneTriangleExport], keep: NDArray[np.intp],
+                     n: int) -> Optional[OneTriangleExport]:
+    """The stray entries renumbered to the kept rows; those in removed rows or columns dropped."""
+    if export is None:
+        return None
+    new_index = np.full(n, -1, dtype=np.intp)
+    new_index[keep] = np.arange(keep.size)
+    r, c = new_index[export.stray_rows], new_index[export.stray_cols]
+    kept = (r >= 0) & (c >= 0)
+    if not kept.any():
+        return None
+    return replace(export, stray_rows=r[kept], stray_cols=c[kept], stray_paired=export.stray_paired[kept])
 
 
 def _principal_submatrix(K: sp.csr_array, keep: NDArray[np.intp]) -> sp.csr_array:

@@ -32,7 +32,7 @@ import os
 import re
 import warnings
 import zlib
-from typing import Literal, Union
+from typing import Literal, Optional, Union
 
 import numpy as np
 import scipy.io
@@ -40,6 +40,7 @@ import scipy.sparse as sp
 from numpy.typing import NDArray
 
 from conditioning.errors import InputError
+from conditioning.results import OneTriangleExport
 
 logger = logging.getLogger(__name__)
 
@@ -59,6 +60,11 @@ _MAX_DENSE_ORDER = 20_000
 _MAX_ROWS_PER_ENTRY = 10
 _MAX_SPARSE_ORDER_FREE = 1_000_000
 _FIRST_SHOWN = 3
+#: A general matrix is read as one triangle with stray entries when the other
+#: triangle holds at least one and at most this share of the off-diagonal
+#: entries the first one holds (the project's own choice: 1 stray per 20
+#: entries; a matrix stored in full has equal counts, share 1).
+STRAY_SHARE = 0.05
 
 
 # --------------------------------------------------------------------------- #
@@ -98,8 +104,10 @@ def read_matrix(path: PathLike) -> tuple[sp.csr_array, list[str]]:
     -----
     A ``general`` file whose off-diagonal entries all lie in one triangle is
     taken to be the triangle of a symmetric matrix and mirrored; a note says
-    so. An asymmetric matrix is not refused here: the structure stage
-    measures and reports the asymmetry.
+    so. One that holds a triangle plus a few entries of the other is returned
+    as stored; :func:`mirror_one_triangle_export` recognises and mirrors it
+    (:func:`conditioning.load_model` calls it). An asymmetric matrix is not
+    refused here: the structure stage measures and reports the asymmetry.
 
     Examples
     --------
@@ -263,6 +271,77 @@ def assemble_symmetric(rows, cols, vals, n: int, *, stored: Stored, source: str,
                      "structure (counted in full symmetric storage)")
     K.sort_indices()
     return K
+
+
+def mirror_one_triangle_export(K: sp.csr_array, notes: list[str]
+                               ) -> tuple[sp.csr_array, Optional[OneTriangleExport]]:
+    """Mirror a matrix stored as one triangle plus a few stray entries of the other.
+
+    Parameters
+    ----------
+    K : (n, n) scipy.sparse.csr_array of float64
+        The matrix as stored (no explicit zeros), e.g. from :func:`read_matrix`.
+    notes : list of str
+        Appended to in place when the matrix is mirrored.
+
+    Returns
+    -------
+    K : (n, n) scipy.sparse.csr_array of float64
+        ``K`` itself when it is not of that shape; otherwise ``K`` with every
+        off-diagonal entry whose mirror position is empty mirrored there.
+        Pairs stored on both sides (a stray that repeats an entry of the
+        triangle) are kept as stored, so a stray that disagrees with its
+        mirror stays visible as asymmetry. Units are K's.
+    export : OneTriangleExport or None
+        Which triangle, how many entries, and where the strays are; None when
+        ``K`` is not of that shape.
+
+    Notes
+    -----
+    The shape: one triangle holds M off-diagonal entries, the other m with
+    ``1 <= m <= STRAY_SHARE * M``. A symmetric matrix stored in full has
+    m = M; a pure triangle (m = 0) is already mirrored by the reader.
+
+    Examples
+    --------
+    Lower triangle of tridiag(-1, 2, -1), n = 30, plus one stray K[0, 1]:
+
+    >>> import numpy as np, scipy.sparse as sp
+    >>> L = sp.diags([-np.ones(29), 2 * np.ones(30)], [-1, 0]).tolil()
+    >>> L[0, 1] = -1.0
+    >>> K, export = mirror_one_triangle_export(sp.csr_array(L), [])
+    >>> export.triangle, export.triangle_entries, export.stray_rows.tolist(), export.stray_paired.tolist()
+    ('lower', 29, [0], [True])
+    >>> float(abs(K - K.T).max())
+    0.0
+    """
+    K = sp.csr_array(K)
+    n = K.shape[0]
+    coo = K.tocoo()
+    off = coo.row != coo.col
+    rows, cols, vals = coo.row[off].astype(np.int64), coo.col[off].astype(np.int64), coo.data[off]
+    below = rows > cols
+    lower, upper = int(np.count_nonzero(below)), int(rows.size - np.count_nonzero(below))
+    many, few = max(lower, upper), min(lower, upper)
+    if few == 0 or few > STRAY_SHARE * many:
+        return K, None
+    triangle = "lower" if lower > upper else "upper"
+    stray = ~below if triangle == "lower" else below
+    paired = np.isin(cols * n + rows, rows * n + cols)
+    mirror = sp.coo_array((vals[~paired], (cols[~paired], rows[~paired])), shape=K.shape)
+    mirrored = sp.csr_array(K + mirror.tocsr())
+    mirrored.sort_indices()
+    other = "upper" if triangle == "lower" else "lower"
+    notes.append(f"the input is not labelled symmetric and stores the {triangle} triangle "
+                 f"({many} off-diagonal entries) plus {few} stray {'entry' if few == 1 else 'entries'} "
+                 f"in the {other} triangle; read as a one-triangle export: unpaired entries mirrored, "
+                 "entries stored on both sides kept as stored")
+    export = OneTriangleExport(
+        triangle=triangle, triangle_entries=many,
+        stray_rows=rows[stray].astype(np.intp), stray_cols=cols[stray].astype(np.intp),
+        stray_paired=paired[stray])
+    logger.info("one-triangle export: %s triangle, %d stray entries", triangle, few)
+    return mirrored, export
 
 
 # --------------------------------------------------------------------------- #

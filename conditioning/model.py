@@ -14,6 +14,8 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
+from conditioning.results import OneTriangleExport
+
 #: Names of the degrees of freedom a node may carry, in canonical order.
 DOF_NAMES: tuple[str, ...] = ("ux", "uy", "uz", "rx", "ry", "rz")
 TRANSLATIONS = (0, 1, 2)
@@ -120,6 +122,10 @@ class Model:
     notes : tuple of str
         Provenance notes on how the input was read (mirroring, zeros dropped,
         restraints applied), for the report.
+    one_triangle : OneTriangleExport or None
+        Set when the input stored one triangle plus a few stray entries of
+        the other and ``K`` is its mirrored form (row indices are those of
+        ``K``, after restraints were removed); None otherwise.
     """
 
     K: sp.csr_array
@@ -130,6 +136,7 @@ class Model:
     solution: Optional[NDArray[np.float64]] = None
     restrained: int = 0
     notes: tuple[str, ...] = field(default_factory=tuple)
+    one_triangle: Optional[OneTriangleExport] = None
 
     @property
     def n(self) -> int:

@@ -26,6 +26,34 @@ class Asymmetry:
     """0-based row of the worst pair (-1 when symmetric)."""
     col: int
     """0-based column of the worst pair (-1 when symmetric)."""
+    pair_relative: float = 0.0
+    """|K_ij - K_ji| / max(|K_ij|, |K_ji|) at the worst pair: the difference
+    relative to the entry itself (dimensionless; 0.01 for an entry changed by
+    1%, 1.0 when one side of the pair is missing)."""
+    pair_values: tuple[float, float] = (0.0, 0.0)
+    """(K[row, col], K[col, row]) at the worst pair, in K's units."""
+    pairs: int = 0
+    """Number of pairs (i < j) that differ beyond round-off (the rule of
+    :func:`conditioning.structure.asymmetry_reported`, applied per pair)."""
+
+
+@dataclass(frozen=True)
+class OneTriangleExport:
+    """A matrix stored as one triangle plus a few entries of the other
+    (recognised and mirrored by :func:`conditioning.matrix_io.mirror_one_triangle_export`)."""
+
+    triangle: Literal["lower", "upper"]
+    """The triangle that holds almost all off-diagonal entries."""
+    triangle_entries: int
+    """Off-diagonal entries stored in that triangle."""
+    stray_rows: NDArray[np.intp]
+    """0-based row of each stray entry (stored in the other triangle)."""
+    stray_cols: NDArray[np.intp]
+    """0-based column of each stray entry."""
+    stray_paired: NDArray[np.bool_]
+    """True where the stray's mirror position was stored as well (the pair was
+    given twice and kept as given); False where the stray was the pair's only
+    value and was mirrored like the rest of the triangle."""
 
 
 @dataclass(frozen=True)
@@ -45,12 +73,27 @@ class StructureResult:
     asymmetry: Asymmetry
     """Largest relative asymmetry and where."""
     part_of_row: NDArray[np.intp]
-    """Connected-component label of each row (graph of K, csgraph); empty rows
-    are their own parts."""
+    """Connected-component label of each row (graph of K, csgraph). Labels
+    ``0 .. parts - 1`` are the counted parts, largest first; rows without
+    stiffness and placeholder rows that form parts of their own come after."""
     part_sizes: NDArray[np.intp]
     """Rows per part, indexed by label."""
     parts: int
-    """Number of connected parts, counting only parts with stiffness."""
+    """Number of connected parts, counting only parts that hold a row with
+    stiffness other than a placeholder row."""
+    placeholder_rows: NDArray[np.intp] = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    """0-based rows that take no part in the structure: a positive diagonal
+    and no nonzero entry elsewhere in their row or column. Each is an
+    equation of its own, u_i = f_i / K_ii: a restrained DOF kept with a
+    placeholder diagonal (typically 1), or a DOF held only by a spring to
+    ground with nothing else attached; the matrix alone cannot tell the two
+    apart (:func:`conditioning.structure.looks_like_placeholder` says which
+    look like the first). Not counted in ``parts``; rows without any entry
+    are in ``empty_rows`` instead. Empty when K is diagonal (no structure
+    for such rows to be left over from)."""
+    one_triangle: Optional[OneTriangleExport] = None
+    """Set when the input stored one triangle plus a few stray entries of the
+    other and was mirrored (see :class:`OneTriangleExport`); None otherwise."""
 
 
 # ----------------------------------------------------------- factorization

@@ -1,9 +1,11 @@
 """Checks on the stiffness matrix that need no factorization.
 
-DOFs without stiffness, zero or negative diagonal entries, asymmetry, and the
-connected parts of the matrix graph (scipy.sparse.csgraph). A part that shares
-no stiffness with the rest of the model is a separate body: unless it is
-supported on its own it brings its own rigid-body modes.
+DOFs without stiffness, zero or negative diagonal entries, asymmetry, rows
+that hold only their diagonal (placeholders), and the connected parts of the
+matrix graph (scipy.sparse.csgraph). A part that shares no stiffness with the
+rest of the model is a separate body: unless it is supported on its own it
+brings its own rigid-body modes. A row holding only a positive diagonal is
+supported by that diagonal and can bring none, so it is not counted as a part.
 """
 
 from __future__ import annotations
@@ -14,6 +16,21 @@ from scipy.sparse import csgraph
 
 from conditioning.model import Model
 from conditioning.results import Asymmetry, StructureResult
+
+#: A pair (K_ij, K_ji) differs when |K_ij - K_ji| exceeds this share of
+#: max |K| (the project's own choice: far above the 1e-16 of a value written
+#: twice in full precision) ...
+ASYMMETRY_IGNORED = 1e-10
+#: ... or exceeds this share of max |K| and PAIR_DIFFERS of the entry itself:
+#: a small entry changed beyond its 6th significant digit is not
+#: round-off, while differences below 1e-12 of max |K| are cancellation noise
+#: of assembly (entries that should be 0), whatever their own size (the
+#: project's own choices).
+ASYMMETRY_NOISE = 1e-12
+PAIR_DIFFERS = 1e-6
+#: A placeholder diagonal differs from the typical diagonal of the coupled rows
+#: by at least this many orders of magnitude (the project's own choice).
+PLACEHOLDER_ORDERS_APART = 2.0
 
 
 def rows_with_stiffness(K: sp.csr_array) -> np.ndarray:
@@ -27,16 +44,65 @@ def rows_with_stiffness(K: sp.csr_array) -> np.ndarray:
 
 
 def _asymmetry(K: sp.csr_array) -> Asymmetry:
-    """Largest |K_ij - K_ji| relative to max |K|, and where."""
+    """Largest |K_ij - K_ji| relative to max |K|, where, and how many pairs differ."""
     A = sp.csr_array(K - K.T)
     A.eliminate_zeros()
     if A.nnz == 0:
         return Asymmetry(relative=0.0, row=-1, col=-1)
     scale = float(np.max(np.abs(K.data))) if K.nnz else 1.0
     coo = A.tocoo()
-    k = int(np.argmax(np.abs(coo.data)))
-    i, j = int(coo.row[k]), int(coo.col[k])
-    return Asymmetry(relative=float(abs(coo.data[k]) / scale), row=min(i, j), col=max(i, j))
+    upper = coo.row < coo.col  # K - K^T is antisymmetric: each pair appears twice
+    r, c, d = coo.row[upper], coo.col[upper], np.abs(coo.data[upper])
+    k = int(np.argmax(d))
+    i, j = int(r[k]), int(c[k])
+    kij, kji = float(K[i, j]), float(K[j, i])
+    size = np.maximum(np.abs(K[r, c]), np.abs(K[c, r]))
+    differs = (d > ASYMMETRY_IGNORED * scale) | ((d > ASYMMETRY_NOISE * scale) & (d > PAIR_DIFFERS * size))
+    return Asymmetry(relative=float(d[k] / scale), row=i, col=j,
+                     pair_relative=float(d[k] / max(abs(kij), abs(kji))),
+                     pair_values=(kij, kji), pairs=int(np.count_nonzero(differs)))
+
+
+def asymmetry_reported(a: Asymmetry) -> bool:
+    """True when the worst pair differs beyond round-off (see :data:`ASYMMETRY_IGNORED`)."""
+    return a.relative > ASYMMETRY_IGNORED or (a.relative > ASYMMETRY_NOISE and a.pair_relative > PAIR_DIFFERS)
+
+
+def uncoupled_rows(K: sp.csr_array) -> np.ndarray:
+    """0-based rows with a positive diagonal and no other nonzero in their row or column.
+
+    Returns
+    -------
+    (m,) ndarray of intp
+        The rows, ascending. ``StructureResult.placeholder_rows`` holds them
+        unless K is diagonal (then no row is a placeholder).
+    """
+    K = sp.csr_array(K)
+    n = K.shape[0]
+    coo = K.tocoo()
+    off = (coo.row != coo.col) & (coo.data != 0)
+    coupled = np.zeros(n, dtype=bool)
+    coupled[coo.row[off]] = True
+    coupled[coo.col[off]] = True  # an asymmetric matrix may couple a row only through its column
+    return np.flatnonzero(~coupled & (K.diagonal() > 0)).astype(np.intp)
+
+
+def looks_like_placeholder(values: np.ndarray, typical: float | None) -> np.ndarray:
+    """(m,) bool: diagonal values that look like a placeholder for a restrained DOF.
+
+    A placeholder is an exact power of ten (1 above all) that lies at least
+    :data:`PLACEHOLDER_ORDERS_APART` orders of magnitude from ``typical``, the
+    median diagonal of the coupled rows (any power of ten when there is none).
+    A spring to ground rarely has such a value; a solver that keeps restrained
+    DOFs in the matrix writes one.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        exponent = np.round(np.log10(values))
+        round_value = (values > 0) & (values == 10.0 ** exponent)
+        if typical is None or not typical > 0:
+            return round_value
+        return round_value & (np.abs(np.log10(values / typical)) >= PLACEHOLDER_ORDERS_APART)
 
 
 def _parts(model: Model, K: sp.csr_array) -> tuple[int, np.ndarray]:
@@ -60,9 +126,10 @@ def check_structure(model: Model) -> StructureResult:
     -------
     StructureResult
         Empty rows, zero and negative diagonals, the largest relative
-        asymmetry, and the connected parts (labels per row, sizes). Rows
-        without any entry count as parts of their own in ``part_of_row`` but
-        not in ``parts``.
+        asymmetry, placeholder rows (a positive diagonal and no coupling), and
+        the connected parts (labels per row, sizes). Rows without any entry
+        and placeholder rows count as parts of their own in ``part_of_row``
+        (after the counted parts) but not in ``parts``.
     """
     K = sp.csr_array(model.K)
     n = K.shape[0]
@@ -72,15 +139,22 @@ def check_structure(model: Model) -> StructureResult:
     diag = K.diagonal()
     zero_diag = np.flatnonzero((diag == 0) & (row_nnz > 0))
     negative = np.flatnonzero(diag < 0)
+    placeholders = uncoupled_rows(K)
+    if placeholders.size == np.count_nonzero(has_stiffness):
+        # A diagonal K has no structure for such rows to be left over from.
+        placeholders = placeholders[:0]
     n_comp, labels = _parts(model, K)
     sizes = np.bincount(labels, minlength=n_comp)
-    # Relabel so that parts are numbered by size, largest first (stable for reports).
-    order = np.lexsort((np.arange(n_comp), -sizes))
+    structural = has_stiffness.copy()
+    structural[placeholders] = False
+    counted = np.bincount(labels[structural], minlength=n_comp) > 0
+    # Number the counted parts first, by size, largest first (stable for
+    # reports); one-row parts of empty or placeholder rows come after them.
+    order = np.lexsort((np.arange(n_comp), -sizes, ~counted))
     relabel = np.empty(n_comp, dtype=np.intp)
     relabel[order] = np.arange(n_comp)
     labels = relabel[labels]
     sizes = sizes[order]
-    parts_with_stiffness = int(np.count_nonzero(np.bincount(labels[row_nnz > 0], minlength=n_comp)))
     return StructureResult(
         n=n,
         stored_entries=int(K.nnz),
@@ -90,5 +164,7 @@ def check_structure(model: Model) -> StructureResult:
         asymmetry=_asymmetry(K),
         part_of_row=labels.astype(np.intp),
         part_sizes=sizes.astype(np.intp),
-        parts=parts_with_stiffness,
+        parts=int(np.count_nonzero(counted)),
+        placeholder_rows=placeholders,
+        one_triangle=model.one_triangle,
     )

@@ -135,6 +135,7 @@ def _summary(r: results.Report) -> str:
             ["load / solution", f"{'given' if s.has_load else 'not given'} / "
                                 f"{'given' if s.has_solution else 'not given'}"],
             ["connected parts", str(st.parts)],
+            ["diagonal-only rows (not counted as parts)", f"{len(st.placeholder_rows):,}"],
             ["DOFs without stiffness", str(len(st.empty_rows))],
             ["zero diagonal", zero_diagonal_text(st, 12)],
             ["negative diagonal", f"{len(st.negative_diagonal):,}" if len(st.negative_diagonal) else "none"],

@@ -119,9 +119,12 @@ def _model(r: results.Report):
 def _structure(r: results.Report, max_ids: int):
     st = r.structure
     g = _grid()
-    sizes = sorted((int(x) for x in st.part_sizes), reverse=True)
+    sizes = sorted((int(x) for x in st.part_sizes[: st.parts]), reverse=True)  # counted parts come first
     g.add_row("connected parts", f"{st.parts}" + (
         f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else ""))
+    if st.placeholder_rows.size:
+        g.add_row("diagonal-only rows", f"{st.placeholder_rows.size:,} (rows "
+                  f"{summarise_ids([x + 1 for x in st.placeholder_rows], max_ids)}), not counted as parts")
     for name, rows in (("DOFs without stiffness", st.empty_rows),
                        ("negative diagonal", st.negative_diagonal)):
         rows = list(rows)
