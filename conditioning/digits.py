@@ -158,9 +158,10 @@ def measure_digits(
 
 
 def _placeholder_rows(structure) -> NDArray[np.intp]:
-    """Rows the structure stage recognised as placeholders of restrained DOFs."""
-    rows = getattr(structure, "placeholder_rows", None)
-    return np.zeros(0, dtype=np.intp) if rows is None else np.asarray(rows, dtype=np.intp)
+    """Rows the structure stage recognised as placeholders of restrained DOFs (none without it)."""
+    if structure is None:
+        return np.zeros(0, dtype=np.intp)
+    return np.asarray(structure.placeholder_rows, dtype=np.intp)
 
 
 # ------------------------------------------------------------------- audit
@@ -195,7 +196,7 @@ def audit_singular_solution(model: Model, spectrum: Optional[SpectrumResult], st
     n = x.size
     cols = [np.asarray(m.vector, dtype=np.float64) for m in (spectrum.modes if spectrum is not None else [])
             if m.exact and m.vector is not None]
-    empty = np.asarray(getattr(structure, "empty_rows", np.zeros(0, dtype=np.intp)), dtype=np.intp)
+    empty = np.zeros(0, dtype=np.intp) if structure is None else np.asarray(structure.empty_rows, dtype=np.intp)
     for r in empty:
         e = np.zeros(n)
         e[r] = 1.0

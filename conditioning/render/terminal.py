@@ -247,7 +247,7 @@ def _digits(r: results.Report, max_ids: int):
     if dg is None:
         return Text("not measured", style="dim")
     if dg.skipped:
-        return Text(f"not measured: {dg.skipped}", style="yellow")
+        return Group(Text(f"not measured: {dg.skipped}", style="yellow"), *_audit_lines(dg.audit))
     t = Table(box=None, pad_edge=False)
     t.add_column("sample", no_wrap=True)
     t.add_column("trustworthy digits", justify="right")
@@ -272,7 +272,8 @@ def _digits(r: results.Report, max_ids: int):
         lines.append(Text(">= : the error is below what the reference can resolve; the true "
                           "figure is at least this.", style="dim"))
     if worst.row_count:
-        lines.append(Text("Worst nodes, node (trustworthy digits):"))
+        unit = "node" if r.summary.nodes is not None else "row"
+        lines.append(Text(f"Worst {unit}s, {unit} (digits of its worst component against its own size):"))
         lines.append(worst)
     if dg.summary:
         lines.append(Text(dg.summary))
@@ -290,7 +291,25 @@ def _digits(r: results.Report, max_ids: int):
                               f"{fmt_number(dg.factorization_flops)} operations; digits are "
                               "lost to conditioning, not to the operation count.", style="dim"))
     lines.extend(_confirmation_lines(dg.samples))
+    lines.extend(_audit_lines(dg.audit))
     return Group(*lines)
+
+
+def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
+    """How the supplied solution fits K and f, in one or two lines."""
+    if audit is None:
+        return []
+    if audit.free_mode_share is not None:
+        return [Text(f"Supplied solution: K is singular; its component along the free modes is "
+                     f"{fmt_number(audit.free_mode_share)} of it, so it keeps {fmt_digits(audit.trustworthy_digits)} "
+                     f"digits (bound); backward error {fmt_number(audit.backward_error)}.")]
+    fit = "fits" if audit.fits else "does NOT fit"
+    text = (f"Supplied solution {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
+            f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; "
+            f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
+    if audit.digits_written is not None:
+        text += f" Its values were written with {audit.digits_written} significant figures."
+    return [Text(text, style=None if audit.fits else "bold red")]
 
 
 def _confirmation_lines(samples) -> list[Text]:
