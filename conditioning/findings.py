@@ -89,7 +89,7 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
             [], "Restrain the free modes (see the suggested restraints) and solve again; until then, "
                 "no displacement of this model is defined."))
     elif not audit.fits:
-        ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U)
+        ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U**2)
         out.append(Finding(
             "error", "solution.does-not-fit",
             f"The supplied solution does not solve this K and f: its backward error {audit.backward_error:.1e} "
@@ -194,7 +194,8 @@ def build_findings(
                     mode.nodes,
                     "Look for a missing brace, a released end (hinge) too many, or a member that "
                     "only touches the rest at one node."))
-        if spectrum.negative_eigenvalues:
+        if spectrum.negative_eigenvalues and not (decay is not None and decay.negative_pivots):
+            # With pivots, the negative-pivot finding below says it with a location.
             out.append(Finding("error", "stiffness.indefinite",
                                f"K has {spectrum.negative_eigenvalues:,} negative eigenvalue(s) (counted from "
                                "the pivots' signs, Sylvester's law of inertia).", [],
@@ -250,7 +251,7 @@ def build_findings(
                                "units or DOF-type mixing (rotations next to translations, mm next to m), "
                                "which a direct solver does not pay.", [], ""))
     if decay is not None and decay.negative_pivots:
-        out.append(_negative_pivot_finding(model, decay))
+        out.append(_negative_pivot_finding(model, decay, spectrum))
     positive = [e for e in decay.worst if np.isfinite(e.digits)] if decay is not None else []
     if positive and positive[0].digits >= DECAY_FINDING_DIGITS:
         out.append(Finding("warning", "factor.diagonal-decay",
@@ -303,13 +304,16 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
         + ", or tie the DOFs with a constraint that eliminates one of them.")
 
 
-def _negative_pivot_finding(model: Model, decay: DiagonalDecay) -> Finding:
-    """Negative pivots, where they appeared, and what usually causes one."""
+def _negative_pivot_finding(model: Model, decay: DiagonalDecay, spectrum: Optional[SpectrumResult]) -> Finding:
+    """Negative pivots, where they appeared, how many eigenvalues are negative, and what usually causes one."""
     neg = decay.negative_pivots
     where = ", ".join(e.label for e in neg[:6]) + (f" and {len(neg) - 6} more" if len(neg) > 6 else "")
+    count = spectrum.negative_eigenvalues if spectrum is not None else 0
+    counted = (f"K has {count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from the pivots' "
+               "signs, Sylvester's law of inertia). " if count else "")
     return Finding(
         "error", "factor.negative-pivot",
-        f"Negative pivot at {where}: once the DOFs eliminated before it are condensed out, the "
+        f"{counted}Negative pivot at {where}: once the DOFs eliminated before it are condensed out, the "
         "stiffness left at this DOF is negative, so K is not positive definite: a Cholesky solver "
         "stops here, and one that carries on returns displacements of a structure that is not "
         "stable. Which DOF shows it depends on the elimination order; the cause is nearby.",
@@ -543,7 +547,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if audit is not None and not audit.fits:
         own_figure = f"; the tool's own solve is {figure}" if figure else ""
         return (f"supplied solution does not fit: its backward error {audit.backward_error:.1e} is far "
-                f"above the {max(audit.allowed_backward_error or 0.0, U):.1e} this K allows; it keeps "
+                f"above the {audit.allowed_backward_error:.1e} of the tool's own solve; it keeps "
                 f"{_significant(audit.trustworthy_digits)}{own_figure}"), status
     if near:
         return f"near-singular: {len(near)} nearly free mode(s) ({kinds(near)}){tail}", status

@@ -193,7 +193,7 @@ def _restraints(r: results.Report) -> str:
 def _jumps(r: results.Report) -> str:
     if not r.jumps:
         return ""
-    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), f"{j.digits_cost:.1f}",
+    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), "all" if j.swallowed else f"{j.digits_cost:.1f}",
              fmt_number(j.advice_value), j.reasoning] for j in r.jumps]
     return "<h2>Stiffness jumps</h2>" + _table(
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})

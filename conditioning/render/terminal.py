@@ -217,7 +217,7 @@ def _jumps(r: results.Report, max_ids: int):
     t.add_column("suggested stiffness", justify="right")
     for j in r.jumps[:max_ids]:
         t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio),
-                  f"about {j.digits_cost:.1f}", fmt_number(j.advice_value))
+                  "all" if j.swallowed else f"about {j.digits_cost:.1f}", fmt_number(j.advice_value))
     parts = [t]
     if len(r.jumps) > max_ids:
         parts.append(Text(f"and {len(r.jumps) - max_ids:,} more (all in the JSON report)"))
