@@ -143,7 +143,7 @@ def job_orderings(args, paths):
     import scipy.sparse as sp
     import scipy.sparse.linalg as spla
 
-    from conditioning.ordering import nested_dissection
+    from conditioning.engine.ordering import nested_dissection
 
     K, _ = _read_baseline(paths)
     xyz = _coords_of_rows(paths, K.shape[0])
@@ -169,7 +169,7 @@ def job_orderings(args, paths):
 def job_predict(args, paths):
     import scipy.sparse as sp
 
-    from conditioning.memory import plan_factorization, predict_factor_memory
+    from conditioning.engine.memory import plan_factorization, predict_factor_memory
 
     K, _ = _read_baseline(paths)
     K = sp.csr_array(K)
@@ -210,7 +210,7 @@ def job_diagnose(args, paths):
 def job_iterative(args, paths):
     import numpy as np
 
-    from conditioning.iterative import iterative_spectrum
+    from conditioning.stages.spectrum_iterative import iterative_spectrum
     from conditioning.model import Coordinates, DofTable, Model
 
     m = _Meter()
@@ -235,9 +235,9 @@ def job_ddspmv(args, paths):
     import numpy as np
 
     try:
-        from conditioning.doubledouble import dd_operator, dd_residual
+        from conditioning.linalg.doubledouble import dd_operator, dd_residual
     except ImportError as exc:
-        return {"skipped": f"conditioning.doubledouble not available ({exc})"}
+        return {"skipped": f"conditioning.linalg.doubledouble not available ({exc})"}
     K, f = _read_baseline(paths)
     K = K.tocsr()
     x = np.random.default_rng(0).standard_normal(K.shape[0])

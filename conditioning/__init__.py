@@ -26,14 +26,14 @@ __all__ = [
 
 
 def load_model(*args, **kwargs):
-    """Read a stiffness export and its context; see :func:`conditioning.inputs.load_model`."""
-    from conditioning.inputs import load_model as _load_model
+    """Read a stiffness export and its context; see :func:`conditioning.io.load.load_model`."""
+    from conditioning.io.load import load_model as _load_model
 
     return _load_model(*args, **kwargs)
 
 
 def diagnose(*args, **kwargs):
-    """Run the whole diagnosis; see :func:`conditioning.api.diagnose`."""
-    from conditioning.api import diagnose as _diagnose
+    """Run the whole diagnosis; see :func:`conditioning.pipeline.diagnose`."""
+    from conditioning.pipeline import diagnose as _diagnose
 
     return _diagnose(*args, **kwargs)

@@ -1,6 +1,6 @@
 """The ``conditioning`` command: parse, diagnose, render, exit status.
 
-A thin layer over :func:`conditioning.api.diagnose`; no numerics here.
+A thin layer over :func:`conditioning.pipeline.diagnose`; no numerics here.
 
 Exit status
 -----------
@@ -128,7 +128,7 @@ def exit_status(report: results.Report) -> int:
     """Exit status of a diagnosis: the report's status, mapped one to one.
 
     ``errors`` -> 3, ``warnings`` -> 1, ``healthy`` -> 0. The status is decided
-    once, by :func:`conditioning.findings.status_of` (a singular K, a free or
+    once, by :func:`conditioning.stages.findings.status_of` (a singular K, a free or
     nearly free mode and fewer digits than ``--min-digits`` are all error
     findings), so the JSON ``status`` and the exit status always agree.
     """
@@ -180,7 +180,7 @@ def _show_progress(args) -> bool:
 
 # ------------------------------------------------------------------ running
 def _load(path: str, args, progress: Optional[ProgressCallback]):
-    from conditioning.inputs import load_model
+    from conditioning.io.load import load_model
 
     if progress:
         progress("reading", None)
@@ -313,8 +313,8 @@ def _run_demo(args) -> int:
 
 
 def diagnose_model(model, **kwargs) -> results.Report:
-    """:func:`conditioning.api.diagnose` (imported late so ``--help`` stays fast)."""
-    from conditioning.api import diagnose
+    """:func:`conditioning.pipeline.diagnose` (imported late so ``--help`` stays fast)."""
+    from conditioning.pipeline import diagnose
 
     return diagnose(model, **kwargs)
 

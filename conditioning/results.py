@@ -34,13 +34,13 @@ class Asymmetry:
     """(K[row, col], K[col, row]) at the worst pair, in K's units."""
     pairs: int = 0
     """Number of pairs (i < j) that differ beyond round-off (the rule of
-    :func:`conditioning.structure.asymmetry_reported`, applied per pair)."""
+    :func:`conditioning.stages.structure.asymmetry_reported`, applied per pair)."""
 
 
 @dataclass(frozen=True)
 class OneTriangleExport:
     """A matrix stored as one triangle plus a few entries of the other
-    (recognised and mirrored by :func:`conditioning.matrix_io.mirror_one_triangle_export`)."""
+    (recognised and mirrored by :func:`conditioning.io.matrix_formats.mirror_one_triangle_export`)."""
 
     triangle: Literal["lower", "upper"]
     """The triangle that holds almost all off-diagonal entries."""
@@ -87,7 +87,7 @@ class StructureResult:
     equation of its own, u_i = f_i / K_ii: a restrained DOF kept with a
     placeholder diagonal (typically 1), or a DOF held only by a spring to
     ground with nothing else attached; the matrix alone cannot tell the two
-    apart (:func:`conditioning.structure.looks_like_placeholder` says which
+    apart (:func:`conditioning.stages.structure.looks_like_placeholder` says which
     look like the first). Not counted in ``parts``; rows without any entry
     are in ``empty_rows`` instead. Empty when K is diagonal (no structure
     for such rows to be left over from)."""
@@ -100,7 +100,7 @@ class StructureResult:
 @dataclass(frozen=True)
 class FactorizationInfo:
     """What the shared factorization did (the object itself lives in
-    :mod:`conditioning.factorization`)."""
+    :mod:`conditioning.engine.scipy_engine`)."""
 
     ordering: str
     """Fill-reducing ordering used (e.g. ``"nested-dissection"``, ``"MMD_AT_PLUS_A"``)."""
@@ -396,7 +396,7 @@ class DigitsResult:
 # ------------------------------------------------------------------ scale
 @dataclass(frozen=True)
 class FactorMemoryPrediction:
-    """Size of the factorization, predicted before it runs (conditioning.memory)."""
+    """Size of the factorization, predicted before it runs (conditioning.engine.memory)."""
 
     bytes: int
     """Predicted peak memory the factorization adds (bytes)."""
@@ -413,7 +413,7 @@ class FactorMemoryPrediction:
 
 @dataclass(frozen=True)
 class IterativeSpectrum:
-    """Smallest eigenpairs of S found without factorizing (conditioning.iterative)."""
+    """Smallest eigenpairs of S found without factorizing (conditioning.stages.spectrum_iterative)."""
 
     eigenvalues: NDArray[np.float64]
     """Smallest eigenvalues of S = D^-1/2 K D^-1/2, ascending (dimensionless)."""

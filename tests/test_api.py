@@ -14,7 +14,7 @@ import pytest
 import scipy.sparse as sp
 
 import conditioning
-from conditioning import factorization
+from conditioning.engine import scipy_engine as factorization
 from conditioning.model import Model
 
 

@@ -260,7 +260,7 @@ def test_verbose_logs_the_stages(capsys):
     """-v logs each stage's time (INFO) on stderr; stdout keeps the report."""
     assert main(["diagnose", *_demo_args("lattice_tower_3d"), "-v"]) in (0, 1)
     out, err = capsys.readouterr()
-    assert "INFO conditioning.api: stage factorization" in err
+    assert "INFO conditioning.pipeline: stage factorization" in err
     assert out.startswith("Verdict:")
 
 

@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from conditioning.condition import condition_numbers
-from conditioning.factorization import factorize
-from conditioning.inputs import load_model
-from conditioning.spectrum import scaled_spectrum
+from conditioning.stages.condition import condition_numbers
+from conditioning.engine.scipy_engine import factorize
+from conditioning.io.load import load_model
+from conditioning.stages.spectrum import scaled_spectrum
 
 from conftest import computed_stats, reference_matrix_path
 
@@ -94,7 +94,7 @@ def test_reference_kappa2_matches_published(name):
 def test_singular_reference_rank_deficiency(name, published_rank):
     """SJSU Singular Matrix Collection numrank (SJ_Index, see PROVENANCE.md): the
     number of free modes found equals n - numrank."""
-    from conditioning.api import diagnose
+    from conditioning.pipeline import diagnose
 
     path = reference_matrix_path(name)
     report = diagnose(path, measure=False)
@@ -106,7 +106,7 @@ def test_singular_reference_rank_deficiency(name, published_rank):
 def test_indefinite_reference_negative_eigenvalues():
     """bcsstm10 is indefinite: 54 negative eigenvalues (LAPACK eigvalsh, computed_stats.csv),
     counted here from the pivots' signs (Sylvester's law of inertia)."""
-    from conditioning.api import diagnose
+    from conditioning.pipeline import diagnose
 
     path = reference_matrix_path("bcsstm10")
     row = next(r for r in computed_stats() if r["file"] == "bcsstm10.mtx")

@@ -10,8 +10,8 @@ import scipy.io
 import scipy.linalg
 import scipy.sparse as sp
 
-from conditioning.decay import diagonal_decay
-from conditioning.factorization import factorize
+from conditioning.stages.pivots import diagonal_decay
+from conditioning.engine.scipy_engine import factorize
 from conditioning.model import DofTable, Model
 from conftest import reference_matrix_path
 
@@ -118,7 +118,7 @@ def test_docstring_example_runs():
     """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
     import doctest
 
-    import conditioning.decay
+    import conditioning.stages.pivots
 
-    result = doctest.testmod(conditioning.decay)
+    result = doctest.testmod(conditioning.stages.pivots)
     assert result.attempted > 0 and result.failed == 0

@@ -341,7 +341,7 @@ def test_scikit_fem_dof_table_matches_nodal_dofs():
 @pytest.mark.parametrize("name", NAMES)
 def test_load_model_reads_the_exported_files(name):
     """conditioning.load_model on matrices/<name>* gives the scenario's model."""
-    from conditioning.inputs import load_model
+    from conditioning.io.load import load_model
 
     m = CASES[name].model
     got = load_model(MATRICES / f"{name}.mtx", dofs=MATRICES / f"{name}_dofs.csv",
@@ -355,7 +355,7 @@ def test_load_model_reads_the_exported_files(name):
 
 def test_load_model_applies_the_fix_file():
     """load_model(<name>_free.mtx, fix=<name>_free_fix.csv) equals <name>.mtx with its maps."""
-    from conditioning.inputs import load_model
+    from conditioning.io.load import load_model
 
     stem = MATRICES / f"{FIX_VARIANT}_free"
     got = load_model(f"{stem}.mtx", dofs=f"{stem}_dofs.csv", coords=f"{stem}_coords.csv",

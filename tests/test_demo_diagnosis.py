@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-from conditioning.api import diagnose
+from conditioning.pipeline import diagnose
 from conditioning.demo.scenarios import scenarios
 
 CASES = scenarios()

@@ -22,8 +22,8 @@ import pytest
 import scipy.io
 import scipy.sparse as sp
 
-from conditioning.digits import FLOAT64_DIGITS, measure_digits, worst_case_load
-from conditioning.factorization import factorize
+from conditioning.stages.digits import FLOAT64_DIGITS, measure_digits, worst_case_load
+from conditioning.engine.scipy_engine import factorize
 from conditioning.model import DofTable, Model
 from conditioning.results import ConditionResult
 from conftest import reference_matrix_path

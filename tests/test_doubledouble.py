@@ -2,7 +2,7 @@
 
 Source of truth: mpmath (arbitrary precision; at 120 digits the products
 and sums of the float64 data below are exact). The accuracy claim checked is
-the one in :func:`conditioning.doubledouble.dd_residual`: each row of
+the one in :func:`conditioning.linalg.doubledouble.dd_residual`: each row of
 r = f - K x agrees with the exact residual to at least 28 significant digits
 relative to T_i = |f_i| + sum_j |K_ij x_j| (a condition-aware measure: the
 residual itself may be cancelled to zero), and within the stated bound
@@ -19,7 +19,7 @@ import scipy.sparse as sp
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from conditioning.doubledouble import (
+from conditioning.linalg.doubledouble import (
     U,
     dd_add,
     dd_operator,
@@ -147,7 +147,7 @@ def test_doctest_example_second_difference():
     """The docstring example of dd_residual (second difference matrix, closed form)."""
     import doctest
 
-    import conditioning.doubledouble as module
+    import conditioning.linalg.doubledouble as module
 
     failures, _ = doctest.testmod(module)
     assert failures == 0

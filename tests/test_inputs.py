@@ -1,4 +1,4 @@
-"""Building the Model: conditioning.inputs.load_model.
+"""Building the Model: conditioning.io.load.load_model.
 
 Outside references: numpy fancy indexing (np.delete / np.ix_) for what
 removing restrained rows and columns must give; scipy.io.mmread for the
@@ -16,7 +16,7 @@ import scipy.io
 import scipy.sparse as sp
 
 from conditioning.errors import InputError
-from conditioning.inputs import load_model
+from conditioning.io.load import load_model
 from conditioning.model import DOF_NAMES, Coordinates, DofTable, Model
 from conftest import reference_matrix_path
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from conditioning.errors import InputError
-from conditioning.inputs import _coordinates_from_csv, _csv_pairs, _dof_pairs_from_csv, _fast_table
+from conditioning.io.load import _coordinates_from_csv, _csv_pairs, _dof_pairs_from_csv, _fast_table
 
 
 def test_dof_map_fast_path_equals_line_by_line(tmp_path):

@@ -4,7 +4,7 @@ Valid files are written by scipy.io.mmwrite / hb_write (the outside writers)
 and then mangled: lines dropped, duplicated or garbled, banner words and size
 lines changed, the text cut short, random bytes (NUL included) inserted, the
 result optionally gzip/bzip2-compressed and the compressed stream cut. The
-property checked is the contract of conditioning.inputs.load_model (common
+property checked is the contract of conditioning.io.load.load_model (common
 practice for file readers): either a valid Model (square float64 CSR, finite,
 no stored zeros, sorted indices) or conditioning.errors.InputError naming the
 file in one line; never another exception and never a crash of the
@@ -25,7 +25,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from conditioning.errors import InputError
-from conditioning.inputs import load_model
+from conditioning.io.load import load_model
 from conditioning.model import Model
 
 FUZZ = settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -8,11 +8,11 @@ import pytest
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from conditioning.factorization import diagonal_scaling, scaled_matrix
-from conditioning.iterative import iterative_spectrum
-from conditioning.memory import fits, predict_factor_memory
+from conditioning.engine.scipy_engine import diagonal_scaling, scaled_matrix
+from conditioning.stages.spectrum_iterative import iterative_spectrum
+from conditioning.engine.memory import fits, predict_factor_memory
 from conditioning.model import Coordinates, DofTable, Model
-from conditioning.ordering import nested_dissection
+from conditioning.engine.ordering import nested_dissection
 
 skfem = pytest.importorskip("skfem", reason="scikit-fem (test extra) builds the reference models")
 from skfem import Basis, ElementHex1, ElementQuad1, ElementVector, MeshHex, MeshQuad, asm  # noqa: E402
@@ -109,9 +109,9 @@ def test_modes_located_without_a_factorization():
     """The factorization-free eigenpairs feed the mode stage unchanged: the
     free plate's 3 rigid-body modes are located as rigid-body motions
     (two translations and the in-plane rotation; textbook count)."""
-    from conditioning.iterative import as_scaled_spectrum
-    from conditioning.modes import locate_modes
-    from conditioning.structure import check_structure
+    from conditioning.stages.spectrum_iterative import as_scaled_spectrum
+    from conditioning.stages.modes import locate_modes
+    from conditioning.stages.structure import check_structure
 
     model = free_body(20, 2)
     res = iterative_spectrum(model, k=6, rng=4)

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from conditioning.jumps import find_stiffness_jumps
+from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.model import Coordinates, DofTable, Model
 
 # ----------------------------------------------------------------- models
@@ -250,9 +250,9 @@ def test_docstring_example_runs():
     """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
     import doctest
 
-    import conditioning.jumps
+    import conditioning.stages.jumps
 
-    result = doctest.testmod(conditioning.jumps)
+    result = doctest.testmod(conditioning.stages.jumps)
     assert result.attempted > 0 and result.failed == 0
 
 
@@ -260,7 +260,7 @@ def test_jump_names_its_part_when_the_model_has_several():
     """Two chains that do not touch, a 1e12 tie in the second: the jump's
     reasoning names the part holding it (labels from the structure stage,
     graph components by scipy.sparse.csgraph)."""
-    from conditioning.structure import check_structure
+    from conditioning.stages.structure import check_structure
 
     a, b = fixed_free_chain(10), fixed_free_chain(12, links=[(2, 7)], P=1e12)
     K = sp.csr_array(sp.block_diag([a.K, b.K]))

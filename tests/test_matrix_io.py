@@ -1,4 +1,4 @@
-"""Reading stiffness matrices and vectors: conditioning.matrix_io.
+"""Reading stiffness matrices and vectors: conditioning.io.matrix_formats.
 
 Outside references: the public reference matrices in ../shared (their orders
 and entry counts in computed_stats.csv, cross-checked there against the
@@ -22,7 +22,7 @@ import scipy.io
 import scipy.sparse as sp
 
 from conditioning.errors import InputError
-from conditioning.matrix_io import read_matrix, read_vector
+from conditioning.io.matrix_formats import read_matrix, read_vector
 from conftest import computed_stats, reference_matrix_path
 
 BANNER_SYM = "%%MatrixMarket matrix coordinate real symmetric\n"

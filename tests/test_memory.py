@@ -11,14 +11,14 @@ import scipy.sparse.linalg as spla
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from conditioning.memory import (
+from conditioning.engine.memory import (
     cholesky_column_counts,
     fits,
     memory_limit,
     parse_size,
     predict_factor_memory,
 )
-from conditioning.ordering import nested_dissection
+from conditioning.engine.ordering import nested_dissection
 from conditioning.results import FactorMemoryPrediction
 
 from test_ordering import skfem_elasticity, superlu_fill
@@ -117,8 +117,8 @@ def test_plan_reuses_the_ordering_and_guards_memory(monkeypatch):
     (the documented rule), its permutation handed to the shared
     factorization unchanged, and the prediction within 3% of the fill
     SuperLU then reports."""
-    from conditioning.factorization import factorize
-    from conditioning.memory import plan_factorization
+    from conditioning.engine.scipy_engine import factorize
+    from conditioning.engine.memory import plan_factorization
 
     K, xyz = skfem_elasticity(12, 3)  # 6,084 rows
     monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "64k")

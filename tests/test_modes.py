@@ -19,7 +19,7 @@ import scipy.sparse as sp
 pytest.importorskip("skfem", reason="scikit-fem (test-only reference assembler) is not installed")
 
 import fe_reference as fe  # noqa: E402
-from conditioning.api import diagnose  # noqa: E402
+from conditioning.pipeline import diagnose  # noqa: E402
 from conditioning.model import Coordinates, DofTable, Model  # noqa: E402
 
 

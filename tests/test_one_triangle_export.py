@@ -17,9 +17,9 @@ import scipy.io
 import scipy.sparse as sp
 
 import conditioning
-from conditioning.findings import build_findings
-from conditioning.matrix_io import STRAY_SHARE, mirror_one_triangle_export
-from conditioning.structure import check_structure
+from conditioning.stages.findings import build_findings
+from conditioning.io.matrix_formats import STRAY_SHARE, mirror_one_triangle_export
+from conditioning.stages.structure import check_structure
 from conftest import reference_matrix_path
 
 

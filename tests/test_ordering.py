@@ -18,7 +18,7 @@ import scipy.sparse.linalg as spla
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from conditioning.ordering import choose_ordering, nested_dissection, supervariables
+from conditioning.engine.ordering import choose_ordering, nested_dissection, supervariables
 
 skfem = pytest.importorskip("skfem", reason="scikit-fem (test extra) builds the reference models")
 from skfem import (Basis, ElementHex1, ElementQuad1, ElementTetP1, ElementTriP1,  # noqa: E402
@@ -174,11 +174,11 @@ def test_docstring_examples_of_the_scale_modules():
     """The Examples sections of ordering, memory and iterative run as written."""
     import doctest
 
-    import conditioning.iterative
-    import conditioning.memory
-    import conditioning.ordering
+    import conditioning.stages.spectrum_iterative
+    import conditioning.engine.memory
+    import conditioning.engine.ordering
 
-    for module in (conditioning.ordering, conditioning.memory, conditioning.iterative):
+    for module in (conditioning.engine.ordering, conditioning.engine.memory, conditioning.stages.spectrum_iterative):
         failed, attempted = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
         assert failed == 0
-    assert doctest.testmod(conditioning.memory).attempted >= 2
+    assert doctest.testmod(conditioning.engine.memory).attempted >= 2

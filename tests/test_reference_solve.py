@@ -14,7 +14,7 @@ import pytest
 import scipy.io
 import scipy.sparse as sp
 
-from conditioning.reference_solve import (
+from conditioning.linalg.reference_solve import (
     FLINT_MAX_N,
     MPMATH_MAX_N,
     choose_reference_method,
@@ -108,7 +108,7 @@ def test_singular_matrix_is_refused():
 def test_power_of_two_scaling_is_exact():
     """bcsstk01 (Harwell-Boeing): diag(s) K diag(s) with s powers of two has its
     diagonal in [1/2, 2) and divides back to K bit for bit (IEEE 754 scaling by 2^e)."""
-    from conditioning.reference_solve import power_of_two_scaling
+    from conditioning.linalg.reference_solve import power_of_two_scaling
 
     K = scipy.io.mmread(reference_matrix_path("bcsstk01")).toarray()
     s = power_of_two_scaling(K)
@@ -151,7 +151,7 @@ def test_flint_failure_message_does_not_blame_the_condition_number(monkeypatch):
     reached) and not that K is singular or too ill-conditioned: [[1, 1], [1, 1]]
     (exactly singular, common practice) and [[3, 1], [1, 2]] (x = (1/5, 2/5), not
     binary, so its balls keep a radius) with a width target no precision tried reaches."""
-    import conditioning.reference_solve as rs
+    import conditioning.linalg.reference_solve as rs
 
     with pytest.raises(ValueError) as singular:
         reference_solve(np.ones((2, 2)), np.ones(2), method="certified")

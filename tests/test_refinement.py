@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from conditioning.doubledouble import U
-from conditioning.factorization import factorize
-from conditioning.refinement import refine, scaled_condition_estimate
+from conditioning.linalg.doubledouble import U
+from conditioning.engine.scipy_engine import factorize
+from conditioning.linalg.refinement import refine, scaled_condition_estimate
 
 
 def hilbert(n: int) -> np.ndarray:

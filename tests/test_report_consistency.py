@@ -33,7 +33,7 @@ import pytest
 import scipy.io
 import scipy.sparse as sp
 
-from conditioning.api import diagnose
+from conditioning.pipeline import diagnose
 from conditioning.demo.scenarios import scenarios
 from conditioning.model import Model
 from conditioning.render._format import confirmed
@@ -298,7 +298,7 @@ def test_failed_re_solve_is_not_called_a_confirmation(monkeypatch):
     """When the arbitrary-precision re-solve fails, no sample counts as confirmed
     (bcsstk14 and s3rmt3m3 once read "re-solve failed ... (and 3 more sample(s)
     confirmed)"); checked on bcsstk01's size of chain, n = 48."""
-    import conditioning.digits as digits
+    import conditioning.stages.digits as digits
 
     def fail(*args, **kwargs):
         raise ValueError("ball arithmetic gave no enclosure (forced by the test)")

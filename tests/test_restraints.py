@@ -18,7 +18,7 @@ import scipy.linalg
 import scipy.sparse as sp
 
 from conditioning.model import Coordinates, DofTable, Model
-from conditioning.restraints import nonsingular_after_restraints, suggest_restraints
+from conditioning.stages.restraints import nonsingular_after_restraints, suggest_restraints
 from test_jumps import frame_2d, portal_frame_mm
 
 
@@ -232,9 +232,9 @@ def test_docstring_example_runs():
     """The Examples section of the module's docstrings (a closed-form case) runs as a doctest."""
     import doctest
 
-    import conditioning.restraints
+    import conditioning.stages.restraints
 
-    result = doctest.testmod(conditioning.restraints)
+    result = doctest.testmod(conditioning.stages.restraints)
     assert result.attempted > 0 and result.failed == 0
 
 

@@ -24,7 +24,7 @@ import pytest
 import scipy.sparse as sp
 
 import conditioning
-from conditioning.digits import digits_written
+from conditioning.stages.digits import digits_written
 from conditioning.model import DofTable, Model
 
 try:

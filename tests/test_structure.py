@@ -1,4 +1,4 @@
-"""Rows holding only a diagonal, connected parts, asymmetry: conditioning.structure.
+"""Rows holding only a diagonal, connected parts, asymmetry: conditioning.stages.structure.
 
 Outside references, named beside each check:
 
@@ -27,10 +27,10 @@ import scipy.sparse as sp
 from scipy.sparse import csgraph
 
 import conditioning
-from conditioning.findings import build_findings
-from conditioning.matrix_io import read_matrix
+from conditioning.stages.findings import build_findings
+from conditioning.io.matrix_formats import read_matrix
 from conditioning.model import DofTable, Model
-from conditioning.structure import check_structure, looks_like_placeholder, uncoupled_rows
+from conditioning.stages.structure import check_structure, looks_like_placeholder, uncoupled_rows
 from conftest import reference_matrix_path
 
 

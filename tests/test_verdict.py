@@ -30,9 +30,9 @@ import scipy.io
 import scipy.sparse as sp
 
 import conditioning
-from conditioning.digits import measure_digits
-from conditioning.factorization import factorize
-from conditioning.findings import CAUSES, status_of
+from conditioning.stages.digits import measure_digits
+from conditioning.engine.scipy_engine import factorize
+from conditioning.stages.findings import CAUSES, status_of
 from conditioning.model import Model
 from conftest import reference_matrix_path
 
@@ -189,7 +189,7 @@ def test_bcsstk14_per_row_digits_are_not_flat():
     (before, every row showed 16.0)."""
     K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk14")))
     model = Model(K=K)
-    from conditioning.structure import check_structure
+    from conditioning.stages.structure import check_structure
     structure = check_structure(model)
     assert structure.placeholder_rows.size > 0
     result = measure_digits(model, factorize(K), samples=1, confirm=False, structure=structure)

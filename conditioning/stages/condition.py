@@ -33,9 +33,9 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from conditioning.factorization import SharedFactorization
+from conditioning.engine.scipy_engine import SharedFactorization
 from conditioning.results import ConditionResult
-from conditioning.spectrum import DENSE_LIMIT, ScaledSpectrum, largest_eigenvalue
+from conditioning.stages.spectrum import DENSE_LIMIT, ScaledSpectrum, largest_eigenvalue
 
 logger = logging.getLogger(__name__)
 

@@ -25,7 +25,7 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.ordering import _coincident, choose_ordering, nested_dissection, supervariables
+from conditioning.engine.ordering import _coincident, choose_ordering, nested_dissection, supervariables
 from conditioning.results import FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
@@ -77,7 +77,7 @@ def predict_factor_memory(
     -------
     FactorMemoryPrediction
         Predicted factor entries (L + U as SuperLU counts them), flops, and
-        the bytes the shared factorization (conditioning.factorization) adds
+        the bytes the shared factorization (conditioning.engine.scipy_engine) adds
         at its peak: SuperLU's storage, the copy of U it reads the pivots
         from, and the matrix copies, with the method and its measured
         accuracy.

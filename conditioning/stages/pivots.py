@@ -23,7 +23,7 @@ import math
 
 import numpy as np
 
-from conditioning.factorization import SharedFactorization
+from conditioning.engine.scipy_engine import SharedFactorization
 from conditioning.model import Model
 from conditioning.results import DecayEntry, DiagonalDecay
 
@@ -92,7 +92,7 @@ def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -
 
     >>> import scipy.sparse as sp
     >>> from conditioning.model import Model
-    >>> from conditioning.factorization import factorize
+    >>> from conditioning.engine.scipy_engine import factorize
     >>> K = sp.csr_array(sp.diags_array([-1.0, 2.0, -1.0], offsets=[-1, 0, 1], shape=(4, 4)))
     >>> result = diagonal_decay(Model(K), factorize(K, ordering="NATURAL"))
     >>> round(result.worst[0].ratio, 12), result.worst[0].label

@@ -1,7 +1,7 @@
 """Near-singular modes located in the model: rigid-body, mechanism, or a DOF
 without stiffness.
 
-Input is the near-null basis found by :mod:`conditioning.spectrum` (smallest
+Input is the near-null basis found by :mod:`conditioning.stages.spectrum` (smallest
 eigenvectors of the scaled matrix S). Within that basis:
 
 1. Small eigenvalues of S that come from very stiff links (a penalty spring
@@ -29,8 +29,8 @@ from numpy.typing import NDArray
 
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import NearSingularMode, StructureResult
-from conditioning.rigid_body import rigid_basis
-from conditioning.spectrum import MODE_THRESHOLD, ScaledSpectrum
+from conditioning.linalg.rigid_motions import rigid_basis
+from conditioning.stages.spectrum import MODE_THRESHOLD, ScaledSpectrum
 
 logger = logging.getLogger(__name__)
 

@@ -23,7 +23,7 @@ import scipy.linalg as la
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.factorization import EPS, SharedFactorization, factorize, scaled_matrix
+from conditioning.engine.scipy_engine import EPS, SharedFactorization, factorize, scaled_matrix
 
 logger = logging.getLogger(__name__)
 

@@ -35,7 +35,7 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.findings import build_findings, verdict
+from conditioning.stages.findings import build_findings, verdict
 from conditioning.model import Model
 from conditioning.results import (
     DecayEntry, DiagonalDecay, DigitsResult, Finding, ModelSummary, Report, StiffnessJump, StructureResult,
@@ -89,7 +89,7 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
     model, structure, summary, jumps
         Of the whole model (``jumps`` holds the swallowing links).
     rest : Report
-        :func:`conditioning.api.diagnose` of ``hold_swallowed(model, ...)[0]``.
+        :func:`conditioning.pipeline.diagnose` of ``hold_swallowed(model, ...)[0]``.
     keep : (m,) intp
         Row of ``model`` of each row of the rest.
 

@@ -3,7 +3,7 @@
     K x = f  =>  x_ref = x_hi + x_lo (double-double), with error bounds
 
 The float64 factors of the shared factorization give corrections; residuals
-r = f - K x are computed in double-double (:mod:`conditioning.doubledouble`)
+r = f - K x are computed in double-double (:mod:`conditioning.linalg.doubledouble`)
 and the solution is carried as a double-double pair, so the iteration can
 go on improving x well below float64's unit round-off u = 2^-53: to about
 kappa * u^2 when the factors make it contract (kappa u < 1). When it does
@@ -43,7 +43,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.doubledouble import U, DDOperator, dd_add, dd_operator, dd_residual
+from conditioning.linalg.doubledouble import U, DDOperator, dd_add, dd_operator, dd_residual
 from conditioning.results import RefinementStep
 
 logger = logging.getLogger(__name__)
@@ -166,7 +166,7 @@ def refine(
     ----------
     K : (n, n) sparse, float64
         Stiffness matrix (force/length, moment/rotation).
-    fac : conditioning.factorization.SharedFactorization
+    fac : conditioning.engine.scipy_engine.SharedFactorization
         Unshifted float64 factorization of K (``fac.solve`` must work).
     f : (n,) float64
         Load vector (force, moment).

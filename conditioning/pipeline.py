@@ -16,16 +16,16 @@ from typing import Callable, Optional, Union
 import numpy as np
 import scipy.sparse as sp
 
-from conditioning.condition import condition_numbers
-from conditioning.factorization import FactorizationTooLarge, factorize
-from conditioning.findings import build_findings, verdict
+from conditioning.stages.condition import condition_numbers
+from conditioning.engine.scipy_engine import FactorizationTooLarge, factorize
+from conditioning.stages.findings import build_findings, verdict
 from conditioning.model import DOF_NAMES, Model
-from conditioning.modes import locate_modes
+from conditioning.stages.modes import locate_modes
 from conditioning.results import (
     ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
 )
-from conditioning.spectrum import GAP_RULE, ScaledSpectrum, largest_eigenvalue, count_below, scaled_spectrum
-from conditioning.structure import check_structure, rows_with_stiffness
+from conditioning.stages.spectrum import GAP_RULE, ScaledSpectrum, largest_eigenvalue, count_below, scaled_spectrum
+from conditioning.stages.structure import check_structure, rows_with_stiffness
 
 logger = logging.getLogger(__name__)
 
@@ -136,7 +136,7 @@ def diagnose(
     if isinstance(matrix, Model):
         model = matrix
     else:
-        from conditioning.inputs import load_model
+        from conditioning.io.load import load_model
 
         with stage("reading"):
             model = load_model(matrix, dofs=dofs, dofs_per_node=dofs_per_node, coords=coords,
@@ -150,7 +150,7 @@ def diagnose(
     if swallowed is not None:
         return swallowed
     if memory_limit is None:
-        from conditioning.memory import memory_limit as default_limit
+        from conditioning.engine.memory import memory_limit as default_limit
 
         memory_limit = default_limit()
     try:
@@ -182,8 +182,8 @@ def diagnose(
     )
     with stage("restraints"):
         restraints = _restraints(model, structure, located)
-    from conditioning.jumps import find_stiffness_jumps
-    from conditioning.decay import diagonal_decay
+    from conditioning.stages.jumps import find_stiffness_jumps
+    from conditioning.stages.pivots import diagonal_decay
 
     with stage("stiffness jumps"):
         jumps = find_stiffness_jumps(model, structure)
@@ -191,7 +191,7 @@ def diagnose(
         decay = diagonal_decay(model, fac)
     digits = None
     if measure:
-        from conditioning.digits import measure_digits
+        from conditioning.stages.digits import measure_digits
 
         with stage("digits"):
             digits = measure_digits(model, fac, condition=condition, spectrum=spectrum,
@@ -222,9 +222,9 @@ def _diagnose_rest_if_swallowed(model: Model, structure, stage: _Stages, **optio
     """When a penalty has swallowed the structure (K singular at working
     precision only along the link), the report of the whole model from the
     diagnosis of the rest with the linked rows held; None otherwise
-    (conditioning.penalty says why holding is the honest choice)."""
-    from conditioning.jumps import find_stiffness_jumps
-    from conditioning.penalty import hold_swallowed, restore_report, swallowed_rows
+    (conditioning.stages.penalty says why holding is the honest choice)."""
+    from conditioning.stages.jumps import find_stiffness_jumps
+    from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 
     with stage("penalty check"):
         jumps = find_stiffness_jumps(model, structure)
@@ -255,7 +255,7 @@ def _restraints(model: Model, structure, located) -> list[Restraint]:
                      row=int(r), reason="the DOF has no stiffness of its own")
            for r in structure.empty_rows]
     if located.basis.shape[1]:
-        from conditioning.restraints import suggest_restraints
+        from conditioning.stages.restraints import suggest_restraints
 
         out += suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
     return out
@@ -263,8 +263,8 @@ def _restraints(model: Model, structure, located) -> list[Restraint]:
 
 def _without_factorization(model: Model, structure, stage: _Stages, too_large: FactorizationTooLarge) -> Report:
     """The diagnosis when the factor would not fit: spectrum by LOBPCG, no digits."""
-    from conditioning.factorization import diagonal_scaling
-    from conditioning.iterative import as_scaled_spectrum, iterative_spectrum
+    from conditioning.engine.scipy_engine import diagonal_scaling
+    from conditioning.stages.spectrum_iterative import as_scaled_spectrum, iterative_spectrum
 
     K = model.K
     with stage("spectrum (factorization-free)"):
@@ -299,7 +299,7 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
         stiff_link_eigenvalues=list(located.stiff_link_eigenvalues),
     )
     restraints = _restraints(model, structure, located)
-    from conditioning.jumps import find_stiffness_jumps
+    from conditioning.stages.jumps import find_stiffness_jumps
 
     jumps = find_stiffness_jumps(model, structure)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, None, None,

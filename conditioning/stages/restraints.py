@@ -150,7 +150,7 @@ def nonsingular_after_restraints(
         ``not fac.singular`` for the shared factorization of the reduced
         matrix: every pivot of the scaled reduced matrix above n*eps*||S||.
     """
-    from conditioning.factorization import factorize
+    from conditioning.engine.scipy_engine import factorize
 
     fixed = np.array([r.row if isinstance(r, Restraint) else int(r) for r in restraints], dtype=np.intp)
     keep = np.setdiff1d(np.arange(K.shape[0]), fixed)

@@ -1,6 +1,6 @@
 """Building a :class:`~conditioning.model.Model` from the user's files or arrays.
 
-``load_model`` reads the stiffness matrix (:mod:`conditioning.matrix_io`),
+``load_model`` reads the stiffness matrix (:mod:`conditioning.io.matrix_formats`),
 the optional DOF map, node coordinates, load and solution vectors, applies
 restraints by removing their rows and columns, and records every step as a
 note for the report. Everything that does not fit together raises
@@ -29,7 +29,7 @@ import scipy.sparse as sp
 from numpy.typing import ArrayLike, NDArray
 
 from conditioning.errors import InputError
-from conditioning.matrix_io import (
+from conditioning.io.matrix_formats import (
     assemble_symmetric,
     mirror_one_triangle_export,
     parse_float,
@@ -67,7 +67,7 @@ def load_model(
     ----------
     matrix : path, scipy sparse matrix or (n, n) ndarray
         Matrix Market or Harwell-Boeing file (see
-        :func:`conditioning.matrix_io.read_matrix`), or the matrix itself
+        :func:`conditioning.io.matrix_formats.read_matrix`), or the matrix itself
         (source ``"<array>"``); units force/length, moment/rotation.
     dofs : path, DofTable or sequence of (node, dof) pairs, optional
         Which node and component each matrix row is, in row order. A pair's
@@ -92,7 +92,7 @@ def load_model(
         restrained rows removed, ``restrained`` their count and ``notes``
         one sentence per thing the reader did. A matrix stored as one
         triangle plus a few stray entries of the other is mirrored
-        (:func:`conditioning.matrix_io.mirror_one_triangle_export`) and
+        (:func:`conditioning.io.matrix_formats.mirror_one_triangle_export`) and
         ``one_triangle`` says where the strays were.
 
     Raises

@@ -13,12 +13,12 @@ from typing import Optional, Sequence
 import numpy as np
 
 from conditioning.model import Model
-from conditioning.doubledouble import U
+from conditioning.linalg.doubledouble import U
 from conditioning.results import (
     Asymmetry, ConditionResult, DiagonalDecay, DigitsResult, Finding, NearSingularMode,
     OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
-from conditioning.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
+from conditioning.stages.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
 
 #: Digits of float64, log10(2^53).
 FLOAT64_DIGITS = -math.log10(U)

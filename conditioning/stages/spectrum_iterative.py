@@ -3,7 +3,7 @@
     S = D^-1/2 K D^-1/2  =>  lambda_1 <= ... <= lambda_k, v_1 ... v_k
 
 The path taken when the factor of K would not fit in memory
-(:func:`conditioning.memory.fits`): the locally optimal block preconditioned
+(:func:`conditioning.engine.memory.fits`): the locally optimal block preconditioned
 conjugate gradient method (LOBPCG, scipy.sparse.linalg.lobpcg) on S,
 preconditioned by an incomplete LU factorization of S + tau*I whose fill is
 capped at a multiple of the matrix's own, started from the rigid-body
@@ -27,12 +27,12 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.factorization import EPS, diagonal_scaling, scaled_matrix
+from conditioning.engine.scipy_engine import EPS, diagonal_scaling, scaled_matrix
 from conditioning.model import Model
 from conditioning.results import IterativeSpectrum
-from conditioning.rigid_body import rigid_basis
-from conditioning.spectrum import ScaledSpectrum, largest_eigenvalue, split_near_singular
-from conditioning.structure import rows_with_stiffness
+from conditioning.linalg.rigid_motions import rigid_basis
+from conditioning.stages.spectrum import ScaledSpectrum, largest_eigenvalue, split_near_singular
+from conditioning.stages.structure import rows_with_stiffness
 
 logger = logging.getLogger(__name__)
 

@@ -4,9 +4,9 @@
 
 The float64 solution x = K^-1 f is what a production direct solver returns.
 Its trustworthy digits are measured against a reference solution:
-double-double iterative refinement (:mod:`conditioning.refinement`),
+double-double iterative refinement (:mod:`conditioning.linalg.refinement`),
 confirmed for models up to a size limit by an arbitrary-precision dense
-re-solve (:mod:`conditioning.reference_solve`): certified by python-flint's
+re-solve (:mod:`conditioning.linalg.reference_solve`): certified by python-flint's
 ball arithmetic when installed, else mpmath.
 
 Definitions (u = 2^-53, unit round-off of float64):
@@ -44,10 +44,10 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.doubledouble import U, dd_operator, dd_residual
+from conditioning.linalg.doubledouble import U, dd_operator, dd_residual
 from conditioning.model import Model
-from conditioning.refinement import RefinementResult, refine_block, scaled_condition_estimate
-from conditioning.reference_solve import (
+from conditioning.linalg.refinement import RefinementResult, refine_block, scaled_condition_estimate
+from conditioning.linalg.reference_solve import (
     FLINT_MAX_N,
     MPMATH_MAX_N,
     ReferenceSolution,
@@ -89,7 +89,7 @@ def measure_digits(
     model : Model
         K (force/length, moment/rotation), and optionally the user's load,
         an audited solution and the DOF map.
-    fac : conditioning.factorization.SharedFactorization
+    fac : conditioning.engine.scipy_engine.SharedFactorization
         The shared float64 factorization of K.
     condition : ConditionResult, optional
         Raw and scaled condition estimates, for the rule-of-thumb predictions.

@@ -147,7 +147,7 @@ def _resolve_ordering(ordering: Ordering, K, coords) -> Ordering:
     if ordering != "auto":
         return ordering
     try:  # the scale stage's own choice, when present
-        from conditioning.ordering import choose_ordering
+        from conditioning.engine.ordering import choose_ordering
     except ImportError:
         return "MMD_AT_PLUS_A"
     return choose_ordering(K, coords)
@@ -168,7 +168,7 @@ def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None)
     if callable(ordering):
         perm = np.asarray(ordering(S, coords), dtype=np.intp)
     if memory_limit is not None and S.shape[0] > PREDICT_ABOVE:
-        from conditioning.memory import predict_factor_memory
+        from conditioning.engine.memory import predict_factor_memory
 
         prediction = predict_factor_memory(S, perm, coords=coords)
         logger.info("predicted factor memory %.2f GiB (%s)", prediction.bytes / 2**30, prediction.method)
@@ -231,7 +231,7 @@ def factorize(
         stiffness are left out and make K singular.
     memory_limit : int, optional
         Bytes the factorization may use. When given, the factor's size is
-        predicted by symbolic analysis first (conditioning.memory), and
+        predicted by symbolic analysis first (conditioning.engine.memory), and
         :class:`FactorizationTooLarge` is raised instead of factorizing when
         it would not fit.
 
@@ -242,7 +242,7 @@ def factorize(
     K = sp.csr_array(K)
     n = K.shape[0]
     if active is None:
-        from conditioning.structure import rows_with_stiffness
+        from conditioning.stages.structure import rows_with_stiffness
 
         active = rows_with_stiffness(K)
     idx = np.flatnonzero(active)

@@ -1,0 +1,1 @@
+"""Reading the engineer's files: the matrix, the DOF map, coordinates, vectors."""
