@@ -1,0 +1,141 @@
+"""The verified lower bound on lambda_min and the certified error of a refined solution.
+
+Outside references:
+
+* LAPACK (numpy.linalg.eigvalsh) for the smallest eigenvalue of S = E K E;
+  its error is a small multiple of u ||S||_2 (common practice), far below the
+  margins here;
+* python-flint's ``arb_mat.solve`` (ball arithmetic) for a certified
+  enclosure of the exact solution: the proved error bound must contain
+  flint's proved error (never claim a smaller error than flint proves);
+* the public matrices of ../shared/reference-matrices (PROVENANCE.md) and
+  invented models (said so where built).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.io
+import scipy.sparse as sp
+
+from conditioning.engine.scipy_engine import factorize
+from conditioning.linalg.doubledouble import dd_residual
+from conditioning.linalg.refinement import refine_block
+from conditioning.linalg.verified_eigenvalue import (
+    certified_errors,
+    power_of_two_scaling,
+    verified_smallest_eigenvalue,
+)
+from conftest import reference_matrix_path
+
+try:
+    import flint
+except ImportError:  # test extra
+    flint = None
+
+SMALL = ["bcsstk01", "bcsstk02", "bcsstk04", "bcsstk05", "bcsstk06", "nos4", "LF10"]
+
+
+def lapack_lambda_min(K: sp.csr_array, e: np.ndarray) -> float:
+    A = K.toarray()
+    return float(np.linalg.eigvalsh(A * e[:, None] * e[None, :])[0])
+
+
+def unit_scaled_lambda_min(K: sp.csr_array) -> float:
+    d = 1 / np.sqrt(K.diagonal())
+    return float(np.linalg.eigvalsh(K.toarray() * d[:, None] * d[None, :])[0])
+
+
+def test_power_of_two_scaling_is_exact_and_in_range():
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk02")))
+    e = power_of_two_scaling(K)
+    m, _ = np.frexp(e)
+    assert np.all(m == 0.5)                               # powers of two
+    diag = e * e * K.diagonal()
+    assert np.all((diag > 0.25) & (diag <= 1.0))
+
+
+@pytest.mark.parametrize("name", SMALL)
+def test_bound_is_below_lapack_smallest_eigenvalue(name):
+    """The proved bound never exceeds LAPACK's lambda_min of the same S, and is
+    within a factor 10 of it (it is the shift c minus a rounding bound)."""
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path(name)))
+    bound = verified_smallest_eigenvalue(K, unit_scaled_lambda_min(K))
+    assert bound.verified, bound.reason
+    lam = lapack_lambda_min(K, bound.scale)
+    assert bound.lower <= lam
+    assert bound.lower >= lam / 10
+    assert bound.rounding_bound < 1e-10
+
+
+def test_reuses_an_ordering():
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk05")))
+    perm = np.random.default_rng(3).permutation(K.shape[0])
+    bound = verified_smallest_eigenvalue(K, unit_scaled_lambda_min(K), perm=perm)
+    assert bound.verified and bound.lower <= lapack_lambda_min(K, bound.scale)
+
+
+def chain(n: int, ground: float) -> sp.csr_array:
+    main = np.full(n, 2.0)
+    main[0], main[-1] = 1.0, 1.0 + ground
+    return sp.diags_array([-np.ones(n - 1), main, -np.ones(n - 1)], offsets=[-1, 0, 1]).tocsr()
+
+
+def test_refuses_an_indefinite_matrix():
+    """An invented chain with one spring entered as -3 (LAPACK: one negative
+    eigenvalue): no shift gives positive pivots, nothing is proved."""
+    K = chain(30, 1.0).toarray()
+    K[np.ix_([14, 15], [14, 15])] += np.array([[-4.0, 4.0], [4.0, -4.0]])
+    assert np.linalg.eigvalsh(K)[0] < 0
+    bound = verified_smallest_eigenvalue(sp.csr_array(K), 1e-3)
+    assert not bound.verified and bound.lower is None
+    assert "not positive" in bound.reason
+
+
+def test_refuses_a_singular_matrix():
+    """A free chain (singular: rigid translation, textbook fact), even when handed
+    a small positive estimate."""
+    bound = verified_smallest_eigenvalue(chain(40, 0.0), 1e-14)
+    assert not bound.verified
+
+
+def test_refuses_beyond_what_the_bound_proves():
+    """The 12 x 12 Hilbert matrix, kappa_2 = 1.7e16 (REFERENCES.md): SPD in exact
+    arithmetic, but its smallest eigenvalue is below the rounding bound."""
+    i = np.arange(12)
+    H = 1.0 / (i[:, None] + i[None, :] + 1)
+    d = 1 / np.sqrt(np.diag(H))
+    lam = np.linalg.eigvalsh(H * d[:, None] * d[None, :])[0]
+    bound = verified_smallest_eigenvalue(sp.csr_array(H), max(lam, 1e-18))
+    assert not bound.verified
+
+
+@pytest.mark.skipif(flint is None, reason="python-flint not installed")
+@pytest.mark.parametrize("name", ["bcsstk02", "bcsstk05", "nos4"])
+def test_error_bound_contains_flints_enclosure(name):
+    """x_r from double-double refinement: the proved |x_r - x|_i bound is never below
+    python-flint's certified lower bound on the same error, and the float64
+    solution's certified normwise digits agree with flint's within 0.3."""
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path(name)))
+    n = K.shape[0]
+    f = np.random.default_rng(21).standard_normal(n)
+    fac = factorize(K)
+    x = fac.solve(f)
+    ref = refine_block(K, fac, f[:, None], X0=x[:, None])[0]
+    bound = verified_smallest_eigenvalue(K, unit_scaled_lambda_min(K))
+    assert bound.verified
+    r_hi, r_lo = dd_residual(K, ref.x_hi, ref.x_lo, f)
+    cert = certified_errors(K, bound.scale, bound.lower, f, ref.x_hi, ref.x_lo, r_hi, r_lo)
+    with flint.ctx.workprec(200):
+        X = flint.arb_mat(n, n, K.toarray().ravel().tolist()).solve(flint.arb_mat(n, 1, f.tolist()))
+        exact_gap_lo = np.array([float((abs(X[i, 0] - flint.arb(float(ref.x_hi[i])) - flint.arb(float(ref.x_lo[i]))))
+                                       .lower()) for i in range(n)])
+        float_gap = [abs(X[i, 0] - flint.arb(float(x[i]))) for i in range(n)]
+        big = max(abs(X[i, 0]).upper() for i in range(n))
+        flint_digits = -np.log10(float(max(g.lower() for g in float_gap) / big))
+    assert np.all(cert >= exact_gap_lo)
+    err_up = np.abs((x - ref.x_hi) - ref.x_lo) * (1 + 4 * 2.0**-53) + cert
+    ours = -np.log10(err_up.max() / (np.abs(ref.x_hi).max() - cert.max()))
+    assert ours <= flint_digits + 1e-9
+    assert abs(ours - flint_digits) <= 0.3
