@@ -304,7 +304,12 @@ class DigitsSample:
     against the reference (measured)."""
     digits_lost: float
     """log10(1/u) - trustworthy_digits with u = 2^-53 (about 15.95 digits)."""
-    method: Literal["double-double refinement", "arbitrary precision", "certified"]
+    method: Literal["double-double refinement", "arbitrary precision", "certified (ball arithmetic)",
+                    "certified (verified eigenvalue bound)"]
+    """How the reference was obtained: measured against double-double
+    refinement or a 60+ digit mpmath re-solve, or certified by a ball
+    arithmetic re-solve (python-flint) or by the verified lower bound on the
+    smallest eigenvalue with a rigorous residual."""
     converged: bool
     stop_reason: str
     history: list[RefinementStep]
@@ -391,6 +396,11 @@ class DigitsResult:
     """Why the stage did not run, if it did not."""
     audit: Optional["SolutionAudit"] = None
     """How the supplied solution fits K and f, when one was given."""
+    certification: Optional[str] = None
+    """What the verified eigenvalue bound proved ("proved: lambda_min(S) >=
+    ..."), or why it proved nothing (not positive definite at the shift, a
+    rounding bound above the shift, not attempted); None when the stage
+    did not get that far."""
 
 
 # ------------------------------------------------------------------ scale

@@ -176,7 +176,7 @@ def test_certified_method_and_worst_case_sample_bcsstk05():
     rng = np.random.default_rng(3)
     loads = [rng.standard_normal(153), rng.standard_normal(153), worst_case_load(K, fac)]
     for sample, f in zip(result.samples, loads):
-        assert sample.method == "certified" and "agrees" in sample.confirmation
+        assert sample.method == "certified (ball arithmetic)" and "agrees" in sample.confirmation
         lo, hi = external_error(K.toarray(), f, sample.solution)
         assert abs(sample.trustworthy_digits - digits_of(hi)) <= 0.5
         assert sample.trustworthy_digits <= digits_of(lo) + 1e-9

@@ -128,6 +128,13 @@ class SharedFactorization:
         x[self._perm] = self._lu.solve(b[self._perm])
         return x
 
+    def ordering_permutation(self) -> NDArray[np.intp]:
+        """The fill-reducing ordering of the active rows, as an index array
+        (S[p][:, p] is the matrix factored), for another factorization to reuse."""
+        if self._perm is not None:
+            return np.asarray(self._perm, dtype=np.intp)
+        return np.asarray(self._lu.perm_c, dtype=np.intp)
+
     def solve(self, f: NDArray[np.float64]) -> NDArray[np.float64]:
         """K^-1 f = diag(s) S^-1 diag(s) f, in float64 as a production solver gets it.
 

@@ -183,4 +183,4 @@ def mode_count_lines(sp: results.SpectrumResult, jumps_shown: bool) -> list[str]
 def confirmed(sample: "results.DigitsSample") -> bool:
     """True when the sample's reference is the independent re-solve (its method
     is then "certified" or "arbitrary precision"), not refinement alone."""
-    return sample.method in ("certified", "arbitrary precision")
+    return sample.method in ("certified (ball arithmetic)", "arbitrary precision")

@@ -46,6 +46,11 @@ from numpy.typing import NDArray
 
 from conditioning.linalg.doubledouble import U, dd_operator, dd_residual
 from conditioning.model import Model
+from conditioning.linalg.verified_eigenvalue import (
+    VerifiedEigenvalueBound,
+    certified_errors,
+    verified_smallest_eigenvalue,
+)
 from conditioning.linalg.refinement import RefinementResult, refine_block, scaled_condition_estimate
 from conditioning.linalg.reference_solve import (
     FLINT_MAX_N,
@@ -67,6 +72,10 @@ logger = logging.getLogger(__name__)
 
 #: Digits of float64: log10(1/u) with u = 2^-53.
 FLOAT64_DIGITS = -math.log10(U)
+#: How a figure proved by python-flint's ball-arithmetic re-solve is labelled.
+CERTIFIED_BALL = "certified (ball arithmetic)"
+#: How a figure proved by the verified eigenvalue bound is labelled.
+CERTIFIED_EIGENVALUE = "certified (verified eigenvalue bound)"
 #: Nodes listed per sample, worst first.
 WORST_NODES = 10
 
@@ -81,6 +90,7 @@ def measure_digits(
     seed: int = 0,
     confirm: bool = True,
     structure=None,
+    certify: bool = True,
 ) -> DigitsResult:
     """Measure the digits the float64 solution of K x = f keeps, per load sample.
 
@@ -102,6 +112,10 @@ def measure_digits(
         Seed of the random loads.
     confirm : bool
         Run the arbitrary-precision re-solve when the model is small enough.
+    certify : bool
+        Prove the digits with the verified lower bound on the smallest
+        eigenvalue (:mod:`conditioning.linalg.verified_eigenvalue`): one more
+        factorization, of the shifted scaled matrix.
     structure : StructureResult, optional
         Its placeholder rows (restrained DOFs kept with a bare diagonal) get
         no random load and are left out of the normwise figure; its rows
@@ -137,12 +151,13 @@ def measure_digits(
     want = [j == 0 for j in range(len(names))]
     refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op, want_componentwise=want)
     confirmation, why_not = _confirm(K, F, kappa) if confirm else (None, "arbitrary-precision re-solve not requested")
+    verified, certification = _verify(K, fac, condition) if certify else (None, "not requested")
     measured = None
     if placeholders.size:
         measured = np.ones(model.n, dtype=bool)
         measured[placeholders] = False
     out = [
-        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured)
+        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured, verified)
         for j, name in enumerate(names)
     ]
     audit = None
@@ -150,11 +165,24 @@ def measure_digits(
         logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
     elif model.solution is not None:
         solution = _sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
-                           refs[0], confirmation, 0, why_not, measured)
+                           refs[0], confirmation, 0, why_not, measured, verified)
         out.append(solution)
         audit = _audit(solution, out[0])
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
-                        summary=_summary(out, predicted_raw, predicted_scaled, flops), audit=audit)
+                        summary=_summary(out, predicted_raw, predicted_scaled, flops), audit=audit,
+                        certification=certification)
+
+
+def _verify(K, fac, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
+    """The verified eigenvalue bound for K, and what it proved or why not."""
+    estimate = None if condition is None else condition.scaled_lambda_min
+    if estimate is None or not estimate > 0:
+        return None, "not attempted: no positive estimate of the smallest eigenvalue of S"
+    try:
+        bound = verified_smallest_eigenvalue(K, estimate, perm=fac.ordering_permutation())
+    except (MemoryError, RuntimeError, ValueError) as exc:
+        return None, f"not attempted: {exc}"
+    return bound, bound.reason
 
 
 def _placeholder_rows(structure) -> NDArray[np.intp]:
@@ -320,11 +348,15 @@ def _confirm(K, F, kappa) -> tuple[Optional[ReferenceSolution], str]:
 
 
 def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[ReferenceSolution], j: int,
-            why_not: str = "", measured_rows: Optional[NDArray[np.bool_]] = None) -> DigitsSample:
+            why_not: str = "", measured_rows: Optional[NDArray[np.bool_]] = None,
+            verified: Optional[VerifiedEigenvalueBound] = None) -> DigitsSample:
     """Measure one sample: forward error, digits (from an upper bound), per DOF, bounds.
 
     ``measured_rows`` leaves placeholder rows out of the normwise figure (their
-    displacement is not the structure's); None measures every row.
+    displacement is not the structure's); None measures every row. With a
+    ``verified`` eigenvalue bound, the refined solution's error is proved
+    (:func:`certified_errors`) and the figure is certified, unless the ball
+    arithmetic re-solve ran (then that proof is used).
     """
     rows = np.ones(x.size, dtype=bool) if measured_rows is None else measured_rows
     x_hi, x_lo, method = ref.x_hi, ref.x_lo, "double-double refinement"
@@ -333,7 +365,8 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
         c_hi, c_lo = conf.x_hi[:, j], conf.x_lo[:, j]
         scale = float(np.max(np.abs(c_hi[rows]), initial=0.0))
         gap = float(np.max(np.abs((ref.x_hi - c_hi) + (ref.x_lo - c_lo))[rows], initial=0.0)) / scale
-        x_hi, x_lo, method = c_hi, c_lo, conf.method
+        x_hi, x_lo = c_hi, c_lo
+        method = CERTIFIED_BALL if conf.method == "certified" else conf.method
         if conf.radius is not None:
             rad = conf.radius[:, j]
             resolution = float(np.max(rad[rows], initial=0.0)) / scale + 2 * U**2
@@ -362,6 +395,15 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
     # Lower bound on ||x_exact||_inf over the measured rows.
     scale_lo = scale - float(np.max(ref_abs[rows], initial=0.0))
     upper = _up(float(np.max(err_up[rows], initial=0.0)) / scale_lo, 2) if scale_lo > 0 else math.inf
+    # The ball-arithmetic re-solve, where it ran, is the direct proof; the
+    # eigenvalue bound certifies every other sample, at any size.
+    proof = None if method == CERTIFIED_BALL else _eigenvalue_proof(op, f, x, ref, rows, verified)
+    if proof is not None:
+        err_up, upper, cert_abs, scale = proof
+        x_hi, x_lo, method, converged = ref.x_hi, ref.x_lo, CERTIFIED_EIGENVALUE, True
+        resolution = float(np.max(cert_abs[rows], initial=0.0)) / scale
+        rad = cert_abs
+        forward = float(np.max(np.abs((x - x_hi) - x_lo)[rows], initial=0.0)) / scale
     trust = _digits(upper)
     at_ceiling = forward <= resolution
     per_dof = _per_dof_digits(model, err_up, x_hi, resolution)
@@ -386,6 +428,25 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
         bound_trusted=trusted, confirmation=note, per_dof_digits=per_dof, forward_error=forward,
         resolution=resolution, at_ceiling=at_ceiling, backward_error=backward, solution=x,
     )
+
+
+def _eigenvalue_proof(op, f, x, ref: RefinementResult, rows, verified):
+    """(err_up, upper, |x_r - x_exact| bound, ||x_r||) from the verified eigenvalue bound, or None.
+
+    err_up bounds |x - x_exact| per component; upper bounds the normwise
+    relative error over ``rows`` (see :func:`certified_errors`).
+    """
+    if verified is None or not verified.verified:
+        return None
+    r_hi, r_lo = dd_residual(op, ref.x_hi, ref.x_lo, f)
+    cert = certified_errors(op.K, verified.scale, verified.lower, f, ref.x_hi, ref.x_lo, r_hi, r_lo)
+    err_up = _up(np.abs((x - ref.x_hi) - ref.x_lo), 3) + cert
+    scale = float(np.max(np.abs(ref.x_hi[rows]), initial=0.0))
+    scale_lo = scale - float(np.max((cert + np.abs(ref.x_lo))[rows], initial=0.0))
+    if not scale_lo > 0:
+        return None
+    upper = _up(float(np.max(err_up[rows], initial=0.0)) / scale_lo, 2)
+    return err_up, upper, cert, scale
 
 
 def _backward_error(op, x, f, r) -> float:
