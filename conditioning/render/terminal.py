@@ -336,7 +336,16 @@ def _digits_shown(s: results.DigitsSample) -> str:
     return f">= {text}" if getattr(s, "at_ceiling", False) else text
 
 
+#: Short labels for the digits table (the full method is in the JSON and HTML).
+_SHORT_METHOD = {
+    "certified (verified eigenvalue bound)": "certified (eig. bound)",
+    "certified (ball arithmetic)": "certified (ball)",
+}
+
+
 def _how_digits(method: str) -> str:
+    if method in _SHORT_METHOD:
+        return _SHORT_METHOD[method]
     tag = how_obtained(method)
     return method if tag in method else f"{method}, {tag}"
 

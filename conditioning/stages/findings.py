@@ -508,7 +508,8 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     own = own_samples(digits)
     worst = min((s.trustworthy_digits for s in own), default=None)
     if worst is not None:
-        figure = f"trustworthy to {_significant(worst)} (measured)"
+        how = "certified" if all(s.method.startswith("certified") for s in own) else "measured"
+        figure = f"trustworthy to {_significant(worst)} ({how})"
     elif condition is not None and condition.scaled_estimate and not condition.singular:
         figure = (f"about {_significant(16 - math.log10(condition.scaled_estimate))} "
                   "(estimated from the scaled condition number, not measured)")
