@@ -115,3 +115,19 @@ def test_indefinite_reference_negative_eigenvalues():
     # Said once: with the count and, when pivots exist, where the first negative pivot is.
     said = [f for f in report.findings if f.code in ("stiffness.indefinite", "factor.negative-pivot")]
     assert len(said) == 1 and f"{report.spectrum.negative_eigenvalues:,} negative eigenvalue" in said[0].message
+
+
+def test_integer_matrix_is_factored_in_float64():
+    """nos1 is stored as a Matrix Market "integer" file; scipy.io.mmread returns int64.
+    Its scaled matrix must not be rounded to integers (it was: every entry became 0
+    and an SPD matrix with kappa_2 2e7 (PROVENANCE.md) was called singular)."""
+    import scipy.io
+
+    from conditioning.engine.scipy_engine import factorize
+
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("nos1")))
+    assert K.dtype.kind == "i"
+    fac = factorize(K)
+    assert not fac.singular and fac.shift == 0.0
+    row = next(r for r in computed_stats() if r["file"] == "nos1.mtx")
+    assert float(row["cond2_computed"]) == pytest.approx(1.99e7, rel=0.01)

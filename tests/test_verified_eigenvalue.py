@@ -27,7 +27,7 @@ from conditioning.linalg.verified_eigenvalue import (
     power_of_two_scaling,
     verified_smallest_eigenvalue,
 )
-from conftest import reference_matrix_path
+from conftest import computed_stats, reference_matrix_path
 
 try:
     import flint
@@ -111,20 +111,37 @@ def test_refuses_beyond_what_the_bound_proves():
     assert not bound.verified
 
 
+#: The positive definite public matrices of PROVENANCE.md small enough for a dense
+#: ball-arithmetic solve in test time (n <= 500; computed_stats.csv: posdef True).
+FLINT_SIZED = ["bcsstk01", "bcsstk02", "bcsstk03", "bcsstk04", "bcsstk05", "bcsstk06", "bcsstk07",
+               "bcsstk20", "bcsstk22", "nos1", "nos4", "plat362", "bcsstm02", "bcsstm05", "bcsstm06",
+               "bcsstm07", "bcsstm20", "bcsstm22", "LF10"]
+
+
 @pytest.mark.skipif(flint is None, reason="python-flint not installed")
-@pytest.mark.parametrize("name", ["bcsstk02", "bcsstk05", "nos4"])
+@pytest.mark.parametrize("name", FLINT_SIZED)
 def test_error_bound_contains_flints_enclosure(name):
     """x_r from double-double refinement: the proved |x_r - x|_i bound is never below
-    python-flint's certified lower bound on the same error, and the float64
-    solution's certified normwise digits agree with flint's within 0.3."""
+    python-flint's certified lower bound on the same error, and, where the scaled
+    condition number (LAPACK) is below 1e8, the float64 solution's certified
+    normwise digits agree with flint's within 0.3. Where the bound cannot be
+    proved (conditioning beyond it), nothing is claimed."""
+    row = next((r for r in computed_stats() if r["file"].startswith(name + ".")), None)
+    assert row is not None and row["posdef"] == "True"          # PROVENANCE.md
     K = sp.csr_array(scipy.io.mmread(reference_matrix_path(name)))
     n = K.shape[0]
+    kappa_scaled = 1.0 / unit_scaled_lambda_min(K) * float(
+        np.linalg.eigvalsh(K.toarray() / np.sqrt(np.outer(K.diagonal(), K.diagonal())))[-1])
     f = np.random.default_rng(21).standard_normal(n)
     fac = factorize(K)
     x = fac.solve(f)
     ref = refine_block(K, fac, f[:, None], X0=x[:, None])[0]
     bound = verified_smallest_eigenvalue(K, unit_scaled_lambda_min(K))
-    assert bound.verified
+    if kappa_scaled < 1e8:
+        assert bound.verified, bound.reason
+    if not bound.verified:
+        assert bound.lower is None
+        return
     r_hi, r_lo = dd_residual(K, ref.x_hi, ref.x_lo, f)
     cert = certified_errors(K, bound.scale, bound.lower, f, ref.x_hi, ref.x_lo, r_hi, r_lo)
     with flint.ctx.workprec(200):
@@ -138,7 +155,8 @@ def test_error_bound_contains_flints_enclosure(name):
     err_up = np.abs((x - ref.x_hi) - ref.x_lo) * (1 + 4 * 2.0**-53) + cert
     ours = -np.log10(err_up.max() / (np.abs(ref.x_hi).max() - cert.max()))
     assert ours <= flint_digits + 1e-9
-    assert abs(ours - flint_digits) <= 0.3
+    if kappa_scaled < 1e8:
+        assert abs(ours - flint_digits) <= 0.3
 
 
 def _condition(K: sp.csr_array):

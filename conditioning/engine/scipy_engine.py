@@ -60,7 +60,7 @@ SUPERLU_ORDERINGS = ("MMD_AT_PLUS_A", "MMD_ATA", "COLAMD", "NATURAL")
 
 def diagonal_scaling(K: sp.csr_array) -> NDArray[np.float64]:
     """s_i = 1/sqrt(|K_ii|), and 1 where K_ii = 0; S = diag(s) K diag(s)."""
-    d = np.abs(K.diagonal())
+    d = np.abs(K.diagonal()).astype(np.float64)
     s = np.ones_like(d)
     pos = d > 0
     s[pos] = 1.0 / np.sqrt(d[pos])
@@ -71,7 +71,9 @@ def scaled_matrix(K: sp.csr_array, s: NDArray[np.float64]) -> sp.csr_array:
     """diag(s) K diag(s) in CSR, computed without forming the diagonal matrices."""
     K = sp.csr_array(K)
     rows = np.repeat(np.arange(K.shape[0]), np.diff(K.indptr))
-    data = K.data * s[rows] * s[K.indices]
+    # float64 whatever K's type: an integer K (a Matrix Market "integer" file
+    # read with scipy.io.mmread) would otherwise round every entry of S to 0.
+    data = K.data.astype(np.float64) * s[rows] * s[K.indices]
     return sp.csr_array((data, K.indices.copy(), K.indptr.copy()), shape=K.shape)
 
 
