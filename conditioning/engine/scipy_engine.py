@@ -135,7 +135,9 @@ class SharedFactorization:
         (S[p][:, p] is the matrix factored), for another factorization to reuse."""
         if self._perm is not None:
             return np.asarray(self._perm, dtype=np.intp)
-        return np.asarray(self._lu.perm_c, dtype=np.intp)
+        # SuperLU's perm_c maps a row of S to its position in the factor:
+        # the matrix factored is S[p][:, p] with p its inverse.
+        return np.argsort(self._lu.perm_c).astype(np.intp)
 
     def solve(self, f: NDArray[np.float64]) -> NDArray[np.float64]:
         """K^-1 f = diag(s) S^-1 diag(s) f, in float64 as a production solver gets it.
