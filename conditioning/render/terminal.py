@@ -291,6 +291,8 @@ def _digits(r: results.Report, max_ids: int):
                               f"{fmt_number(dg.factorization_flops)} operations; digits are "
                               "lost to conditioning, not to the operation count.", style="dim"))
     lines.extend(_confirmation_lines(dg.samples))
+    if dg.certification:
+        lines.append(Text(f"Verified eigenvalue bound: {dg.certification}.", style="dim"))
     lines.extend(_audit_lines(dg.audit))
     return Group(*lines)
 
