@@ -81,6 +81,7 @@ def measure_digits(
     seed: int = 0,
     confirm: bool = True,
     structure=None,
+    rng: Optional[np.random.Generator] = None,
 ) -> DigitsResult:
     """Measure the digits the float64 solution of K x = f keeps, per load sample.
 
@@ -99,13 +100,17 @@ def measure_digits(
     samples : int
         Number of seeded random loads (``random-1``...).
     seed : int
-        Seed of the random loads.
+        Seed of the random loads, when no ``rng`` is given.
     confirm : bool
         Run the arbitrary-precision re-solve when the model is small enough.
     structure : StructureResult, optional
         Its placeholder rows (restrained DOFs kept with a bare diagonal) get
         no random load and are left out of the normwise figure; its rows
         without stiffness are free modes for the audit of a singular K.
+    rng : numpy.random.Generator, optional
+        The run's generator (:func:`conditioning.pipeline.diagnose` threads
+        one from its seed): the random loads are drawn first, then the
+        1-norm estimator's start; default ``numpy.random.default_rng(seed)``.
 
     Returns
     -------
@@ -128,10 +133,11 @@ def measure_digits(
                                     f"({fac.info.shift:.1e}); restrain the rigid-body modes or mechanisms first",
                             audit=audit)
     K = sp.csr_array(model.K)
-    names, F = _loads(model, fac, spectrum, samples, seed, placeholders)
+    rng = np.random.default_rng(seed if rng is None else rng)
+    names, F = _loads(model, fac, spectrum, samples, rng, placeholders)
     X = fac.solve(F)
     op = dd_operator(K)
-    kappa = scaled_condition_estimate(K, fac)
+    kappa = scaled_condition_estimate(K, fac, rng=rng)
     # The componentwise bound (a few solves per sample) for the sample that
     # matters most: the user's load, else the first random one.
     want = [j == 0 for j in range(len(names))]
@@ -245,7 +251,7 @@ def digits_written(values: NDArray[np.float64], sample: int = 2000) -> Optional[
 
 
 # ------------------------------------------------------------------- loads
-def _loads(model: Model, fac, spectrum, samples: int, seed: int, placeholders=None):
+def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, placeholders=None):
     """Sample names and the (n, k) load block; random loads are zero on placeholder rows."""
     n = model.n
     names, cols = [], []
@@ -254,7 +260,6 @@ def _loads(model: Model, fac, spectrum, samples: int, seed: int, placeholders=No
         cols.append(np.asarray(model.load, dtype=np.float64))
     elif model.load is not None:
         logger.warning("the load vector is zero: no displacement to measure; the load sample is left out")
-    rng = np.random.default_rng(seed)
     for k in range(samples):
         names.append(f"random-{k + 1}")
         f = rng.standard_normal(n)
