@@ -210,8 +210,9 @@ def job_diagnose(args, paths):
 def job_iterative(args, paths):
     import numpy as np
 
-    from conditioning.stages.spectrum_iterative import iterative_spectrum
+    from conditioning.engine.scaling import scale_stiffness
     from conditioning.model import Coordinates, DofTable, Model
+    from conditioning.stages.spectrum import iterative_spectrum
 
     m = _Meter()
     m.start("read")
@@ -226,9 +227,11 @@ def job_iterative(args, paths):
     m.start("lobpcg")
     res = iterative_spectrum(model, k=8, rng=0)
     m.stop("lobpcg")
-    return m.result(near_null=res.near_null_count, converged=res.converged,
-                    smallest=[float(v) for v in res.eigenvalues[:4]],
-                    max_residual=float(res.residual_norms.max()), method=res.method)
+    S = scale_stiffness(model.K).S
+    residuals = np.linalg.norm(S @ res.vectors - res.vectors * res.values, axis=0)
+    return m.result(near_null=res.count, converged=res.converged,
+                    smallest=[float(v) for v in res.values[:4]],
+                    max_residual=float(residuals.max()), method=res.method)
 
 
 def job_ddspmv(args, paths):

@@ -1,8 +1,20 @@
-"""The diagnosis as one call: input -> structure -> factorization -> spectrum
-and condition -> modes located in the model -> digits -> findings -> report.
+"""The diagnosis as one call, one path: input -> structure -> stiffness jumps
+-> factorization -> spectrum -> modes -> condition -> restraints -> diagonal
+decay -> digits -> inertia check -> findings -> report.
 
 Each stage is a module of its own with a typed result; this module only
 sequences them, times them and hands progress to the caller. It never prints.
+
+When the factorization cannot run (the factor would not fit in memory) the
+same sequence runs without it: the spectrum stage obtains its eigenpairs by
+LOBPCG instead, the condition stage gives the scaled figure only, and the
+stages that need the factor (diagonal decay, digits, inertia check) are
+left as None with why in ``Report.skipped`` (the one convention: a stage
+that did not run is None and ``Report.skipped[stage]`` says why; a stage
+that ran and found nothing to measure says so in its own result, as
+``DigitsResult.skipped`` does for a singular K). When a penalty has
+swallowed the structure, the same sequence runs on the rest of K with the
+linked rows held (:mod:`conditioning.stages.penalty`).
 """
 
 from __future__ import annotations
@@ -10,22 +22,28 @@ from __future__ import annotations
 import logging
 import time
 from contextlib import contextmanager
-from dataclasses import replace
+from dataclasses import dataclass
 from typing import Callable, Optional, Union
 
 import numpy as np
-import scipy.sparse as sp
 
-from conditioning.stages.condition import condition_numbers
-from conditioning.engine.scipy_engine import FactorizationTooLarge, factorize
-from conditioning.stages.findings import build_findings, verdict
+from conditioning.engine.base import Engine, FactorizationTooLarge
+from conditioning.engine.memory import memory_limit as default_memory_limit
+from conditioning.engine.scaling import scale_stiffness
+from conditioning.engine.scipy_engine import ScipyEngine
+from conditioning.io.load import load_model
 from conditioning.model import DOF_NAMES, Model
+from conditioning.results import Finding, ModelSummary, Report, Restraint
+from conditioning.stages.condition import condition_numbers
+from conditioning.stages.digits import measure_digits
+from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
-from conditioning.results import (
-    ConditionResult, Finding, ModelSummary, Report, Restraint, SpectrumResult,
-)
-from conditioning.stages.spectrum import GAP_RULE, ScaledSpectrum, largest_eigenvalue, count_below, scaled_spectrum
-from conditioning.stages.structure import check_structure, rows_with_stiffness
+from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
+from conditioning.stages.pivots import diagonal_decay
+from conditioning.stages.restraints import suggest_restraints
+from conditioning.stages.spectrum import inertia_check, smallest_eigenpairs, spectrum_result, with_inertia
+from conditioning.stages.structure import check_structure
 
 logger = logging.getLogger(__name__)
 
@@ -92,6 +110,7 @@ def diagnose(
     measure: bool = True,
     memory_limit: Optional[int] = None,
     progress: Optional[ProgressCallback] = None,
+    engine: Optional[Engine] = None,
 ) -> Report:
     """Diagnose a stiffness matrix: supports, modes, condition, jumps, digits.
 
@@ -104,11 +123,15 @@ def diagnose(
     samples : int
         Number of seeded random loads for the digits measurement.
     seed : int
-        Seed of the random loads (recorded in the report).
+        Seed of the run's one random generator (``numpy.random.default_rng``),
+        recorded in the report: the digits' random loads are drawn from it,
+        and the start vectors of the eigensolvers and of the 1-norm estimator
+        from streams spawned from it (``Generator.spawn``), so the same seed
+        repeats every figure.
     min_digits : float
         Fewer measured trustworthy digits than this is an error finding.
     ordering : "auto", a SuperLU ordering name, or a callable
-        Fill-reducing ordering of the shared factorization.
+        Fill-reducing ordering of the shared factorization (scipy engine).
     measure : bool
         Measure digits in extended precision (the slowest stage after the
         factorization); False skips it.
@@ -119,10 +142,16 @@ def diagnose(
         and the report says what that path could not do.
     progress : callable, optional
         ``progress(stage, fraction)``, for progress bars.
+    engine : Engine, optional
+        The sparse direct solver (:class:`conditioning.engine.base.Engine`);
+        default :class:`conditioning.engine.scipy_engine.ScipyEngine` with
+        ``ordering``.
 
     Returns
     -------
     Report
+        Every stage's result; a stage that could not run is None and
+        ``Report.skipped`` says why.
 
     Examples
     --------
@@ -136,116 +165,115 @@ def diagnose(
     if isinstance(matrix, Model):
         model = matrix
     else:
-        from conditioning.io.load import load_model
-
         with stage("reading"):
             model = load_model(matrix, dofs=dofs, dofs_per_node=dofs_per_node, coords=coords,
                                load=load, solution=solution, fix=fix)
-    K = model.K
+    run = _Run(
+        stage=stage, rng=np.random.default_rng(seed), seed=seed, samples=samples, min_digits=min_digits,
+        measure=measure, memory_limit=default_memory_limit() if memory_limit is None else memory_limit,
+        engine=ScipyEngine(ordering) if engine is None else engine,
+    )
     with stage("structure"):
         structure = check_structure(model)
-    swallowed = _diagnose_rest_if_swallowed(model, structure, stage, samples=samples, seed=seed,
-                                            min_digits=min_digits, ordering=ordering, measure=measure,
-                                            memory_limit=memory_limit, progress=progress)
-    if swallowed is not None:
-        return swallowed
-    if memory_limit is None:
-        from conditioning.engine.memory import memory_limit as default_limit
-
-        memory_limit = default_limit()
-    try:
-        with stage("factorization"):
-            fac = factorize(K, ordering=ordering, coords=_row_coordinates(model),
-                            active=rows_with_stiffness(K), memory_limit=memory_limit)
-    except FactorizationTooLarge as too_large:
-        return _without_factorization(model, structure, stage, too_large)
-    with stage("spectrum"):
-        spec = scaled_spectrum(K, fac, check_inertia=False)
-    with stage("modes"):
-        located = locate_modes(model, structure, fac.scale, fac.active, spec)
-    with stage("condition"):
-        free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
-        condition = condition_numbers(K, fac, spec, free_modes=free)
-    spectrum = SpectrumResult(
-        smallest=spec.values[: max(12, spec.first + spec.count + 1)],
-        count=len(located.modes),
-        gap=spec.gap,
-        gap_rule=GAP_RULE,
-        inertia_count=None,
-        inertia_agrees=None,
-        negative_eigenvalues=int(spec.negative),
-        modes=located.modes,
-        method=spec.method,
-        smallest_vector=_smallest_vector(spec, fac.active),
-        below_split=spec.inertia_expected,
-        stiff_link_eigenvalues=list(located.stiff_link_eigenvalues),
-    )
-    with stage("restraints"):
-        restraints = _restraints(model, structure, located)
-    from conditioning.stages.jumps import find_stiffness_jumps
-    from conditioning.stages.pivots import diagonal_decay
-
     with stage("stiffness jumps"):
         jumps = find_stiffness_jumps(model, structure)
-    with stage("diagonal decay"):
-        decay = diagonal_decay(model, fac)
-    digits = None
-    if measure:
-        from conditioning.stages.digits import measure_digits
+    held = swallowed_rows(jumps)
+    if held.size == 0:
+        return _analyse(model, structure, jumps, run)
+    # A penalty has swallowed the structure: diagnose the rest with the linked
+    # rows held (conditioning.stages.penalty says why that is the honest choice).
+    rest, keep = hold_swallowed(model, held)
+    with stage("structure"):
+        rest_structure = check_structure(rest)
+    inner = _analyse(rest, rest_structure, find_stiffness_jumps(rest, rest_structure), run)
+    return restore_report(model, structure, summarize(model), jumps, inner, keep, min_digits=min_digits)
 
-        with stage("digits"):
-            digits = measure_digits(model, fac, condition=condition, spectrum=spectrum,
-                                    samples=samples, seed=seed, structure=structure)
-    if spec.split_point is not None:
-        # Sylvester's cross-check of the mode count needs one more factorization;
-        # it runs last, after the shared factor is released, so the two never
-        # coexist in memory.
-        info = fac.info
-        fac.release()
-        with stage("inertia check"):
-            count = count_below(K, fac, spec.split_point)
-        spectrum = replace(spectrum, inertia_count=count,
-                           inertia_agrees=None if count is None else count == spec.inertia_expected)
-    else:
-        info = fac.info
+
+@dataclass
+class _Run:
+    """What every stage of one diagnosis shares: options, timer and the one generator."""
+
+    stage: _Stages
+    rng: np.random.Generator
+    seed: int
+    samples: int
+    min_digits: float
+    measure: bool
+    memory_limit: int
+    engine: Engine
+
+
+#: What the diagnosis loses without a factorization: stage -> what is missing, and why.
+WITHOUT_FACTORIZATION = {
+    "inertia check": "no inertia count: the number of near-singular modes rests on the eigenvalue gap alone, "
+                     "not confirmed by Sylvester's law of inertia",
+    "digits": "no digits measurement: there is no factorization to solve with",
+    "diagonal decay": "no diagonal decay: there are no pivots",
+}
+
+
+def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
+    """The stages after the structure checks, in order, with or without a factorization."""
+    stage, K = run.stage, model.K
+    skipped: dict[str, str] = {}
+    scaled = scale_stiffness(K, structure.empty_rows)
+    fac = too_large = None
+    try:
+        with stage("factorization"):
+            fac = run.engine.factorize(scaled, coords=_row_coordinates(model), memory_limit=run.memory_limit)
+    except FactorizationTooLarge as exc:
+        too_large = exc
+        skipped["factorization"] = (f"the factor would need about {exc.prediction.bytes / 2**30:.1f} GiB "
+                                    f"({exc.prediction.method}), more than the {exc.limit / 2**30:.1f} GiB allowed")
+        skipped.update(WITHOUT_FACTORIZATION)
+    # Independent streams for the stages that draw start vectors, so that the
+    # random loads (drawn from run.rng itself) do not move when they change.
+    spectrum_rng, condition_rng = run.rng.spawn(2)
+    with stage("spectrum"):
+        eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
+    with stage("modes"):
+        located = locate_modes(model, structure, scaled.scale, scaled.active, eig)
+    with stage("condition"):
+        # A DOF without stiffness or a free mode (other than such a DOF) makes K singular.
+        free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
+        condition = condition_numbers(K, fac, eig, free_modes=free, empty_rows=int(structure.empty_rows.size),
+                                      no_factorization=skipped.get("factorization", ""), rng=condition_rng)
+    spectrum = spectrum_result(eig, located.modes, located.stiff_link_eigenvalues, scaled.active)
+    with stage("restraints"):
+        restraints = _restraints(model, structure, located)
+    decay = digits = None
+    if fac is not None:
+        with stage("diagonal decay"):
+            decay = diagonal_decay(model, fac)
+        if run.measure:
+            with stage("digits"):
+                digits = measure_digits(model, fac, condition=condition, spectrum=spectrum, samples=run.samples,
+                                        structure=structure, rng=run.rng)
+        else:
+            skipped["digits"] = "not requested (measure=False)"
+        if eig.split_point is not None:
+            with stage("inertia check"):
+                spectrum = with_inertia(spectrum, inertia_check(fac, eig))
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
-                              min_digits=min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
-    line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=min_digits)
+                              min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
+    if too_large is not None:
+        findings.append(_factorization_free_finding(too_large, eig.method))
+    line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=run.min_digits)
     return Report(
-        summary=summarize(model), structure=structure, factorization=info, condition=condition,
-        spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
-        findings=findings, verdict=line, status=status, timings=stage.timings,
+        summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
+        condition=condition, spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
+        findings=findings, verdict=line, status=status, timings=stage.timings, seed=run.seed, skipped=skipped,
     )
 
 
-def _diagnose_rest_if_swallowed(model: Model, structure, stage: _Stages, **options) -> Optional[Report]:
-    """When a penalty has swallowed the structure (K singular at working
-    precision only along the link), the report of the whole model from the
-    diagnosis of the rest with the linked rows held; None otherwise
-    (conditioning.stages.penalty says why holding is the honest choice)."""
-    from conditioning.stages.jumps import find_stiffness_jumps
-    from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
-
-    with stage("penalty check"):
-        jumps = find_stiffness_jumps(model, structure)
-        held = swallowed_rows(jumps)
-    if held.size == 0:
-        return None
-    rest, keep = hold_swallowed(model, held)
-    inner = diagnose(rest, **options)
-    report = restore_report(model, structure, summarize(model), jumps, inner, keep,
-                            min_digits=options["min_digits"])
-    return replace(report, timings={**stage.timings, **report.timings})
-
-
-def _smallest_vector(spec: ScaledSpectrum, active) -> Optional[np.ndarray]:
-    """The eigenvector of S's smallest eigenvalue (beyond true negative ones), on all rows."""
-    j = spec.first
-    if spec.vectors.shape[1] <= j:
-        return None
-    v = np.zeros(active.size)
-    v[active] = spec.vectors[:, j]
-    return v
+def _factorization_free_finding(too_large: FactorizationTooLarge, method: str) -> Finding:
+    pred = too_large.prediction
+    return Finding(
+        "warning", "analysis.factorization-free",
+        f"The factorization would need about {pred.bytes / 2**30:.1f} GiB ({pred.method}), more than the "
+        f"{too_large.limit / 2**30:.1f} GiB allowed, so the spectrum was computed without one "
+        f"({method}). Not available on this path: {'; '.join(WITHOUT_FACTORIZATION.values())}.",
+        [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis.")
 
 
 def _restraints(model: Model, structure, located) -> list[Restraint]:
@@ -255,65 +283,5 @@ def _restraints(model: Model, structure, located) -> list[Restraint]:
                      row=int(r), reason="the DOF has no stiffness of its own")
            for r in structure.empty_rows]
     if located.basis.shape[1]:
-        from conditioning.stages.restraints import suggest_restraints
-
         out += suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
     return out
-
-
-def _without_factorization(model: Model, structure, stage: _Stages, too_large: FactorizationTooLarge) -> Report:
-    """The diagnosis when the factor would not fit: spectrum by LOBPCG, no digits."""
-    from conditioning.engine.scipy_engine import diagonal_scaling
-    from conditioning.stages.spectrum_iterative import as_scaled_spectrum, iterative_spectrum
-
-    K = model.K
-    with stage("spectrum (factorization-free)"):
-        it = iterative_spectrum(model)
-    spec = as_scaled_spectrum(it, model)
-    active = rows_with_stiffness(K)
-    s = diagonal_scaling(K)
-    lam_max = spec.lambda_max
-    values = spec.values
-    gap = spec.gap
-    first = spec.first
-    with stage("modes"):
-        located = locate_modes(model, structure, s, active, spec)
-    # The same rule as the factorized path: a DOF without stiffness or a free
-    # mode (other than such a DOF) makes K singular.
-    free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
-    s_min = float(np.min(np.abs(values))) if values.size else None
-    singular = bool(free or structure.empty_rows.size)
-    s_kappa = None if singular or not s_min else lam_max / s_min
-    condition = ConditionResult(
-        singular=singular, lambda_max=largest_eigenvalue(sp.csr_array(K)), lambda_min=None, estimate=None,
-        estimate_method="not computed: no factorization (the factor would not fit in memory)",
-        scaled_estimate=s_kappa, scaled_lambda_min=s_min, scaled_lambda_max=lam_max,
-        scaled_method=f"2-norm of S from LOBPCG's smallest and Lanczos' largest eigenvalue ({it.method})"
-        + ("" if it.converged else "; LOBPCG did not converge: the smallest eigenvalue is an upper bound"),
-        one_norm_estimate=None, one_norm_method="not computed: no factorization",
-        scaling_gain_digits=None,
-    )
-    spectrum = SpectrumResult(
-        smallest=values[:12], count=len(located.modes), gap=gap, gap_rule=GAP_RULE, inertia_count=None,
-        inertia_agrees=None, negative_eigenvalues=int(first), modes=located.modes, method=it.method,
-        stiff_link_eigenvalues=list(located.stiff_link_eigenvalues),
-    )
-    restraints = _restraints(model, structure, located)
-    from conditioning.stages.jumps import find_stiffness_jumps
-
-    jumps = find_stiffness_jumps(model, structure)
-    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, None, None,
-                              stiff_link_eigenvalues=located.stiff_link_eigenvalues)
-    pred = too_large.prediction
-    findings.append(Finding(
-        "warning", "analysis.factorization-free",
-        f"The factorization would need about {pred.bytes / 2**30:.1f} GiB ({pred.method}), more than the "
-        f"{too_large.limit / 2**30:.1f} GiB allowed, so the spectrum was computed without one "
-        f"({it.method}). Not available on this path: {'; '.join(it.cannot)}.",
-        [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis."))
-    line, status = verdict(findings, spectrum, structure, None, condition)
-    return Report(
-        summary=summarize(model), structure=structure, factorization=None, condition=condition,
-        spectrum=spectrum, restraints=restraints, jumps=jumps, decay=None, digits=None,
-        findings=findings, verdict=line, status=status, timings=stage.timings,
-    )

@@ -181,7 +181,10 @@ class NearSingularMode:
 
 @dataclass(frozen=True)
 class SpectrumResult:
-    """Smallest eigenvalues of S and the split into near-singular modes."""
+    """Smallest eigenvalues of S and the split into near-singular modes: the
+    spectrum stage's public result, however its eigenpairs were obtained
+    (LAPACK, shift-and-invert Lanczos on the factorization, or LOBPCG without
+    one)."""
 
     smallest: NDArray[np.float64]
     """Smallest computed eigenvalues of S, ascending."""
@@ -421,29 +424,6 @@ class FactorMemoryPrediction:
     (0.25: within 25%)."""
 
 
-@dataclass(frozen=True)
-class IterativeSpectrum:
-    """Smallest eigenpairs of S found without factorizing (conditioning.stages.spectrum_iterative)."""
-
-    eigenvalues: NDArray[np.float64]
-    """Smallest eigenvalues of S = D^-1/2 K D^-1/2, ascending (dimensionless)."""
-    eigenvectors: NDArray[np.float64] = field(repr=False)
-    """(n, k) eigenvectors of S, columns matching ``eigenvalues``."""
-    residual_norms: NDArray[np.float64]
-    """||S v - lambda v||_2 for each unit-norm v."""
-    converged: bool
-    """True when every residual norm is below the requested tolerance."""
-    near_null_count: int
-    """Eigenvalues below the gap rule's split (candidate rigid-body modes and
-    mechanisms)."""
-    method: str
-    """Eigensolver and preconditioner used, in words."""
-    cannot: tuple[str, ...]
-    """What this path does not provide, for the report."""
-    lambda_max: Optional[float] = None
-    """Largest eigenvalue of S (Lanczos), the scale of the gap rule."""
-
-
 # --------------------------------------------------------------- findings
 @dataclass(frozen=True)
 class Finding:
@@ -495,3 +475,9 @@ class Report:
     timings: dict[str, float]
     """Wall time per stage (s)."""
     caution: str = CAUTION
+    seed: Optional[int] = None
+    """Seed of the run's random generator (``diagnose(seed=...)``): the same
+    seed repeats every figure; None when not recorded."""
+    skipped: dict[str, str] = field(default_factory=dict)
+    """Stages that did not run, stage name -> why (their results are None):
+    e.g. ``"digits"`` without a factorization or with ``measure=False``."""

@@ -8,8 +8,8 @@ import pytest
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from conditioning.engine.scipy_engine import diagonal_scaling, scaled_matrix
-from conditioning.stages.spectrum_iterative import iterative_spectrum
+from conditioning.engine.scaling import diagonal_scaling, scaled_matrix
+from conditioning.stages.spectrum import iterative_spectrum
 from conditioning.engine.memory import fits, predict_factor_memory
 from conditioning.model import Coordinates, DofTable, Model
 from conditioning.engine.ordering import nested_dissection
@@ -51,10 +51,9 @@ def test_rigid_body_count_and_eigenvalues_match_lapack(dim, n, modes):
     ref = lapack_smallest(model.K, modes + 4)
     assert res.converged
     assert "LOBPCG" in res.method
-    assert res.near_null_count == modes
-    assert np.all(np.abs(res.eigenvalues[:modes]) < 1e-10)
-    np.testing.assert_allclose(res.eigenvalues[modes:], ref[modes:], rtol=1e-7)
-    assert res.cannot and any("inertia" in c for c in res.cannot)
+    assert res.count == modes and res.below_split is None  # no inertia to compare with
+    assert np.all(np.abs(res.values[:modes]) < 1e-10)
+    np.testing.assert_allclose(res.values[modes:modes + 4], ref[modes:], rtol=1e-7)
 
 
 def test_supported_body_has_no_near_null_mode():
@@ -67,8 +66,8 @@ def test_supported_body_has_no_near_null_mode():
     clamped = Model(K, dofs=model.dofs.take(keep), coords=model.coords)
     res = iterative_spectrum(clamped, k=4, rng=1)
     ref = lapack_smallest(K, 4)
-    assert res.near_null_count == 0
-    np.testing.assert_allclose(res.eigenvalues, ref, rtol=1e-7)
+    assert res.count == 0
+    np.testing.assert_allclose(res.values[:4], ref, rtol=1e-7)
 
 
 def test_row_without_stiffness_is_a_zero_mode():
@@ -81,9 +80,20 @@ def test_row_without_stiffness_is_a_zero_mode():
     K[:, 5] = 0.0
     K = sp.csr_array(K)
     K.eliminate_zeros()
-    res = iterative_spectrum(Model(K, dofs=model.dofs.take(keep), coords=model.coords), k=3, rng=2)
-    assert res.near_null_count == 1
-    assert res.eigenvalues[0] == 0.0 and res.eigenvectors[5, 0] == 1.0
+    reduced = Model(K, dofs=model.dofs.take(keep), coords=model.coords)
+    res = iterative_spectrum(reduced, k=3, rng=2)
+    # The row is left out of S on every path (as with a factorization) ...
+    assert res.vectors.shape[0] == reduced.n - 1 and res.count == 0
+    # ... and the diagnosis without a factorization lists it as a zero mode.
+    import conditioning
+    from conditioning.engine import scipy_engine
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(scipy_engine, "PREDICT_ABOVE", 100)
+        report = conditioning.diagnose(reduced, memory_limit=1 << 12)
+    assert report.factorization is None
+    assert [m.kind for m in report.spectrum.modes] == ["dof-without-stiffness"]
+    assert report.spectrum.modes[0].eigenvalue == 0.0 and report.spectrum.modes[0].vector[5] == 1.0
 
 
 def test_model_too_big_for_the_limit_takes_the_iterative_path(monkeypatch):
@@ -102,21 +112,19 @@ def test_model_too_big_for_the_limit_takes_the_iterative_path(monkeypatch):
     monkeypatch.undo()  # the incomplete factorization uses spilu, not splu
     res = iterative_spectrum(model, k=8, rng=3)
     ref = lapack_smallest(model.K, 8)
-    assert res.near_null_count == int(np.count_nonzero(ref < 1e-10)) == 6
+    assert res.count == int(np.count_nonzero(ref < 1e-10)) == 6
 
 
 def test_modes_located_without_a_factorization():
     """The factorization-free eigenpairs feed the mode stage unchanged: the
     free plate's 3 rigid-body modes are located as rigid-body motions
     (two translations and the in-plane rotation; textbook count)."""
-    from conditioning.stages.spectrum_iterative import as_scaled_spectrum
     from conditioning.stages.modes import locate_modes
     from conditioning.stages.structure import check_structure
 
     model = free_body(20, 2)
-    res = iterative_spectrum(model, k=6, rng=4)
-    spec = as_scaled_spectrum(res, model)
-    assert spec.count == 3 and spec.inertia_count is None
+    spec = iterative_spectrum(model, k=6, rng=4)
+    assert spec.count == 3 and spec.below_split is None
     located = locate_modes(model, check_structure(model), diagonal_scaling(model.K),
                            np.ones(model.n, dtype=bool), spec)
     assert len(located.modes) == 3
@@ -138,4 +146,4 @@ def test_more_modes_than_asked_for_are_all_found():
     assert model.n > 600
     res = iterative_spectrum(model, k=4, rng=5)
     ref = lapack_smallest(K, 12)
-    assert res.near_null_count == int(np.count_nonzero(ref < 1e-10)) == 9
+    assert res.count == int(np.count_nonzero(ref < 1e-10)) == 9

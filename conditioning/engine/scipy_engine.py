@@ -1,13 +1,13 @@
-"""The one sparse factorization that every later stage shares.
+"""The scipy engine: the one sparse factorization that every later stage shares.
 
-The matrix factored is the symmetrically scaled stiffness
+Implements :class:`conditioning.engine.base.Engine` and
+:class:`conditioning.engine.base.Factorization`. The matrix factored is the
+symmetrically scaled stiffness of :mod:`conditioning.engine.scaling`,
 
     S = D^-1/2 K D^-1/2,   D = diag(|K_ii|)   (unit diagonal),
 
 shifted to S - sigma*I with a small negative sigma only when S is singular
-at working precision. Scaling first makes the pivot test, the shift and the
-eigenvalue thresholds independent of the model's units, and costs nothing in
-accuracy: a solve with K is recovered exactly as x = D^-1/2 S^-1 D^-1/2 f.
+at working precision (the shift policy of :mod:`conditioning.engine.base`).
 
 The factorization is SuperLU (scipy.sparse.linalg.splu) in symmetric mode
 with diagonal pivoting, so for a matrix whose diagonal pivots are all usable
@@ -27,7 +27,11 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.results import FactorizationInfo
+from conditioning.engine.base import FactorizationTooLarge
+from conditioning.engine.memory import predict_factor_memory
+from conditioning.engine.ordering import choose_ordering
+from conditioning.engine.scaling import ScaledStiffness, diagonal_scaling, scale_stiffness, scaled_matrix
+from conditioning.results import FactorizationInfo, FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
 
@@ -40,46 +44,13 @@ EPS = float(np.finfo(np.float64).eps)
 PREDICT_ABOVE = 20000
 
 
-class FactorizationTooLarge(MemoryError):
-    """The predicted factor does not fit the memory limit (raised before factorizing).
-
-    Attributes
-    ----------
-    prediction : conditioning.results.FactorMemoryPrediction
-    limit : int
-        Bytes allowed.
-    """
-
-    def __init__(self, prediction, limit: int):
-        self.prediction = prediction
-        self.limit = int(limit)
-        super().__init__(f"the factorization would need about {prediction.bytes / 2**30:.1f} GiB "
-                         f"(limit {limit / 2**30:.1f} GiB)")
 SUPERLU_ORDERINGS = ("MMD_AT_PLUS_A", "MMD_ATA", "COLAMD", "NATURAL")
-
-
-def diagonal_scaling(K: sp.csr_array) -> NDArray[np.float64]:
-    """s_i = 1/sqrt(|K_ii|), and 1 where K_ii = 0; S = diag(s) K diag(s)."""
-    d = np.abs(K.diagonal()).astype(np.float64)
-    s = np.ones_like(d)
-    pos = d > 0
-    s[pos] = 1.0 / np.sqrt(d[pos])
-    return s
-
-
-def scaled_matrix(K: sp.csr_array, s: NDArray[np.float64]) -> sp.csr_array:
-    """diag(s) K diag(s) in CSR, computed without forming the diagonal matrices."""
-    K = sp.csr_array(K)
-    rows = np.repeat(np.arange(K.shape[0]), np.diff(K.indptr))
-    # float64 whatever K's type: an integer K (a Matrix Market "integer" file
-    # read with scipy.io.mmread) would otherwise round every entry of S to 0.
-    data = K.data.astype(np.float64) * s[rows] * s[K.indices]
-    return sp.csr_array((data, K.indices.copy(), K.indptr.copy()), shape=K.shape)
 
 
 @dataclass
 class SharedFactorization:
-    """A factorization of S - sigma*I on the active rows, with solves.
+    """SuperLU's factorization of S - sigma*I on the active rows, with solves
+    (implements :class:`conditioning.engine.base.Factorization`).
 
     Attributes
     ----------
@@ -109,9 +80,11 @@ class SharedFactorization:
     info: FactorizationInfo
     _lu: object
     _perm: Optional[NDArray[np.intp]]
+    _S: Optional[sp.csr_array] = None
+    _ordering: Optional[Ordering] = None
 
     def solve_scaled(self, b: NDArray[np.float64]) -> NDArray[np.float64]:
-        """(S - sigma*I)^-1 b on the active rows (inactive rows of the result are 0)."""
+        """(S - sigma*I)^-1 b on the active rows, b (n,) or (n, k) (inactive rows of the result are 0)."""
         b = np.asarray(b, dtype=np.float64)
         out = np.zeros_like(b)
         out[self.active] = self.solve_active(b[self.active])
@@ -122,7 +95,7 @@ class SharedFactorization:
         self._lu = None
 
     def solve_active(self, b: NDArray[np.float64]) -> NDArray[np.float64]:
-        """(S_a - sigma*I)^-1 b for b indexed by the active rows only."""
+        """(S_a - sigma*I)^-1 b for b (n_active,) or (n_active, k), one pass over the factor."""
         b = np.asarray(b, dtype=np.float64)
         if self._perm is None:
             return self._lu.solve(b)
@@ -140,7 +113,7 @@ class SharedFactorization:
         return np.argsort(self._lu.perm_c).astype(np.intp)
 
     def solve(self, f: NDArray[np.float64]) -> NDArray[np.float64]:
-        """K^-1 f = diag(s) S^-1 diag(s) f, in float64 as a production solver gets it.
+        """K^-1 f = diag(s) S^-1 diag(s) f, f (n,) or (n, k), in float64 as a production solver gets it.
 
         Raises
         ------
@@ -153,15 +126,30 @@ class SharedFactorization:
         s = self.scale if f.ndim == 1 else self.scale[:, None]
         return s * self.solve_scaled(s * f)
 
+    def count_below(self, c: float) -> Optional[int]:
+        """Eigenvalues of S (active rows) below c, from the pivots' signs of S - c*I.
+
+        Sylvester's law of inertia: S - c*I = L D L^T has as many negative
+        pivots as S has eigenvalues below c. Costs one more factorization,
+        with the same fill-reducing ordering as this one (the permutation
+        itself when it was computed here, e.g. nested dissection from the
+        coordinates). None when SuperLU had to pivot off the diagonal (the
+        count would not be an inertia) or S - c*I was exactly singular.
+        """
+        if self._S is None:
+            raise RuntimeError("this factorization keeps no copy of S to shift")
+        A = sp.csr_array(self._S - c * sp.eye_array(self._S.shape[0], format="csr"))
+        try:
+            _, _, d, _, _, _, symmetric = _factor_once(A, self._ordering, None)
+        except RuntimeError as exc:  # c hit an eigenvalue exactly
+            logger.warning("inertia check failed: %s", exc)
+            return None
+        return int(np.count_nonzero(d < 0)) if symmetric else None
+
 
 def _resolve_ordering(ordering: Ordering, K, coords) -> Ordering:
-    if ordering != "auto":
-        return ordering
-    try:  # the scale stage's own choice, when present
-        from conditioning.engine.ordering import choose_ordering
-    except ImportError:
-        return "MMD_AT_PLUS_A"
-    return choose_ordering(K, coords)
+    """"auto" -> the ordering stage's choice for this pattern and these coordinates."""
+    return choose_ordering(K, coords) if ordering == "auto" else ordering
 
 
 def _superlu(A: sp.csc_array, permc_spec: str):
@@ -174,13 +162,11 @@ def _superlu(A: sp.csc_array, permc_spec: str):
 
 
 def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None):
-    """splu of S with the ordering; returns (lu, perm or None, pivots in S's order, info-ish)."""
+    """splu of S with the ordering; returns (lu, perm or None, pivots in S's order, name, fill, flops, symmetric)."""
     perm = None
     if callable(ordering):
         perm = np.asarray(ordering(S, coords), dtype=np.intp)
     if memory_limit is not None and S.shape[0] > PREDICT_ABOVE:
-        from conditioning.engine.memory import predict_factor_memory
-
         prediction = predict_factor_memory(S, perm, coords=coords)
         logger.info("predicted factor memory %.2f GiB (%s)", prediction.bytes / 2**30, prediction.method)
         if prediction.bytes > memory_limit:
@@ -212,6 +198,61 @@ def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None)
     return lu, perm, d, name, fill, flops, symmetric
 
 
+class _FixedPermutation:
+    """An ordering callable that returns a permutation already computed (for refactorizations)."""
+
+    def __init__(self, perm: NDArray[np.intp], name: str):
+        self.perm, self.ordering_name = perm, name
+
+    def __call__(self, pattern, coords) -> NDArray[np.intp]:
+        return self.perm
+
+
+class ScipyEngine:
+    """SuperLU (scipy.sparse.linalg.splu) in symmetric mode with the project's
+    orderings (implements :class:`conditioning.engine.base.Engine`).
+
+    Parameters
+    ----------
+    ordering : "auto", a SuperLU ``permc_spec`` name, or a callable
+        Fill-reducing ordering; a callable gets (pattern, coords) and returns a
+        permutation applied symmetrically; "auto" asks
+        :func:`conditioning.engine.ordering.choose_ordering`.
+    """
+
+    name = "scipy"
+
+    def __init__(self, ordering: Ordering = "auto"):
+        self.ordering = ordering
+
+    def predict_memory(self, scaled: ScaledStiffness,
+                       coords: Optional[NDArray[np.float64]] = None) -> Optional[FactorMemoryPrediction]:
+        """Predicted peak bytes of the factorization (symbolic analysis,
+        :func:`conditioning.engine.memory.predict_factor_memory`); None below
+        :data:`PREDICT_ABOVE` active rows, where the factor always fits."""
+        S = scaled.S
+        if S.shape[0] <= PREDICT_ABOVE:
+            return None
+        ca = None if coords is None else np.asarray(coords)[scaled.active]
+        ordering = _resolve_ordering(self.ordering, S, ca)
+        perm = np.asarray(ordering(S, ca), dtype=np.intp) if callable(ordering) else None
+        return predict_factor_memory(S, perm, coords=ca)
+
+    def factorize(self, scaled: ScaledStiffness, *, shift: Optional[float] = None,
+                  coords: Optional[NDArray[np.float64]] = None,
+                  memory_limit: Optional[int] = None) -> SharedFactorization:
+        """Factor S - sigma*I under the shift policy of :mod:`conditioning.engine.base`.
+
+        Returns
+        -------
+        SharedFactorization
+            Raises :class:`FactorizationTooLarge` before factorizing when the
+            predicted factor exceeds ``memory_limit`` bytes.
+        """
+        return _factorize_scaled(scaled, shift=shift, ordering=self.ordering, coords=coords,
+                                 memory_limit=memory_limit)
+
+
 def factorize(
     K: sp.csr_array,
     *,
@@ -238,8 +279,8 @@ def factorize(
     coords : (n, 3) float64, optional
         Position of each row's node, for geometric orderings.
     active : (n,) bool, optional
-        Rows to factor (default: rows with any stored entry). Rows without
-        stiffness are left out and make K singular.
+        Rows to factor (default: rows with any stored nonzero entry). Rows
+        without stiffness are left out and make K singular.
     memory_limit : int, optional
         Bytes the factorization may use. When given, the factor's size is
         predicted by symbolic analysis first (conditioning.engine.memory), and
@@ -250,27 +291,29 @@ def factorize(
     -------
     SharedFactorization
     """
-    K = sp.csr_array(K)
-    n = K.shape[0]
-    if active is None:
-        from conditioning.stages.structure import rows_with_stiffness
+    empty = None if active is None else np.flatnonzero(~np.asarray(active, dtype=bool))
+    return _factorize_scaled(scale_stiffness(K, empty), shift=shift, ordering=ordering, coords=coords,
+                             memory_limit=memory_limit)
 
-        active = rows_with_stiffness(K)
-    idx = np.flatnonzero(active)
-    s = diagonal_scaling(K)
-    S = scaled_matrix(K, s)
-    Sa = sp.csr_array(S[idx][:, idx])
-    Sa.eliminate_zeros()
+
+def _factorize_scaled(scaled: ScaledStiffness, *, shift, ordering, coords, memory_limit) -> SharedFactorization:
+    """The shift policy around :func:`_factor_once`."""
+    n = scaled.n
+    idx = scaled.rows
+    Sa = scaled.S
+    if idx.size == 0:
+        raise ValueError("the matrix has no stored nonzero entry")
     ca = None if coords is None else np.asarray(coords)[idx]
     norm_inf = float(abs(Sa).sum(axis=1).max()) if Sa.nnz else 1.0
     ordering = _resolve_ordering(ordering, Sa, ca)
-
     t0 = time.perf_counter()
+    if callable(ordering):  # computed once: the shifted retry and the inertia check reuse it
+        name = getattr(ordering, "ordering_name", getattr(ordering, "__name__", "custom"))
+        ordering = _FixedPermutation(np.asarray(ordering(Sa, ca), dtype=np.intp), name)
+
     singular = bool(idx.size < n)
     sigma = 0.0 if shift is None else float(shift)
     result = None
-    if idx.size == 0:
-        raise ValueError("the matrix has no stored nonzero entry")
     try:
         A = Sa if sigma == 0.0 else sp.csr_array(Sa - sigma * sp.eye_array(idx.size, format="csr"))
         result = _factor_once(A, ordering, ca, memory_limit)
@@ -303,7 +346,12 @@ def factorize(
         symmetric_pivoting=symmetric,
     )
     logger.info("factorized %d rows, ordering %s, fill %d, %.2f s", idx.size, name, fill, seconds)
+    # Refactorizations (the inertia check) reuse this ordering, never a fresh choice without coordinates.
     return SharedFactorization(
-        n=n, scale=s, shift=sigma, active=np.asarray(active, dtype=bool), pivots=pivots,
-        singular=singular, info=info, _lu=lu, _perm=perm,
+        n=n, scale=scaled.scale, shift=sigma, active=scaled.active, pivots=pivots,
+        singular=singular, info=info, _lu=lu, _perm=perm, _S=Sa, _ordering=ordering,
     )
+
+
+__all__ = ["EPS", "PREDICT_ABOVE", "SUPERLU_ORDERINGS", "FactorizationTooLarge", "ScipyEngine",
+           "SharedFactorization", "diagonal_scaling", "factorize", "scaled_matrix"]

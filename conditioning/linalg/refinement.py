@@ -44,6 +44,7 @@ import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
 from conditioning.linalg.doubledouble import U, DDOperator, dd_add, dd_operator, dd_residual
+from conditioning.linalg.onenormest import one_norm_estimate
 from conditioning.results import RefinementStep
 
 logger = logging.getLogger(__name__)
@@ -105,17 +106,15 @@ def scaled_condition_estimate(K: sp.sparray, fac, *, rng=0) -> float:
     Returns
     -------
     float
-        Hager-Higham estimate (scipy ``onenormest``), a lower bound usually
-        within a factor 3; S symmetric, so the 1-norm equals the inf-norm.
+        Hager-Higham estimate (:func:`conditioning.linalg.onenormest.one_norm_estimate`,
+        t = 2, its random start drawn from ``rng``, a seed or a Generator), a
+        lower bound usually within a factor 3; S symmetric, so the 1-norm
+        equals the inf-norm.
     """
     s = fac.scale
     S_abs_rows = (abs(sp.csr_array(K)) @ s) * s
     norm_S = float(np.max(S_abs_rows, initial=0.0))
-    n = fac.n
-    solve = lambda v: fac.solve_scaled(np.ravel(v))  # noqa: E731
-    op = spla.LinearOperator((n, n), matvec=solve, rmatvec=solve, dtype=np.float64)
-    np.random.seed(rng)  # onenormest draws from numpy's global generator
-    return float(norm_S * spla.onenormest(op, t=2))
+    return float(norm_S * one_norm_estimate(fac.solve_scaled, fac.solve_scaled, fac.n, t=2, rng=rng))
 
 
 def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64]) -> float:
@@ -139,12 +138,9 @@ def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64])
     g = abs(sp.csr_array(K)) @ np.abs(x)
     n = x.size
     # ||B||_inf = ||B^T||_1, B^T = diag(g) K^-1 diag(1/x) (K symmetric).
-    op = spla.LinearOperator(
-        (n, n), matvec=lambda v: g * fac.solve(np.ravel(v) / x), rmatvec=lambda v: fac.solve(g * np.ravel(v)) / x,
-        dtype=np.float64,
-    )
-    np.random.seed(1)
-    return float(spla.onenormest(op, t=1))  # t = 1: Hager's estimator, as LAPACK's xLACN2
+    xc, gc = x[:, None], g[:, None]
+    # t = 1: Hager's estimator, as LAPACK's xLACN2; it draws no random numbers.
+    return float(one_norm_estimate(lambda V: gc * fac.solve(V / xc), lambda V: fac.solve(gc * V) / xc, n, t=1))
 
 
 # ---------------------------------------------------------------- refinement

@@ -7,7 +7,8 @@ Three figures, each labelled with how it was obtained:
   for lambda_min);
 * the Hager-Higham estimate of kappa_1(K) = ||K||_1 ||K^-1||_1, a lower bound
   usually within a factor 3, as LAPACK's xPOCON reports it
-  (scipy.sparse.linalg.onenormest on the factor solves);
+  (:func:`conditioning.linalg.onenormest.one_norm_estimate` on the factor
+  solves, with the run's random generator);
 * kappa_2(S) of the symmetrically scaled S = D^-1/2 K D^-1/2, which governs
   the accuracy of a Cholesky-type solve.
 
@@ -28,19 +29,21 @@ from __future__ import annotations
 
 import logging
 import math
+from typing import Optional
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from conditioning.engine.scipy_engine import SharedFactorization
+from conditioning.engine.base import Factorization
+from conditioning.linalg.onenormest import one_norm_estimate
 from conditioning.results import ConditionResult
-from conditioning.stages.spectrum import DENSE_LIMIT, ScaledSpectrum, largest_eigenvalue
+from conditioning.stages.spectrum import DENSE_LIMIT, Eigenpairs, largest_eigenvalue
 
 logger = logging.getLogger(__name__)
 
 
-def _lambda_min_raw(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum) -> float:
+def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, rng) -> float:
     """Eigenvalue of K nearest zero, by Lanczos on K^-1 = D^-1/2 S^-1 D^-1/2 (K nonsingular).
 
     The Lanczos start is the smallest eigenvector of S mapped to K's DOFs,
@@ -61,29 +64,47 @@ def _lambda_min_raw(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledS
         # K positive definite: 1/lambda_min is the largest eigenvalue of K^-1.
         return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0)
     if v0 is None:
-        v0 = np.random.default_rng(54321).standard_normal(n)
+        v0 = rng.standard_normal(n)
     mu = spla.eigsh(op, k=1, which="LM", tol=1e-4, v0=v0, return_eigenvectors=False)
     return 1.0 / float(mu[0])
 
 
-def _one_norm_condition(K: sp.csr_array, fac: SharedFactorization) -> float:
+def _one_norm_condition(K: sp.csr_array, fac: Factorization, rng) -> float:
     """Hager-Higham lower bound on ||K||_1 ||K^-1||_1 (K symmetric)."""
     n = K.shape[0]
     if n <= 4:
         return float(np.linalg.norm(K.toarray(), 1) * np.linalg.norm(np.linalg.inv(K.toarray()), 1))
-    inv = spla.LinearOperator((n, n), matvec=fac.solve, rmatvec=fac.solve, matmat=fac.solve,
-                              dtype=np.float64)
     norm_k = float(abs(K).sum(axis=0).max())
-    return norm_k * float(spla.onenormest(inv, t=2))
+    return norm_k * one_norm_estimate(fac.solve, fac.solve, n, t=2, rng=rng)
 
 
-def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum,
-                      *, free_modes: int | None = None) -> ConditionResult:
+def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: Eigenpairs,
+                      *, free_modes: Optional[int] = None, empty_rows: Optional[int] = None,
+                      no_factorization: str = "no factorization", rng=0) -> ConditionResult:
     """kappa_2 raw and scaled, and the 1-norm estimate, for the model's K.
 
-    ``free_modes`` is the number of genuine near-singular modes (after small
-    eigenvalues of S caused by stiff links are set aside); by default every
-    eigenvalue of S below the gap counts.
+    Parameters
+    ----------
+    K : (n, n) sparse, symmetric
+        Stiffness in the model's units.
+    fac : Factorization or None
+        The shared factorization; None when there is none: the raw kappa_2
+        and the 1-norm figure are then not computed (their methods say why)
+        and the scaled one rests on the spectrum stage's eigenvalues alone.
+    spectrum : Eigenpairs
+        The spectrum stage's smallest eigenvalues and lambda_max of S.
+    free_modes : int, optional
+        The number of genuine near-singular modes (after small eigenvalues
+        of S caused by stiff links are set aside); by default every
+        eigenvalue of S below the gap counts.
+    empty_rows : int, optional
+        DOFs without stiffness (default: the rows ``fac`` leaves out, 0
+        without a factorization).
+    no_factorization : str
+        Why there is no factorization, for the methods of the figures it
+        would have given.
+    rng : int or numpy.random.Generator
+        Draws the start vectors of the Lanczos runs and the 1-norm estimator.
 
     Returns
     -------
@@ -93,38 +114,48 @@ def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: Scale
         stiffness (its condition number is then infinite at working precision).
     """
     K = sp.csr_array(K)
+    rng = np.random.default_rng(rng)
     free = spectrum.count if free_modes is None else free_modes
-    singular = bool(fac.singular or free > 0)
-    lam_max = float(np.linalg.eigvalsh(K.toarray())[-1]) if K.shape[0] <= DENSE_LIMIT else largest_eigenvalue(K)
+    if empty_rows is None:
+        empty_rows = 0 if fac is None else fac.active.size - int(fac.active.sum())
+    singular = bool((fac is not None and fac.singular) or free > 0 or empty_rows > 0)
     dense = K.shape[0] <= DENSE_LIMIT
+    lam_max = float(np.linalg.eigvalsh(K.toarray())[-1]) if dense else largest_eigenvalue(K, rng=rng)
     how_max = "dense eigensolver (LAPACK)" if dense else "Lanczos (residual bound 1e-3 relative)"
-    s_lmin = None
-    if spectrum.values.size:
-        pos = spectrum.values[spectrum.values > 0]
-        s_lmin = float(np.min(np.abs(spectrum.values))) if spectrum.values.size else None
+    s_lmin = float(np.min(np.abs(spectrum.values))) if spectrum.values.size else None
     scaled_method = (f"2-norm of S = D^-1/2 K D^-1/2 from its extreme eigenvalues ({spectrum.method}); "
                      "governs the accuracy of a Cholesky-type solve (van der Sluis 1969; Demmel 1989)")
+    if not spectrum.converged:
+        scaled_method += "; the eigensolver did not converge: the smallest eigenvalue is an upper bound"
     if singular:
         return ConditionResult(
             singular=True, lambda_max=lam_max, lambda_min=None, estimate=None,
-            estimate_method=_singular_because(free, fac.active.size - int(fac.active.sum())),
+            estimate_method=_singular_because(free, empty_rows),
             scaled_estimate=None, scaled_lambda_min=s_lmin, scaled_lambda_max=spectrum.lambda_max,
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method="not computed: K is singular", scaling_gain_digits=None,
         )
-    lam_min = _lambda_min_raw(K, fac, spectrum)
-    kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
     s_kappa = spectrum.lambda_max / s_lmin if s_lmin else math.inf
+    if fac is None:
+        return ConditionResult(
+            singular=False, lambda_max=lam_max, lambda_min=None, estimate=None,
+            estimate_method=f"not computed: {no_factorization}",
+            scaled_estimate=s_kappa, scaled_lambda_min=s_lmin, scaled_lambda_max=spectrum.lambda_max,
+            scaled_method=scaled_method, one_norm_estimate=None,
+            one_norm_method=f"not computed: {no_factorization}", scaling_gain_digits=None,
+        )
+    lam_min = _lambda_min_raw(K, fac, spectrum, rng)
+    kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
     how_min = ("dense eigensolver (LAPACK)" if dense else
                "Lanczos on K^-1 through the shared factorization (residual bound 1e-4 relative)")
-    k1 = _one_norm_condition(K, fac)
+    k1 = _one_norm_condition(K, fac, rng)
     gain = math.log10(kappa / s_kappa) if math.isfinite(kappa) and math.isfinite(s_kappa) and s_kappa > 0 else None
     return ConditionResult(
         singular=False, lambda_max=lam_max, lambda_min=lam_min, estimate=kappa,
         estimate_method=f"2-norm, |lambda_max| / |lambda_min|: lambda_max by {how_max}, lambda_min by {how_min}",
         scaled_estimate=s_kappa, scaled_lambda_min=s_lmin, scaled_lambda_max=spectrum.lambda_max,
         scaled_method=scaled_method, one_norm_estimate=k1,
-        one_norm_method="1-norm, Hager-Higham block estimate of ||K^-1||_1 (scipy onenormest on the "
+        one_norm_method="1-norm, Hager-Higham block estimate of ||K^-1||_1 (Algorithm 2.4, t = 2, on the "
         "factor solves) times ||K||_1: a lower bound, usually within a factor 3 (as LAPACK xPOCON)",
         scaling_gain_digits=gain,
     )

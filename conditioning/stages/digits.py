@@ -91,6 +91,7 @@ def measure_digits(
     confirm: bool = True,
     structure=None,
     certify: bool = True,
+    rng: Optional[np.random.Generator] = None,
 ) -> DigitsResult:
     """Measure the digits the float64 solution of K x = f keeps, per load sample.
 
@@ -109,7 +110,7 @@ def measure_digits(
     samples : int
         Number of seeded random loads (``random-1``...).
     seed : int
-        Seed of the random loads.
+        Seed of the random loads, when no ``rng`` is given.
     confirm : bool
         Run the arbitrary-precision re-solve when the model is small enough.
     certify : bool
@@ -120,6 +121,10 @@ def measure_digits(
         Its placeholder rows (restrained DOFs kept with a bare diagonal) get
         no random load and are left out of the normwise figure; its rows
         without stiffness are free modes for the audit of a singular K.
+    rng : numpy.random.Generator, optional
+        The run's generator (:func:`conditioning.pipeline.diagnose` threads
+        one from its seed): the random loads are drawn first, then the
+        1-norm estimator's start; default ``numpy.random.default_rng(seed)``.
 
     Returns
     -------
@@ -142,10 +147,11 @@ def measure_digits(
                                     f"({fac.info.shift:.1e}); restrain the rigid-body modes or mechanisms first",
                             audit=audit)
     K = sp.csr_array(model.K)
-    names, F = _loads(model, fac, spectrum, samples, seed, placeholders)
+    rng = np.random.default_rng(seed if rng is None else rng)
+    names, F = _loads(model, fac, spectrum, samples, rng, placeholders)
     X = fac.solve(F)
     op = dd_operator(K)
-    kappa = scaled_condition_estimate(K, fac)
+    kappa = scaled_condition_estimate(K, fac, rng=rng)
     # The componentwise bound (a few solves per sample) for the sample that
     # matters most: the user's load, else the first random one.
     want = [j == 0 for j in range(len(names))]
@@ -178,8 +184,13 @@ def _verify(K, fac, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
     estimate = None if condition is None else condition.scaled_lambda_min
     if estimate is None or not estimate > 0:
         return None, "not attempted: no positive estimate of the smallest eigenvalue of S"
+    perm = fac.ordering_permutation()
+    if perm is None:
+        # Without the shared ordering the proof's factorization could cost far
+        # more than the engine's own; and it analyses SuperLU's LU.
+        return None, "not attempted: the engine shares no fill-reducing ordering for the proof's factorization"
     try:
-        bound = verified_smallest_eigenvalue(K, estimate, perm=fac.ordering_permutation())
+        bound = verified_smallest_eigenvalue(K, estimate, perm=perm)
     except (MemoryError, RuntimeError, ValueError) as exc:
         return None, f"not attempted: {exc}"
     return bound, bound.reason
@@ -273,7 +284,7 @@ def digits_written(values: NDArray[np.float64], sample: int = 2000) -> Optional[
 
 
 # ------------------------------------------------------------------- loads
-def _loads(model: Model, fac, spectrum, samples: int, seed: int, placeholders=None):
+def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, placeholders=None):
     """Sample names and the (n, k) load block; random loads are zero on placeholder rows."""
     n = model.n
     names, cols = [], []
@@ -282,7 +293,6 @@ def _loads(model: Model, fac, spectrum, samples: int, seed: int, placeholders=No
         cols.append(np.asarray(model.load, dtype=np.float64))
     elif model.load is not None:
         logger.warning("the load vector is zero: no displacement to measure; the load sample is left out")
-    rng = np.random.default_rng(seed)
     for k in range(samples):
         names.append(f"random-{k + 1}")
         f = rng.standard_normal(n)

@@ -30,7 +30,7 @@ from numpy.typing import NDArray
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import NearSingularMode, StructureResult
 from conditioning.linalg.rigid_motions import rigid_basis
-from conditioning.stages.spectrum import MODE_THRESHOLD, ScaledSpectrum
+from conditioning.stages.spectrum import MODE_THRESHOLD, Eigenpairs
 
 logger = logging.getLogger(__name__)
 
@@ -187,7 +187,7 @@ def _canonical_rigid(R: NDArray, names: tuple[str, ...], coeff_basis: NDArray) -
 
 
 def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.float64],
-                 active: NDArray[np.bool_], spectrum: ScaledSpectrum) -> LocatedModes:
+                 active: NDArray[np.bool_], spectrum: Eigenpairs) -> LocatedModes:
     """Classify and locate the near-singular modes.
 
     Parameters
@@ -198,7 +198,7 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
         s with S = diag(s) K diag(s) (the shared factorization's).
     active : (n,) bool
         Rows the spectrum was computed on.
-    spectrum : ScaledSpectrum
+    spectrum : Eigenpairs
 
     Returns
     -------

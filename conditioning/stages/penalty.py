@@ -89,7 +89,8 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
     model, structure, summary, jumps
         Of the whole model (``jumps`` holds the swallowing links).
     rest : Report
-        :func:`conditioning.pipeline.diagnose` of ``hold_swallowed(model, ...)[0]``.
+        The pipeline's diagnosis of ``hold_swallowed(model, ...)[0]`` (the
+        same stages, run on the rest).
     keep : (m,) intp
         Row of ``model`` of each row of the rest.
 
@@ -122,7 +123,8 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
     return Report(
         summary=summary, structure=structure, factorization=rest.factorization, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
-        findings=findings, verdict=line, status=status, timings=rest.timings,
+        findings=findings, verdict=line, status=status, timings=rest.timings, seed=rest.seed,
+        skipped=rest.skipped,
     )
 
 

@@ -23,7 +23,7 @@ import math
 
 import numpy as np
 
-from conditioning.engine.scipy_engine import SharedFactorization
+from conditioning.engine.base import Factorization
 from conditioning.model import Model
 from conditioning.results import DecayEntry, DiagonalDecay
 
@@ -36,7 +36,7 @@ _METHOD_REFERENCE = (
 )
 
 
-def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -> DiagonalDecay:
+def diagonal_decay(model: Model, fac: Factorization, *, worst: int = 20) -> DiagonalDecay:
     """Ratio of each diagonal stiffness to its pivot, and the worst DOFs.
 
     Parameters
@@ -44,7 +44,7 @@ def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -
     model : Model
         The model; only ``model.K`` (for the sign of K_ii) and the DOF map
         (for naming rows) are read.
-    fac : SharedFactorization
+    fac : Factorization
         The shared factorization of the scaled stiffness S (or of S - sigma*I
         when S is singular).
     worst : int, optional
@@ -119,7 +119,7 @@ def diagonal_decay(model: Model, fac: SharedFactorization, *, worst: int = 20) -
     return DiagonalDecay(worst=entries, max_digits=max_digits, method=method, negative_pivots=negative)
 
 
-def _decay_ratios(model: Model, fac: SharedFactorization):
+def _decay_ratios(model: Model, fac: Factorization):
     """K_ii / D_ii(K) = sign(K_ii) / D_ii(S) on the factored rows; (ratio, active)."""
     if fac.n != model.n:
         raise ValueError(f"factorization has {fac.n} rows, the model {model.n}; factor this model's K")
@@ -143,7 +143,7 @@ def _digits(pivots, active):
     return digits
 
 
-def _method_text(fac: SharedFactorization, digits, inactive: int) -> str:
+def _method_text(fac: Factorization, digits, inactive: int) -> str:
     parts = [
         f"K_ii / D_ii with D_ii the pivots of the shared LDL^T of the scaled matrix "
         f"(ordering {fac.info.ordering}; the decay depends on the elimination order); "

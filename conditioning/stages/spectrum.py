@@ -1,10 +1,22 @@
 """Extreme eigenvalues of the scaled stiffness and the near-singular split.
 
-Works on S = D^-1/2 K D^-1/2 restricted to the rows that have stiffness,
-using the shared factorization for shift-and-invert Lanczos (ARPACK through
-scipy.sparse.linalg.eigsh). The shift is the factorization's: zero for a
-nonsingular S, a small negative number otherwise (never exactly zero on a
-singular matrix).
+    S = D^-1/2 K D^-1/2 (rows with stiffness)  =>  smallest eigenpairs, lambda_max(S), the split
+
+One stage, three ways to obtain the eigenpairs, chosen by what is available:
+
+* small S (at most :data:`DENSE_LIMIT` rows with a factorization,
+  :data:`conditioning.stages.spectrum_iterative.DENSE_LIMIT` without): all
+  eigenvalues by LAPACK;
+* a factorization of S - sigma*I (any :class:`conditioning.engine.base.Factorization`):
+  shift-and-invert Lanczos (ARPACK through scipy.sparse.linalg.eigsh) at the
+  factorization's shift, zero for a nonsingular S, a small negative number
+  otherwise (never exactly zero on a singular matrix);
+* no factorization (it would not fit in memory): preconditioned LOBPCG
+  (:mod:`conditioning.stages.spectrum_iterative`).
+
+All three return the one internal type :class:`Eigenpairs`; the pipeline
+turns it into the public :class:`conditioning.results.SpectrumResult`
+(:func:`spectrum_result`).
 
 The split between near-singular modes and the rest is a spectral gap, and the
 count below it is cross-checked by Sylvester's law of inertia: the number of
@@ -14,7 +26,7 @@ negative pivots of S - c*I equals the number of eigenvalues below c.
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Optional
 
 import numpy as np
@@ -23,7 +35,14 @@ import scipy.linalg as la
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.engine.scipy_engine import EPS, SharedFactorization, factorize, scaled_matrix
+from conditioning.engine.base import Factorization
+from conditioning.engine.scaling import ScaledStiffness, scale_stiffness
+from conditioning.model import Model
+from conditioning.results import NearSingularMode, SpectrumResult
+from conditioning.stages import spectrum_iterative
+
+#: Unit round-off of float64 doubled (numpy's machine epsilon, 2^-52).
+EPS = float(np.finfo(np.float64).eps)
 
 logger = logging.getLogger(__name__)
 
@@ -44,35 +63,43 @@ GAP_RULE = (
 
 
 @dataclass(frozen=True)
-class ScaledSpectrum:
-    """Smallest eigenpairs of S on the active rows.
+class Eigenpairs:
+    """Smallest eigenpairs of S on the active rows and their split (the spectrum stage's one type).
 
     Attributes
     ----------
     values : (k,) float64, ascending
+        Smallest eigenvalues of S (dimensionless).
     vectors : (n_active, k) float64, orthonormal columns
+        Eigenvectors of S on the rows with stiffness (v; the displacement
+        shape is D^-1/2 v).
     lambda_max : float
-        Largest eigenvalue of S.
+        Largest eigenvalue of S (dimensionless).
     count : int
-        Number of near-singular eigenvalues (below the split), from the start of
-        ``values`` and not counting true negative eigenvalues.
+        Number of near-singular eigenvalues (below the split), from
+        ``values[first]`` on, not counting true negative eigenvalues.
     first : int
         Index in ``values`` of the first near-singular eigenvalue (after the
         true negative ones).
     gap : float or None
+        Ratio across the split; None without near-singular eigenvalues.
     zero_level : float
-        n*eps*lambda_max(S): eigenvalues below it in magnitude are zero at
-        working precision.
+        n_active*eps*lambda_max(S): eigenvalues below it in magnitude are
+        zero at working precision.
     split_point : float or None
-        c, the geometric mean of the eigenvalues on either side of the gap.
-    inertia_count : int or None
-        Eigenvalues of S below c counted from the pivots of S - c*I.
-    inertia_expected : int or None
-        The same count from the computed eigenvalues and the main
-        factorization's inertia.
+        c, the geometric mean of the eigenvalues on either side of the gap;
+        None without a split inside the computed values.
+    below_split : int or None
+        Eigenvalues of S below c from the computed eigenvalues and the
+        factorization's inertia: what the inertia check at c is compared
+        with. None without a split or without a factorization.
     negative : int
         Eigenvalues of S (hence of K, by Sylvester) below -zero_level.
     method : str
+        How the eigenpairs were obtained, in words.
+    converged : bool
+        False when the iterative eigensolver stopped above its tolerance
+        (the smallest eigenvalue is then an upper bound).
     """
 
     values: NDArray[np.float64]
@@ -83,13 +110,14 @@ class ScaledSpectrum:
     gap: Optional[float]
     zero_level: float
     split_point: Optional[float]
-    inertia_count: Optional[int]
-    inertia_expected: Optional[int]
+    below_split: Optional[int]
     negative: int
     method: str
+    converged: bool = True
 
 
-def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None) -> float:
+def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None,
+                       rng=0) -> float:
     """lambda_max of a symmetric matrix by plain Lanczos, to relative accuracy ``rtol``.
 
     Returns the largest Ritz value theta of the Lanczos tridiagonal T_m, which
@@ -98,7 +126,9 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
     rtol*theta: an eigenvalue of A then lies within rtol*theta of theta [1]_.
     No reorthogonalization: loss of orthogonality only duplicates converged
     Ritz values, it does not move the extreme one [2]_. Costs m matrix-vector
-    products and O(m) vectors of memory, against ARPACK's restarts.
+    products and O(m) vectors of memory, against ARPACK's restarts. The start
+    is ``v0``, else a normal random vector drawn from ``rng`` (a seed or a
+    numpy Generator).
 
     References
     ----------
@@ -111,7 +141,7 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
     n = A.shape[0]
     if n <= 50 and sp.issparse(A):
         return float(np.linalg.eigvalsh(A.toarray())[-1])
-    q = np.random.default_rng(2024).standard_normal(n) if v0 is None else np.array(v0, dtype=np.float64)
+    q = np.random.default_rng(rng).standard_normal(n) if v0 is None else np.array(v0, dtype=np.float64)
     q /= np.linalg.norm(q)
     q_prev = np.zeros(n)
     alphas: list[float] = []
@@ -135,10 +165,10 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
     return theta
 
 
-def _smallest_sparse(Sa, fac: SharedFactorization, k: int) -> tuple[NDArray, NDArray]:
+def _smallest_sparse(Sa, fac: Factorization, k: int, rng) -> tuple[NDArray, NDArray]:
     na = Sa.shape[0]
-    op = spla.LinearOperator((na, na), matvec=fac.solve_active, dtype=np.float64)
-    v0 = np.random.default_rng(12345).standard_normal(na)  # fixed: results repeat
+    op = spla.LinearOperator((na, na), matvec=fac.solve_active, matmat=fac.solve_active, dtype=np.float64)
+    v0 = rng.standard_normal(na)
     vals, vecs = spla.eigsh(Sa, k=k, sigma=fac.shift, which="LM", OPinv=op, tol=1e-10, v0=v0)
     order = np.argsort(vals)
     return vals[order], vecs[:, order]
@@ -173,78 +203,164 @@ def split_near_singular(values: NDArray, lam_max: float, n: int) -> tuple[int, i
     return first, m, gap
 
 
-def count_below(K: sp.csr_array, fac: SharedFactorization, c: float) -> Optional[int]:
-    """Eigenvalues of S (active rows) below c, from the pivots' signs of S - c*I.
-
-    Sylvester's law of inertia: S - c*I = L D L^T has as many negative pivots
-    as S has eigenvalues below c. Costs one more factorization; None when
-    SuperLU had to pivot off the diagonal (the count would not be an inertia)
-    or S - c*I was exactly singular.
-    """
-    idx = np.flatnonzero(fac.active)
-    Sa = sp.csr_array(scaled_matrix(K, fac.scale)[idx][:, idx])
-    ordering = fac.info.ordering if fac.info.ordering in ("MMD_AT_PLUS_A", "COLAMD", "NATURAL") else "auto"
-    try:
-        check = factorize(Sa, shift=c, ordering=ordering)
-    except RuntimeError as exc:  # c hit an eigenvalue exactly
-        logger.warning("inertia check failed: %s", exc)
-        return None
-    return check.info.negative_pivots if check.info.symmetric_pivoting else None
-
-
-def scaled_spectrum(K: sp.csr_array, fac: SharedFactorization, *, k: Optional[int] = None,
-                    check_inertia: bool = True) -> ScaledSpectrum:
-    """Smallest eigenpairs of S (active rows), the near-singular split and its inertia check.
+def smallest_eigenpairs(scaled: ScaledStiffness, fac: Optional[Factorization], *, model: Optional[Model] = None,
+                        k: Optional[int] = None, rng=0, tol: float = 1e-9, maxiter: int = 400) -> Eigenpairs:
+    """Smallest eigenpairs of S (active rows) and the near-singular split, with or without a factorization.
 
     Parameters
     ----------
-    K : (n, n) sparse, symmetric
-    fac : SharedFactorization
-        The shared factorization of S - sigma*I on ``fac.active``.
+    scaled : ScaledStiffness
+        S = D^-1/2 K D^-1/2 on the rows with stiffness.
+    fac : Factorization or None
+        The shared factorization of S - sigma*I on ``scaled.active``; None
+        when there is none (the factor would not fit): LOBPCG then.
+    model : Model, optional
+        DOF map and coordinates, for LOBPCG's rigid-body starting block.
     k : int, optional
-        Number of smallest eigenpairs to start with (default 4: a healthy
-        model needs no more, and each pair costs solves); doubled
-        while all computed ones are below the mode threshold.
-    check_inertia : bool
-        Count the eigenvalues below the split point from the inertia of
-        S - c*I now (one more factorization, while ``fac`` is alive). The
-        pipeline defers it with :func:`count_below` until the shared factor
-        has been released.
+        Number of smallest eigenpairs to start with (default 4 with a
+        factorization: a healthy model needs no more, and each pair costs
+        solves; 8 without, the rigid-body modes of a free 3D body and two);
+        doubled while all computed ones are near-singular.
+    rng : int or numpy.random.Generator
+        Draws the Lanczos and LOBPCG start vectors.
+    tol, maxiter : float, int
+        LOBPCG's residual tolerance and iteration limit (no factorization).
 
     Returns
     -------
-    ScaledSpectrum
+    Eigenpairs
     """
-    idx = np.flatnonzero(fac.active)
-    na = idx.size
-    Sa = sp.csr_array(scaled_matrix(K, fac.scale)[idx][:, idx])
-    if na <= DENSE_LIMIT:
+    rng = np.random.default_rng(rng)
+    Sa = scaled.S
+    na = Sa.shape[0]
+    dense_limit = DENSE_LIMIT if fac is not None else spectrum_iterative.DENSE_LIMIT
+    converged = True
+    if na <= dense_limit:
         w, V = np.linalg.eigh(Sa.toarray())
-        lam_max = float(w[-1])
+        lam_max = float(w[-1]) if na else 1.0
         method = "dense symmetric eigensolver (LAPACK syevd), all eigenvalues"
-        kk = min(na, max(k or 12, 12))
-        values, vectors = w, V
-        first, count, gap = split_near_singular(values, lam_max, na)
-        values, vectors = w[: max(kk, first + count + 1)], V[:, : max(kk, first + count + 1)]
-    else:
-        lam_max = largest_eigenvalue(Sa)
+        first, count, gap = split_near_singular(w, lam_max, max(na, 1))
+        keep = max(min(na, max(k or 12, 12)), first + count + 1)
+        values, vectors = w[:keep], V[:, :keep]
+    elif fac is not None:
+        lam_max = largest_eigenvalue(Sa, rng=rng)
         kk = min(na - 2, k or 4)
         while True:
-            values, vectors = _smallest_sparse(Sa, fac, kk)
+            values, vectors = _smallest_sparse(Sa, fac, kk, rng)
             first, count, gap = split_near_singular(values, lam_max, na)
             if first + count < values.size or kk >= min(na - 2, 512):
                 break
             kk = min(na - 2, 2 * kk)
         method = (f"shift-and-invert Lanczos (ARPACK eigsh, shift {fac.shift:.3g}) for the "
                   f"{values.size} smallest, Lanczos for lambda_max")
+    else:
+        lam_max = largest_eigenvalue(Sa, rng=rng)
+
+        def all_near_null(vals):
+            f, c, _ = split_near_singular(vals, lam_max, na)
+            return f + c >= vals.size
+
+        values, vectors, converged, how = spectrum_iterative.lobpcg_smallest(
+            Sa, k or spectrum_iterative.DEFAULT_K, model=model if model is not None else Model(scaled.K),
+            active=scaled.active, scale=scaled.scale, more_wanted=all_near_null, tol=tol, maxiter=maxiter, rng=rng)
+        first, count, gap = split_near_singular(values, lam_max, na)
+        method = how + ", Lanczos for lambda_max"
+    return _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, converged,
+                         dense=na <= dense_limit)
+
+
+def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, converged, *, dense) -> Eigenpairs:
+    """The split point and the counts the inertia check is compared with."""
     zero = na * EPS * lam_max
     split_point = expected = None
     if count > 0 and first + count < values.size:
         lo = max(values[first + count - 1], zero)
         hi = values[first + count]
         split_point = float(np.sqrt(lo * hi))
-        expected = int(fac.info.negative_pivots + np.count_nonzero((values >= fac.shift) & (values < split_point)))
-    inertia_count = count_below(K, fac, split_point) if (check_inertia and split_point is not None) else None
-    negative = first if na <= DENSE_LIMIT else int(fac.info.negative_pivots)
-    return ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, split_point,
-                          inertia_count, expected, negative, method)
+        if fac is not None:
+            expected = int(fac.info.negative_pivots
+                           + np.count_nonzero((values >= fac.shift) & (values < split_point)))
+    # Shift-and-invert finds eigenvalues near the shift only: true negative
+    # ones far below are counted by the factorization's inertia.
+    negative = first if dense or fac is None else int(fac.info.negative_pivots)
+    return Eigenpairs(values, vectors, lam_max, count, first, gap, zero, split_point, expected, negative,
+                      method, converged)
+
+
+def scaled_spectrum(K: sp.csr_array, fac: Factorization, *, k: Optional[int] = None, rng=0) -> Eigenpairs:
+    """:func:`smallest_eigenpairs` of K's scaled matrix on ``fac``'s active rows, with ``fac``."""
+    return smallest_eigenpairs(scale_stiffness(K, np.flatnonzero(~fac.active)), fac, k=k, rng=rng)
+
+
+def iterative_spectrum(model: Model, *, k: int = spectrum_iterative.DEFAULT_K, tol: float = 1e-9,
+                       maxiter: int = 400, rng=0) -> Eigenpairs:
+    """:func:`smallest_eigenpairs` of the model's S without a factorization (LOBPCG above
+    :data:`conditioning.stages.spectrum_iterative.DENSE_LIMIT` rows, LAPACK below)."""
+    return smallest_eigenpairs(scale_stiffness(model.K), None, model=model, k=k, rng=rng, tol=tol, maxiter=maxiter)
+
+
+def inertia_check(fac: Factorization, eig: Eigenpairs) -> Optional[int]:
+    """Sylvester's cross-check of the mode count: eigenvalues of S below the split point.
+
+    Releases the shared factorization first (its solves are no longer
+    available afterwards), then factors S - c*I with the same ordering, so
+    the two factors never coexist in memory; run it after every stage that
+    solves.
+
+    Returns
+    -------
+    int or None
+        Negative pivots of S - c*I; None without a split point, or when the
+        count is not an inertia (see :meth:`Factorization.count_below`).
+    """
+    if eig.split_point is None:
+        return None
+    fac.release()
+    return fac.count_below(eig.split_point)
+
+
+def spectrum_result(eig: Eigenpairs, modes: list[NearSingularMode], stiff_link_eigenvalues: list[float],
+                    active: NDArray[np.bool_], *, inertia_count: Optional[int] = None) -> SpectrumResult:
+    """The public spectrum result from the stage's eigenpairs and the located modes.
+
+    Returns
+    -------
+    SpectrumResult
+        ``smallest`` keeps at least 12 eigenvalues and one beyond the split;
+        ``count`` is the number of located modes (DOFs without stiffness
+        included); ``inertia_agrees`` compares ``inertia_count`` with
+        ``eig.below_split``.
+    """
+    method = eig.method if eig.converged else (
+        eig.method + "; did not converge: the smallest eigenvalue is an upper bound")
+    return SpectrumResult(
+        smallest=eig.values[: max(12, eig.first + eig.count + 1)],
+        count=len(modes),
+        gap=eig.gap,
+        gap_rule=GAP_RULE,
+        inertia_count=inertia_count,
+        inertia_agrees=None if inertia_count is None or eig.below_split is None
+        else inertia_count == eig.below_split,
+        negative_eigenvalues=int(eig.negative),
+        modes=modes,
+        method=method,
+        smallest_vector=_smallest_vector(eig, active),
+        below_split=eig.below_split,
+        stiff_link_eigenvalues=list(stiff_link_eigenvalues),
+    )
+
+
+def with_inertia(spectrum: SpectrumResult, inertia_count: Optional[int]) -> SpectrumResult:
+    """``spectrum`` with the inertia check's count and whether it agrees with ``below_split``."""
+    agrees = None if inertia_count is None or spectrum.below_split is None else inertia_count == spectrum.below_split
+    return replace(spectrum, inertia_count=inertia_count, inertia_agrees=agrees)
+
+
+def _smallest_vector(eig: Eigenpairs, active) -> Optional[NDArray[np.float64]]:
+    """The eigenvector of S's smallest eigenvalue (beyond true negative ones), on all rows."""
+    j = eig.first
+    if eig.vectors.shape[1] <= j:
+        return None
+    v = np.zeros(active.size)
+    v[active] = eig.vectors[:, j]
+    return v

@@ -10,29 +10,27 @@ capped at a multiple of the matrix's own, started from the rigid-body
 motions of the model when its coordinates are known (they are the
 near-null space the restraints should have removed).
 
-Without a factorization there is no inertia count (Sylvester's law) to
-confirm the number of modes, no pivots for diagonal decay, and no solve for
-the measured digits; :attr:`IterativeSpectrum.cannot` lists them for the
-report.
+This is one of the ways the spectrum stage
+(:func:`conditioning.stages.spectrum.smallest_eigenpairs`) obtains its
+eigenpairs; the gap rule and the result are the stage's. Without a
+factorization there is no inertia count (Sylvester's law) to confirm the
+number of modes, no pivots for diagonal decay, and no solve for the measured
+digits: the pipeline records those stages as skipped, with why.
 """
 
 from __future__ import annotations
 
 import logging
 import warnings
-from typing import Optional
+from typing import Callable, Optional
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.engine.scipy_engine import EPS, diagonal_scaling, scaled_matrix
-from conditioning.model import Model
-from conditioning.results import IterativeSpectrum
 from conditioning.linalg.rigid_motions import rigid_basis
-from conditioning.stages.spectrum import ScaledSpectrum, largest_eigenvalue, split_near_singular
-from conditioning.stages.structure import rows_with_stiffness
+from conditioning.model import Model
 
 logger = logging.getLogger(__name__)
 
@@ -40,7 +38,8 @@ logger = logging.getLogger(__name__)
 DEFAULT_K = 8
 #: Most eigenpairs sought when every computed one is near-null.
 MAX_K = 256
-#: Below this many rows the spectrum is computed densely (LAPACK eigh).
+#: Below this many rows the spectrum stage computes the spectrum densely
+#: (LAPACK eigh) on this path, with no factorization.
 DENSE_LIMIT = 600
 #: Shift of the incomplete factorization, relative to the unit diagonal of S.
 ILU_SHIFT = 1e-6
@@ -50,47 +49,51 @@ ILU_DROP = 1e-5
 #: LOBPCG iterations between convergence checks of the wanted pairs.
 ROUND = 25
 
-CANNOT = (
-    "no inertia count: the number of near-singular modes rests on the "
-    "eigenvalue gap alone, not confirmed by Sylvester's law of inertia",
-    "no digits measurement: there is no factorization to solve with",
-    "no diagonal decay: there are no pivots",
-)
-
-
-def iterative_spectrum(
-    model: Model,
+def lobpcg_smallest(
+    S: sp.csr_array,
+    k: int,
     *,
-    k: int = DEFAULT_K,
+    model: Model,
+    active: NDArray[np.bool_],
+    scale: NDArray[np.float64],
+    more_wanted: Callable[[NDArray[np.float64]], bool],
     tol: float = 1e-9,
     maxiter: int = 400,
-    rng=None,
-) -> IterativeSpectrum:
-    """Smallest eigenpairs of S = D^-1/2 K D^-1/2 by preconditioned LOBPCG.
+    rng: Optional[np.random.Generator] = None,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], bool, str]:
+    """The k smallest eigenpairs of S = D^-1/2 K D^-1/2 (active rows) by preconditioned LOBPCG.
 
     Parameters
     ----------
-    model : Model
-        The stiffness matrix, with its DOF map and coordinates when known
-        (used for rigid-body starting vectors).
+    S : (n_a, n_a) csr_array
+        The scaled stiffness on the rows with stiffness (dimensionless).
     k : int
-        Number of eigenpairs wanted.
+        Eigenpairs wanted (at least 1).
+    model : Model
+        DOF map and coordinates, for rigid-body starting vectors and the
+        block-Jacobi fallback.
+    active : (n,) bool
+        Rows of K that S holds.
+    scale : (n,) float64
+        s with S = diag(s) K diag(s).
+    more_wanted : callable
+        ``more_wanted(values)`` is True when every computed pair is near-null
+        (then there may be more: twice as many are sought, up to
+        :data:`MAX_K`).
     tol : float
         Residual norm ||S v - lambda v||_2 (unit v) requested; S has unit
         diagonal, so this is relative to its scale.
     maxiter : int
         LOBPCG iterations allowed.
-    rng : int or numpy.random.Generator, optional
-        Seed of the random starting vectors.
+    rng : numpy.random.Generator
+        Draws the random starting columns.
 
     Returns
     -------
-    IterativeSpectrum
-        Eigenvalues (ascending), eigenvectors in S's coordinates, residual
-        norms, whether all converged, the number of near-null eigenvalues by
-        the spectrum stage's gap rule, the method, and what this path cannot
-        provide. Rows without stiffness appear as exact zero eigenvalues
-        with unit eigenvectors.
+    (values, vectors, converged, method)
+        Eigenvalues ascending (k or more), (n_a, k) orthonormal
+        eigenvectors, True when every residual norm is within 10 tol, and
+        the solver and preconditioner in words.
 
     Notes
     -----
@@ -110,101 +113,35 @@ def iterative_spectrum(
     .. [2] Y. Saad (2003), *Iterative Methods for Sparse Linear Systems*,
            2nd ed., SIAM, chapter 10 (from memory).
     """
-    K = sp.csr_array(model.K)
-    n = K.shape[0]
     if k < 1:
         raise ValueError(f"k = {k}; ask for at least one eigenpair")
     rng = np.random.default_rng(rng)
-    has_stiffness = rows_with_stiffness(K)
-    empty = np.flatnonzero(~has_stiffness)
-    active = np.flatnonzero(has_stiffness)
-    s = diagonal_scaling(K)
-    S = scaled_matrix(K, s)
-    Sa = sp.csr_array(S[active][:, active])
-    Sa.eliminate_zeros()
-    ka = min(k, active.size)
-    if active.size <= DENSE_LIMIT:
-        vals, vecs = np.linalg.eigh(Sa.toarray())
-        vals, vecs = vals[:ka], vecs[:, :ka]
-        method = "dense symmetric eigensolver (LAPACK syevd via numpy.linalg.eigh), small matrix"
-        converged = True
-    else:
-        M, pre_name = _preconditioner(Sa, model, active)
-        lam_max = _lambda_max(Sa)
-        while True:
-            # A block wider than the wanted eigenpairs converges faster: the
-            # rate for pair j depends on lambda_j / lambda_(block + 1).
-            block = min(ka + max(4, ka // 2), active.size // 5)
-            X = _starting_block(model, active, s, max(block, ka), rng)
-            vals, vecs = _lobpcg_core(Sa, X, M, tol, maxiter, ka)
-            first, count, _ = split_near_singular(vals, lam_max, active.size)
-            # All computed pairs near-null: there may be more; ask for twice as many.
-            if first + count < ka or 2 * ka > min(MAX_K, active.size // 6):
-                break
-            ka *= 2
-        converged = False  # decided from the residuals below
-        method = f"LOBPCG (scipy.sparse.linalg.lobpcg) preconditioned by {pre_name}"
-    res = np.linalg.norm(Sa @ vecs - vecs * vals, axis=0) if ka else np.zeros(0)
-    if active.size > DENSE_LIMIT:
-        converged = bool(np.all(res <= max(tol, 1e-14) * 10))
-    # Back to all rows; rows without stiffness are exact zero eigenvalues.
-    full = np.zeros((n, empty.size + ka))
-    full[empty, np.arange(empty.size)] = 1.0
-    full[active, empty.size:] = vecs
-    values = np.concatenate([np.zeros(empty.size), vals])
-    residuals = np.concatenate([np.zeros(empty.size), res])
-    if active.size <= DENSE_LIMIT:
-        lam_max = _lambda_max(Sa)
-    first, count, _ = split_near_singular(vals, lam_max, max(active.size, 1))
+    na = S.shape[0]
+    ka = min(k, na)
+    rows = np.flatnonzero(active)
+    M, pre_name = _preconditioner(S, model, rows)
+    while True:
+        # A block wider than the wanted eigenpairs converges faster: the
+        # rate for pair j depends on lambda_j / lambda_(block + 1).
+        block = min(ka + max(4, ka // 2), na // 5)
+        X = _starting_block(model, rows, scale, max(block, ka), rng)
+        vals, vecs = _lobpcg_core(S, X, M, tol, maxiter, ka)
+        if not more_wanted(vals) or 2 * ka > min(MAX_K, na // 6):
+            break
+        ka *= 2
+    res = np.linalg.norm(S @ vecs - vecs * vals, axis=0)
+    converged = bool(np.all(res <= max(tol, 1e-14) * 10))
     if not converged:
         warnings.warn(f"LOBPCG: largest residual {res.max():.1e} did not reach the requested tolerance {tol:.1e}",
                       RuntimeWarning, stacklevel=2)
+    method = f"LOBPCG (scipy.sparse.linalg.lobpcg) preconditioned by {pre_name}"
     logger.info("iterative spectrum: %d eigenpairs, %s, converged=%s", ka, method, converged)
-    return IterativeSpectrum(
-        eigenvalues=values, eigenvectors=full, residual_norms=residuals, converged=converged,
-        near_null_count=int(empty.size + count), method=method, cannot=CANNOT, lambda_max=lam_max,
-    )
+    return vals, vecs, converged, method
 
 
-def as_scaled_spectrum(result: IterativeSpectrum, model: Model) -> ScaledSpectrum:
-    """The factorization-free eigenpairs in the form the mode stages read.
-
-    Parameters
-    ----------
-    result : IterativeSpectrum
-        From :func:`iterative_spectrum` on ``model``.
-    model : Model
-
-    Returns
-    -------
-    ScaledSpectrum
-        Eigenpairs on the rows with stiffness (rows without any are left to
-        the structure stage, as with a factorization), the split by the
-        spectrum stage's gap rule, and no inertia count (``None``): there
-        are no pivots to count.
-    """
-    n_empty = int(np.count_nonzero(~rows_with_stiffness(model.K)))
-    active = rows_with_stiffness(model.K)
-    values = np.asarray(result.eigenvalues[n_empty:])
-    vectors = np.asarray(result.eigenvectors[active][:, n_empty:])
-    na = int(active.sum())
-    lam_max = float(result.lambda_max) if result.lambda_max is not None else 1.0
-    first, count, gap = split_near_singular(values, lam_max, max(na, 1))
-    zero = na * EPS * lam_max
-    split_point = None
-    if count > 0 and first + count < values.size:
-        split_point = float(np.sqrt(max(values[first + count - 1], zero) * values[first + count]))
-    return ScaledSpectrum(values, vectors, lam_max, count, first, gap, zero, split_point,
-                          None, None, first, result.method)
-
-
-def _lambda_max(Sa: sp.csr_array) -> float:
-    """lambda_max(S) by the spectrum stage's Lanczos (1.0 for an empty matrix)."""
-    return largest_eigenvalue(Sa) if Sa.shape[0] else 1.0
-
-
-def _starting_block(model: Model, active, s, k: int, rng) -> NDArray[np.float64]:
-    """Rigid-body motions in S's coordinates (v = D^1/2 u), then random columns."""
+def _starting_block(model: Model, active: NDArray[np.intp], s, k: int, rng) -> NDArray[np.float64]:
+    """Rigid-body motions in S's coordinates (v = D^1/2 u) on the rows ``active``
+    (0-based indices), then random columns; (n_a, k) orthonormal."""
     cols = []
     if model.dofs is not None:
         basis = rigid_basis(model, active).basis  # u on the active rows

@@ -1,0 +1,128 @@
+"""What the stages need from a sparse factorization: the engine interface.
+
+    S = D^-1/2 K D^-1/2 (active rows)  =>  F = factors of S - sigma*I
+
+Every stage that solves, counts pivots or reads them goes through the two
+protocols below and nothing else, so another engine (PETSc/MUMPS, issue 13)
+joins by implementing them; :mod:`conditioning.engine.scipy_engine` is the
+SuperLU one. The matrix an engine factors is always the scaled stiffness of
+:class:`conditioning.engine.scaling.ScaledStiffness`, built in one place.
+
+Shift policy (``shift`` of :meth:`Engine.factorize`):
+
+* ``None``: factor S itself; when that factorization is exactly singular, or
+  a pivot is below n*eps*||S||_inf in magnitude, factor S - sigma*I instead
+  with sigma = -sqrt(eps)*||S||_inf (a small negative shift, never exactly
+  zero on a singular matrix; the project's choice, square root of the unit
+  round-off so that near-null eigenvalues stay well separated from the
+  shift) and report the result as singular;
+* a float c: factor S - c*I as given (no retry).
+"""
+
+from __future__ import annotations
+
+from typing import Optional, Protocol, runtime_checkable
+
+import numpy as np
+from numpy.typing import NDArray
+
+from conditioning.engine.scaling import ScaledStiffness
+from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+
+
+class FactorizationTooLarge(MemoryError):
+    """The predicted factor does not fit the memory limit (raised before factorizing).
+
+    Attributes
+    ----------
+    prediction : conditioning.results.FactorMemoryPrediction
+    limit : int
+        Bytes allowed.
+    """
+
+    def __init__(self, prediction: FactorMemoryPrediction, limit: int):
+        self.prediction = prediction
+        self.limit = int(limit)
+        super().__init__(f"the factorization would need about {prediction.bytes / 2**30:.1f} GiB "
+                         f"(limit {limit / 2**30:.1f} GiB)")
+
+
+@runtime_checkable
+class Factorization(Protocol):
+    """Factors of S - sigma*I on the active rows, as the stages use them.
+
+    Attributes
+    ----------
+    n : int
+        Rows of K (active and inactive).
+    scale : (n,) float64
+        s with S = diag(s) K diag(s) (1/sqrt of the force/length or
+        moment/rotation units of each row's diagonal).
+    shift : float
+        sigma actually factored (dimensionless, S's scale); 0.0 unshifted.
+    active : (n,) bool
+        Rows in the factorization (rows with stiffness).
+    pivots : (n,) float64
+        Pivot of each row of S - sigma*I in the original row order
+        (dimensionless); 0 for inactive rows. Kept after :meth:`release`.
+    singular : bool
+        True when S had no usable unshifted factorization or K has rows
+        without stiffness: :meth:`solve` is then refused.
+    info : FactorizationInfo
+        Ordering, shift, inertia (``negative_pivots``), fill, flops, time.
+    """
+
+    n: int
+    scale: NDArray[np.float64]
+    shift: float
+    active: NDArray[np.bool_]
+    pivots: NDArray[np.float64]
+    singular: bool
+    info: FactorizationInfo
+
+    def solve_active(self, B: NDArray[np.float64]) -> NDArray[np.float64]:
+        """(S_a - sigma*I)^-1 B for B (n_active,) or (n_active, k) on the active rows."""
+
+    def solve_scaled(self, B: NDArray[np.float64]) -> NDArray[np.float64]:
+        """(S - sigma*I)^-1 B for B (n,) or (n, k); inactive rows of the result are 0."""
+
+    def solve(self, F: NDArray[np.float64]) -> NDArray[np.float64]:
+        """K^-1 F for loads F (n,) or (n, k) in force units; displacement units.
+
+        Raises RuntimeError when K is singular (only a shifted factor exists)."""
+
+    def count_below(self, c: float) -> Optional[int]:
+        """Eigenvalues of S (active rows) below c: the negative pivots of
+        S - c*I (Sylvester's law of inertia), factored with this
+        factorization's ordering; None when the count is not an inertia (off-
+        diagonal pivoting) or S - c*I is exactly singular."""
+
+    def release(self) -> None:
+        """Free the factors; ``pivots`` and ``info`` stay, solves no longer work."""
+
+    def ordering_permutation(self) -> Optional[NDArray[np.intp]]:
+        """The fill-reducing ordering of the active rows (S_a[p][:, p] is what was
+        factored), for another factorization to reuse; None when the engine
+        does not expose it."""
+
+
+@runtime_checkable
+class Engine(Protocol):
+    """A sparse direct solver that factors the scaled stiffness."""
+
+    name: str
+    """Short name for reports (``"scipy"``)."""
+
+    def predict_memory(self, scaled: ScaledStiffness,
+                       coords: Optional[NDArray[np.float64]] = None) -> Optional[FactorMemoryPrediction]:
+        """Peak memory the factorization of ``scaled`` would add (bytes), predicted
+        without factorizing; None when the engine cannot tell (then it always tries)."""
+
+    def factorize(self, scaled: ScaledStiffness, *, shift: Optional[float] = None,
+                  coords: Optional[NDArray[np.float64]] = None,
+                  memory_limit: Optional[int] = None) -> Factorization:
+        """Factor S - sigma*I on ``scaled.active`` under the shift policy above.
+
+        ``coords`` (n, 3) are the rows' node positions (for geometric
+        orderings). Raises :class:`FactorizationTooLarge` before factorizing
+        when ``memory_limit`` (bytes) is given and the prediction exceeds it."""
