@@ -235,11 +235,11 @@ def _run_diagnose(args) -> int:
             console.print(extra)
     else:
         console.print(TerminalReport(report, extra_verdict=extra))
-    _write_outputs(report, model, args)
+    _write_outputs(report, args)
     return exit_status(report)
 
 
-def _write_outputs(report, model, args) -> None:
+def _write_outputs(report, args) -> None:
     if args.json:
         from conditioning.render.json_report import write_json
 
@@ -247,16 +247,16 @@ def _write_outputs(report, model, args) -> None:
     if args.html:
         from conditioning.render.html import write_html
 
-        write_html(report, args.html, model=model)
+        write_html(report, args.html)
         _note_missing_matplotlib()
     if args.modes_vtk:
         from conditioning.render.modes_export import write_modes_vtu
 
-        write_modes_vtu(report, model, args.modes_vtk)
+        write_modes_vtu(report, args.modes_vtk)
     if args.modes_csv:
         from conditioning.render.modes_export import write_modes_csv
 
-        write_modes_csv(report, model, args.modes_csv)
+        write_modes_csv(report, args.modes_csv)
 
 
 def _note_missing_matplotlib() -> None:
@@ -305,7 +305,7 @@ def _run_demo(args) -> int:
         if args.html:
             from conditioning.render.html import write_html
 
-            write_html(report, Path(args.html) / f"{name}.html", model=case.model)
+            write_html(report, Path(args.html) / f"{name}.html")
     if not args.quiet:
         console.print(Rule())
         console.print(summary)

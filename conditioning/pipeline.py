@@ -19,6 +19,7 @@ import scipy.sparse as sp
 from conditioning.stages.condition import condition_numbers
 from conditioning.engine.scipy_engine import FactorizationTooLarge, factorize
 from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.geometry import model_geometry
 from conditioning.model import DOF_NAMES, Model
 from conditioning.stages.modes import locate_modes
 from conditioning.results import (
@@ -215,6 +216,7 @@ def diagnose(
         summary=summarize(model), structure=structure, factorization=info, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings,
+        geometry=model_geometry(model),
     )
 
 
@@ -316,4 +318,5 @@ def _without_factorization(model: Model, structure, stage: _Stages, too_large: F
         summary=summarize(model), structure=structure, factorization=None, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=None, digits=None,
         findings=findings, verdict=line, status=status, timings=stage.timings,
+        geometry=model_geometry(model),
     )
