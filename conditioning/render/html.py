@@ -90,6 +90,17 @@ def write_html(report: results.Report, path: Union[str, Path]) -> None:
     Path(path).write_text(render_html(report), encoding="utf-8")
 
 
+def missing_figures_note() -> Optional[str]:
+    """Why a page has no figures (matplotlib, the ``report`` extra, is not
+    installed), in one line; None when figures can be drawn."""
+    try:
+        plots.require_matplotlib()
+    except ImportError:
+        return ("matplotlib is not installed, so the HTML report has no figures "
+                "(pip install 'fe-conditioning[report]')")
+    return None
+
+
 # ------------------------------------------------------------------ helpers
 def _e(text) -> str:
     return html.escape(str(text), quote=True)
