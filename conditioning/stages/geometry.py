@@ -61,7 +61,7 @@ def model_geometry(model: Model) -> ModelGeometry:
 def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.intp]]:
     """Pairs of nodes coupled by a stored entry of K, as indices into ``nodes``;
     None when there are more than :data:`MAX_EDGES`."""
-    if model.K.nnz > _MAX_ENTRIES_FOR_EDGES:
+    if model.K.nnz > _MAX_ENTRIES_FOR_EDGES or _fewest_pairs(model, nodes) > MAX_EDGES:
         return None
     coo = model.K.tocoo()
     a = np.searchsorted(nodes, model.dofs.node[coo.row])
@@ -71,3 +71,12 @@ def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.i
     if pairs.shape[0] > MAX_EDGES:
         return None
     return pairs
+
+
+def _fewest_pairs(model: Model, nodes: NDArray[np.int64]) -> float:
+    """A lower bound on the node pairs K couples, from counts alone (no pass
+    over the entries): at most sum(d_i^2) entries lie within nodes (d_i DOFs
+    at node i), and a pair of nodes holds at most 2 d_max^2 entries."""
+    per_node = np.bincount(np.searchsorted(nodes, model.dofs.node), minlength=nodes.size)
+    within = float(np.sum(per_node.astype(np.float64) ** 2))
+    return (model.K.nnz - within) / (2.0 * float(per_node.max()) ** 2)
