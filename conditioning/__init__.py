@@ -9,9 +9,13 @@ See README.md for the command line.
 """
 
 from conditioning.errors import ConditioningError, InputError
-from conditioning.model import DOF_NAMES, Coordinates, DofTable, Model
 
 __version__ = "0.1.0"
+
+#: Names served from :mod:`conditioning.model` on first use (PEP 562), so that
+#: reading a report back and rendering it does not import the model (nor
+#: scipy) through this package.
+_FROM_MODEL = ("Model", "DofTable", "Coordinates", "DOF_NAMES")
 
 __all__ = [
     "ConditioningError",
@@ -37,3 +41,11 @@ def diagnose(*args, **kwargs):
     from conditioning.pipeline import diagnose as _diagnose
 
     return _diagnose(*args, **kwargs)
+
+
+def __getattr__(name: str):
+    if name in _FROM_MODEL:
+        from conditioning import model
+
+        return getattr(model, name)
+    raise AttributeError(f"module 'conditioning' has no attribute {name!r}")

@@ -14,10 +14,9 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.results import OneTriangleExport
-
-#: Names of the degrees of freedom a node may carry, in canonical order.
-DOF_NAMES: tuple[str, ...] = ("ux", "uy", "uz", "rx", "ry", "rz")
+# DOF_NAMES lives with the results (the renderers read it there) and is
+# re-exported here, where the stages have always found it.
+from conditioning.results import DOF_NAMES, OneTriangleExport  # noqa: F401
 TRANSLATIONS = (0, 1, 2)
 ROTATIONS = (3, 4, 5)
 

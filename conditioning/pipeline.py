@@ -32,6 +32,7 @@ from conditioning.engine.memory import memory_limit as default_memory_limit
 from conditioning.engine.scaling import scale_stiffness
 from conditioning.engine.scipy_engine import ScipyEngine
 from conditioning.io.load import load_model
+from conditioning.stages.geometry import model_geometry
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import Finding, ModelSummary, Report, Restraint
 from conditioning.stages.condition import condition_numbers
@@ -263,6 +264,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
         condition=condition, spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings, seed=run.seed, skipped=skipped,
+        geometry=model_geometry(model),
     )
 
 

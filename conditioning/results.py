@@ -13,6 +13,10 @@ from typing import Literal, Optional
 import numpy as np
 from numpy.typing import NDArray
 
+#: Names of the degrees of freedom a node may carry, in canonical order
+#: (``DofTable.dof`` and :attr:`ModelGeometry.row_dof` index into it).
+DOF_NAMES: tuple[str, ...] = ("ux", "uy", "uz", "rx", "ry", "rz")
+
 Severity = Literal["error", "warning", "note"]
 ModeKind = Literal["rigid-body", "mechanism", "dof-without-stiffness"]
 
@@ -456,6 +460,53 @@ CAUTION = (
 )
 
 
+# --------------------------------------------------------------- geometry
+@dataclass(frozen=True)
+class ModelGeometry:
+    """The model as the views draw it: nodes, positions, the row map, K's node graph.
+
+    Input data restated for the renderers, no diagnosis: built once per report
+    by :func:`conditioning.stages.geometry.model_geometry`, so that the report
+    is the views' only input. Not written to the JSON (the caller holds the
+    input files; ``docs/report-format.md``, "Not in the JSON").
+    """
+
+    rows: int
+    """Number of matrix rows (DOFs)."""
+    diagonal: NDArray[np.float64] = field(repr=False)
+    """(rows,) K_ii of each row, in K's units (force/length, moment/rotation)."""
+    nodes: Optional[NDArray[np.int64]] = None
+    """(m,) node ids of the DOF map, sorted ascending; None without a map."""
+    row_node: Optional[NDArray[np.int64]] = field(default=None, repr=False)
+    """(rows,) node id of each row (an entry of ``nodes``); None without a map."""
+    row_dof: Optional[NDArray[np.int8]] = field(default=None, repr=False)
+    """(rows,) index into :data:`DOF_NAMES` of each row's DOF; None without a map."""
+    xyz: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """(m, 3) position of each of ``nodes``, in the model's length unit (z = 0
+    for a 2D model); a row of NaN for a mapped node the coordinates do not
+    list. None without a map or without coordinates."""
+    dim: Optional[int] = None
+    """2 or 3, as the coordinates were read; None without coordinates."""
+    edges: Optional[NDArray[np.intp]] = field(default=None, repr=False)
+    """(e, 2) node pairs coupled by a stored off-diagonal entry of K, as
+    indices into ``nodes`` (first < second, each pair once): the element
+    edges as K's graph shows them. None without a map, or when there are
+    more than :data:`conditioning.stages.geometry.MAX_EDGES` (then the views
+    draw the nodes only)."""
+
+    def node_index(self) -> NDArray[np.intp]:
+        """(rows,) position in ``nodes`` of each row's node (requires a map)."""
+        return np.searchsorted(self.nodes, self.row_node)
+
+    def has_position(self) -> NDArray[np.bool_]:
+        """(m,) True where the node's position is known (all False without coordinates)."""
+        if self.nodes is None:
+            return np.zeros(0, dtype=bool)
+        if self.xyz is None:
+            return np.zeros(self.nodes.size, dtype=bool)
+        return ~np.isnan(self.xyz).any(axis=1)
+
+
 @dataclass(frozen=True)
 class Report:
     """Everything the diagnosis found; the renderers' only input."""
@@ -481,3 +532,7 @@ class Report:
     skipped: dict[str, str] = field(default_factory=dict)
     """Stages that did not run, stage name -> why (their results are None):
     e.g. ``"digits"`` without a factorization or with ``measure=False``."""
+    geometry: Optional[ModelGeometry] = None
+    """Nodes, positions, row map and node graph for the figures and mode
+    files; None when the report was built without a model (then the views
+    draw the spectrum only and number rows instead of nodes)."""

@@ -339,3 +339,20 @@ def test_html_without_matplotlib_notes_it(fake_singular, tmp_path, capsys, monke
     assert main(["diagnose", "k.mtx", "--html", str(page), "--quiet"]) == 3
     assert "need matplotlib" in page.read_text()
     assert "matplotlib is not installed" in capsys.readouterr().err
+
+
+def test_the_command_stays_thin():
+    """Issue 10: parse -> diagnose -> render -> exit status, under 200 lines;
+    the progress protocol is the pipeline's (not defined twice) and the
+    command reaches no stage, kernel or engine directly."""
+    import ast
+
+    path = REPO / "conditioning" / "cli.py"
+    source = path.read_text(encoding="utf-8")
+    assert len(source.splitlines()) < 200
+    tree = ast.parse(source)
+    assigned = {t.id for node in ast.walk(tree) if isinstance(node, ast.Assign)
+                for t in node.targets if isinstance(t, ast.Name)}
+    assert "ProgressCallback" not in assigned
+    modules = {node.module for node in ast.walk(tree) if isinstance(node, ast.ImportFrom)}
+    assert not {m for m in modules if m and m.split(".")[1:2] in (["stages"], ["engine"], ["linalg"])}

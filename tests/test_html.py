@@ -54,7 +54,7 @@ def _images(page: str) -> list[bytes]:
 
 def test_self_contained_no_network_no_script():
     report, model = singular_report()
-    page = render_html(report, model)
+    page = render_html(report)
     parsed = _parse(page)
     assert not any(t == "script" for t, _ in parsed.tags)
     for tag, attrs in parsed.tags:
@@ -67,7 +67,7 @@ def test_self_contained_no_network_no_script():
 def test_verdict_findings_and_figures_present():
     pytest.importorskip("matplotlib")
     report, model = singular_report()
-    page = render_html(report, model)
+    page = render_html(report)
     text = " ".join(" ".join(_parse(page).text).split())
     assert report.verdict in text
     assert "free-modes" in text and "Restrain node 1" in text
@@ -88,15 +88,17 @@ def test_verdict_findings_and_figures_present():
 def test_digits_figure_with_healthy_model():
     pytest.importorskip("matplotlib")
     report, model = healthy_report()
-    page = render_html(report, model)
+    page = render_html(report)
     assert "Trustworthy digits per node" in page
     assert len(_images(page)) == 3   # spectrum, diagonal histogram, digits per node
 
 
-def test_without_model_only_the_spectrum():
+def test_without_geometry_only_the_spectrum():
+    import dataclasses
+
     pytest.importorskip("matplotlib")
     report, _ = singular_report()
-    assert len(_images(render_html(report))) == 1
+    assert len(_images(render_html(dataclasses.replace(report, geometry=None)))) == 1
 
 
 def test_without_matplotlib_says_which_plots_need_it(monkeypatch):
@@ -104,7 +106,7 @@ def test_without_matplotlib_says_which_plots_need_it(monkeypatch):
     for name in ("matplotlib", "matplotlib.figure"):
         monkeypatch.setitem(sys.modules, name, None)
     report, model = singular_report()
-    page = render_html(report, model)
+    page = render_html(report)
     assert "<img" not in page
     assert "need matplotlib" in page and "fe-conditioning[report]" in page
     for title in ("Eigenvalue spectrum near zero", "Diagonal magnitudes by dof type",
@@ -165,7 +167,7 @@ def test_renders_in_headless_chromium(tmp_path):
     pytest.importorskip("matplotlib")
     report, model = singular_report()
     page = tmp_path / "report.html"
-    write_html(report, page, model=model)
+    write_html(report, page)
     shot = tmp_path / "shot.png"
     run = _run_chromium(["--enable-logging=stderr", "--v=0", f"--screenshot={shot}",
                          "--window-size=1200,2000", page.as_uri()], tmp_path / "profile")
@@ -188,7 +190,7 @@ def test_dom_in_chromium_keeps_the_figures(tmp_path):
     pytest.importorskip("matplotlib")
     report, model = singular_report()
     page = tmp_path / "report.html"
-    write_html(report, page, model=model)
+    write_html(report, page)
     run = _run_chromium(["--dump-dom", page.as_uri()], tmp_path / "profile")
     assert run.returncode == 0, run.stderr[-2000:]
     assert run.stdout.count("data:image/png;base64,") == 5
@@ -199,7 +201,7 @@ def test_every_section_of_a_full_report():
     """Condition figures with their methods, jumps, decay and digits all reach
     the page (text checked after the standard library's HTML parser)."""
     report, model = healthy_report()
-    text = " ".join(" ".join(_parse(render_html(report, model)).text).split())
+    text = " ".join(" ".join(_parse(render_html(report)).text).split())
     for needle in ("Condition number", "Hager-Higham 1-norm estimate (a lower bound)",
                    "Stiffness jumps", "diagonal-outlier", "Diagonal decay", "node 4 uy",
                    "Digits of the displacements", "double-double refinement", "withdrawn"):
@@ -214,6 +216,6 @@ def test_a_failing_figure_does_not_cost_the_page(monkeypatch):
         raise ValueError("no luck")
     monkeypatch.setattr(plots, "diagonal_histogram_png", broken)
     report, model = singular_report()
-    page = render_html(report, model)
+    page = render_html(report)
     assert "could not be drawn (ValueError: no luck)" in page
     assert len(_images(page)) == 4     # the other figures are still there

@@ -72,8 +72,8 @@ def test_demo_modes_export_are_null_vectors(demo, tmp_path):
             continue
         model = case.model
         vtu, csvp = tmp_path / f"{name}.vtu", tmp_path / f"{name}.csv"
-        written = write_modes_vtu(report, model, vtu)
-        assert written == write_modes_csv(report, model, csvp) >= 1
+        written = write_modes_vtu(report, vtu)
+        assert written == write_modes_csv(report, csvp) >= 1
         with csvp.open(newline="") as fh:
             rows = list(csv.DictReader(fh))
         assert len(rows) == model.n
@@ -83,7 +83,7 @@ def test_demo_modes_export_are_null_vectors(demo, tmp_path):
             u = np.array([float(r[f"mode_{k}"]) for r in rows])
             assert np.linalg.norm(K @ u) <= 1e-9 * normK * np.linalg.norm(u), (name, k)
     rack_case, rack = demo["rack_no_sway_support"]
-    write_modes_vtu(rack, rack_case.model, tmp_path / "rack.vtu")
+    write_modes_vtu(rack, tmp_path / "rack.vtu")
     piece = ET.parse(tmp_path / "rack.vtu").getroot().find("UnstructuredGrid/Piece")
     arrays = {a.get("Name"): np.array(a.text.split(), float) for a in piece.find("PointData")}
     u = arrays["mode_1"].reshape(-1, 3)
@@ -93,13 +93,13 @@ def test_demo_modes_export_are_null_vectors(demo, tmp_path):
 def test_demo_html_with_every_figure(demo):
     pytest.importorskip("matplotlib")
     case, report = demo["bracket_loose_pad"]
-    page = render_html(report, case.model)
+    page = render_html(report)
     assert report.verdict in page
     # spectrum, diagonal histogram, digits per node (when measured), 3 mode shapes
     images = page.count('src="data:image/png;base64,')
     assert images == 5 + (report.digits is not None and not report.digits.skipped)
     case, report = demo["footbridge"]
-    page = render_html(report, case.model)
+    page = render_html(report)
     assert "Trustworthy digits per node" in page
 
 
@@ -128,9 +128,9 @@ def test_reference_matrix_every_output(tmp_path):
     text = render_text(report, width=120)
     assert "no DOF map" in text
     assert f"{report.condition.estimate:.2e}" in text or f"{report.condition.estimate:.3g}" in text
-    page = render_html(report, model)
+    page = render_html(report)
     assert "singular" not in report.verdict and report.verdict in page
-    assert write_modes_csv(report, model, tmp_path / "m.csv") == 0
+    assert write_modes_csv(report, tmp_path / "m.csv") == 0
     with (tmp_path / "m.csv").open(newline="") as fh:
         rows = list(csv.reader(fh))
     assert rows[0] == ["node", "dof"] and len(rows) == 1 + int(row["n"])

@@ -13,12 +13,14 @@ u = a + theta x r at every node (common practice), and K u = 0 to round-off
 from __future__ import annotations
 
 import csv
+import dataclasses
 import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
 
 from conditioning.model import Model
+from conditioning.stages.geometry import model_geometry
 from conditioning.render.modes_export import ExportError, write_modes_csv, write_modes_vtu
 from test_report_fixtures import healthy_report, singular_report
 
@@ -35,7 +37,7 @@ def _arrays(piece, section):
 def test_vtu_structure_and_rigid_motion(tmp_path):
     report, model = singular_report()
     path = tmp_path / "modes.vtu"
-    assert write_modes_vtu(report, model, path) == 3
+    assert write_modes_vtu(report, path) == 3
     root = ET.parse(path).getroot()
     assert root.tag == "VTKFile" and root.get("type") == "UnstructuredGrid"
     piece = root.find("UnstructuredGrid/Piece")
@@ -87,9 +89,10 @@ def test_vtu_rotations_as_separate_array(tmp_path):
     report, _ = singular_report()
     mode = dataclasses.replace(report.spectrum.modes[0], vector=vec)
     report = dataclasses.replace(report, spectrum=dataclasses.replace(report.spectrum,
-                                                                      modes=[mode]))
+                                                                      modes=[mode]),
+                                 geometry=model_geometry(model))
     path = tmp_path / "frame.vtu"
-    write_modes_vtu(report, model, path)
+    write_modes_vtu(report, path)
     data = _arrays(ET.parse(path).getroot().find("UnstructuredGrid/Piece"), "PointData")
     np.testing.assert_array_equal(data["mode_1"], [[1, 2, 0], [4, 5, 0]])
     np.testing.assert_array_equal(data["mode_1_rotation"], [[0, 0, 3], [0, 0, 6]])
@@ -98,7 +101,7 @@ def test_vtu_rotations_as_separate_array(tmp_path):
 def test_csv_round_trip(tmp_path):
     report, model = singular_report()
     path = tmp_path / "modes.csv"
-    assert write_modes_csv(report, model, path) == 3
+    assert write_modes_csv(report, path) == 3
     with path.open(newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert list(rows[0]) == ["node", "dof", "mode_1", "mode_2", "mode_3"]
@@ -113,7 +116,7 @@ def test_csv_without_map_uses_rows(tmp_path):
     report, model = singular_report()
     bare = Model(K=model.K)
     path = tmp_path / "bare.csv"
-    write_modes_csv(report, bare, path)
+    write_modes_csv(dataclasses.replace(report, geometry=model_geometry(bare)), path)
     with path.open(newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert [r["node"] for r in rows[:3]] == ["1", "2", "3"] and rows[0]["dof"] == ""
@@ -122,12 +125,13 @@ def test_csv_without_map_uses_rows(tmp_path):
 def test_vtu_needs_map_and_coordinates(tmp_path):
     report, model = singular_report()
     with pytest.raises(ExportError, match="DOF map and node coordinates"):
-        write_modes_vtu(report, Model(K=model.K, dofs=model.dofs), tmp_path / "x.vtu")
+        write_modes_vtu(dataclasses.replace(report, geometry=model_geometry(
+            Model(K=model.K, dofs=model.dofs))), tmp_path / "x.vtu")
 
 
 def test_no_modes_writes_points_only(tmp_path):
     report, model = healthy_report()
     path = tmp_path / "none.vtu"
-    assert write_modes_vtu(report, model, path) == 0
+    assert write_modes_vtu(report, path) == 0
     piece = ET.parse(path).getroot().find("UnstructuredGrid/Piece")
     assert set(_arrays(piece, "PointData")) == {"node"}

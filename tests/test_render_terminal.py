@@ -127,15 +127,15 @@ def test_every_view_accepts_a_minimal_report(tmp_path):
     from conditioning.render.json_report import dumps, report_to_dict
     from conditioning.render.modes_export import write_modes_csv
 
-    report, model = healthy_report()
+    report, _ = healthy_report()
     bare = dataclasses.replace(report, factorization=None, condition=None, spectrum=None,
                                decay=None, digits=None, jumps=[], restraints=[], findings=[])
     text = render_text(bare)
     assert "not computed" in text and "not measured" in text and "no findings" in text
-    assert "<h1>" in render_html(bare, model)
+    assert "<h1>" in render_html(bare)
     data = json.loads(dumps(report_to_dict(bare)))
     assert data["condition"] is None and data["near_singular_modes"] == [] and data["digits"] == []
-    assert write_modes_csv(bare, model, tmp_path / "m.csv") == 0
+    assert write_modes_csv(bare, tmp_path / "m.csv") == 0
 
 
 def test_scaling_sentence_depends_on_the_gain():

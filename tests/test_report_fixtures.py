@@ -1,7 +1,8 @@
 """Reports built by hand for the renderer tests (no test functions here).
 
 The renderers only read a :class:`conditioning.results.Report`; these
-fixtures let their tests run without the diagnosis stages. The model is a
+fixtures let their tests run without the diagnosis stages (only the model's
+geometry is restated, by :func:`conditioning.stages.geometry.model_geometry`). The model is a
 small, invented 2D pin-jointed truss assembled here with the textbook bar
 stiffness k = EA/L [c^2 cs; cs s^2] (common practice), and the numbers put in
 the reports are computed from it with numpy's LAPACK eigensolver, so the
@@ -17,6 +18,7 @@ import scipy.sparse as sp
 
 from conditioning import results
 from conditioning.model import Coordinates, DofTable, Model
+from conditioning.stages.geometry import model_geometry
 
 
 def truss_model(supported: bool = False) -> Model:
@@ -116,7 +118,7 @@ def singular_report(many_nodes: int = 0) -> tuple[results.Report, Model]:
         summary=_summary(model), structure=_structure(model), factorization=None,
         condition=condition, spectrum=spectrum, restraints=restraints, jumps=[], decay=None,
         digits=None, findings=findings, verdict="singular: 3 free modes", status="errors",
-        timings={"structure": 0.001})
+        timings={"structure": 0.001}, geometry=model_geometry(model))
     return report, model
 
 
@@ -168,5 +170,6 @@ def healthy_report(digits: float = 12.5) -> tuple[results.Report, Model]:
         decay=results.DiagonalDecay([results.DecayEntry(7, "node 4 uy", 1e3, 3.0)], 3.0,
                                     "K_ii / D_ii from the shared factorization"),
         digits=digits_result, findings=findings, verdict=f"trustworthy to {digits:.0f} digits",
-        status="warnings", timings={"structure": 0.001, "digits": 0.01})
+        status="warnings", timings={"structure": 0.001, "digits": 0.01},
+        geometry=model_geometry(model))
     return report, model

@@ -12,6 +12,9 @@
 :mod:`conditioning.render.modes_export`
     Near-singular modes as VTK XML (``.vtu``) and CSV.
 
-Renderers only read the report (and, for figures and mode files, the model's
-input data); they never compute a diagnosis.
+Renderers read the report alone: figures and mode files draw its
+``geometry`` (:class:`~conditioning.results.ModelGeometry`, the input data
+restated). They import nothing but :mod:`conditioning.results`,
+:mod:`conditioning.errors`, each other and rich/matplotlib/numpy, and never
+compute a diagnosis (``tests/test_render_imports.py`` holds them to it).
 """

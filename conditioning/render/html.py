@@ -2,10 +2,10 @@
 
 Inline CSS, figures as base64 PNG ``data:`` URIs, no script and no network
 access, so the file can be mailed or archived as it is. The page reads the
-:class:`~conditioning.results.Report`; plots that need K's diagonal or the
-node positions also take the :class:`~conditioning.model.Model` (input data,
-drawn as given). Figures need matplotlib (the ``report`` extra); without it
-the page lists the figures it could not draw and how to get them.
+:class:`~conditioning.results.Report` alone; plots of K's diagonal, the node
+positions and the mode shapes draw its ``geometry`` (the input data, drawn
+as given). Figures need matplotlib (the ``report`` extra); without it the
+page lists the figures it could not draw and how to get them.
 """
 
 from __future__ import annotations
@@ -17,7 +17,6 @@ from pathlib import Path
 from typing import Callable, Optional, Union
 
 from conditioning import results
-from conditioning.model import Model
 from conditioning.render import plots
 from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
                                          mode_count_lines, scaling_sentence, summarise_ids,
@@ -47,17 +46,15 @@ figure{margin:1em 0}figcaption{color:#566573;font-size:.88em}img{max-width:100%}
 """
 
 
-def render_html(report: results.Report, model: Optional[Model] = None) -> str:
+def render_html(report: results.Report) -> str:
     """The report as a self-contained HTML document.
 
     Parameters
     ----------
     report : results.Report
-        The diagnosis.
-    model : Model, optional
-        The model it was made from, for the diagonal histogram, the digits
-        over the node positions and the mode shapes; without it only the
-        spectrum is drawn.
+        The diagnosis. Its ``geometry`` gives the diagonal histogram, the
+        digits over the node positions and the mode shapes; without one
+        only the spectrum is drawn.
 
     Returns
     -------
@@ -81,17 +78,27 @@ def render_html(report: results.Report, model: Optional[Model] = None) -> str:
         _jumps(report),
         _decay(report),
         _digits(report),
-        _figures(report, model),
+        _figures(report),
         f'<p class="caution">{_e(report.caution)}</p>',
         "</body></html>",
     ]
     return "\n".join(p for p in parts if p)
 
 
-def write_html(report: results.Report, path: Union[str, Path],
-               model: Optional[Model] = None) -> None:
-    """Write :func:`render_html` to ``path``."""
-    Path(path).write_text(render_html(report, model), encoding="utf-8")
+def write_html(report: results.Report, path: Union[str, Path]) -> None:
+    """Write :func:`render_html` to ``path`` (UTF-8)."""
+    Path(path).write_text(render_html(report), encoding="utf-8")
+
+
+def missing_figures_note() -> Optional[str]:
+    """Why a page has no figures (matplotlib, the ``report`` extra, is not
+    installed), in one line; None when figures can be drawn."""
+    try:
+        plots.require_matplotlib()
+    except ImportError:
+        return ("matplotlib is not installed, so the HTML report has no figures "
+                "(pip install 'fe-conditioning[report]')")
+    return None
 
 
 # ------------------------------------------------------------------ helpers
@@ -238,36 +245,29 @@ def _digits(r: results.Report) -> str:
                       "reference error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
 
 
-def _figures(r: results.Report, model: Optional[Model]) -> str:
+def _figures(r: results.Report) -> str:
     wanted: list[tuple[str, str, Callable[[], Optional[bytes]]]] = []
     if r.spectrum is not None and len(r.spectrum.smallest):
         wanted.append(("Eigenvalue spectrum near zero",
                        "Smallest eigenvalues of the scaled matrix, log scale; the dashed line "
                        "marks the gap that separates the near-singular modes.",
                        lambda: plots.spectrum_png(r.spectrum)))
-    if model is not None:
+    geometry = r.geometry
+    if geometry is not None:
         wanted.append(("Diagonal magnitudes by dof type",
                        "Histogram of log10 |K_ii|; dotted lines mark penalty-like outliers.",
-                       lambda: plots.diagonal_histogram_png(model, r.jumps)))
+                       lambda: plots.diagonal_histogram_png(geometry, r.jumps)))
         sample = _digits_sample(r)
         if sample is not None:
             wanted.append(("Trustworthy digits per node",
                            "Worst component of each node; over the node positions when given.",
-                           lambda: plots.digits_png(model, sample)))
+                           lambda: plots.digits_png(geometry, sample)))
         if r.spectrum is not None and r.spectrum.modes:
-            edges: list = []
-
-            def shared_edges():
-                if not edges:
-                    edges.append(plots.node_edges(model))
-                return edges[0]
-
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
                                "the model size); circles mark the nodes that locate the mode.",
-                               lambda mode=mode, k=k: plots.mode_shape_png(
-                                   model, mode, k, shared_edges())))
+                               lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k)))
     if not wanted:
         return ""
     try:

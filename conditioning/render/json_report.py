@@ -13,6 +13,9 @@ in ``docs/report-format.md``. Rules applied on purpose:
 * Mode vectors and per-row component labels are not written (use
   ``--modes-csv`` / ``--modes-vtk``); per-DOF digits are written rounded to
   0.01 digit.
+* The report's geometry (node ids, positions, row map, K's node graph and
+  diagonal) is not written: it restates the input files, and would make the
+  file as large as the model.
 """
 
 from __future__ import annotations
@@ -35,6 +38,10 @@ COMPARE_SCHEMA = "conditioning-compare/1"
 
 #: Fields that are not serialised (large, or only meaningful with the model).
 _OMIT = {"vector", "part_of_row", "eigenvectors", "smallest_vector", "solution"}
+
+#: Report fields never written: the input restated for the figures and mode
+#: files (docs/report-format.md, "Not in the JSON").
+_NOT_WRITTEN = {"geometry"}
 
 #: Report fields :func:`report_to_dict` writes under its own layout.
 _HANDLED = {"summary", "structure", "factorization", "condition", "spectrum", "restraints",
@@ -81,7 +88,7 @@ def report_to_dict(report: results.Report) -> dict[str, Any]:
     # Fields added to Report later are written under their own names, so a new
     # stage reaches the JSON (and the key-documentation test) without edits here.
     for f in dataclasses.fields(report):
-        if f.name not in _HANDLED:
+        if f.name not in _HANDLED and f.name not in _NOT_WRITTEN:
             out[f.name] = _plain(getattr(report, f.name))
     return _finite(out)
 

@@ -13,7 +13,9 @@
 
 Mode ``k`` is the k-th near-singular mode of the report (1-based), in K's
 DOFs with unit max-norm (dimensionless shape). Modes without a stored
-vector are left out and the numbering of the others is kept.
+vector are left out and the numbering of the others is kept. Nodes,
+positions and the row map come from the report's
+:class:`~conditioning.results.ModelGeometry`.
 """
 
 from __future__ import annotations
@@ -28,14 +30,13 @@ from numpy.typing import NDArray
 
 from conditioning import results
 from conditioning.errors import ConditioningError
-from conditioning.model import DOF_NAMES, Model
 
 #: VTK cell type id of a single point ("VTK File Formats", cell type table).
 VTK_VERTEX = 1
 
 
 class ExportError(ConditioningError):
-    """The requested export needs model context that is missing."""
+    """The requested export needs model context the report does not hold."""
 
 
 def mode_vectors(report: results.Report) -> list[tuple[int, results.NearSingularMode]]:
@@ -46,33 +47,33 @@ def mode_vectors(report: results.Report) -> list[tuple[int, results.NearSingular
             if m.vector is not None]
 
 
-def nodal_field(model: Model, vector: NDArray[np.float64],
+def nodal_field(geometry: results.ModelGeometry, vector: NDArray[np.float64],
                 dof_ids: tuple[int, int, int]) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
     """Arrange a row vector by node: ``(nodes, values)`` with values (m, 3).
 
-    ``dof_ids`` picks three entries of :data:`DOF_NAMES` (0-2 translations,
-    3-5 rotations); a DOF a node does not carry is 0.
+    ``dof_ids`` picks three entries of :data:`~conditioning.results.DOF_NAMES`
+    (0-2 translations, 3-5 rotations); a DOF a node does not carry is 0.
+    Values keep the vector's units.
     """
-    if model.dofs is None:
+    if geometry.nodes is None:
         raise ExportError("the mode export by node needs a DOF map (--dofs or --dofs-per-node)")
-    nodes = model.dofs.nodes
+    nodes = geometry.nodes
     values = np.zeros((nodes.size, 3))
-    where = np.searchsorted(nodes, model.dofs.node)
+    where = geometry.node_index()
     for c, d in enumerate(dof_ids):
-        rows = np.flatnonzero(model.dofs.dof == d)
+        rows = np.flatnonzero(geometry.row_dof == d)
         values[where[rows], c] = vector[rows]
     return nodes, values
 
 
-def write_modes_vtu(report: results.Report, model: Model, path: Union[str, Path]) -> int:
+def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
     """Write the near-singular modes as a VTK XML UnstructuredGrid.
 
     Parameters
     ----------
     report : results.Report
-        The diagnosis (modes with vectors).
-    model : Model
-        The model it was made from; needs ``dofs`` and ``coords``.
+        The diagnosis: modes with vectors, and ``report.geometry`` with a DOF
+        map and node positions.
     path : str or Path
         Output ``.vtu`` file.
 
@@ -84,18 +85,19 @@ def write_modes_vtu(report: results.Report, model: Model, path: Union[str, Path]
     Raises
     ------
     ExportError
-        When the model has no DOF map or lacks coordinates of mapped nodes.
+        When the report has no DOF map or lacks positions of mapped nodes.
     """
-    if model.dofs is None or model.coords is None:
+    g = report.geometry
+    if g is None or g.nodes is None or g.xyz is None:
         raise ExportError("--modes-vtk needs a DOF map and node coordinates")
-    nodes = model.dofs.nodes
-    have = model.coords.has(nodes)
+    nodes = g.nodes
+    have = g.has_position()
     if not have.all():
         raise ExportError(f"--modes-vtk: no coordinates for {int((~have).sum())} mapped nodes "
                           f"(first: node {int(nodes[~have][0])})")
-    xyz = model.coords.lookup(nodes)
+    xyz = g.xyz
     m = nodes.size
-    has_rotations = any(d in model.dofs.dof_types for d in (3, 4, 5))
+    has_rotations = bool(np.isin(g.row_dof, (3, 4, 5)).any())
 
     root = ET.Element("VTKFile", type="UnstructuredGrid", version="1.0",
                       byte_order="LittleEndian", header_type="UInt64")
@@ -111,10 +113,10 @@ def write_modes_vtu(report: results.Report, model: Model, path: Union[str, Path]
         point_data.set("Vectors", f"mode_{modes[0][0]}")
     _array(point_data, "node", "Int64", 1, nodes)
     for k, mode in modes:
-        _, trans = nodal_field(model, mode.vector, (0, 1, 2))
+        _, trans = nodal_field(g, mode.vector, (0, 1, 2))
         _array(point_data, f"mode_{k}", "Float64", 3, trans.ravel())
         if has_rotations:
-            _, rot = nodal_field(model, mode.vector, (3, 4, 5))
+            _, rot = nodal_field(g, mode.vector, (3, 4, 5))
             _array(point_data, f"mode_{k}_rotation", "Float64", 3, rot.ravel())
     points = ET.SubElement(piece, "Points")
     _array(points, "Points", "Float64", 3, xyz.ravel())
@@ -127,22 +129,27 @@ def write_modes_vtu(report: results.Report, model: Model, path: Union[str, Path]
     return len(modes)
 
 
-def write_modes_csv(report: results.Report, model: Model, path: Union[str, Path]) -> int:
+def write_modes_csv(report: results.Report, path: Union[str, Path]) -> int:
     """Write the near-singular modes as CSV ``node,dof,mode_1,...``.
+
+    One line per matrix row; ``node`` and ``dof`` from ``report.geometry``,
+    or the 1-based row and an empty dof without a DOF map.
 
     Returns
     -------
     int
         Number of modes written.
     """
+    g = report.geometry
+    mapped = g is not None and g.nodes is not None
     modes = mode_vectors(report)
     with open(path, "w", newline="", encoding="utf-8") as fh:
         out = csv.writer(fh)
         out.writerow(["node", "dof"] + [f"mode_{k}" for k, _ in modes])
         columns = [np.asarray(m.vector, dtype=float) for _, m in modes]
-        for row in range(model.n):
-            if model.dofs is not None:
-                head = [int(model.dofs.node[row]), DOF_NAMES[int(model.dofs.dof[row])]]
+        for row in range(report.summary.rows):
+            if mapped:
+                head = [int(g.row_node[row]), results.DOF_NAMES[int(g.row_dof[row])]]
             else:
                 head = [row + 1, ""]
             out.writerow(head + [repr(float(c[row])) for c in columns])

@@ -1,7 +1,9 @@
 """Figures for the HTML report, as PNG bytes (matplotlib, an optional extra).
 
-Each function draws figures the stages already computed, or the model's
-input data (the diagonal of K, node positions); none computes a diagnosis.
+Each function draws what the report holds: the stages' results, and the
+model's input data restated in :class:`~conditioning.results.ModelGeometry`
+(the diagonal of K, node positions, K's node graph); none computes a
+diagnosis.
 matplotlib is imported lazily through :func:`require_matplotlib`, which
 raises ImportError when the ``report`` extra is not installed; the HTML page
 then says which plots need it. The object-oriented API (``Figure`` with the
@@ -18,10 +20,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from conditioning import results
-from conditioning.model import DOF_NAMES, Model
-
-#: Edges of the node graph drawn under mode shapes, at most (beyond: points).
-MAX_EDGES = 20000
+from conditioning.render.modes_export import nodal_field
 
 _FLOOR = 1e-20
 
@@ -74,20 +73,22 @@ def spectrum_png(spectrum: results.SpectrumResult) -> bytes:
     return _png(fig)
 
 
-def diagonal_histogram_png(model: Model, jumps: list[results.StiffnessJump]) -> bytes:
+def diagonal_histogram_png(geometry: results.ModelGeometry,
+                           jumps: list[results.StiffnessJump]) -> bytes:
     """Histogram of log10 |K_ii| by dof type; penalty outliers marked."""
     Figure = require_matplotlib()
-    diag = np.abs(model.K.diagonal())
+    diag = np.abs(geometry.diagonal)
     nonzero = diag > 0
     fig = Figure(figsize=(6.5, 3.6))
     ax = fig.subplots()
     logd = np.log10(np.where(nonzero, diag, 1.0))
     lo, hi = (logd[nonzero].min(), logd[nonzero].max()) if nonzero.any() else (0.0, 1.0)
     bins = np.linspace(math.floor(lo) - 0.5, math.ceil(hi) + 0.5, 41)
-    if model.dofs is None:
+    if geometry.row_dof is None:
         groups = [("all rows", nonzero)]
     else:
-        groups = [(DOF_NAMES[d], nonzero & (model.dofs.dof == d)) for d in model.dofs.dof_types]
+        groups = [(results.DOF_NAMES[d], nonzero & (geometry.row_dof == d))
+                  for d in np.unique(geometry.row_dof)]
     largest = 0
     for name, mask in groups:
         if mask.any():
@@ -110,13 +111,15 @@ def diagonal_histogram_png(model: Model, jumps: list[results.StiffnessJump]) -> 
     return _png(fig)
 
 
-def node_digits(model: Model, per_dof: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
-    """``(nodes, digits)``: the worst (lowest) finite per-DOF figure of each node."""
+def node_digits(geometry: Optional[results.ModelGeometry],
+                per_dof: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+    """``(nodes, digits)``: the worst (lowest) finite per-DOF figure of each
+    node (digits); 1-based rows and the figures as given without a map."""
     per_dof = np.asarray(per_dof, dtype=float)
-    if model.dofs is None:
+    if geometry is None or geometry.nodes is None:
         return np.arange(1, per_dof.size + 1), per_dof
-    nodes = model.dofs.nodes
-    where = np.searchsorted(nodes, model.dofs.node)
+    nodes = geometry.nodes
+    where = geometry.node_index()
     worst = np.full(nodes.size, np.inf)
     finite = np.isfinite(per_dof)
     np.minimum.at(worst, where[finite], per_dof[finite])
@@ -124,64 +127,62 @@ def node_digits(model: Model, per_dof: NDArray[np.float64]) -> tuple[NDArray, ND
     return nodes, worst
 
 
-def digits_png(model: Model, sample: results.DigitsSample) -> bytes:
+def digits_png(geometry: results.ModelGeometry, sample: results.DigitsSample) -> bytes:
     """Trustworthy digits per node, over the node positions when known."""
     Figure = require_matplotlib()
-    nodes, digits = node_digits(model, sample.per_dof_digits)
+    nodes, digits = node_digits(geometry, sample.per_dof_digits)
     fig = Figure(figsize=(6.5, 4.2))
     ax = fig.subplots()
-    if model.coords is not None and model.dofs is not None and model.coords.has(nodes).all():
-        xy = _project(model.coords.lookup(nodes), model.coords.dim)
+    mapped = geometry.nodes is not None
+    if mapped and geometry.xyz is not None and geometry.has_position().all():
+        xy = _project(geometry.xyz, geometry.dim)
         # An absolute scale, 0 to 16 digits (float64 carries about 15.95), so a
         # healthy model is green everywhere rather than stretched to its own range.
         sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="RdYlGn", vmin=0.0, vmax=16.0,
                         s=_marker(nodes.size), edgecolors="#555555", linewidths=0.3)
         fig.colorbar(sc, ax=ax, label="trustworthy digits")
         ax.set_aspect("equal", adjustable="datalim")
-        if model.coords.dim == 2:
+        if geometry.dim == 2:
             ax.set_xlabel("x")
             ax.set_ylabel("y")
         else:
             ax.set_xlabel(f"3D view (azimuth {VIEW_AZIMUTH:g}, elevation {VIEW_ELEVATION:g} deg)")
     else:
         ax.plot(nodes, digits, ".", color="#2c5d8a")
-        ax.set_xlabel("node" if model.dofs is not None else "row")
+        ax.set_xlabel("node" if mapped else "row")
         ax.set_ylabel("trustworthy digits")
     ax.set_title(f"trustworthy digits per node, sample '{sample.sample}' ({sample.method})",
                  fontsize=9)
     return _png(fig)
 
 
-def mode_shape_png(model: Model, mode: results.NearSingularMode, k: int,
-                   edges: Optional[NDArray[np.intp]] = None) -> Optional[bytes]:
-    """Mode ``k`` drawn as a displaced shape over the node positions.
+def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMode,
+                   k: int) -> Optional[bytes]:
+    """Mode ``k`` drawn as a displaced shape over the node positions (PNG bytes).
 
-    The node graph of K (nodes coupled by a stored entry) is drawn undeformed
-    in grey and displaced in colour; 3D models are shown in an oblique
+    The node graph of K (``geometry.edges``: nodes coupled by a stored entry)
+    is drawn undeformed in grey and displaced in colour; without edges (a
+    large model) only the nodes. 3D models are shown in an oblique
     projection (:data:`VIEW_AZIMUTH`, :data:`VIEW_ELEVATION`). Returns None
-    when the model has no map, no coordinates, or the mode no vector.
-    ``edges`` (from :func:`node_edges`) saves recomputing the node graph for
-    every mode.
+    when the model has no map, a node without a position, or the mode no
+    vector.
     """
     Figure = require_matplotlib()
-    if model.dofs is None or model.coords is None or mode.vector is None:
+    if geometry.nodes is None or geometry.xyz is None or mode.vector is None:
         return None
-    from conditioning.render.modes_export import nodal_field
-
-    nodes, trans = nodal_field(model, mode.vector, (0, 1, 2))
-    if not model.coords.has(nodes).all():
+    if not geometry.has_position().all():
         return None
-    xyz = model.coords.lookup(nodes)
+    nodes, trans = nodal_field(geometry, mode.vector, (0, 1, 2))
+    xyz = geometry.xyz
     extent = float(np.ptp(xyz, axis=0).max()) or 1.0
     amp = float(np.abs(trans).max())
     scale = 0.15 * extent / amp if amp > 0 else 0.0
-    dim = model.coords.dim
+    dim = geometry.dim
     base = _project(xyz, dim)
     moved = _project(xyz + scale * trans, dim)
     fig = Figure(figsize=(6.5, 4.2))
     ax = fig.subplots()
-    if edges is None:
-        edges = node_edges(model)
+    edges = geometry.edges
     # Only what moves is drawn in colour (more than 1% of the largest motion).
     moving = np.linalg.norm(trans, axis=1) > 0.01 * amp if amp > 0 else np.zeros(len(nodes), bool)
     if edges is not None and edges.size:
@@ -225,23 +226,6 @@ def _project(xyz: NDArray[np.float64], dim: int) -> NDArray[np.float64]:
     horizontal = x * math.cos(az) - y * math.sin(az)
     depth = x * math.sin(az) + y * math.cos(az)
     return np.column_stack([horizontal, z * math.cos(el) + depth * math.sin(el)])
-
-
-def node_edges(model: Model) -> Optional[NDArray[np.intp]]:
-    """Pairs of nodes coupled in K, as indices into ``model.dofs.nodes``;
-    None when there are more than :data:`MAX_EDGES` (then only points are
-    drawn) or no DOF map."""
-    if model.dofs is None or model.K.nnz > 60 * MAX_EDGES:
-        return None
-    nodes = model.dofs.nodes
-    coo = model.K.tocoo()
-    a = np.searchsorted(nodes, model.dofs.node[coo.row])
-    b = np.searchsorted(nodes, model.dofs.node[coo.col])
-    keep = a < b
-    pairs = np.unique(np.column_stack([a[keep], b[keep]]), axis=0)
-    if pairs.shape[0] > MAX_EDGES:
-        return None
-    return pairs
 
 
 def _marker(m: int) -> float:

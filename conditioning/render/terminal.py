@@ -80,6 +80,43 @@ def verdict_line(report: results.Report) -> Text:
 
 
 # ----------------------------------------------------------------- sections
+def below_minimum_message(report: results.Report) -> Optional[str]:
+    """The ``digits.below-minimum`` finding's message, shown under the verdict; None without one."""
+    for finding in report.findings:
+        if finding.code == "digits.below-minimum":
+            return finding.message
+    return None
+
+
+def command_view(report: results.Report, *, quiet: bool = False):
+    """What ``conditioning diagnose`` prints: the whole report, or with
+    ``quiet`` the verdict line; either way the below-minimum-digits message
+    under the verdict when there is one. A rich renderable."""
+    extra = below_minimum_message(report)
+    if not quiet:
+        return TerminalReport(report, extra_verdict=extra)
+    # A plain string, as the message was always printed (rich markup applies).
+    return Group(verdict_line(report), *([extra] if extra else []))
+
+
+def demo_case_view(name: str, description: str, report: results.Report, *, quiet: bool = False):
+    """One case of ``conditioning demo``: a rule with its name, the invented
+    model's description in italics, then the report (``quiet``: the verdict)."""
+    parts = [Rule(name)] + ([Text(description, style="italic")] if description else [])
+    return Group(*parts, verdict_line(report) if quiet else TerminalReport(report))
+
+
+def demo_summary(rows: Iterable[tuple[str, results.Report, int]]):
+    """The closing table of ``conditioning demo``: one line per model with its
+    rows, the exit status ``diagnose`` would return, and the verdict."""
+    table = Table(title="Demo models (invented data)", box=None, pad_edge=False)
+    for column in ("model", "rows", "exit status", "verdict"):
+        table.add_column(column)
+    for name, report, status in rows:
+        table.add_row(name, f"{report.summary.rows:,}", str(status), report.verdict)
+    return Group(Rule(), table)
+
+
 def _section(title: str, body):
     if body is None:
         return

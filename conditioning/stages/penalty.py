@@ -36,6 +36,7 @@ import scipy.sparse as sp
 from numpy.typing import NDArray
 
 from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.geometry import model_geometry
 from conditioning.model import Model
 from conditioning.results import (
     DecayEntry, DiagonalDecay, DigitsResult, Finding, ModelSummary, Report, StiffnessJump, StructureResult,
@@ -125,6 +126,7 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
         spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
         findings=findings, verdict=line, status=status, timings=rest.timings, seed=rest.seed,
         skipped=rest.skipped,
+        geometry=model_geometry(model),
     )
 
 

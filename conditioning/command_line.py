@@ -1,0 +1,123 @@
+"""The command line of ``conditioning``: its options, and the checks made before any work.
+
+:func:`parse` turns ``argv`` into the options :mod:`conditioning.cli` runs
+with; a bad command line, an option out of range or an output the inputs
+cannot support raises :class:`UsageError` (one line, exit status 2) before
+a file is read.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+from pathlib import Path
+from typing import Optional, Sequence
+
+
+class UsageError(Exception):
+    """A bad command line or an output the inputs cannot support (exit 2)."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but errors become :class:`UsageError` (one line, exit 2)."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        raise UsageError(message)
+
+
+def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
+    """The model context, diagnosis and output options of diagnose and compare;
+    returns the output group, for the command's own outputs."""
+    g = p.add_argument_group("model context")
+    dofs = g.add_mutually_exclusive_group()
+    dofs.add_argument("--dofs", metavar="FILE",
+                      help="CSV 'node,dof', one line per matrix row (dof: ux uy uz rx ry rz)")
+    dofs.add_argument("--dofs-per-node", metavar="K", type=int, choices=(2, 3, 6),
+                      help="shortcut for a regular map: 2 (ux,uy), 3 (ux,uy,uz), 6 (+rx,ry,rz)")
+    g.add_argument("--coords", metavar="FILE", help="CSV 'node,x,y[,z]' of node positions")
+    g.add_argument("--load", metavar="FILE", help="load vector (Matrix Market array or CSV)")
+    g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited")
+    g.add_argument("--fix", metavar="FILE",
+                   help="CSV 'node,dof' of restrained DOFs to remove before the diagnosis")
+    r = p.add_argument_group("diagnosis")
+    r.add_argument("--min-digits", metavar="N", type=float, default=4.0,
+                   help="fewer trustworthy digits than N is an error (exit 3); default 4")
+    r.add_argument("--seed", metavar="N", type=int, default=0,
+                   help="seed of the random load samples (default 0)")
+    r.add_argument("--samples", metavar="N", type=int, default=3,
+                   help="number of random load samples (default 3)")
+    o = p.add_argument_group("output")
+    o.add_argument("--quiet", "-q", action="store_true", help="print only the verdict; no progress bars")
+    o.add_argument("--verbose", "-v", action="count", default=0,
+                   help="log what the stages do (-vv for more)")
+    return o
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``conditioning`` command."""
+    parser = _Parser(prog="conditioning",
+                     description="Can the stiffness matrix of a linear static finite element "
+                                 "model be trusted?",
+                     epilog="Exit status: 0 healthy; 1 warnings only; 2 unusable input or bad "
+                            "options; 3 errors found (singular, a free or nearly free mode, or "
+                            "fewer trustworthy digits than --min-digits); 4 internal error; "
+                            "130 interrupted.")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    d = sub.add_parser("diagnose", help="diagnose one stiffness export",
+                       description="Diagnose one stiffness export (Matrix Market or Harwell-Boeing).")
+    d.add_argument("matrix", metavar="MATRIX", help=".mtx, .mtx.gz, .mtx.bz2, .rsa, .rua, .hb")
+    out = _add_input_options(d)
+    out.add_argument("--json", metavar="FILE", help="write the report as JSON ('-': stdout)")
+    out.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
+    out.add_argument("--modes-vtk", metavar="FILE.vtu",
+                     help="near-singular modes as VTK point vectors (needs a DOF map and coordinates)")
+    out.add_argument("--modes-csv", metavar="FILE", help="near-singular modes as CSV")
+    m = sub.add_parser("demo", help="diagnose the bundled (invented) demo models",
+                       description="Diagnose each bundled demo model and show its report.")
+    m.add_argument("--json", metavar="DIR", help="also write one JSON report per model in DIR")
+    m.add_argument("--html", metavar="DIR", help="also write one HTML report per model in DIR")
+    m.add_argument("--seed", metavar="N", type=int, default=0)
+    m.add_argument("--samples", metavar="N", type=int, default=3)
+    m.add_argument("--quiet", "-q", action="store_true", help="print only the verdicts")
+    m.add_argument("--verbose", "-v", action="count", default=0)
+    c = sub.add_parser("compare", help="what changed between two exports of the same model",
+                       description="Compare two exports of the same model (before and after a fix); "
+                                   "the exit status is that of AFTER.")
+    c.add_argument("before", metavar="BEFORE")
+    c.add_argument("after", metavar="AFTER")
+    _add_input_options(c).add_argument("--json", metavar="FILE",
+                                       help="write the comparison as JSON ('-': stdout)")
+    return parser
+
+
+def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:
+    """The parsed and checked command line (``sys.argv[1:]`` when ``argv`` is None).
+
+    Raises
+    ------
+    UsageError
+        On a bad command line or option (argparse's message, or ours).
+    SystemExit
+        For ``--help`` (status 0).
+    """
+    args = build_parser().parse_args(argv)
+    if args.command != "demo":
+        check_options(args)
+    return args
+
+
+def check_options(args) -> None:
+    """Refuse, before the work, options out of range and outputs the inputs cannot support."""
+    if getattr(args, "samples", 0) < 0:
+        raise UsageError(f"--samples {args.samples}: must be 0 or more")
+    if getattr(args, "min_digits", 0.0) < 0 or not math.isfinite(getattr(args, "min_digits", 0.0)):
+        raise UsageError(f"--min-digits {args.min_digits}: must be a number of digits >= 0")
+    for opt in ("modes_vtk", "modes_csv", "html", "json"):
+        value = getattr(args, opt, None)
+        parent = Path(value).expanduser().resolve().parent if value and value != "-" else None
+        if parent is not None and not parent.is_dir():
+            raise UsageError(f"--{opt.replace('_', '-')} {value}: folder {parent} does not exist")
+    if getattr(args, "modes_vtk", None) and args.dofs is None and args.dofs_per_node is None:
+        raise UsageError("--modes-vtk needs a DOF map (--dofs or --dofs-per-node)")
+    if getattr(args, "modes_vtk", None) and args.coords is None:
+        raise UsageError("--modes-vtk needs node coordinates (--coords)")
