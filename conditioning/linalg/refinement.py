@@ -44,6 +44,7 @@ import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
 from conditioning.linalg.doubledouble import U, DDOperator, dd_add, dd_operator, dd_residual
+from conditioning.linalg.one_norm import SeedLike, one_norm_estimate
 from conditioning.results import RefinementStep
 
 logger = logging.getLogger(__name__)
@@ -99,14 +100,24 @@ class RefinementResult:
 
 
 # ----------------------------------------------------------------- condition
-def scaled_condition_estimate(K: sp.sparray, fac, *, rng=0) -> float:
+def scaled_condition_estimate(K: sp.sparray, fac, *, rng: SeedLike = 0) -> float:
     """kappa_inf(S) = ||S||_inf ||S^-1||_inf with S the unit-diagonal scaling of K.
+
+    Parameters
+    ----------
+    K : (n, n) sparse, symmetric
+    fac : SharedFactorization
+        The factorization of S whose solves give S^-1.
+    rng : int, numpy.random.Generator or None, optional
+        Random columns of the block estimator
+        (:func:`conditioning.linalg.one_norm.one_norm_estimate`); default 0,
+        a fixed seed, so that repeated runs agree.
 
     Returns
     -------
     float
-        Hager-Higham estimate (scipy ``onenormest``), a lower bound usually
-        within a factor 3; S symmetric, so the 1-norm equals the inf-norm.
+        Higham-Tisseur block estimate (t = 2), a lower bound usually within a
+        factor 3 (dimensionless); S symmetric, so the 1-norm equals the inf-norm.
     """
     s = fac.scale
     S_abs_rows = (abs(sp.csr_array(K)) @ s) * s
@@ -114,8 +125,7 @@ def scaled_condition_estimate(K: sp.sparray, fac, *, rng=0) -> float:
     n = fac.n
     solve = lambda v: fac.solve_scaled(np.ravel(v))  # noqa: E731
     op = spla.LinearOperator((n, n), matvec=solve, rmatvec=solve, dtype=np.float64)
-    np.random.seed(rng)  # onenormest draws from numpy's global generator
-    return float(norm_S * spla.onenormest(op, t=2))
+    return float(norm_S * one_norm_estimate(op, t=2, rng=rng))
 
 
 def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64]) -> float:
@@ -124,9 +134,9 @@ def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64])
     Returns
     -------
     float
-        ||diag(1/x) K^-1 diag(|K||x|)||_inf by Hager's estimator (onenormest
-        with t = 1 on the transpose, a lower bound); inf when x has a zero
-        component.
+        ||diag(1/x) K^-1 diag(|K||x|)||_inf by Hager's estimator (the block
+        estimator with t = 1 on the transpose, which draws no random numbers;
+        a lower bound, dimensionless); inf when x has a zero component.
 
     Notes
     -----
@@ -143,8 +153,7 @@ def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64])
         (n, n), matvec=lambda v: g * fac.solve(np.ravel(v) / x), rmatvec=lambda v: fac.solve(g * np.ravel(v)) / x,
         dtype=np.float64,
     )
-    np.random.seed(1)
-    return float(spla.onenormest(op, t=1))  # t = 1: Hager's estimator, as LAPACK's xLACN2
+    return one_norm_estimate(op, t=1)  # t = 1: Hager's estimator, as LAPACK's xLACN2
 
 
 # ---------------------------------------------------------------- refinement

@@ -34,6 +34,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from conditioning.engine.scipy_engine import SharedFactorization
+from conditioning.linalg.one_norm import one_norm_estimate
 from conditioning.results import ConditionResult
 from conditioning.stages.spectrum import DENSE_LIMIT, ScaledSpectrum, largest_eigenvalue
 
@@ -74,7 +75,7 @@ def _one_norm_condition(K: sp.csr_array, fac: SharedFactorization) -> float:
     inv = spla.LinearOperator((n, n), matvec=fac.solve, rmatvec=fac.solve, matmat=fac.solve,
                               dtype=np.float64)
     norm_k = float(abs(K).sum(axis=0).max())
-    return norm_k * float(spla.onenormest(inv, t=2))
+    return norm_k * one_norm_estimate(inv, t=2, rng=0)  # a fixed seed until diagnose(seed=) is threaded here
 
 
 def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum,
