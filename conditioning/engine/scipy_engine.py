@@ -27,6 +27,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
+from conditioning.linalg.floating_point import EPS
 from conditioning.results import FactorizationInfo
 
 logger = logging.getLogger(__name__)
@@ -35,7 +36,6 @@ logger = logging.getLogger(__name__)
 OrderingFunction = Callable[[sp.csr_array, Optional[NDArray[np.float64]]], NDArray[np.intp]]
 Ordering = Union[str, OrderingFunction]
 
-EPS = float(np.finfo(np.float64).eps)
 #: Below this many rows the factor's size is not predicted (it always fits).
 PREDICT_ABOVE = 20000
 

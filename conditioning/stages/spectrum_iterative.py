@@ -30,7 +30,7 @@ from numpy.typing import NDArray
 from conditioning.engine.scipy_engine import EPS, diagonal_scaling, scaled_matrix
 from conditioning.model import Model
 from conditioning.results import IterativeSpectrum
-from conditioning.linalg.rigid_motions import rigid_basis
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.stages.spectrum import ScaledSpectrum, largest_eigenvalue, split_near_singular
 from conditioning.stages.structure import rows_with_stiffness
 
@@ -207,7 +207,8 @@ def _starting_block(model: Model, active, s, k: int, rng) -> NDArray[np.float64]
     """Rigid-body motions in S's coordinates (v = D^1/2 u), then random columns."""
     cols = []
     if model.dofs is not None:
-        basis = rigid_basis(model, active).basis  # u on the active rows
+        basis = rigid_motions(model.dofs.dof[active], model.positions_of(active),
+                              model.dofs.node[active]).basis  # u on the active rows
         if basis.size:
             cols.append(basis / s[active][:, None])  # D^1/2 u = u / s
     X = np.column_stack(cols) if cols else np.zeros((active.size, 0))
