@@ -75,7 +75,9 @@ def _one_norm_condition(K: sp.csr_array, fac: SharedFactorization) -> float:
     inv = spla.LinearOperator((n, n), matvec=fac.solve, rmatvec=fac.solve, matmat=fac.solve,
                               dtype=np.float64)
     norm_k = float(abs(K).sum(axis=0).max())
-    return norm_k * one_norm_estimate(inv, t=2, rng=0)  # a fixed seed until diagnose(seed=) is threaded here
+    # Seed 1: the global state the digits stage used to leave behind, so the
+    # figures stay as they were until diagnose(seed=) is threaded here.
+    return norm_k * one_norm_estimate(inv, t=2, rng=1)
 
 
 def condition_numbers(K: sp.csr_array, fac: SharedFactorization, spectrum: ScaledSpectrum,
