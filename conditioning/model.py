@@ -153,3 +153,13 @@ class Model:
         if self.dofs is None:
             return sorted(int(r) + 1 for r in np.unique(rows))
         return [int(v) for v in np.unique(self.dofs.node[rows])]
+
+    def positions_of(self, rows) -> Optional[NDArray[np.float64]]:
+        """(len(rows), 3) positions of the rows' nodes (model length unit), or
+        None without a DOF map, without coordinates, or when a node has none."""
+        if self.dofs is None or self.coords is None:
+            return None
+        nodes = self.dofs.node[np.asarray(rows, dtype=np.intp)]
+        if not np.all(self.coords.has(nodes)):
+            return None
+        return self.coords.lookup(nodes)

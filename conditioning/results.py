@@ -24,6 +24,8 @@ ModeKind = Literal["rigid-body", "mechanism", "dof-without-stiffness"]
 # --------------------------------------------------------------- structure
 @dataclass(frozen=True)
 class Asymmetry:
+    """The largest difference between K and its transpose, and where."""
+
     relative: float
     """max |K_ij - K_ji| / max |K_ij| over stored entries (dimensionless)."""
     row: int
@@ -134,20 +136,36 @@ class ConditionResult:
     """True when K has a null space at working precision (a near-singular mode
     below the gap, or a DOF without stiffness)."""
     lambda_max: float
-    """Largest eigenvalue of K (Lanczos), in K's units."""
+    """Largest eigenvalue of K (Lanczos to 1e-3 relative, LAPACK for small
+    matrices), in K's units."""
     lambda_min: Optional[float]
-    """Smallest eigenvalue of K (shift-and-invert), None when singular."""
+    """Eigenvalue of K nearest zero (Lanczos on K^-1, LAPACK for small
+    matrices), in K's units; None when singular or without a factorization."""
     estimate: Optional[float]
-    """kappa_2(K) = lambda_max / lambda_min, None when singular."""
+    """kappa_2(K) = |lambda_max| / |lambda_min|, None when singular or
+    without a factorization (``estimate_method`` says which)."""
     estimate_method: str
+    """How ``estimate`` was obtained (eigensolver for each end and its
+    tolerance), or, when singular, why K is singular, in words."""
     scaled_estimate: Optional[float]
-    """kappa_2 of S = D^-1/2 K D^-1/2 (D = diag K), None when singular."""
+    """kappa_2 of S = D^-1/2 K D^-1/2 (D = diag K), None when singular.
+    Without a factorization it comes from LOBPCG; if LOBPCG did not converge
+    it is only a lower bound (``scaled_method`` says so)."""
     scaled_lambda_min: Optional[float]
+    """Smallest computed |eigenvalue| of S (dimensionless), set also when K is
+    singular (then it is the near-zero eigenvalue of a free mode, not to be
+    read as a condition figure); None when no eigenvalue of S was computed."""
     scaled_lambda_max: float
+    """Largest eigenvalue of S (dimensionless; Lanczos to 1e-3 relative, or
+    LAPACK for small matrices): the scale of the gap rule."""
     scaled_method: str
+    """How ``scaled_estimate`` was obtained, with the references for why it
+    governs the accuracy of a Cholesky-type solve."""
     one_norm_estimate: Optional[float]
-    """Hager-Higham estimate of kappa_1(K), a lower bound; None when singular."""
+    """Hager-Higham estimate of kappa_1(K), a lower bound usually within a
+    factor 3; None when singular or without a factorization."""
     one_norm_method: str
+    """How ``one_norm_estimate`` was obtained, or why it was not computed."""
     scaling_gain_digits: Optional[float]
     """log10(estimate / scaled_estimate): digits of the raw figure that are
     only units or DOF-type mixing."""
@@ -156,11 +174,19 @@ class ConditionResult:
 # ------------------------------------------------------------------ modes
 @dataclass(frozen=True)
 class NearSingularMode:
+    """One zero-energy (or nearly zero-energy) motion of K, classified and located."""
+
     eigenvalue: float
-    """Eigenvalue of the scaled matrix S (dimensionless)."""
+    """Eigenvalue of the scaled matrix S (dimensionless): the Rayleigh
+    quotient u'Ku / u'Du of the mode; 0.0 for a DOF without stiffness. Below
+    n eps lambda_max(S) it is round-off, not a stiffness."""
     relative_eigenvalue: float
     """eigenvalue / lambda_max(S)."""
     kind: ModeKind
+    """``rigid-body`` (a rigid motion of its part), ``mechanism`` (a motion
+    that is not rigid), ``dof-without-stiffness`` (a row with no entry).
+    Without coordinates rotations cannot be recognised, so a rotation of a
+    part is reported as a mechanism."""
     motion: dict[str, float]
     """Share of each rigid motion (dof name -> share, summing to 1); in-plane
     rotation is ``rz``. Empty for a mechanism."""
@@ -204,10 +230,17 @@ class SpectrumResult:
     """Eigenvalues below the split point counted by Sylvester's law (negative
     pivots of S - c*I), None when not computed."""
     inertia_agrees: Optional[bool]
+    """True when ``inertia_count`` equals the count the eigen-solve implies
+    (``below_split``), False when they disagree (the mode list may then be
+    incomplete), None when there was no inertia count (no split, or no
+    factorization)."""
     negative_eigenvalues: int
     """Eigenvalues of K below zero beyond round-off (indefinite stiffness)."""
     modes: list[NearSingularMode]
+    """The near-singular modes: DOFs without stiffness first, then per part
+    its rigid-body modes and mechanisms (``count`` of them)."""
     method: str
+    """Eigensolver used for ``smallest``, in words."""
     smallest_vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """Unit eigenvector of S for its smallest eigenvalue, in S's coordinates
     (v; the displacement shape is D^-1/2 v), all rows; not serialised."""
@@ -223,27 +256,47 @@ class SpectrumResult:
 
 @dataclass(frozen=True)
 class Restraint:
+    """One support of a minimal set that removes the near-singular modes
+    (:func:`conditioning.stages.restraints.suggest_restraints`)."""
+
     node: int
+    """Node id as the user numbered it; the 1-based row without a DOF map."""
     dof: str
+    """DOF name (``"ux"`` ... ``"rz"``); ``"-"`` without a DOF map."""
     row: int
     """0-based matrix row."""
     reason: str
+    """What the restraint stops, in plain words (a translation, a rotation
+    about a point with its lever arm in model length units, a mechanism, a
+    DOF without stiffness). The set as a whole is what removes the modes;
+    one reason alone is advice, not a proof."""
 
 
 @dataclass(frozen=True)
 class StiffnessJump:
+    """A stiffness far above the typical stiffness of its DOF type
+    (:func:`conditioning.stages.jumps.find_stiffness_jumps`)."""
+
     kind: Literal["coupling", "diagonal-outlier"]
+    """``coupling``: an off-diagonal K_ij between DOFs of one type (a penalty
+    or very stiff link); ``diagonal-outlier``: a large K_ii with no equally
+    stiff link (a support or spring to ground given by a large number)."""
     rows: list[int]
     """0-based rows involved."""
     nodes: list[int]
+    """The two linked nodes (coupling) or the node (outlier); 1-based rows
+    without a DOF map."""
     ratio: float
     """Stiffness ratio (stiff / typical of the same dof type), dimensionless."""
     digits_cost: float
     """About log10(ratio): digits of the solution it can cost."""
     advice_value: Optional[float]
     """A suggested stiffness for the link that stays effective with fewer
-    digits lost, in K's units."""
+    digits lost, in K's units; None when the stiffness is already within the
+    usual penalty range."""
     reasoning: str
+    """Why it costs digits and what to do, in plain words (with the part
+    when the model has several)."""
     structural_stiffness: Optional[float] = None
     """For a coupling: the largest stiffness of the linked rows outside the
     link (same unit class, translations or rotations), the structure's own
@@ -262,8 +315,12 @@ class StiffnessJump:
 
 @dataclass(frozen=True)
 class DecayEntry:
+    """Diagonal decay at one pivot of the shared factorization."""
+
     row: int
+    """0-based matrix row."""
     label: str
+    """The row in words, ``"node 12 uy"`` or ``"row 37"``."""
     ratio: float
     """K_ii / D_ii, the diagonal over the factorization's pivot."""
     digits: float
@@ -272,11 +329,16 @@ class DecayEntry:
 
 @dataclass(frozen=True)
 class DiagonalDecay:
+    """Digits lost at the pivots, K_ii / D_ii (:mod:`conditioning.stages.pivots`).
+    The decay depends on the elimination order: it locates trouble, it does
+    not bound the error."""
+
     worst: list[DecayEntry]
     """The rows with the largest decay, worst first."""
     max_digits: float
     """Largest ``digits`` (decimal digits; inf when a pivot is zero or negative)."""
     method: str
+    """How the pivots were obtained (factorization and ordering), in words."""
     negative_pivots: list[DecayEntry] = field(default_factory=list)
     """Rows whose pivot is negative (at most ``worst`` of them, by row): K is
     indefinite and the DOF pushes back negatively once the DOFs
@@ -287,7 +349,10 @@ class DiagonalDecay:
 # ----------------------------------------------------------------- digits
 @dataclass(frozen=True)
 class RefinementStep:
+    """One residual of iterative refinement (:mod:`conditioning.linalg.refinement`)."""
+
     iteration: int
+    """1-based count of residuals computed."""
     correction_norm: float
     """||dx||_inf / ||x||_inf after this step."""
     residual_norm: float
@@ -296,7 +361,10 @@ class RefinementStep:
 
 @dataclass(frozen=True)
 class NodeDigits:
+    """Trustworthy digits at one node."""
+
     node: int
+    """Node id; the 1-based row without a DOF map."""
     digits: float
     """Trustworthy significant figures of the node's worst component,
     relative to the largest displacement of the same dof type."""
@@ -304,6 +372,8 @@ class NodeDigits:
 
 @dataclass(frozen=True)
 class DigitsSample:
+    """The digits one float64 solve keeps, measured against a reference solution."""
+
     sample: str
     """``load``, ``random-1``..., ``worst-case``, ``solution``."""
     trustworthy_digits: float
@@ -318,9 +388,16 @@ class DigitsSample:
     arithmetic re-solve (python-flint) or by the verified lower bound on the
     smallest eigenvalue with a rigorous residual."""
     converged: bool
+    """True when the reference converged. False: ``trustworthy_digits`` is
+    an upper estimate and cannot be trusted."""
     stop_reason: str
+    """Why the reference computation stopped, and any caveat on the figure
+    (at the reference's resolution; reference not converged), in words."""
     history: list[RefinementStep]
+    """The refinement steps of the reference (empty for a reference that
+    needed none)."""
     worst_nodes: list[NodeDigits]
+    """Up to 10 nodes with the fewest trustworthy digits, fewest first."""
     normwise_bound: Optional[float]
     """Error bound on the reference in the manner of Demmel et al. (2006);
     None when the bound cannot be trusted (withdrawn)."""
@@ -329,9 +406,17 @@ class DigitsSample:
     withdrawn (cannot be trusted) or not computed: only the first sample (the
     user's load, else random-1) gets one, as it costs a few solves each."""
     bound_trusted: bool
+    """True when ``normwise_bound`` is given and trusted (always for a
+    certified enclosure); False when the condition number is too large for
+    the bound to hold."""
     confirmation: Optional[str] = None
     """How an independent re-solve confirmed the reference, if one ran."""
     per_dof_digits: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """(n,) trustworthy digits of each component, rounded down to 0.1 and
+    clipped to 0 .. 15.95, relative to the typical displacement of its kind
+    at its node (so a component that is nearly zero is not judged on its
+    own); all 0 when the reference did not converge. None only in reports
+    built without the digits stage; not serialised."""
     forward_error: Optional[float] = None
     """Measured ||x - x_ref||_inf / ||x_ref||_inf of the float64 (or audited)
     solution (dimensionless)."""
@@ -392,11 +477,19 @@ class SolutionAudit:
 
 @dataclass(frozen=True)
 class DigitsResult:
+    """Digits measured per load sample, beside what the condition numbers predicted."""
+
     samples: list[DigitsSample]
+    """One per load: ``load`` (the user's), ``random-k``, ``worst-case``,
+    ``solution`` (an audited supplied solution); empty when ``skipped``."""
     predicted_raw: Optional[float]
     """16 - log10(kappa_2 raw): the rule-of-thumb prediction (digits)."""
     predicted_scaled: Optional[float]
+    """16 - log10(kappa_2(S)), the prediction from the scaled condition
+    number (digits); None when K is singular or no condition was computed."""
     factorization_flops: float
+    """Estimated operations of the shared factorization (see
+    :attr:`FactorizationInfo.flops`), for the cost of the measurement."""
     summary: str
     """Which prediction was right and why, in one sentence."""
     skipped: Optional[str] = None
@@ -431,25 +524,48 @@ class FactorMemoryPrediction:
 # --------------------------------------------------------------- findings
 @dataclass(frozen=True)
 class Finding:
+    """One thing the diagnosis found, in the trade's terms (:mod:`conditioning.stages.findings`)."""
+
     severity: Severity
+    """``error`` (the results of a solve cannot be trusted as they stand),
+    ``warning`` (they may not be), ``note`` (worth knowing)."""
     code: str
+    """Stable dotted code of this tool's own, one of
+    :data:`conditioning.stages.findings.CODES`."""
     message: str
+    """What was found, with its figures, in plain words."""
     nodes: list[int]
+    """Nodes concerned (1-based rows without a DOF map); empty when the
+    finding concerns the whole model."""
     advice: str
+    """What to do about it; empty when nothing needs doing."""
 
 
 @dataclass(frozen=True)
 class ModelSummary:
+    """What was read: the model the report is about."""
+
     source: str
+    """Where K came from (a path, ``demo:<name>`` or ``"<array>"``)."""
     rows: int
+    """Rows (DOFs) of K after any ``--fix`` restraints were removed."""
     stored_entries: int
+    """Stored nonzeros of K, both triangles."""
     nodes: Optional[int]
+    """Number of distinct nodes; None without a DOF map."""
     dim: Optional[int]
+    """2 or 3, from the coordinates; None without coordinates."""
     dof_types: list[str]
+    """DOF names present (``"ux"`` ... ``"rz"``), canonical order; empty without a DOF map."""
     has_load: bool
+    """True when a load vector was given."""
     has_solution: bool
+    """True when a displacement vector was given to be audited."""
     restrained: int
+    """Rows and columns removed by ``--fix`` restraints."""
     notes: list[str]
+    """How the input was read (mirroring, zeros dropped, restraints
+    applied), in words."""
 
 
 CAUTION = (
@@ -512,20 +628,40 @@ class Report:
     """Everything the diagnosis found; the renderers' only input."""
 
     summary: ModelSummary
+    """The model the report is about."""
     structure: StructureResult
+    """Checks that need no factorization (always run)."""
     factorization: Optional[FactorizationInfo]
+    """What the shared factorization did; None when none ran (the factor
+    would not fit in memory)."""
     condition: Optional[ConditionResult]
+    """Condition numbers (without a factorization only the scaled one); None
+    when the stage did not run."""
     spectrum: Optional[SpectrumResult]
+    """Smallest eigenvalues of S and the near-singular modes; None when the
+    stage did not run."""
     restraints: list[Restraint]
+    """A minimal set of supports that removes the near-singular modes; empty
+    when there are none."""
     jumps: list[StiffnessJump]
+    """Stiffness jumps, costliest first; empty when none was found."""
     decay: Optional[DiagonalDecay]
+    """Diagonal decay at the pivots; None without a factorization."""
     digits: Optional[DigitsResult]
+    """Digits measured per load; None when not measured (measurement turned
+    off, or no factorization)."""
     findings: list[Finding]
+    """Everything found, errors first."""
     verdict: str
+    """One line: the cause first (one of
+    :data:`conditioning.stages.findings.CAUSES`), then what it means for the
+    digits of a solve."""
     status: Literal["healthy", "warnings", "errors"]
+    """The worst severity among ``findings``; decides the exit status."""
     timings: dict[str, float]
     """Wall time per stage (s)."""
     caution: str = CAUTION
+    """What the report does not check (the physics of the model), always shown."""
     seed: Optional[int] = None
     """Seed of the run's random generator (``diagnose(seed=...)``): the same
     seed repeats every figure; None when not recorded."""

@@ -32,6 +32,7 @@ from conditioning.engine.memory import predict_factor_memory
 from conditioning.engine.ordering import choose_ordering
 from conditioning.engine.scaling import ScaledStiffness, diagonal_scaling, scale_stiffness, scaled_matrix
 from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+from conditioning.linalg.floating_point import EPS
 
 logger = logging.getLogger(__name__)
 
@@ -39,7 +40,6 @@ logger = logging.getLogger(__name__)
 OrderingFunction = Callable[[sp.csr_array, Optional[NDArray[np.float64]]], NDArray[np.intp]]
 Ordering = Union[str, OrderingFunction]
 
-EPS = float(np.finfo(np.float64).eps)
 #: Below this many rows the factor's size is not predicted (it always fits).
 PREDICT_ABOVE = 20000
 

@@ -103,6 +103,16 @@ class RefinementResult:
 def scaled_condition_estimate(K: sp.sparray, fac, *, rng=0) -> float:
     """kappa_inf(S) = ||S||_inf ||S^-1||_inf with S the unit-diagonal scaling of K.
 
+    Parameters
+    ----------
+    K : (n, n) sparse, symmetric
+    fac : SharedFactorization
+        The factorization of S whose solves give S^-1.
+    rng : int, numpy.random.Generator or None, optional
+        Random columns of the block estimator
+        (:func:`conditioning.linalg.onenormest.one_norm_estimate`); default 0,
+        a fixed seed, so that repeated runs agree.
+
     Returns
     -------
     float
@@ -123,9 +133,9 @@ def componentwise_condition_estimate(K: sp.sparray, fac, x: NDArray[np.float64])
     Returns
     -------
     float
-        ||diag(1/x) K^-1 diag(|K||x|)||_inf by Hager's estimator (onenormest
-        with t = 1 on the transpose, a lower bound); inf when x has a zero
-        component.
+        ||diag(1/x) K^-1 diag(|K||x|)||_inf by Hager's estimator (the block
+        estimator with t = 1 on the transpose, which draws no random numbers;
+        a lower bound, dimensionless); inf when x has a zero component.
 
     Notes
     -----

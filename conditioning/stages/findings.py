@@ -115,18 +115,45 @@ def build_findings(
     min_digits: float = 4.0,
     stiff_link_eigenvalues: Sequence[float] = (),
 ) -> list[Finding]:
-    """Findings, most severe first. See :data:`CODES`."""
-    out: list[Finding] = []
+    """Findings, most severe first (errors, warnings, notes; within a
+    severity in the order of the families below). See :data:`CODES`."""
     rows_word = "nodes" if model.dofs is not None else "rows"
+    audit = digits.audit if digits is not None else None
+    out = (
+        _input_findings(model, structure)
+        + _structure_findings(model, structure)
+        + _mode_findings(model, structure, spectrum, restraints, rows_word)
+        + _spectrum_findings(spectrum, decay)
+        + _stiff_link_findings(stiff_link_eigenvalues, jumps)
+        + _jump_findings(model, jumps, digits, min_digits, rows_word)
+        + _condition_findings(condition, spectrum, jumps, decay, digits)
+        + _pivot_findings(model, decay, spectrum)
+        + (_solution_findings(audit, rows_word) if audit is not None else [])
+        + _digits_findings(digits, min_digits)
+    )
+    order = {"error": 0, "warning": 1, "note": 2}
+    out.sort(key=lambda f: order[f.severity])
+    return out
+
+
+# ------------------------------------------------------------ finding families
+def _input_findings(model: Model, structure: StructureResult) -> list[Finding]:
+    """input.*: no DOF map, one-triangle export, asymmetry."""
+    out = []
     if model.dofs is None:
         out.append(Finding("note", "input.no-dof-map",
                            "No DOF-to-node map was given, so rows are reported by index (1-based).",
                            [], "Give --dofs FILE or --dofs-per-node K for node-level findings."))
     if structure.one_triangle is not None:
         out.append(_one_triangle_finding(model, structure.one_triangle))
-    a = structure.asymmetry
-    if asymmetry_reported(a):
-        out.append(_asymmetry_finding(model, a))
+    if asymmetry_reported(structure.asymmetry):
+        out.append(_asymmetry_finding(model, structure.asymmetry))
+    return out
+
+
+def _structure_findings(model: Model, structure: StructureResult) -> list[Finding]:
+    """structure.*: DOFs without stiffness, negative and zero diagonals, parts, placeholders."""
+    out = []
     if structure.empty_rows.size:
         nodes = model.nodes_of(structure.empty_rows)
         labels = ", ".join(model.row_label(r) for r in structure.empty_rows[:6])
@@ -159,130 +186,192 @@ def build_findings(
                            [], "Each part must be supported on its own, or connected to the rest."))
     if structure.placeholder_rows.size:
         out.append(_placeholder_finding(model, structure))
+    return out
 
-    def who(mode):
-        return "The model" if structure.parts <= 1 else f"Part {mode.part}"
 
-    if spectrum is not None:
-        for mode in spectrum.modes:
-            nearly = "" if mode.exact else "nearly "
-            held = "" if mode.exact else (" It is held only by a very small stiffness (for example a "
-                                          "soft spring), so K is invertible but badly conditioned.")
-            # A nearly free mode (held by a soft spring) is an error too: K's
-            # scaled condition number is then at least 1e8 (the gap rule).
-            severity = "error"
-            if mode.kind == "rigid-body":
-                out.append(Finding(
-                    severity, "support.rigid-body-mode",
-                    f"{who(mode)} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-                    f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
-                    f"{_list_nodes(mode.nodes)}.{held}",
-                    mode.nodes,
-                    "Add supports in the directions that move, or connect the part to the supported "
-                    "structure" + ("; the report's suggested restraints are one minimal choice."
-                                   if restraints else ".")))
-            elif mode.kind == "mechanism":
-                where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
-                         "rigidly, meeting at " if mode.groups else "located at ")
-                out.append(Finding(
-                    severity, "support.mechanism",
-                    f"Internal {'near-' if not mode.exact else ''}mechanism"
-                    f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
-                    f"scaled eigenvalue {mode.eigenvalue:.2e}.{held}"
-                    + ("" if model.coords is not None else
-                       " Without coordinates a rotation of a part cannot be told from a mechanism."),
-                    mode.nodes,
-                    "Look for a missing brace, a released end (hinge) too many, or a member that "
-                    "only touches the rest at one node."))
-        if spectrum.negative_eigenvalues and not (decay is not None and decay.negative_pivots):
-            # With pivots, the negative-pivot finding below says it with a location.
-            out.append(Finding("error", "stiffness.indefinite",
-                               f"K has {spectrum.negative_eigenvalues:,} negative eigenvalue(s) (counted from "
-                               "the pivots' signs, Sylvester's law of inertia).", [],
-                               "A linear elastic stiffness is positive semi-definite: look for negative "
-                               "springs, stress stiffening under compression or buckling."))
-        if spectrum.inertia_agrees is False:
-            out.append(Finding("warning", "spectrum.inertia-mismatch",
-                               f"{spectrum.count} near-singular mode(s) were computed but the inertia "
-                               f"count below the gap is {spectrum.inertia_count}.", [],
-                               "The eigen-solve may have missed modes; treat the mode list as incomplete."))
-    if stiff_link_eigenvalues:
-        out.append(Finding("note", "stiffness.stiff-link-eigenvalue",
-                           f"{len(stiff_link_eigenvalues)} small eigenvalue(s) of the scaled matrix "
-                           f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
-                           "from a missing support" + ("; see the stiffness jumps." if jumps else "."),
-                           [], ""))
-    own = own_samples(digits)
-    measured_worst = min((s.trustworthy_digits for s in own), default=None)
+def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[SpectrumResult],
+                   restraints: list[Restraint], rows_word: str) -> list[Finding]:
+    """support.*: one finding per rigid-body mode and per mechanism, all errors:
+    a nearly free mode (held by a soft spring) is an error too, since K's
+    scaled condition number is then at least 1e8 (the gap rule)."""
+    if spectrum is None:
+        return []
+    out = []
+    for mode in spectrum.modes:
+        if mode.kind == "rigid-body":
+            out.append(_rigid_body_finding(structure, mode, bool(restraints), rows_word))
+        elif mode.kind == "mechanism":
+            out.append(_mechanism_finding(model, structure, mode, rows_word))
+    return out
+
+
+def _held_text(mode: NearSingularMode) -> str:
+    return "" if mode.exact else (" It is held only by a very small stiffness (for example a "
+                                  "soft spring), so K is invertible but badly conditioned.")
+
+
+def _rigid_body_finding(structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
+                        rows_word: str) -> Finding:
+    who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
+    nearly = "" if mode.exact else "nearly "
+    return Finding(
+        "error", "support.rigid-body-mode",
+        f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
+        f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
+        f"{_list_nodes(mode.nodes)}.{_held_text(mode)}",
+        mode.nodes,
+        "Add supports in the directions that move, or connect the part to the supported "
+        "structure" + ("; the report's suggested restraints are one minimal choice."
+                       if restraints_given else "."))
+
+
+def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingularMode,
+                       rows_word: str) -> Finding:
+    where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
+             "rigidly, meeting at " if mode.groups else "located at ")
+    return Finding(
+        "error", "support.mechanism",
+        f"Internal {'near-' if not mode.exact else ''}mechanism"
+        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
+        f"scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
+        + ("" if model.coords is not None else
+           " Without coordinates a rotation of a part cannot be told from a mechanism."),
+        mode.nodes,
+        "Look for a missing brace, a released end (hinge) too many, or a member that "
+        "only touches the rest at one node.")
+
+
+def _spectrum_findings(spectrum: Optional[SpectrumResult], decay: Optional[DiagonalDecay]) -> list[Finding]:
+    """stiffness.indefinite (when no pivot locates it) and spectrum.inertia-mismatch."""
+    if spectrum is None:
+        return []
+    out = []
+    if spectrum.negative_eigenvalues and not (decay is not None and decay.negative_pivots):
+        # With pivots, the negative-pivot finding says it with a location.
+        out.append(Finding("error", "stiffness.indefinite",
+                           f"K has {spectrum.negative_eigenvalues:,} negative eigenvalue(s) (counted from "
+                           "the pivots' signs, Sylvester's law of inertia).", [],
+                           "A linear elastic stiffness is positive semi-definite: look for negative "
+                           "springs, stress stiffening under compression or buckling."))
+    if spectrum.inertia_agrees is False:
+        out.append(Finding("warning", "spectrum.inertia-mismatch",
+                           f"{spectrum.count} near-singular mode(s) were computed but the inertia "
+                           f"count below the gap is {spectrum.inertia_count}.", [],
+                           "The eigen-solve may have missed modes; treat the mode list as incomplete."))
+    return out
+
+
+def _stiff_link_findings(stiff_link_eigenvalues: Sequence[float], jumps: list[StiffnessJump]) -> list[Finding]:
+    """stiffness.stiff-link-eigenvalue: small scaled eigenvalues set aside as stiff links."""
+    if not stiff_link_eigenvalues:
+        return []
+    return [Finding("note", "stiffness.stiff-link-eigenvalue",
+                    f"{len(stiff_link_eigenvalues)} small eigenvalue(s) of the scaled matrix "
+                    f"(smallest {min(stiff_link_eigenvalues):.1e}) come from very stiff links, not "
+                    "from a missing support" + ("; see the stiffness jumps." if jumps else "."),
+                    [], "")]
+
+
+def _jump_findings(model: Model, jumps: list[StiffnessJump], digits: Optional[DigitsResult],
+                   min_digits: float, rows_word: str) -> list[Finding]:
+    """stiffness.jump and stiffness.penalty-swallowed, one per jump."""
+    measured_worst = min((s.trustworthy_digits for s in own_samples(digits)), default=None)
+    out = []
     for j in jumps:
         if j.swallowed:
             out.append(_swallowed_finding(model, j, rows_word))
-            continue
-        # A stiff spring to ground is absorbed by diagonal scaling; a stiff
-        # link between DOFs is not. Once digits are measured (the worst-case
-        # load excites the weakest mode), the measurement decides.
-        sev = "warning" if (j.digits_cost >= 6 and j.kind == "coupling") else "note"
-        measured = ""
-        if measured_worst is not None:
-            lost = FLOAT64_DIGITS - measured_worst
-            measured = (f"; the measured solves lost {lost:.1f} digits in all"
-                        + ("" if lost + 1.0 >= j.digits_cost else
-                           ", so for these loads it did not cost that much"))
-            if measured_worst >= min_digits and sev == "warning" and lost + 1.0 < j.digits_cost:
-                sev = "note"
-        out.append(Finding(sev, "stiffness.jump",
-                           f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
-                           f"{j.ratio:.1e}, can cost up to {j.digits_cost:.1f} digits (estimated from "
-                           f"the ratio){measured}.",
-                           j.nodes, j.reasoning))
-    if condition is not None and not condition.singular:
-        sk = condition.scaled_estimate
-        if sk is not None and sk > ILL_CONDITIONED:
-            out.append(Finding("warning", "condition.ill-conditioned",
-                               f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
-                               "digits may be lost" + (" (see the measured digits)."
-                                                       if digits is not None and digits.samples
-                                                       else " (digits not measured)."), [],
-                               _where_to_look(spectrum, jumps, decay)))
-        if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
-            out.append(Finding("note", "condition.units-only",
-                               f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
-                               f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
-                               "units or DOF-type mixing (rotations next to translations, mm next to m), "
-                               "which a direct solver does not pay.", [], ""))
-    if decay is not None and decay.negative_pivots:
+        else:
+            out.append(_jump_finding(j, measured_worst, min_digits, rows_word))
+    return out
+
+
+def _jump_finding(j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
+                  rows_word: str) -> Finding:
+    # A stiff spring to ground is absorbed by diagonal scaling; a stiff
+    # link between DOFs is not. Once digits are measured (the worst-case
+    # load excites the weakest mode), the measurement decides.
+    sev = "warning" if (j.digits_cost >= 6 and j.kind == "coupling") else "note"
+    measured = ""
+    if measured_worst is not None:
+        lost = FLOAT64_DIGITS - measured_worst
+        measured = (f"; the measured solves lost {lost:.1f} digits in all"
+                    + ("" if lost + 1.0 >= j.digits_cost else
+                       ", so for these loads it did not cost that much"))
+        if measured_worst >= min_digits and sev == "warning" and lost + 1.0 < j.digits_cost:
+            sev = "note"
+    return Finding(sev, "stiffness.jump",
+                   f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
+                   f"{j.ratio:.1e}, can cost up to {j.digits_cost:.1f} digits (estimated from "
+                   f"the ratio){measured}.",
+                   j.nodes, j.reasoning)
+
+
+def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional[SpectrumResult],
+                        jumps: list[StiffnessJump], decay: Optional[DiagonalDecay],
+                        digits: Optional[DigitsResult]) -> list[Finding]:
+    """condition.ill-conditioned and condition.units-only (K nonsingular only)."""
+    if condition is None or condition.singular:
+        return []
+    out = []
+    sk = condition.scaled_estimate
+    if sk is not None and sk > ILL_CONDITIONED:
+        out.append(Finding("warning", "condition.ill-conditioned",
+                           f"The scaled condition number is {sk:.2e}: up to {math.log10(sk):.1f} "
+                           "digits may be lost" + (" (see the measured digits)."
+                                                   if digits is not None and digits.samples
+                                                   else " (digits not measured)."), [],
+                           _where_to_look(spectrum, jumps, decay)))
+    if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
+        out.append(Finding("note", "condition.units-only",
+                           f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
+                           f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
+                           "units or DOF-type mixing (rotations next to translations, mm next to m), "
+                           "which a direct solver does not pay.", [], ""))
+    return out
+
+
+def _pivot_findings(model: Model, decay: Optional[DiagonalDecay],
+                    spectrum: Optional[SpectrumResult]) -> list[Finding]:
+    """factor.negative-pivot and factor.diagonal-decay."""
+    if decay is None:
+        return []
+    out = []
+    if decay.negative_pivots:
         out.append(_negative_pivot_finding(model, decay, spectrum))
-    positive = [e for e in decay.worst if np.isfinite(e.digits)] if decay is not None else []
+    positive = [e for e in decay.worst if np.isfinite(e.digits)]
     if positive and positive[0].digits >= DECAY_FINDING_DIGITS:
         out.append(Finding("warning", "factor.diagonal-decay",
                            f"Diagonal decay of {positive[0].digits:.1f} digits at {positive[0].label}.",
                            model.nodes_of([positive[0].row]),
                            "A pivot far smaller than its diagonal means the DOF is nearly unsupported "
                            "once the others are eliminated."))
-    audit = digits.audit if digits is not None else None
-    if audit is not None:
-        out.extend(_solution_findings(audit, rows_word))
-    if digits is not None and digits.samples:
-        # A supplied solution that does not fit is the solution's fault, not
-        # K's: it has its own finding above.
-        judged = own + [s for s in digits.samples
-                        if s.sample == "solution" and (audit is None or audit.fits)]
-        worst = min(judged, key=lambda s: s.trustworthy_digits)
-        if worst.trustworthy_digits < min_digits:
-            out.append(Finding("error", "digits.below-minimum",
-                               f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for sample "
-                               f"'{worst.sample}' (required: {min_digits:g}; measured, {worst.method}).",
-                               [w.node for w in worst.worst_nodes],
-                               "Remove the cause of the ill-conditioning (modes, stiffness jumps) rather "
-                               "than trusting more digits than were measured."))
-        for s in digits.samples:
-            if not s.converged:
-                out.append(Finding("warning", "digits.refinement-not-converged",
-                                   f"The extended-precision reference for sample '{s.sample}' did not "
-                                   f"converge ({s.stop_reason}); its digits are an upper estimate.",
-                                   [], "Treat the displacements of this load case as untrustworthy."))
-    order = {"error": 0, "warning": 1, "note": 2}
-    out.sort(key=lambda f: order[f.severity])
+    return out
+
+
+def _digits_findings(digits: Optional[DigitsResult], min_digits: float) -> list[Finding]:
+    """digits.below-minimum and digits.refinement-not-converged."""
+    if digits is None or not digits.samples:
+        return []
+    out = []
+    audit = digits.audit
+    # A supplied solution that does not fit is the solution's fault, not
+    # K's: it has its own finding.
+    judged = own_samples(digits) + [s for s in digits.samples
+                                    if s.sample == "solution" and (audit is None or audit.fits)]
+    worst = min(judged, key=lambda s: s.trustworthy_digits)
+    if worst.trustworthy_digits < min_digits:
+        out.append(Finding("error", "digits.below-minimum",
+                           f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for sample "
+                           f"'{worst.sample}' (required: {min_digits:g}; measured, {worst.method}).",
+                           [w.node for w in worst.worst_nodes],
+                           "Remove the cause of the ill-conditioning (modes, stiffness jumps) rather "
+                           "than trusting more digits than were measured."))
+    for s in digits.samples:
+        if not s.converged:
+            out.append(Finding("warning", "digits.refinement-not-converged",
+                               f"The extended-precision reference for sample '{s.sample}' did not "
+                               f"converge ({s.stop_reason}); its digits are an upper estimate.",
+                               [], "Treat the displacements of this load case as untrustworthy."))
     return out
 
 

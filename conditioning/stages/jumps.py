@@ -27,6 +27,7 @@ from typing import Optional
 import numpy as np
 from numpy.typing import NDArray
 
+from conditioning.linalg.floating_point import EPS
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import StiffnessJump, StructureResult
 
@@ -48,7 +49,6 @@ FLOAT64_DIGITS = 53 * np.log10(2.0)
 #: n eps lambda_max(S) of the spectrum stage, within the factor 10 the mode
 #: stage allows for round-off (the project's choice, matched to it).
 SWALLOW_FACTOR = 10.0
-EPS = float(np.finfo(np.float64).eps)
 
 
 @dataclass(frozen=True)

@@ -26,22 +26,68 @@ import numpy as np
 import scipy.linalg as la
 import scipy.sparse as sp
 from numpy.typing import NDArray
+from scipy.sparse import csgraph
 
-from conditioning.model import DOF_NAMES, Model
+from conditioning.linalg.orthonormal import orthonormal_basis
+from conditioning.linalg.rigid_motions import RigidBasis, rigid_motions
+from conditioning.model import Model
 from conditioning.results import NearSingularMode, StructureResult
-from conditioning.linalg.rigid_motions import rigid_basis
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.stages.spectrum import MODE_THRESHOLD, Eigenpairs
 
 logger = logging.getLogger(__name__)
 
+# Tolerances. Where no source is given the value is this project's choice: not
+# fitted to a published figure, but the value the mode tests (tests/test_modes.py:
+# scikit-fem free solids and plates, 3-2-1 supports less one, two bodies, a truss
+# with a missing brace, a penalty spring, a slender cantilever in mm; and the demo
+# scenarios) were written against and pass with.
+
 #: A rigid motion lies in the null space when its relative residual after
-#: projection on the null space is below this (1%).
+#: projection on the null space is below this (1%; project's choice).
 RIGID_TOL = 1e-2
-#: Above this many moving nodes a mechanism is located by its largest motions only.
+#: Above this many moving nodes a mechanism is located by its largest motions
+#: only (the per-node fit is a Python loop; project's choice, for run time).
 MECHANISM_NODE_LIMIT = 20000
-#: Unit vectors kept for at most this many DOFs without stiffness.
+#: Unit vectors kept for at most this many DOFs without stiffness (memory).
 VECTORS_KEPT = 100
+#: Order in which pure rigid motions are preferred as mode vectors.
 TRANSLATION_ORDER = ("ux", "uy", "uz", "uniform", "rx", "ry", "rz")
+#: An eigenvalue is exact zero when |lambda| <= ZERO_ROOM * n eps lambda_max(S):
+#: the spectrum stage's zero level with room for the Rayleigh quotient's own
+#: round-off (project's choice; jumps.SWALLOW_FACTOR is matched to it).
+ZERO_ROOM = 10.0
+#: A part takes part in the null space when one of its rows has a squared
+#: weight above this in the orthonormal basis (round-off of the QR is ~1e-32;
+#: project's choice).
+PART_WEIGHT_MIN = 1e-12
+#: Singular values of a part's rows of the orthonormal null basis: near 1 for
+#: the part's own null vectors, near 0 for other parts' (exactly orthogonal in
+#: scaled coordinates); 0.5 lies halfway (project's choice).
+PART_SHARE_MIN = 0.5
+#: Relative singular value below which mode vectors of a part are dependent
+#: (eigensolver vectors carry noise of about 1e-8..1e-6; project's choice).
+BASIS_RTOL = 1e-6
+#: Relative singular value below which rigid motions of a part are dependent
+#: (a part of one node, collinear nodes; project's choice).
+RIGID_RANK_RTOL = 1e-10
+#: A pure rigid motion is taken as a mode vector when its projection on the
+#: null space keeps this share of its length, and again this share after the
+#: motions already taken are removed (project's choice).
+CANONICAL_MIN = 0.3
+#: Shares of a rigid mode's motion below this are not reported (round-off).
+MOTION_SHARE_MIN = 1e-6
+#: Singular value (of an orthonormal basis: dimensionless, at most 1) above
+#: which a direction of the part's null space is not rigid: a mechanism
+#: (project's choice).
+MECHANISM_MIN = 1e-3
+#: Nodes named for a mechanism when its meeting nodes cannot be found.
+MECHANISM_NODES_SHOWN = 10
+#: A node moves when its displacement exceeds this share of the largest.
+MOVING_MIN = 1e-6
+#: A node's neighbourhood moves rigidly, and two neighbouring fits agree, to
+#: within this share of the largest displacement (project's choice).
+RIGID_FIT_TOL = 1e-3
 
 
 @dataclass(frozen=True)
@@ -51,6 +97,8 @@ class LocatedModes:
     Attributes
     ----------
     modes : list of NearSingularMode
+        DOFs without stiffness first, then per part its rigid-body modes and
+        its mechanisms.
     basis : (n, m) float64
         The near-null space of the rows with stiffness, in K's DOFs (columns =
         mode vectors); DOFs without stiffness are not in it (each is its own
@@ -62,6 +110,19 @@ class LocatedModes:
     modes: list[NearSingularMode]
     basis: NDArray[np.float64]
     stiff_link_eigenvalues: list[float]
+
+
+@dataclass(frozen=True)
+class _Context:
+    """What every step of :func:`locate_modes` reads."""
+
+    model: Model
+    d: NDArray[np.float64]
+    """|diag K| (K's units)."""
+    lambda_max: float
+    """lambda_max(S)."""
+    zero: float
+    """Eigenvalues at most this in magnitude are exact zeros."""
 
 
 def typical_stiffness(model: Model) -> NDArray[np.float64]:
@@ -76,114 +137,12 @@ def typical_stiffness(model: Model) -> NDArray[np.float64]:
     return out
 
 
-def _orth(A: NDArray, rtol: float = 1e-6) -> NDArray:
-    if A.shape[1] == 0:
-        return A
-    U, s, _ = la.svd(A, full_matrices=False)
-    r = int(np.count_nonzero(s > rtol * (s[0] if s.size else 0)))
-    return U[:, :r]
-
-
-def _rayleigh_scaled(K, u, d) -> float:
-    """u'Ku / u'Du: the eigenvalue of S this vector stands for."""
-    den = float(u @ (d * u))
-    return float(u @ (K @ u)) / den if den > 0 else 0.0
-
-
-def _node_adjacency(model: Model, rows: NDArray[np.intp]):
-    """Node ids of the part and their adjacency (sparse, by shared stiffness)."""
-    K = model.K[rows][:, rows].tocoo()
-    nodes = model.dofs.node[rows]
-    uniq, inv = np.unique(nodes, return_inverse=True)
-    A = sp.coo_array((np.ones(K.nnz), (inv[K.row], inv[K.col])), shape=(uniq.size, uniq.size)).tocsr()
-    A.setdiag(0)
-    A.eliminate_zeros()
-    return uniq, inv, A
-
-
-def _mechanism_groups(model: Model, rows: NDArray[np.intp], u: NDArray) -> tuple[list[list[int]], list[int]]:
-    """Groups of nodes moving rigidly together, and the nodes where they meet."""
-    coords = model.coords
-    uniq, inv, A = _node_adjacency(model, rows)
-    dim = coords.dim
-    X = coords.lookup(uniq)[:, :dim]
-    dof = model.dofs.dof[rows]
-    U = np.zeros((uniq.size, dim))
-    for t in range(dim):
-        sel = dof == t
-        U[inv[sel], t] = u[sel]
-    scale = float(np.max(np.abs(U))) or 1.0
-    moving = np.linalg.norm(U, axis=1) > 1e-6 * scale
-    if uniq.size > MECHANISM_NODE_LIMIT:
-        top = np.argsort(-np.linalg.norm(U, axis=1))[:10]
-        return [], [int(uniq[i]) for i in top]
-    nrot = 1 if dim == 2 else 3
-    params = np.zeros((uniq.size, dim + nrot))
-    rigid = np.ones(uniq.size, dtype=bool)
-    indptr, indices = A.indptr, A.indices
-    for a in range(uniq.size):
-        nb = np.concatenate(([a], indices[indptr[a]:indptr[a + 1]]))
-        r = X[nb] - X[a]
-        # Rows: u_b = t + w x r_b ; 2D: w x r = (-w r_y, w r_x)
-        if dim == 2:
-            M = np.zeros((2 * nb.size, 3))
-            M[0::2, 0] = 1
-            M[1::2, 1] = 1
-            M[0::2, 2] = -r[:, 1]
-            M[1::2, 2] = r[:, 0]
-        else:
-            M = np.zeros((3 * nb.size, 6))
-            for c in range(3):
-                M[c::3, c] = 1
-            M[0::3, 4], M[0::3, 5] = r[:, 2], -r[:, 1]
-            M[1::3, 3], M[1::3, 5] = -r[:, 2], r[:, 0]
-            M[2::3, 3], M[2::3, 4] = r[:, 1], -r[:, 0]
-        y = U[nb].reshape(-1)
-        p, *_ = np.linalg.lstsq(M, y, rcond=None)
-        params[a] = p
-        rigid[a] = np.linalg.norm(M @ p - y) <= 1e-3 * scale * np.sqrt(nb.size)
-    # Join neighbouring rigid nodes whose fitted rigid motions agree.
-    coo = sp.triu(A).tocoo()
-    a, b = coo.row, coo.col
-    keep = rigid[a] & rigid[b]
-    a, b = a[keep], b[keep]
-    same_w = np.linalg.norm(params[a, dim:] - params[b, dim:], axis=1) <= 1e-3 * scale / max(np.ptp(X, axis=0).max(), 1e-300)
-    pred_b = params[a, :dim] + (
-        np.stack([-params[a, dim] * (X[b, 1] - X[a, 1]), params[a, dim] * (X[b, 0] - X[a, 0])], axis=1)
-        if dim == 2 else np.cross(params[a, dim:], X[b] - X[a]))
-    same_t = np.linalg.norm(pred_b - params[b, :dim], axis=1) <= 1e-3 * scale
-    ok = same_w & same_t
-    G = sp.coo_array((np.ones(int(ok.sum())), (a[ok], b[ok])), shape=A.shape)
-    from scipy.sparse import csgraph
-
-    ncomp, lab = csgraph.connected_components(G, directed=False)
-    groups = []
-    for c in range(ncomp):
-        members = np.flatnonzero((lab == c) & rigid)
-        if members.size >= 2 or (members.size == 1 and moving[members[0]]):
-            groups.append([int(v) for v in uniq[members]])
-    groups.sort(key=len, reverse=True)
-    meeting = [int(v) for v in uniq[~rigid]]
-    return groups, meeting
-
-
-def _canonical_rigid(R: NDArray, names: tuple[str, ...], coeff_basis: NDArray) -> list[NDArray]:
-    """Coefficient vectors of rigid motions in span(coeff_basis), pure motions first."""
-    P = coeff_basis @ coeff_basis.T
-    chosen: list[NDArray] = []
-    order = sorted(range(len(names)), key=lambda j: TRANSLATION_ORDER.index(names[j]))
-    for j in order:
-        if len(chosen) == coeff_basis.shape[1]:
-            break
-        c = P[:, j].copy()
-        if np.linalg.norm(c) < 0.3:
-            continue
-        resid = c.copy()
-        for q in chosen:
-            resid -= (q @ resid) / (q @ q) * q
-        if np.linalg.norm(resid) >= 0.3 * np.linalg.norm(c):
-            chosen.append(c)
-    return chosen
+def part_rigid_motions(model: Model, rows: NDArray[np.intp], **options) -> RigidBasis:
+    """Rigid motions of the part made of ``rows`` (see :func:`rigid_motions`):
+    translations only without coordinates, one uniform motion without a DOF map."""
+    if model.dofs is None:
+        return rigid_motions(None, node=rows)
+    return rigid_motions(model.dofs.dof[rows], model.positions_of(rows), model.dofs.node[rows], **options)
 
 
 def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.float64],
@@ -203,109 +162,258 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
     Returns
     -------
     LocatedModes
+        Modes of DOFs without stiffness, then per part rigid-body modes and
+        mechanisms; eigenvalues are those of S (dimensionless).
     """
-    K = model.K
-    n = model.n
-    d = np.abs(K.diagonal())
-    lam_max = spectrum.lambda_max
     # Zero at working precision, with a little room for the Rayleigh quotient's own error.
-    zero = 10 * spectrum.zero_level
-    modes: list[NearSingularMode] = []
+    ctx = _Context(model, np.abs(model.K.diagonal()), spectrum.lambda_max, ZERO_ROOM * spectrum.zero_level)
+    modes = _modes_without_stiffness(model, structure)
+    W = _near_null_vectors(model.n, scale, active, spectrum)
+    if W.shape[1] == 0:
+        return LocatedModes(modes, np.zeros((model.n, 0)), [])
+    Wg, stiff_links = _without_stiff_links(ctx, W)
+    sq = np.sqrt(np.where(ctx.d > 0, ctx.d, 1.0))
     columns: list[NDArray] = []
-    # DOFs without stiffness: each is its own mode (a unit vector). Their
-    # vectors are kept for the first few only: there may be very many.
+    for p, rows, B in _null_space_by_part(structure.part_of_row, sq, Wg):
+        part_modes, part_columns = _part_modes(ctx, int(p), rows, B)
+        modes += part_modes
+        columns += part_columns
+    basis = np.column_stack(columns) if columns else np.zeros((model.n, 0))
+    return LocatedModes(modes, basis, stiff_links)
+
+
+# ------------------------------------------------------------------ the steps
+def _modes_without_stiffness(model: Model, structure: StructureResult) -> list[NearSingularMode]:
+    """Each DOF without stiffness is its own mode (a unit vector). Their
+    vectors are kept for the first VECTORS_KEPT only: there may be very many."""
+    modes = []
     for k, row in enumerate(structure.empty_rows):
         e = None
         if k < VECTORS_KEPT:
-            e = np.zeros(n)
+            e = np.zeros(model.n)
             e[row] = 1.0
         name = model.dofs.dof_name(row) if model.dofs is not None else "uniform"
         modes.append(NearSingularMode(0.0, 0.0, "dof-without-stiffness", {name: 1.0},
                                       model.nodes_of([row]), int(structure.part_of_row[row]) + 1, float("nan"),
                                       [], e))
+    return modes
+
+
+def _near_null_vectors(n: int, scale, active, spectrum: Eigenpairs) -> NDArray[np.float64]:
+    """(n, count) near-null eigenvectors of S in K's DOFs, u = diag(s) v."""
     idx = np.flatnonzero(active)
     V = spectrum.vectors[:, spectrum.first:spectrum.first + spectrum.count]
     W = np.zeros((n, V.shape[1]))
     W[idx] = scale[idx, None] * V
-    stiff_links: list[float] = []
-    if W.shape[1]:
-        # (1) separate stiff-link eigenvalues with the per-type scaling T.
-        T = typical_stiffness(model)
-        Kw = W.T @ (K @ W)
-        Tw = W.T @ (T[:, None] * W)
-        q, Y = la.eigh((Kw + Kw.T) / 2, (Tw + Tw.T) / 2)
-        genuine = q <= MODE_THRESHOLD * lam_max
-        for j in np.flatnonzero(~genuine):
-            stiff_links.append(_rayleigh_scaled(K, W @ Y[:, j], d))
-        Wg = W @ Y[:, genuine]
-        # Orthonormal basis in the scaled coordinates v = D^1/2 u, where the
-        # null spaces of separate parts are exactly orthogonal.
-        sq = np.sqrt(np.where(d > 0, d, 1.0))
-        Vg = la.qr(sq[:, None] * Wg, mode="economic")[0] if Wg.shape[1] else Wg
-        # (2) split by part: a part's share of the basis has singular values near 1.
-        parts = structure.part_of_row
-        for p in np.unique(parts[np.sum(Vg**2, axis=1) > 1e-12]):
-            rows = np.flatnonzero(parts == p)
-            Uv, sv, _ = la.svd(Vg[rows], full_matrices=False)
-            Bv = Uv[:, sv > 0.5]
-            if Bv.shape[1] == 0:
-                continue
-            B = _orth(Bv / sq[rows, None])
-            rb = rigid_basis(model, rows)
-            R = rb.basis
-            found_rigid: list[NDArray] = []
-            if R.shape[1]:
-                # Rigid combinations c with R c in span(B): small singular values
-                # of the projection residual, in an orthonormal basis of span(R).
-                Ur, sr, Vrt = la.svd(R, full_matrices=False)
-                keep = sr > 1e-10 * sr[0]
-                Ur, sr, Vrt = Ur[:, keep], sr[keep], Vrt[keep]
-                E = Ur - B @ (B.T @ Ur)
-                _, se, Zt = la.svd(E, full_matrices=False)
-                inside_o = Zt[se <= RIGID_TOL].T
-                if inside_o.shape[1]:
-                    coeff = Vrt.T @ (inside_o / sr[:, None])
-                    Cn = la.orth(coeff)
-                    for c in _canonical_rigid(R, rb.motions, Cn):
-                        found_rigid.append(c)
-            node_list = model.nodes_of(rows)
-            rigid_vecs = []
-            for c in found_rigid:
-                u_part = R @ c
-                u = np.zeros(n)
-                u[rows] = u_part
-                share = c**2 / np.sum(c**2)
-                motion = {name: float(v) for name, v in zip(rb.motions, share) if v > 1e-6}
-                lam = _rayleigh_scaled(K, u, d)
-                modes.append(NearSingularMode(lam, lam / lam_max, "rigid-body", motion, node_list, int(p) + 1,
-                                              1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= zero))
-                columns.append(u)
-                rigid_vecs.append(u_part)
-            # (3) what is left of the part's null space is a mechanism.
-            if rigid_vecs:
-                Q = _orth(np.column_stack(rigid_vecs))
-                Ur2, sr2, _ = la.svd(B - Q @ (Q.T @ B), full_matrices=False)
-                rest = Ur2[:, sr2 > 1e-3]
-            else:
-                rest = B
-            for j in range(rest.shape[1]):
-                u_part = rest[:, j]
-                u = np.zeros(n)
-                u[rows] = u_part
-                share = 0.0
-                if R.shape[1]:
-                    c, *_ = np.linalg.lstsq(R, u_part, rcond=None)
-                    share = float(np.linalg.norm(R @ c) ** 2 / np.linalg.norm(u_part) ** 2)
-                groups, meeting = [], []
-                if model.coords is not None and model.dofs is not None:
-                    groups, meeting = _mechanism_groups(model, rows, u_part)
-                if not meeting:
-                    top = rows[np.argsort(-np.abs(u_part))[:10]]
-                    meeting = model.nodes_of(top)
-                lam = _rayleigh_scaled(K, u, d)
-                modes.append(NearSingularMode(lam, lam / lam_max, "mechanism", {}, meeting, int(p) + 1,
-                                              share if model.coords is not None else float("nan"),
-                                              groups, u / np.max(np.abs(u)), exact=abs(lam) <= zero))
-                columns.append(u)
-    basis = np.column_stack(columns) if columns else np.zeros((n, 0))
-    return LocatedModes(modes, basis, stiff_links)
+    return W
+
+
+def _without_stiff_links(ctx: _Context, W: NDArray) -> tuple[NDArray, list[float]]:
+    """Step (1): the genuine near-null vectors, and the eigenvalues of S that
+    very stiff links explain, by the per-type scaling T (u'Ku / u'Tu small)."""
+    K = ctx.model.K
+    T = typical_stiffness(ctx.model)
+    Kw = W.T @ (K @ W)
+    Tw = W.T @ (T[:, None] * W)
+    q, Y = la.eigh((Kw + Kw.T) / 2, (Tw + Tw.T) / 2)
+    genuine = q <= MODE_THRESHOLD * ctx.lambda_max
+    stiff_links = [_rayleigh_scaled(K, W @ Y[:, j], ctx.d) for j in np.flatnonzero(~genuine)]
+    return W @ Y[:, genuine], stiff_links
+
+
+def _null_space_by_part(parts: NDArray[np.intp], sq: NDArray, Wg: NDArray):
+    """Step (2): yield (part, its rows, orthonormal basis of its null space in
+    K's DOFs). The basis is split in the scaled coordinates v = D^1/2 u, where
+    the null spaces of separate parts are exactly orthogonal: a part's share
+    of the basis has singular values near 1."""
+    Vg = la.qr(sq[:, None] * Wg, mode="economic")[0] if Wg.shape[1] else Wg
+    for p in np.unique(parts[np.sum(Vg**2, axis=1) > PART_WEIGHT_MIN]):
+        rows = np.flatnonzero(parts == p)
+        Uv, sv, _ = la.svd(Vg[rows], full_matrices=False)
+        Bv = Uv[:, sv > PART_SHARE_MIN]
+        if Bv.shape[1]:
+            yield p, rows, orthonormal_basis(Bv / sq[rows, None], BASIS_RTOL)
+
+
+def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode], list[NDArray]]:
+    """Rigid-body modes of one part, then (step 3) its mechanisms."""
+    rb = part_rigid_motions(ctx.model, rows)
+    modes, columns, rigid_vecs = [], [], []
+    node_list = ctx.model.nodes_of(rows)
+    for c in _rigid_in_null_space(rb, B):
+        u_part = rb.basis @ c
+        u = _on_all_rows(ctx.model.n, rows, u_part)
+        share = c**2 / np.sum(c**2)
+        motion = {name: float(v) for name, v in zip(rb.motions, share) if v > MOTION_SHARE_MIN}
+        lam = _rayleigh_scaled(ctx.model.K, u, ctx.d)
+        modes.append(NearSingularMode(lam, lam / ctx.lambda_max, "rigid-body", motion, node_list, p + 1,
+                                      1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero))
+        columns.append(u)
+        rigid_vecs.append(u_part)
+    for u_part in _mechanisms(B, rigid_vecs).T:
+        mode, u = _mechanism_mode(ctx, p, rows, u_part, rb.basis)
+        modes.append(mode)
+        columns.append(u)
+    return modes, columns
+
+
+def _rigid_in_null_space(rb: RigidBasis, B: NDArray) -> list[NDArray]:
+    """Coefficient vectors c (on rb.basis) of the rigid motions R c in span(B):
+    small singular values of the projection residual, in an orthonormal basis
+    of span(R); pure motions first."""
+    R = rb.basis
+    if R.shape[1] == 0:
+        return []
+    Ur, sr, Vrt = la.svd(R, full_matrices=False)
+    keep = sr > RIGID_RANK_RTOL * sr[0]
+    Ur, sr, Vrt = Ur[:, keep], sr[keep], Vrt[keep]
+    E = Ur - B @ (B.T @ Ur)
+    _, se, Zt = la.svd(E, full_matrices=False)
+    inside_o = Zt[se <= RIGID_TOL].T
+    if inside_o.shape[1] == 0:
+        return []
+    coeff = Vrt.T @ (inside_o / sr[:, None])
+    return _canonical_rigid(rb.motions, orthonormal_basis(coeff))
+
+
+def _canonical_rigid(names: tuple[str, ...], coeff_basis: NDArray) -> list[NDArray]:
+    """Coefficient vectors of rigid motions in span(coeff_basis), pure motions first."""
+    P = coeff_basis @ coeff_basis.T
+    chosen: list[NDArray] = []
+    order = sorted(range(len(names)), key=lambda j: TRANSLATION_ORDER.index(names[j]))
+    for j in order:
+        if len(chosen) == coeff_basis.shape[1]:
+            break
+        c = P[:, j].copy()
+        if np.linalg.norm(c) < CANONICAL_MIN:
+            continue
+        resid = c.copy()
+        for q in chosen:
+            resid -= (q @ resid) / (q @ q) * q
+        if np.linalg.norm(resid) >= CANONICAL_MIN * np.linalg.norm(c):
+            chosen.append(c)
+    return chosen
+
+
+def _mechanisms(B: NDArray, rigid_vecs: list[NDArray]) -> NDArray:
+    """Step (3): orthonormal directions of span(B) left once its rigid motions are removed."""
+    if not rigid_vecs:
+        return B
+    Q = orthonormal_basis(np.column_stack(rigid_vecs), BASIS_RTOL)
+    Ur2, sr2, _ = la.svd(B - Q @ (Q.T @ B), full_matrices=False)
+    return Ur2[:, sr2 > MECHANISM_MIN]
+
+
+def _mechanism_mode(ctx: _Context, p: int, rows, u_part, R) -> tuple[NearSingularMode, NDArray]:
+    """A mechanism of part ``p``: its rigid share, groups and meeting nodes."""
+    model = ctx.model
+    u = _on_all_rows(model.n, rows, u_part)
+    share = 0.0
+    if R.shape[1]:
+        c, *_ = np.linalg.lstsq(R, u_part, rcond=None)
+        share = float(np.linalg.norm(R @ c) ** 2 / np.linalg.norm(u_part) ** 2)
+    groups, meeting = [], []
+    if model.coords is not None and model.dofs is not None:
+        groups, meeting = _mechanism_groups(model, rows, u_part)
+    if not meeting:
+        top = rows[np.argsort(-np.abs(u_part))[:MECHANISM_NODES_SHOWN]]
+        meeting = model.nodes_of(top)
+    lam = _rayleigh_scaled(model.K, u, ctx.d)
+    mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", {}, meeting, p + 1,
+                            share if model.coords is not None else float("nan"),
+                            groups, u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero)
+    return mode, u
+
+
+def _on_all_rows(n: int, rows, u_part) -> NDArray[np.float64]:
+    u = np.zeros(n)
+    u[rows] = u_part
+    return u
+
+
+def _rayleigh_scaled(K, u, d) -> float:
+    """u'Ku / u'Du: the eigenvalue of S this vector stands for."""
+    den = float(u @ (d * u))
+    return float(u @ (K @ u)) / den if den > 0 else 0.0
+
+
+# ------------------------------------------------------- mechanism groups
+def _node_adjacency(model: Model, rows: NDArray[np.intp]):
+    """Node ids of the part and their adjacency (sparse, by shared stiffness)."""
+    K = model.K[rows][:, rows].tocoo()
+    nodes = model.dofs.node[rows]
+    uniq, inv = np.unique(nodes, return_inverse=True)
+    A = sp.coo_array((np.ones(K.nnz), (inv[K.row], inv[K.col])), shape=(uniq.size, uniq.size)).tocsr()
+    A.setdiag(0)
+    A.eliminate_zeros()
+    return uniq, inv, A
+
+
+def _mechanism_groups(model: Model, rows: NDArray[np.intp], u: NDArray) -> tuple[list[list[int]], list[int]]:
+    """Groups of nodes moving rigidly together, and the nodes where they meet."""
+    coords = model.coords
+    uniq, inv, A = _node_adjacency(model, rows)
+    dim = coords.dim
+    X3 = coords.lookup(uniq)
+    X = X3[:, :dim]
+    dof = model.dofs.dof[rows]
+    U = np.zeros((uniq.size, dim))
+    for t in range(dim):
+        sel = dof == t
+        U[inv[sel], t] = u[sel]
+    scale = float(np.max(np.abs(U))) or 1.0
+    moving = np.linalg.norm(U, axis=1) > MOVING_MIN * scale
+    if uniq.size > MECHANISM_NODE_LIMIT:
+        top = np.argsort(-np.linalg.norm(U, axis=1))[:MECHANISM_NODES_SHOWN]
+        return [], [int(uniq[i]) for i in top]
+    params, rigid = _local_rigid_fits(A, X3, U, scale)
+    same = _fits_agree(A, X, params, rigid, scale)
+    ncomp, lab = csgraph.connected_components(same, directed=False)
+    groups = []
+    for c in range(ncomp):
+        members = np.flatnonzero((lab == c) & rigid)
+        if members.size >= 2 or (members.size == 1 and moving[members[0]]):
+            groups.append([int(v) for v in uniq[members]])
+    groups.sort(key=len, reverse=True)
+    meeting = [int(v) for v in uniq[~rigid]]
+    return groups, meeting
+
+
+def _local_rigid_fits(A, X3: NDArray, U: NDArray, scale: float) -> tuple[NDArray, NDArray[np.bool_]]:
+    """Per node a: the rigid motion (t, w) about a that best fits the motion
+    of a and its neighbours (least squares), and whether it fits them to
+    RIGID_FIT_TOL. ``params`` rows are (t_x, t_y[, t_z], w) in 2D and
+    (t, w_x, w_y, w_z) in 3D."""
+    nnodes, dim = U.shape
+    names = ("ux", "uy", "rz") if dim == 2 else ("ux", "uy", "uz", "rx", "ry", "rz")
+    params = np.zeros((nnodes, len(names)))
+    rigid = np.ones(nnodes, dtype=bool)
+    components = np.arange(dim)
+    indptr, indices = A.indptr, A.indices
+    for a in range(nnodes):
+        nb = np.concatenate(([a], indices[indptr[a]:indptr[a + 1]]))
+        # Rows (node b, component): u_b = t + w x (x_b - x_a), w in radians.
+        rb = rigid_motions(np.tile(components, nb.size), np.repeat(X3[nb], dim, axis=0),
+                           center=X3[a], lever=1.0)
+        y = U[nb].reshape(-1)
+        p, *_ = np.linalg.lstsq(rb.basis, y, rcond=None)
+        params[a, [names.index(m) for m in rb.motions]] = p
+        rigid[a] = np.linalg.norm(rb.basis @ p - y) <= RIGID_FIT_TOL * scale * np.sqrt(nb.size)
+    return params, rigid
+
+
+def _fits_agree(A, X: NDArray, params: NDArray, rigid, scale: float):
+    """Graph of neighbouring rigid nodes whose fitted rigid motions agree."""
+    dim = X.shape[1]
+    coo = sp.triu(A).tocoo()
+    a, b = coo.row, coo.col
+    keep = rigid[a] & rigid[b]
+    a, b = a[keep], b[keep]
+    extent = max(np.ptp(X, axis=0).max(), np.finfo(np.float64).tiny)  # guard: a part of one point
+    same_w = np.linalg.norm(params[a, dim:] - params[b, dim:], axis=1) <= RIGID_FIT_TOL * scale / extent
+    pred_b = params[a, :dim] + (
+        np.stack([-params[a, dim] * (X[b, 1] - X[a, 1]), params[a, dim] * (X[b, 0] - X[a, 0])], axis=1)
+        if dim == 2 else np.cross(params[a, dim:], X[b] - X[a]))
+    same_t = np.linalg.norm(pred_b - params[b, :dim], axis=1) <= RIGID_FIT_TOL * scale
+    ok = same_w & same_t
+    return sp.coo_array((np.ones(int(ok.sum())), (a[ok], b[ok])), shape=A.shape)

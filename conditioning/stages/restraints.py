@@ -23,14 +23,16 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse as sp
 from numpy.typing import NDArray
-from scipy.sparse.csgraph import connected_components
 
+from conditioning.linalg.floating_point import EPS
+from conditioning.linalg.orthonormal import orthonormal_basis
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.model import DOF_NAMES, ROTATIONS, Model
 from conditioning.results import Restraint
+from conditioning.stages.structure import check_structure
 
 logger = logging.getLogger(__name__)
 
-EPS = float(np.finfo(np.float64).eps)
 #: Weight of a rotation row relative to the largest translation row, so a
 #: translation is chosen whenever it can do the job (common practice: supports
 #: are usually translational).
@@ -42,6 +44,12 @@ RIGID_RESIDUAL = 0.1
 #: bases from eigensolvers or from a matrix mixing units carry noise of about
 #: 1e-8..1e-6 of their largest entry.
 MOTION_TOL = 1e-4
+#: A motion is a translation when its rotation moves the part's farthest node
+#: by at most this share of the translation (the project's choice).
+TRANSLATION_DOMINATES = 0.1
+#: A rotation axis passes through a node when it is this close to it,
+#: relative to the part's extent (the project's choice).
+AXIS_AT_NODE = 1e-6
 
 
 @dataclass(frozen=True)
@@ -72,7 +80,8 @@ def suggest_restraints(
         it is orthonormalised first). A 1-D array is one mode.
     part_of_row : (n,) int, optional
         Connected-part label of each row (e.g. ``StructureResult.part_of_row``);
-        computed from the graph of K when not given.
+        when not given, that of :func:`conditioning.stages.structure.check_structure`,
+        so that "part k" in the reasons is the report's part k.
 
     Returns
     -------
@@ -116,7 +125,7 @@ def suggest_restraints(
     >>> [r.row for r in suggest_restraints(Model(K), np.ones(3))]
     [0]
     """
-    Q = _orthonormal(_as_basis(modes_basis, model.n))
+    Q = orthonormal_basis(_as_basis(modes_basis, model.n))
     if Q.shape[1] == 0:
         return []
     geometry = _geometry(model, part_of_row)
@@ -172,15 +181,6 @@ def _as_basis(modes_basis, n: int) -> NDArray[np.float64]:
     return B
 
 
-def _orthonormal(B: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Orthonormal basis of span(B), dropping dependent columns (SVD rank)."""
-    if B.shape[1] == 0:
-        return B
-    U, sv, _ = np.linalg.svd(B, full_matrices=False)
-    rank = int(np.count_nonzero(sv > max(B.shape) * EPS * sv[0])) if sv[0] > 0 else 0
-    return U[:, :rank]
-
-
 def _choose_rows(Q: NDArray[np.float64], w: NDArray[np.float64]) -> Optional[NDArray[np.intp]]:
     """First r pivots of QR with column pivoting on (diag(w) Q)^T, if Q[R] is
     well conditioned."""
@@ -213,7 +213,7 @@ def _row_weights(model: Model, Q, geometry: _Geometry) -> NDArray[np.float64]:
 # ---------------------------------------------------------------- geometry
 def _geometry(model: Model, part_of_row) -> _Geometry:
     if part_of_row is None:
-        part = _parts(model)
+        part = check_structure(model).part_of_row
     else:
         part = np.asarray(part_of_row, dtype=np.intp)
         if part.shape != (model.n,):
@@ -227,42 +227,6 @@ def _geometry(model: Model, part_of_row) -> _Geometry:
     centroid /= np.maximum(count, 1.0)[:, None]
     planar = model.coords.dim == 2 and not np.isin(model.dofs.dof, (2, 3, 4)).any()
     return _Geometry(part, xyz, centroid, planar)
-
-
-def _parts(model: Model) -> NDArray[np.intp]:
-    """Connected parts of the graph of K with the rows of one node joined (a
-    node is one physical point even when its DOFs do not couple, as in an
-    axis-aligned truss)."""
-    graph = sp.csr_array(model.K != 0)
-    if model.dofs is not None:
-        _, node_index = np.unique(model.dofs.node, return_inverse=True)
-        nn = int(node_index.max()) + 1 if node_index.size else 0
-        link = sp.csr_array((np.ones(model.n), (np.arange(model.n), node_index.ravel())), shape=(model.n, nn))
-        graph = sp.bmat([[graph, link], [link.T, None]], format="csr")
-    _, labels = connected_components(graph, directed=False)
-    _, part = np.unique(labels[: model.n], return_inverse=True)
-    return part.ravel().astype(np.intp)
-
-
-def _rigid_motions(model: Model, geometry: _Geometry, rows) -> tuple[list[str], NDArray[np.float64]]:
-    """Columns of rigid motions on ``rows`` (translations, rotations about the
-    part's centroid): names and (len(rows), k) matrix."""
-    names = ["ux", "uy", "rz"] if geometry.planar else list(DOF_NAMES)
-    dof = np.asarray(model.dofs.dof[rows], dtype=np.intp)
-    r = geometry.xyz[rows] - geometry.centroid[geometry.part[rows]]
-    G = np.zeros((rows.size, len(names)))
-    for k, name in enumerate(names):
-        axis = DOF_NAMES.index(name)
-        if axis < 3:  # translation along axis
-            G[:, k] = dof == axis
-            continue
-        a = np.zeros(3)
-        a[axis - 3] = 1.0
-        move = np.cross(a, r)  # theta a x (x - c)
-        trans = dof < 3
-        G[trans, k] = move[trans, dof[trans]]
-        G[dof == axis, k] = 1.0
-    return names, G
 
 
 def _restraint(model: Model, geometry: _Geometry, motion, row: int) -> Restraint:
@@ -285,7 +249,10 @@ def _reason(model: Model, geometry: _Geometry, motion, row: int, dof: str) -> st
     rows = np.flatnonzero(geometry.part == label)
     if geometry.xyz is None:
         return f"restrain {where}: stops {_motion_without_coords(model, motion, rows)} of {part}"
-    names, G = _rigid_motions(model, geometry, rows)
+    # Rigid motions of the part about its centroid, rotations in radians.
+    rb = rigid_motions(model.dofs.dof[rows], geometry.xyz[rows], model.dofs.node[rows],
+                       center=geometry.centroid[label], lever=1.0)
+    names, G = rb.motions, rb.basis
     coef, *_ = np.linalg.lstsq(G, motion[rows], rcond=None)
     residual = np.linalg.norm(G @ coef - motion[rows]) / np.linalg.norm(motion[rows])
     if residual > RIGID_RESIDUAL:
@@ -295,7 +262,7 @@ def _reason(model: Model, geometry: _Geometry, motion, row: int, dof: str) -> st
         k = DOF_NAMES.index(name)
         (t if k < 3 else theta)[k % 3] = c
     radius = float(np.max(np.linalg.norm(geometry.xyz[rows] - geometry.centroid[label], axis=1)))
-    if np.linalg.norm(theta) * radius <= 0.1 * np.linalg.norm(t):
+    if np.linalg.norm(theta) * radius <= TRANSLATION_DOMINATES * np.linalg.norm(t):
         return f"restrain {where}: stops the translation {DOF_NAMES[int(np.argmax(np.abs(t)))]} of {part}"
     return _rotation_text(model, geometry, row, where, part, t, theta, rows)
 
@@ -309,7 +276,7 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     dist = np.linalg.norm(geometry.xyz[rows] - pivot, axis=1)
     near = rows[int(np.argmin(dist))]
     span = max(float(np.ptp(geometry.xyz[rows], axis=0).max()), np.finfo(float).tiny)
-    if dist.min() <= 1e-6 * span:
+    if dist.min() <= AXIS_AT_NODE * span:
         about = f"node {int(model.dofs.node[near])}"
     else:
         about = "(" + ", ".join(f"{v:.3g}" for v in pivot[: (2 if geometry.planar else 3)]) + ")"

@@ -5,7 +5,7 @@
 One stage, three ways to obtain the eigenpairs, chosen by what is available:
 
 * small S (at most :data:`DENSE_LIMIT` rows with a factorization,
-  :data:`conditioning.stages.spectrum_iterative.DENSE_LIMIT` without): all
+  :data:`conditioning.stages.spectrum_iterative.ITERATIVE_DENSE_LIMIT` without): all
   eigenvalues by LAPACK;
 * a factorization of S - sigma*I (any :class:`conditioning.engine.base.Factorization`):
   shift-and-invert Lanczos (ARPACK through scipy.sparse.linalg.eigsh) at the
@@ -41,8 +41,7 @@ from conditioning.model import Model
 from conditioning.results import NearSingularMode, SpectrumResult
 from conditioning.stages import spectrum_iterative
 
-#: Unit round-off of float64 doubled (numpy's machine epsilon, 2^-52).
-EPS = float(np.finfo(np.float64).eps)
+from conditioning.linalg.floating_point import EPS
 
 logger = logging.getLogger(__name__)
 
@@ -51,7 +50,10 @@ logger = logging.getLogger(__name__)
 MODE_THRESHOLD = 1e-8
 #: A split needs at least this ratio between the last mode and the next eigenvalue.
 MIN_GAP = 1e3
-#: Below this many active rows the spectrum is computed densely (LAPACK).
+#: Below this many active rows the spectrum of S (and, in the condition stage,
+#: that of K) is computed densely (LAPACK syevd): every eigenvalue, with no
+#: Lanczos convergence to doubt, for 11.5 MB of dense matrix at 1200 rows (the
+#: project's choice).
 DENSE_LIMIT = 1200
 
 GAP_RULE = (
@@ -233,7 +235,7 @@ def smallest_eigenpairs(scaled: ScaledStiffness, fac: Optional[Factorization], *
     rng = np.random.default_rng(rng)
     Sa = scaled.S
     na = Sa.shape[0]
-    dense_limit = DENSE_LIMIT if fac is not None else spectrum_iterative.DENSE_LIMIT
+    dense_limit = DENSE_LIMIT if fac is not None else spectrum_iterative.ITERATIVE_DENSE_LIMIT
     converged = True
     if na <= dense_limit:
         w, V = np.linalg.eigh(Sa.toarray())
@@ -295,7 +297,7 @@ def scaled_spectrum(K: sp.csr_array, fac: Factorization, *, k: Optional[int] = N
 def iterative_spectrum(model: Model, *, k: int = spectrum_iterative.DEFAULT_K, tol: float = 1e-9,
                        maxiter: int = 400, rng=0) -> Eigenpairs:
     """:func:`smallest_eigenpairs` of the model's S without a factorization (LOBPCG above
-    :data:`conditioning.stages.spectrum_iterative.DENSE_LIMIT` rows, LAPACK below)."""
+    :data:`conditioning.stages.spectrum_iterative.ITERATIVE_DENSE_LIMIT` rows, LAPACK below)."""
     return smallest_eigenpairs(scale_stiffness(model.K), None, model=model, k=k, rng=rng, tol=tol, maxiter=maxiter)
 
 

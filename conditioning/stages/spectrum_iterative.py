@@ -29,7 +29,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.linalg.rigid_motions import rigid_basis
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.model import Model
 
 logger = logging.getLogger(__name__)
@@ -38,9 +38,13 @@ logger = logging.getLogger(__name__)
 DEFAULT_K = 8
 #: Most eigenpairs sought when every computed one is near-null.
 MAX_K = 256
-#: Below this many rows the spectrum stage computes the spectrum densely
-#: (LAPACK eigh) on this path, with no factorization.
-DENSE_LIMIT = 600
+#: Below this many rows the spectrum is computed densely (LAPACK eigh) on this
+#: path. Lower than the factorized path's :data:`~conditioning.stages.spectrum.DENSE_LIMIT`
+#: on purpose (the project's choice): this path is taken for real only when
+#: the factor of K would not fit in memory, far above either limit, so the
+#: limit decides only whether models of a few hundred nodes (the tests of
+#: tests/test_iterative.py, 882 and 1029 rows) exercise LOBPCG.
+ITERATIVE_DENSE_LIMIT = 600
 #: Shift of the incomplete factorization, relative to the unit diagonal of S.
 ILU_SHIFT = 1e-6
 #: Cap on the incomplete factor's entries, as a multiple of nnz(S).
@@ -144,7 +148,8 @@ def _starting_block(model: Model, active: NDArray[np.intp], s, k: int, rng) -> N
     (0-based indices), then random columns; (n_a, k) orthonormal."""
     cols = []
     if model.dofs is not None:
-        basis = rigid_basis(model, active).basis  # u on the active rows
+        basis = rigid_motions(model.dofs.dof[active], model.positions_of(active),
+                              model.dofs.node[active]).basis  # u on the active rows
         if basis.size:
             cols.append(basis / s[active][:, None])  # D^1/2 u = u / s
     X = np.column_stack(cols) if cols else np.zeros((active.size, 0))

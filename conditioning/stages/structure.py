@@ -10,8 +10,11 @@ supported by that diagonal and can bring none, so it is not counted as a part.
 
 from __future__ import annotations
 
+from typing import Optional
+
 import numpy as np
 import scipy.sparse as sp
+from numpy.typing import NDArray
 from scipy.sparse import csgraph
 
 from conditioning.model import Model
@@ -105,18 +108,37 @@ def looks_like_placeholder(values: np.ndarray, typical: float | None) -> np.ndar
         return round_value & (np.abs(np.log10(values / typical)) >= PLACEHOLDER_ORDERS_APART)
 
 
-def _parts(model: Model, K: sp.csr_array) -> tuple[int, np.ndarray]:
-    """Connected parts, per row. With a DOF map the graph is over nodes (two
-    nodes are connected when any of their DOFs couple), so that a truss whose
-    bars happen to be axis-aligned is still one part; without a map, over rows."""
-    if model.dofs is None:
-        return csgraph.connected_components(K, directed=True, connection="weak")
-    _, inv = np.unique(model.dofs.node, return_inverse=True)
-    coo = K.tocoo()
+def connected_parts(K: sp.sparray, node: Optional[NDArray[np.int64]] = None) -> tuple[int, NDArray[np.intp]]:
+    """Connected parts of the graph of K (scipy.sparse.csgraph), per row.
+
+    Parameters
+    ----------
+    K : (n, n) sparse
+        Stiffness matrix; its stored entries are the edges (an entry K_ij or
+        K_ji joins rows i and j, so an asymmetric pattern still joins them).
+    node : (n,) int, optional
+        Node of each row. Given, the graph is over nodes (two nodes are
+        connected when any of their DOFs couple, and the rows of one node are
+        one point), so that a truss whose bars happen to be axis-aligned is
+        still one part; without it, over rows.
+
+    Returns
+    -------
+    count : int
+        Number of parts (a row without any entry and no node to join is a part).
+    labels : (n,) intp
+        Part of each row, 0..count-1 in the order csgraph finds them.
+    """
+    if node is None:
+        count, labels = csgraph.connected_components(K, directed=True, connection="weak")
+        return int(count), labels.astype(np.intp)
+    _, inv = np.unique(node, return_inverse=True)
+    inv = inv.ravel()
+    coo = sp.coo_array(K)
     m = int(inv.max()) + 1 if inv.size else 0
     G = sp.coo_array((np.ones(coo.nnz), (inv[coo.row], inv[coo.col])), shape=(m, m))
-    n_comp, node_labels = csgraph.connected_components(G, directed=True, connection="weak")
-    return n_comp, node_labels[inv]
+    count, node_labels = csgraph.connected_components(G, directed=True, connection="weak")
+    return int(count), node_labels[inv].astype(np.intp)
 
 
 def check_structure(model: Model) -> StructureResult:
@@ -143,7 +165,7 @@ def check_structure(model: Model) -> StructureResult:
     if placeholders.size == np.count_nonzero(has_stiffness):
         # A diagonal K has no structure for such rows to be left over from.
         placeholders = placeholders[:0]
-    n_comp, labels = _parts(model, K)
+    n_comp, labels = connected_parts(K, None if model.dofs is None else model.dofs.node)
     sizes = np.bincount(labels, minlength=n_comp)
     structural = has_stiffness.copy()
     structural[placeholders] = False
