@@ -503,24 +503,6 @@ class DigitsResult:
     did not get that far."""
 
 
-# ------------------------------------------------------------------ scale
-@dataclass(frozen=True)
-class FactorMemoryPrediction:
-    """Size of the factorization, predicted before it runs (conditioning.engine.memory)."""
-
-    bytes: int
-    """Predicted peak memory the factorization adds (bytes)."""
-    factor_entries: int
-    """Predicted stored entries of L + U as SuperLU counts them."""
-    flops: float
-    """Predicted operations: sum over columns of (column count of L)^2."""
-    method: str
-    """How it was predicted, in words."""
-    confidence: float
-    """Relative accuracy of ``bytes`` measured on the benchmark models
-    (0.25: within 25%)."""
-
-
 # --------------------------------------------------------------- findings
 @dataclass(frozen=True)
 class Finding:

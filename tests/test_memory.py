@@ -19,7 +19,7 @@ from conditioning.engine.memory import (
     predict_factor_memory,
 )
 from conditioning.engine.ordering import nested_dissection
-from conditioning.results import FactorMemoryPrediction
+from conditioning.engine.base import FactorMemoryPrediction
 
 from test_ordering import skfem_elasticity, superlu_fill
 

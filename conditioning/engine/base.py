@@ -21,13 +21,32 @@ Shift policy (``shift`` of :meth:`Engine.factorize`):
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Optional, Protocol, runtime_checkable
 
 import numpy as np
 from numpy.typing import NDArray
 
 from conditioning.engine.scaling import ScaledStiffness
-from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+from conditioning.results import FactorizationInfo
+
+
+
+@dataclass(frozen=True)
+class FactorMemoryPrediction:
+    """Size of the factorization, predicted before it runs (conditioning.engine.memory)."""
+
+    bytes: int
+    """Predicted peak memory the factorization adds (bytes)."""
+    factor_entries: int
+    """Predicted stored entries of L + U as SuperLU counts them."""
+    flops: float
+    """Predicted operations: sum over columns of (column count of L)^2."""
+    method: str
+    """How it was predicted, in words."""
+    confidence: float
+    """Relative accuracy of ``bytes`` measured on the benchmark models
+    (0.25: within 25%)."""
 
 
 class FactorizationTooLarge(MemoryError):

@@ -25,8 +25,8 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.engine.ordering import _coincident, choose_ordering, nested_dissection, supervariables
-from conditioning.results import FactorMemoryPrediction
+from conditioning.engine.ordering import coincident, choose_ordering, nested_dissection, supervariables
+from conditioning.engine.base import FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
 
@@ -119,7 +119,7 @@ def predict_factor_memory(
     perm = np.asarray(perm, dtype=np.intp)
     if perm.shape != (n,) or not np.array_equal(np.sort(perm), np.arange(n)):
         raise ValueError(f"perm must be a permutation of 0..{n - 1}")
-    node = None if coords is None else _coincident(np.asarray(coords, dtype=np.float64))[0]
+    node = None if coords is None else coincident(np.asarray(coords, dtype=np.float64))[0]
     counts, weights = cholesky_column_counts(K, perm, node=node)
     nnz_l = int(np.sum(weights * (weights + 1) // 2 + weights * (counts - weights)))
     fill = 2 * nnz_l - n

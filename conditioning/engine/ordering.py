@@ -108,7 +108,7 @@ def nested_dissection(
             raise ValueError(f"coords has shape {coords.shape}; expected ({n}, 3), one position per row")
     if n == 0:
         return np.zeros(0, dtype=np.intp)
-    group, first = supervariables(A) if coords is None else _coincident(coords)
+    group, first = supervariables(A) if coords is None else coincident(coords)
     edges = _quotient_edges(A, group, first.size)
     xyz = None if coords is None else coords[first]
     node_position = _dissect(first.size, edges, xyz, max(int(leaf_size), 1))
@@ -195,7 +195,7 @@ def supervariables(A: sp.csr_array) -> tuple[NDArray[np.intp], NDArray[np.intp]]
     return rank[group.ravel()].astype(np.intp), first[order].astype(np.intp)
 
 
-def _coincident(coords: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+def coincident(coords: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """Group rows at identical positions (the DOFs of a node), as :func:`supervariables` does."""
     order = np.lexsort(coords.T[::-1])
     c = coords[order]

@@ -31,7 +31,8 @@ from conditioning.engine.base import FactorizationTooLarge
 from conditioning.engine.memory import predict_factor_memory
 from conditioning.engine.ordering import choose_ordering
 from conditioning.engine.scaling import ScaledStiffness, diagonal_scaling, scale_stiffness, scaled_matrix
-from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+from conditioning.engine.base import FactorMemoryPrediction
+from conditioning.results import FactorizationInfo
 from conditioning.linalg.floating_point import EPS
 
 logger = logging.getLogger(__name__)
