@@ -36,7 +36,7 @@ from conditioning.stages.geometry import model_geometry
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import Finding, ModelSummary, Report, Restraint
 from conditioning.stages.condition import condition_numbers
-from conditioning.stages.digits import measure_digits
+from conditioning.stages.digits import certify_digits, measure_digits
 from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
@@ -252,9 +252,16 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
                                         structure=structure, rng=run.rng)
         else:
             skipped["digits"] = "not requested (measure=False)"
+        perm = fac.ordering_permutation()
         if eig.split_point is not None:
             with stage("inertia check"):
                 spectrum = with_inertia(spectrum, inertia_check(fac, eig))
+        # The proof factors the shifted S once more: after the shared factor is
+        # released, so that the two never coexist in memory.
+        fac.release()
+        if digits is not None and digits.samples:
+            with stage("certification"):
+                digits = certify_digits(model, digits, condition, perm, structure)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:

@@ -432,6 +432,13 @@ class DigitsSample:
     solution: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """The float64 solution whose digits were measured (the tool's own solve,
     or the audited one), in K's DOF units; not serialised."""
+    load_vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """The load f of this sample (force units); not serialised."""
+    reference_hi: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """High part of the double-double refined solution of K x = f (DOF units),
+    which the certification proves an error bound for; not serialised."""
+    reference_lo: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """Low part of that refined solution; not serialised."""
 
 
 @dataclass(frozen=True)

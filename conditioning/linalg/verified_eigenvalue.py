@@ -187,29 +187,43 @@ def _bound_at_shift(S: sp.csr_array, c: float, permc_spec: str):
     # pivoting (perm_r != perm_c) would not.
     if not np.array_equal(lu.perm_r, lu.perm_c):
         return None, "SuperLU pivoted rows: no symmetric LU without pivoting to analyse"
-    L = sp.csr_array(lu.L)
-    Uf = sp.csr_array(lu.U)
-    d = Uf.diagonal()
+    # Copies of the factors, then SuperLU's own storage is freed: at most the
+    # two copies and one row block of D L^T - U live at once.
+    L = lu.L                                   # csc, unit diagonal
+    U = sp.csr_array(lu.U)
+    del lu
+    d = U.diagonal()
     if not np.all(d > 0):
         return None
     u = UNIT_ROUNDOFF
-    row_len = np.diff(L.indptr)
-    k = int(row_len.max()) + 1
+    Lt = L.T                                   # csr view of L^T, no copy
+    row_len_L = np.diff(L.indptr)              # L's column counts = L^T's row counts
+    k = int(np.bincount(L.indices, minlength=n).max()) + 1   # longest row of L, plus the division
     gamma_k = k * u / (1.0 - k * u)
-    DLt = sp.csr_array(L.T.multiply(d[:, None]))
-    F = sp.csr_array(DLt - Uf)
-    F_abs = abs(F)
+    ones = np.ones(n)
+    absF = np.empty(n)
+    absU = np.empty(n)
+    m = 0
+    for r0 in range(0, n, ROW_BLOCK):
+        r1 = min(n, r0 + ROW_BLOCK)
+        Fb = sp.csr_array(Lt[r0:r1].multiply(d[r0:r1, None])) - U[r0:r1]
+        absF[r0:r1] = abs(Fb) @ ones
+        absU[r0:r1] = abs(U[r0:r1]) @ ones
+        m = max(m, int(np.diff(Fb.indptr).max(initial=0)))
     # |exact D L^T - U| <= |fl(F)| (1 + 2u) + 2u |D L^T|: the product and the
-    # difference are rounded once each.
-    h1 = (F_abs @ np.ones(n)) * (1 + 2 * u) + 2 * u * (abs(DLt) @ np.ones(n))
-    h2 = abs(Uf) @ np.ones(n)
-    L_abs = abs(L)
-    g = L_abs @ h1 + gamma_k * (L_abs @ h2)
-    # The diagonal of S - cI was rounded once: |error| <= u |S_ii - c|.
-    g += u * np.abs(A.diagonal())
-    m = int(max(row_len.max(), np.diff(Uf.indptr).max(), np.diff(F.indptr).max())) + 4
-    bound = float(np.max(g)) * (1.0 + 4 * m * u)
+    # difference are rounded once each; |D L^T| 1 = |d| (|L^T| 1).
+    np.abs(L.data, out=L.data)                 # |L|, in place (L is our copy)
+    h1 = absF * (1 + 2 * u) + 2 * u * np.abs(d) * (L.T @ ones)
+    g = L @ h1 + gamma_k * (L @ absU)
+    m = max(m, k, int(row_len_L.max()), int(np.diff(U.indptr).max())) + 4
+    # The diagonal of S - cI was rounded once: |error| <= u |S_ii - c| (A and
+    # the factors are in different row orders, so the two maxima are added).
+    bound = (float(np.max(g)) + u * float(np.max(np.abs(A.diagonal())))) * (1.0 + 4 * m * u)
     return bound, f"SuperLU without pivoting, {k - 1} entries in the longest row of L"
+
+
+#: Rows of D L^T - U formed at a time (bounds the proof's working memory).
+ROW_BLOCK = 20000
 
 
 def certified_errors(

@@ -37,7 +37,8 @@ SCHEMA = "conditioning-report/1"
 COMPARE_SCHEMA = "conditioning-compare/1"
 
 #: Fields that are not serialised (large, or only meaningful with the model).
-_OMIT = {"vector", "part_of_row", "eigenvectors", "smallest_vector", "solution"}
+_OMIT = {"vector", "part_of_row", "eigenvectors", "smallest_vector", "solution", "load_vector",
+         "reference_hi", "reference_lo"}
 
 #: Report fields never written: the input restated for the figures and mode
 #: files (docs/report-format.md, "Not in the JSON").

@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import logging
 import math
+from dataclasses import dataclass, replace
 from typing import Optional
 
 import numpy as np
@@ -90,7 +91,6 @@ def measure_digits(
     seed: int = 0,
     confirm: bool = True,
     structure=None,
-    certify: bool = True,
     rng: Optional[np.random.Generator] = None,
 ) -> DigitsResult:
     """Measure the digits the float64 solution of K x = f keeps, per load sample.
@@ -113,10 +113,6 @@ def measure_digits(
         Seed of the random loads, when no ``rng`` is given.
     confirm : bool
         Run the arbitrary-precision re-solve when the model is small enough.
-    certify : bool
-        Prove the digits with the verified lower bound on the smallest
-        eigenvalue (:mod:`conditioning.linalg.verified_eigenvalue`): one more
-        factorization, of the shifted scaled matrix.
     structure : StructureResult, optional
         Its placeholder rows (restrained DOFs kept with a bare diagonal) get
         no random load and are left out of the normwise figure; its rows
@@ -157,13 +153,12 @@ def measure_digits(
     want = [j == 0 for j in range(len(names))]
     refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op, want_componentwise=want)
     confirmation, why_not = _confirm(K, F, kappa) if confirm else (None, "arbitrary-precision re-solve not requested")
-    verified, certification = _verify(K, fac, condition) if certify else (None, "not requested")
     measured = None
     if placeholders.size:
         measured = np.ones(model.n, dtype=bool)
         measured[placeholders] = False
     out = [
-        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured, verified)
+        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured)
         for j, name in enumerate(names)
     ]
     audit = None
@@ -171,20 +166,18 @@ def measure_digits(
         logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
     elif model.solution is not None:
         solution = _sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
-                           refs[0], confirmation, 0, why_not, measured, verified)
+                           refs[0], confirmation, 0, why_not, measured)
         out.append(solution)
         audit = _audit(solution, out[0])
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
-                        summary=_summary(out, predicted_raw, predicted_scaled, flops), audit=audit,
-                        certification=certification)
+                        summary=_summary(out, predicted_raw, predicted_scaled, flops), audit=audit)
 
 
-def _verify(K, fac, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
+def _verify(K, perm, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
     """The verified eigenvalue bound for K, and what it proved or why not."""
     estimate = None if condition is None else condition.scaled_lambda_min
     if estimate is None or not estimate > 0:
         return None, "not attempted: no positive estimate of the smallest eigenvalue of S"
-    perm = fac.ordering_permutation()
     if perm is None:
         # Without the shared ordering the proof's factorization could cost far
         # more than the engine's own; and it analyses SuperLU's LU.
@@ -358,15 +351,14 @@ def _confirm(K, F, kappa) -> tuple[Optional[ReferenceSolution], str]:
 
 
 def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[ReferenceSolution], j: int,
-            why_not: str = "", measured_rows: Optional[NDArray[np.bool_]] = None,
-            verified: Optional[VerifiedEigenvalueBound] = None) -> DigitsSample:
+            why_not: str = "", measured_rows: Optional[NDArray[np.bool_]] = None) -> DigitsSample:
     """Measure one sample: forward error, digits (from an upper bound), per DOF, bounds.
 
     ``measured_rows`` leaves placeholder rows out of the normwise figure (their
-    displacement is not the structure's); None measures every row. With a
-    ``verified`` eigenvalue bound, the refined solution's error is proved
-    (:func:`certified_errors`) and the figure is certified, unless the ball
-    arithmetic re-solve ran (then that proof is used).
+    displacement is not the structure's); None measures every row. The
+    refined solution and the load are kept on the sample, so that
+    :func:`certify_digits` can prove the figure later, after the shared
+    factorization is released.
     """
     rows = np.ones(x.size, dtype=bool) if measured_rows is None else measured_rows
     x_hi, x_lo, method = ref.x_hi, ref.x_lo, "double-double refinement"
@@ -405,15 +397,6 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
     # Lower bound on ||x_exact||_inf over the measured rows.
     scale_lo = scale - float(np.max(ref_abs[rows], initial=0.0))
     upper = _up(float(np.max(err_up[rows], initial=0.0)) / scale_lo, 2) if scale_lo > 0 else math.inf
-    # The ball-arithmetic re-solve, where it ran, is the direct proof; the
-    # eigenvalue bound certifies every other sample, at any size.
-    proof = None if method == CERTIFIED_BALL else _eigenvalue_proof(op, f, x, ref, rows, verified)
-    if proof is not None:
-        err_up, upper, cert_abs, scale = proof
-        x_hi, x_lo, method, converged = ref.x_hi, ref.x_lo, CERTIFIED_EIGENVALUE, True
-        resolution = float(np.max(cert_abs[rows], initial=0.0)) / scale
-        rad = cert_abs
-        forward = float(np.max(np.abs((x - x_hi) - x_lo)[rows], initial=0.0)) / scale
     trust = _digits(upper)
     at_ceiling = forward <= resolution
     per_dof = _per_dof_digits(model, err_up, x_hi, resolution)
@@ -437,10 +420,78 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
         worst_nodes=_worst_nodes(model, per_dof), normwise_bound=nb, componentwise_bound=cb,
         bound_trusted=trusted, confirmation=note, per_dof_digits=per_dof, forward_error=forward,
         resolution=resolution, at_ceiling=at_ceiling, backward_error=backward, solution=x,
+        load_vector=f, reference_hi=ref.x_hi, reference_lo=ref.x_lo,
     )
 
 
-def _eigenvalue_proof(op, f, x, ref: RefinementResult, rows, verified):
+def certify_digits(model: Model, digits: DigitsResult, condition: Optional[ConditionResult],
+                   perm: Optional[NDArray[np.intp]], structure=None) -> DigitsResult:
+    """Prove the measured figures with the verified eigenvalue bound.
+
+    Run after the shared factorization is released: the proof's own
+    factorization of the shifted scaled K (reusing the shared ordering
+    ``perm``) is then the only factor in memory. Every sample not already
+    certified by the ball-arithmetic re-solve is re-derived from the proved
+    error bound of its refined solution (:func:`certified_errors`).
+
+    Returns
+    -------
+    DigitsResult
+        ``digits`` with those samples certified (method
+        ``certified (verified eigenvalue bound)``) when the bound was proved,
+        and ``certification`` saying what was proved or why not.
+    """
+    if not digits.samples:
+        return digits
+    K = sp.csr_array(model.K)
+    verified, reason = _verify(K, perm, condition)
+    if verified is None or not verified.verified:
+        return replace(digits, certification=reason)
+    placeholders = _placeholder_rows(structure)
+    rows = np.ones(model.n, dtype=bool)
+    rows[placeholders] = False
+    op = dd_operator(K)
+    samples = [s if s.method == CERTIFIED_BALL else _certified(model, op, s, rows, verified)
+               for s in digits.samples]
+    audit = digits.audit
+    solution = next((s for s in samples if s.sample == "solution"), None)
+    if audit is not None and solution is not None:
+        audit = replace(audit, trustworthy_digits=solution.trustworthy_digits,
+                        method=f"measured ({solution.method})")
+    return replace(digits, samples=samples, audit=audit, certification=reason,
+                   summary=_summary(samples, digits.predicted_raw, digits.predicted_scaled,
+                                    digits.factorization_flops))
+
+
+def _certified(model: Model, op, s: DigitsSample, rows, verified) -> DigitsSample:
+    """The sample re-derived from the proved error bound of its refined solution."""
+    ref = _Reference(s.reference_hi, s.reference_lo)
+    proof = _eigenvalue_proof(op, s.load_vector, s.solution, ref, rows, verified)
+    if proof is None:
+        return s
+    err_up, upper, cert, scale = proof
+    trust = _digits(upper)
+    resolution = float(np.max(cert[rows], initial=0.0)) / scale
+    forward = float(np.max(np.abs((s.solution - ref.x_hi) - ref.x_lo)[rows], initial=0.0)) / scale
+    per_dof = _per_dof_digits(model, err_up, ref.x_hi, resolution)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cw = cert / np.abs(ref.x_hi)
+    return replace(
+        s, trustworthy_digits=trust, digits_lost=FLOAT64_DIGITS - trust, method=CERTIFIED_EIGENVALUE,
+        converged=True, worst_nodes=_worst_nodes(model, per_dof), normwise_bound=float(np.max(cert)) / scale,
+        componentwise_bound=float(np.max(cw)) if np.all(ref.x_hi != 0) else None, bound_trusted=True,
+        per_dof_digits=per_dof, forward_error=forward, resolution=resolution, at_ceiling=forward <= resolution)
+
+
+@dataclass(frozen=True)
+class _Reference:
+    """The refined solution x_hi + x_lo of one sample."""
+
+    x_hi: NDArray[np.float64]
+    x_lo: NDArray[np.float64]
+
+
+def _eigenvalue_proof(op, f, x, ref, rows, verified):
     """(err_up, upper, |x_r - x_exact| bound, ||x_r||) from the verified eigenvalue bound, or None.
 
     err_up bounds |x - x_exact| per component; upper bounds the normwise
