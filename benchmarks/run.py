@@ -289,7 +289,10 @@ def machine() -> dict:
 
         info["blas"] = [(d.get("internal_api"), d.get("version"), d.get("num_threads")) for d in threadpool_info()]
     except ImportError:
-        cfg = numpy.show_config(mode="dicts") if hasattr(numpy, "show_config") else {}
+        try:
+            cfg = numpy.show_config(mode="dicts")
+        except TypeError:  # numpy < 1.25 prints its config and takes no mode
+            cfg = {}
         try:
             blas = cfg["Build Dependencies"]["blas"]
             info["blas"] = f"{blas.get('name')} {blas.get('version')} (numpy build config; threadpoolctl absent)"
