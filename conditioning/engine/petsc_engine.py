@@ -1,0 +1,434 @@
+"""The engine on PETSc under MPI: MUMPS LDL^T and SLEPc eigensolvers.
+
+    S = D^-1/2 K D^-1/2 (active rows)  =>  MUMPS LDL^T of S - sigma*I,
+    inertia, solves, smallest eigenpairs of S, lambda_max(S)
+
+The same scaled matrix and shift policy as :mod:`conditioning.engine.scipy_engine`,
+on a distributed PETSc AIJ matrix: rank 0 holds S (or every rank does; the
+pipeline runs replicated) and scatters block rows, rank r owning rows
+``row_split(n, size)[r]:[r + 1]``. Arrays handed in and out are numpy on
+every rank (the stages run the same code on every rank, so every
+collective call is matched); only what is of length n_active passes through
+an allgather.
+
+Null pivots: with ICNTL(24) = 1 MUMPS sets aside pivots with a row of
+infinity norm below CNTL(3) * ||A_pre||, A_pre the matrix after MUMPS'
+preprocessing, and counts them in INFOG(28) (the ``zero`` of the inertia).
+CNTL(3) is set to n*eps, the relative threshold of the scipy engine; with
+MUMPS' default (eps * 1e-5) a numerically singular S factors "successfully".
+PETSc 3.18 sets ICNTL(13) = 1 (no ScaLAPACK on the root front) itself when
+ICNTL(24) = 1, so the negative pivot count INFOG(12) is an exact inertia.
+
+What this engine cannot give: the pivots D of MUMPS' factor are not handed
+back through PETSc, so ``pivots`` is NaN and ``pivots_available`` False.
+
+Requires petsc4py and slepc4py with MUMPS (scripts/setup-petsc-engine.sh).
+
+References
+----------
+.. [1] P. R. Amestoy, I. S. Duff, J.-Y. L'Excellent and J. Koster (2001), "A fully
+       asynchronous multifrontal solver using distributed dynamic scheduling",
+       SIAM J. Matrix Anal. Appl. 23(1), pp. 15-41.
+.. [2] V. Hernandez, J. E. Roman and V. Vidal (2005), "SLEPc: A scalable and
+       flexible toolkit for the solution of eigenvalue problems", ACM Trans.
+       Math. Software 31(3), pp. 351-362.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from typing import Optional
+
+import numpy as np
+import scipy.sparse as sp
+from numpy.typing import NDArray
+
+from conditioning.engine.scipy_engine import EPS, diagonal_scaling, scaled_matrix
+from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+
+logger = logging.getLogger(__name__)
+
+#: Relative tolerance of the Krylov-Schur eigensolves (as the scipy engine's eigsh).
+EIGEN_TOL = 1e-10
+#: Relative tolerance of lambda_max (the condition number needs 3 digits).
+LARGEST_TOL = 1e-8
+
+
+def _petsc():
+    """petsc4py's PETSc and slepc4py's SLEPc, initialised; ImportError says how to get them."""
+    try:
+        from petsc4py import PETSc
+        from slepc4py import SLEPc
+    except ImportError as exc:
+        raise ImportError(f"the petsc engine needs petsc4py and slepc4py ({exc}); "
+                          "build its environment with scripts/setup-petsc-engine.sh VENV") from exc
+    return PETSc, SLEPc
+
+
+def row_split(n: int, size: int) -> NDArray[np.intp]:
+    """First row of each rank and n at the end, (size + 1,): PETSc's default split
+    (the first n mod size ranks own one row more)."""
+    counts = np.full(size, n // size, dtype=np.intp)
+    counts[: n % size] += 1
+    return np.concatenate([[0], np.cumsum(counts)])
+
+
+def distribute(S: Optional[sp.csr_array], comm=None):
+    """S as a PETSc MPIAIJ matrix, rows split by :func:`row_split`.
+
+    Parameters
+    ----------
+    S : (n, n) csr_array on rank 0 (other ranks may pass None or the same; only rank 0's is read)
+        Dimensionless scaled stiffness; marked symmetric for MUMPS, which
+        reads its upper triangle.
+
+    Returns
+    -------
+    petsc4py.PETSc.Mat
+    """
+    PETSc, _ = _petsc()
+    comm = comm or PETSc.COMM_WORLD
+    mpi = comm.tompi4py()
+    blocks = None
+    if comm.rank == 0:
+        S = sp.csr_array(S)
+        edges = row_split(S.shape[0], comm.size)
+        blocks = [(S.shape[0], S[edges[r]:edges[r + 1]]) for r in range(comm.size)]
+    n, local = mpi.scatter(blocks, root=0)
+    local = sp.csr_array(local)
+    local.sort_indices()
+    A = PETSc.Mat().createAIJ(size=((local.shape[0], n), (local.shape[0], n)),
+                              csr=(local.indptr.astype(PETSc.IntType), local.indices.astype(PETSc.IntType),
+                                   local.data.astype(PETSc.ScalarType)), comm=comm)
+    A.assemble()
+    A.setOption(PETSc.Mat.Option.SYMMETRIC, True)
+    return A
+
+
+def _allgather(v, comm) -> NDArray[np.float64]:
+    """A PETSc Vec as one numpy array on every rank."""
+    return np.concatenate(comm.tompi4py().allgather(np.array(v.getArray(), copy=True)))
+
+
+def _mumps_ldlt(A, null_pivot_tol: float, *, analysis_only: bool = False):
+    """KSP (preonly, Cholesky with MUMPS, i.e. LDL^T for an indefinite A) set up on A,
+    with null-pivot detection; returns (ksp, factor Mat)."""
+    PETSc, _ = _petsc()
+    ksp = PETSc.KSP().create(A.getComm())
+    ksp.setOperators(A)
+    ksp.setType("preonly")
+    pc = ksp.getPC()
+    pc.setType("cholesky")
+    pc.setFactorSolverType("mumps")
+    pc.setFactorSetUpSolverType()
+    F = pc.getFactorMatrix()
+    F.setMumpsIcntl(24, 1)  # detect null pivots (getInertia refuses otherwise)
+    F.setMumpsCntl(3, null_pivot_tol)  # relative to ||A_pre||: the scipy engine's n*eps
+    if analysis_only:
+        _analysis(F, A)
+    else:
+        ksp.setUp()
+    return ksp, F
+
+
+def _shifted(S, sigma: float):
+    """S - sigma*I as a new Mat (S itself when sigma = 0): the factored operator must never
+    change afterwards, or the next KSPSolve would factor it again."""
+    if sigma == 0.0:
+        return S
+    A = S.duplicate(copy=True)
+    A.shift(-sigma)
+    return A
+
+
+def _analysis(F, A) -> None:
+    """MUMPS' analysis phase alone (MatCholeskyFactorSymbolic) on the factor Mat F of A.
+
+    petsc4py 3.18 leaves ``Mat.factorSymbolicCholesky`` unimplemented, so the C
+    function is called through ctypes in the library petsc4py itself loaded."""
+    import ctypes
+
+    from petsc4py.lib import ImportPETSc
+
+    lib = ctypes.CDLL(ImportPETSc(None).__file__)  # its symbol lookup reaches libpetsc
+    info = (ctypes.c_double * 64)()  # MatFactorInfo: 11 PetscReal in 3.18; room to spare
+    lib.MatFactorInfoInitialize.argtypes = [ctypes.c_void_p]
+    lib.MatCholeskyFactorSymbolic.argtypes = [ctypes.c_void_p] * 4
+    perm, _ = A.getOrdering("natural")  # MUMPS orders itself; PETSc wants the argument
+    if lib.MatFactorInfoInitialize(ctypes.addressof(info)) or \
+            lib.MatCholeskyFactorSymbolic(F.handle, A.handle, perm.handle, ctypes.addressof(info)):
+        raise RuntimeError("MUMPS analysis (MatCholeskyFactorSymbolic) failed")
+    perm.destroy()
+
+
+class PetscFactorization:
+    """MUMPS LDL^T of S - sigma*I on the active rows, with the scipy engine's attributes.
+
+    Attributes
+    ----------
+    n : int
+        Rows of K.
+    scale : (n,) float64
+        s with S = diag(s) K diag(s) (1/sqrt of each row's diagonal units).
+    shift : float
+        sigma factored (dimensionless); 0.0 unshifted.
+    active : (n,) bool
+        Rows in the factorization (rows with stiffness).
+    pivots : (n,) float64
+        NaN: MUMPS does not hand back its pivots through PETSc.
+    pivots_available : bool
+        False on this engine.
+    singular : bool
+        True when S had null pivots (then S - sigma*I was factored) or K has
+        rows without stiffness.
+    inertia : (int, int, int)
+        (negative, zero, positive) pivots of S - sigma*I: eigenvalues of S
+        below, at (null pivots) and above sigma.
+    info : FactorizationInfo
+    memory : FactorMemoryPrediction
+        MUMPS' analysis estimate, INFOG(17) MB over all ranks.
+    """
+
+    pivots_available = False
+
+    def __init__(self, A, S, scale, active, shift, singular, ksp, factor, seconds, null_pivot_tol):
+        PETSc, _ = _petsc()
+        self._A, self._S, self._ksp, self._F = A, S, ksp, factor
+        self._null_pivot_tol = null_pivot_tol
+        self.n = int(scale.size)
+        self.scale = scale
+        self.active = active
+        self.shift = float(shift)
+        self.singular = bool(singular)
+        self.inertia = tuple(int(c) for c in factor.getInertia())
+        self.pivots = np.full(self.n, np.nan)
+        self.memory = _memory_from_infog(factor, A.getComm().size)
+        self.info = FactorizationInfo(
+            ordering=_ordering_name(factor.getMumpsInfog(7)),
+            shift=self.shift,
+            negative_pivots=self.inertia[0],
+            fill=int(_infog_entries(factor, 29)),
+            flops=float(factor.getMumpsRinfog(3)),
+            seconds=seconds,
+            symmetric_pivoting=True,  # LDL^T with symmetric 1x1/2x2 pivots: the inertia is exact
+        )
+
+    @property
+    def comm(self):
+        return self._A.getComm()
+
+    def solve_active(self, B: NDArray[np.float64]) -> NDArray[np.float64]:
+        """(S_a - sigma*I)^-1 B for B (n_active,) or (n_active, k), the same on every rank;
+        dimensionless, the same on every rank."""
+        if self._ksp is None:
+            raise RuntimeError("the factorization was released")
+        B = np.asarray(B, dtype=np.float64)
+        cols = B.reshape(B.shape[0], -1)
+        r0, r1 = self._A.getOwnershipRange()
+        b, x = self._A.createVecs()
+        out = np.empty_like(cols)
+        for j in range(cols.shape[1]):
+            b.setArray(cols[r0:r1, j])
+            self._ksp.solve(b, x)
+            out[:, j] = _allgather(x, self.comm)
+        return out.reshape(B.shape)
+
+    def solve_scaled(self, B: NDArray[np.float64]) -> NDArray[np.float64]:
+        """(S - sigma*I)^-1 B for B (n,) or (n, k); inactive rows of the result are 0."""
+        B = np.asarray(B, dtype=np.float64)
+        out = np.zeros_like(B)
+        out[self.active] = self.solve_active(B[self.active])
+        return out
+
+    def solve(self, F: NDArray[np.float64]) -> NDArray[np.float64]:
+        """K^-1 F = diag(s) S^-1 diag(s) F for loads F (n,) or (n, k); displacement units.
+
+        Raises RuntimeError when K is singular (only a shifted factor exists)."""
+        if self.singular or self.shift != 0.0:
+            raise RuntimeError("K is singular: only the shifted factorization exists")
+        F = np.asarray(F, dtype=np.float64)
+        s = self.scale if F.ndim == 1 else self.scale[:, None]
+        return s * self.solve_scaled(s * F)
+
+    def smallest_eigenpairs(self, k: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """The k eigenvalues of S nearest sigma, ascending (dimensionless), and their
+        unit eigenvectors (n_active, k), by SLEPc Krylov-Schur on (S - sigma*I)^-1
+        applied with this factor (shift-and-invert, no second factorization)."""
+        PETSc, SLEPc = _petsc()
+        ksp = self._ksp
+
+        class _Inverse:  # y = (S - sigma*I)^-1 x with the MUMPS factor
+            def mult(self, mat, x, y):
+                ksp.solve(x, y)
+
+        m = self._A.getLocalSize()[0]
+        na = self._A.getSize()[0]
+        op = PETSc.Mat().createPython(((m, na), (m, na)), _Inverse(), comm=self.comm)
+        op.setUp()
+        eps = SLEPc.EPS().create(self.comm)
+        eps.setOperators(op)
+        eps.setProblemType(SLEPc.EPS.ProblemType.HEP)
+        eps.setWhichEigenpairs(SLEPc.EPS.Which.LARGEST_MAGNITUDE)
+        eps.setType(SLEPc.EPS.Type.KRYLOVSCHUR)
+        eps.setDimensions(nev=min(k, na))
+        eps.setTolerances(tol=EIGEN_TOL, max_it=1000)
+        eps.solve()
+        nconv = min(eps.getConverged(), k)
+        if nconv < k:
+            logger.warning("Krylov-Schur converged %d of %d eigenpairs to %.0e", nconv, k, EIGEN_TOL)
+        v = op.createVecRight()
+        values = np.empty(nconv)
+        vectors = np.empty((na, nconv))
+        for i in range(nconv):
+            theta = eps.getEigenpair(i, v).real
+            values[i] = self.shift + 1.0 / theta  # lambda = sigma + 1/theta
+            vectors[:, i] = _allgather(v, self.comm)
+        eps.destroy()
+        op.destroy()
+        order = np.argsort(values)
+        return values[order], vectors[:, order]
+
+    def largest_eigenvalue(self) -> float:
+        """lambda_max(S) (dimensionless) by SLEPc Krylov-Schur, relative tolerance LARGEST_TOL."""
+        _, SLEPc = _petsc()
+        eps = SLEPc.EPS().create(self.comm)
+        eps.setOperators(self._A)
+        eps.setProblemType(SLEPc.EPS.ProblemType.HEP)
+        eps.setWhichEigenpairs(SLEPc.EPS.Which.LARGEST_REAL)
+        eps.setDimensions(nev=1)
+        eps.setTolerances(tol=LARGEST_TOL, max_it=1000)
+        eps.solve()
+        if eps.getConverged() < 1:
+            logger.warning("Krylov-Schur did not converge to lambda_max within %.0e", LARGEST_TOL)
+            return float("nan")
+        value = float(eps.getEigenvalue(0).real)
+        eps.destroy()
+        return value
+
+    def count_below(self, c: float) -> Optional[int]:
+        """Eigenvalues of S (active rows) below c: the negative pivots of a new MUMPS
+        LDL^T of S - c*I (Sylvester's law of inertia); None when S - c*I has null pivots."""
+        A = _shifted(self._A, float(c))
+        ksp, F = _mumps_ldlt(A, self._null_pivot_tol)
+        negative, zero, _ = F.getInertia()
+        ksp.destroy()
+        if A is not self._A:
+            A.destroy()
+        return None if zero else int(negative)
+
+    def release(self) -> None:
+        """Free the factors; ``inertia``, ``info`` stay; solves and eigensolves no longer work,
+        :meth:`count_below` and :meth:`largest_eigenvalue` still do (they need only S)."""
+        if self._ksp is not None:
+            self._ksp.destroy()
+            self._ksp = None
+
+
+def _ordering_name(infog7: int) -> str:
+    """MUMPS' INFOG(7), the ordering its analysis used, in words (MUMPS 5.5 users' guide)."""
+    names = {0: "AMD", 1: "user", 2: "AMF", 3: "SCOTCH", 4: "PORD", 5: "METIS", 6: "QAMD"}
+    return f"{names.get(infog7, f'INFOG(7)={infog7}')} via MUMPS"
+
+
+def _infog_entries(F, i: int) -> int:
+    """An entry count from INFOG(i); MUMPS stores counts above 2^31 as -count/1e6."""
+    v = F.getMumpsInfog(i)
+    return int(-v * 1_000_000) if v < 0 else int(v)
+
+
+def _memory_from_infog(F, ranks: int) -> FactorMemoryPrediction:
+    """MUMPS' analysis estimate: INFOG(17) MB over all ranks (in-core), INFOG(20) factor entries."""
+    mb_total = F.getMumpsInfog(17)
+    mb_max = F.getMumpsInfog(16)
+    return FactorMemoryPrediction(
+        bytes=int(mb_total) * 10**6,
+        factor_entries=_infog_entries(F, 20),
+        flops=float(F.getMumpsRinfog(1)),
+        method=(f"MUMPS analysis estimate INFOG(17) = {mb_total} MB over {ranks} rank(s) "
+                f"(INFOG(16) = {mb_max} MB on the largest), before factorizing"),
+        confidence=float("nan"),  # not yet measured against the factorization's actual INFOG(19)
+    )
+
+
+class PetscEngine:
+    """The factorization and eigensolves of the scaled stiffness on PETSc, under MPI.
+
+    Parameters
+    ----------
+    comm : petsc4py.PETSc.Comm, optional
+        Default ``PETSc.COMM_WORLD`` (every rank of ``mpiexec``).
+    """
+
+    name = "petsc"
+
+    def __init__(self, comm=None):
+        PETSc, _ = _petsc()
+        if not PETSc.Sys.hasExternalPackage("mumps"):
+            raise ImportError("this PETSc was built without MUMPS, which the petsc engine needs")
+        self.comm = comm or PETSc.COMM_WORLD
+
+    def _scaled(self, K, active):
+        K = sp.csr_array(K)
+        if active is None:
+            from conditioning.stages.structure import rows_with_stiffness
+
+            active = rows_with_stiffness(K)
+        active = np.asarray(active, dtype=bool)
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            raise ValueError("the matrix has no stored nonzero entry")
+        s = diagonal_scaling(K)
+        Sa = sp.csr_array(scaled_matrix(K, s)[idx][:, idx])
+        Sa.eliminate_zeros()
+        return s, active, Sa
+
+    def predict_memory(self, K: sp.csr_array, active=None) -> FactorMemoryPrediction:
+        """Memory of the MUMPS factorization of S, from MUMPS' analysis alone (bytes, all ranks)."""
+        s, active, Sa = self._scaled(K, active)
+        A = distribute(Sa if self.comm.rank == 0 else None, self.comm)
+        ksp, F = _mumps_ldlt(A, Sa.shape[0] * EPS, analysis_only=True)
+        prediction = _memory_from_infog(F, self.comm.size)
+        ksp.destroy()
+        A.destroy()
+        return prediction
+
+    def factorize(self, K: sp.csr_array, *, shift: Optional[float] = None,
+                  active: Optional[NDArray[np.bool_]] = None) -> PetscFactorization:
+        """MUMPS LDL^T of S = D^-1/2 K D^-1/2 on the active rows, the scipy engine's shift policy.
+
+        Parameters
+        ----------
+        K : (n, n) sparse, symmetric, float64, the same on every rank
+            Stiffness in the model's units (only rank 0's S is scattered).
+        shift : float, optional
+            Factor S - shift*I as given. By default S is factored; when MUMPS
+            finds a null pivot (below n*eps*||S||), S - sigma*I is factored
+            instead, sigma = -sqrt(eps)*||S||_inf, and the result is singular.
+        active : (n,) bool, optional
+            Rows to factor (default: rows with any stored entry).
+
+        Returns
+        -------
+        PetscFactorization
+        """
+        s, active, Sa = self._scaled(K, active)
+        na = Sa.shape[0]
+        tol = na * EPS
+        t0 = time.perf_counter()
+        S = distribute(Sa, self.comm)
+        sigma = 0.0 if shift is None else float(shift)
+        ksp, F = _mumps_ldlt(_shifted(S, sigma), tol)
+        singular = na < active.size
+        if shift is None and F.getInertia()[1] > 0:
+            logger.info("MUMPS found %d null pivot(s): refactoring with a small negative shift",
+                        F.getInertia()[1])
+            ksp.destroy()
+            sigma = -np.sqrt(EPS) * float(abs(Sa).sum(axis=1).max())
+            ksp, F = _mumps_ldlt(_shifted(S, sigma), tol)
+            singular = True
+        seconds = time.perf_counter() - t0
+        fac = PetscFactorization(S, Sa, s, active, sigma, singular, ksp, F, seconds, tol)
+        logger.info("MUMPS LDL^T of %d rows on %d rank(s): inertia %s, %.2f s",
+                    na, self.comm.size, fac.inertia, seconds)
+        return fac
