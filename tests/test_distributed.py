@@ -24,8 +24,10 @@ pytest.importorskip("petsc4py", reason="petsc4py is not importable here; the PET
 pytest.importorskip("slepc4py", reason="slepc4py is not importable here (scripts/setup-petsc-engine.sh)")
 
 from conditioning import diagnose  # noqa: E402
+from conditioning.cli import main  # noqa: E402
+from conditioning.engine.base import Engine, Factorization, OwnEigensolver  # noqa: E402
 from conditioning.engine.petsc_engine import PetscEngine  # noqa: E402
-from conditioning.engine.scipy_engine import diagonal_scaling, scaled_matrix  # noqa: E402
+from conditioning.engine.scaling import diagonal_scaling, scale_stiffness, scaled_matrix  # noqa: E402
 from conditioning.io.load import load_model  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
@@ -54,7 +56,7 @@ def test_mumps_inertia_of_second_difference_closed_form():
     n = 10
     lam = 2 - 2 * np.cos(np.arange(1, n + 1) * np.pi / (n + 1))
     K = sp.csr_array(sp.diags([-np.ones(n - 1), 2 * np.ones(n), -np.ones(n - 1)], [-1, 0, 1]))
-    fac = PetscEngine().factorize(K)
+    fac = PetscEngine().factorize(scale_stiffness(K))
     # S = K / 2 (unit diagonal), so eigenvalues of S are lam / 2.
     assert fac.count_below(0.5 * (lam[2] + lam[3]) / 2) == 3
     assert fac.inertia == (0, 0, n)
@@ -67,7 +69,7 @@ def test_demo_model_engine_against_lapack(name):
     """Smallest eigenvalues of S (SLEPc, shift-and-invert on the MUMPS factor), lambda_max(S)
     and the inertia at the shift, against numpy.linalg.eigvalsh (LAPACK) of the dense S."""
     K = load_model(REPO / "matrices" / name).K
-    fac = PetscEngine().factorize(K)
+    fac = PetscEngine().factorize(scale_stiffness(K))
     lam = np.linalg.eigvalsh(_scaled_dense(K))  # LAPACK; the demo models have every row stiff
     values, vectors = fac.smallest_eigenpairs(6)
     # Agreement relative to ||S|| (null eigenvalues are round-off either way), and lambda_min
@@ -103,7 +105,7 @@ def test_demo_model_diagnosis_same_as_scipy_engine(name):
     if ref.condition.scaled_estimate is not None:
         assert got.condition.scaled_estimate == pytest.approx(ref.condition.scaled_estimate, rel=0.01)
     assert got.status == ref.status
-    assert got.decay.method.startswith("not available on this engine")
+    assert got.decay is None and got.skipped["diagonal decay"].startswith("not available on this engine")
 
 
 @pytest.mark.parametrize("name", REFERENCE)
@@ -118,7 +120,7 @@ def test_reference_matrix_same_as_scipy_engine_and_lapack(name):
         assert got.condition.scaled_estimate == pytest.approx(ref.condition.scaled_estimate, rel=0.01)
     K = load_model(path).K
     lam = np.linalg.eigvalsh(_scaled_dense(K))
-    fac = PetscEngine().factorize(K)
+    fac = PetscEngine().factorize(scale_stiffness(K))
     values, _ = fac.smallest_eigenpairs(4)
     np.testing.assert_allclose(values, lam[:4], rtol=1e-8, atol=1e-12 * lam[-1])
     assert fac.inertia[0] == int(np.count_nonzero(lam < fac.shift))
@@ -144,8 +146,48 @@ def test_memory_predicted_by_mumps_analysis():
     T = sp.diags([-np.ones(n - 1), 2 * np.ones(n), -np.ones(n - 1)], [-1, 0, 1])
     K = sp.csr_array(sp.kronsum(sp.kronsum(T, T), T))  # 3D Laplacian, 27,000 rows
     engine = PetscEngine()
-    predicted = engine.predict_memory(K)
-    fac = engine.factorize(K)
+    predicted = engine.predict_memory(scale_stiffness(K))
+    fac = engine.factorize(scale_stiffness(K))
     assert predicted.bytes > 0 and predicted.factor_entries > K.nnz // 2
     assert predicted.bytes == fac.memory.bytes
     assert "INFOG(17)" in predicted.method
+
+
+def test_engine_implements_the_interface():
+    """PetscEngine and its factorization satisfy main's protocols (conditioning.engine.base),
+    its own eigensolver through the optional OwnEigensolver capability; what it cannot
+    give is None, not made up."""
+    n = 12
+    K = sp.csr_array(sp.diags([-np.ones(n - 1), 2 * np.ones(n), -np.ones(n - 1)], [-1, 0, 1]))
+    engine = PetscEngine()
+    fac = engine.factorize(scale_stiffness(K))
+    assert isinstance(engine, Engine) and isinstance(fac, Factorization) and isinstance(fac, OwnEigensolver)
+    assert fac.pivots is None and fac.ordering_permutation() is None
+    # K^-1 f against LAPACK, one load and two at once
+    F = np.column_stack([np.ones(n), np.arange(n, dtype=float)])
+    X = np.linalg.solve(K.toarray(), F)
+    np.testing.assert_allclose(fac.solve(F), X, rtol=1e-12)
+    np.testing.assert_allclose(fac.solve(F[:, 0]), X[:, 0], rtol=1e-12)
+    fac.release()
+    with pytest.raises(RuntimeError):
+        fac.solve_active(np.ones(n))
+
+
+def test_digits_say_why_the_proof_was_not_attempted():
+    """The verified eigenvalue bound needs the engine's ordering, which MUMPS does not hand
+    back: the digits stage says so instead of certifying."""
+    report = diagnose(str(REPO / "matrices" / "mast_soft_spring.mtx"), samples=1, engine="petsc")
+    assert report.digits is not None
+    assert "shares no fill-reducing ordering" in str(report.digits.certification)
+
+
+def test_command_line_rank_zero_writes(tmp_path):
+    """conditioning diagnose --engine petsc under mpiexec: the exit status of the scipy
+    engine on every rank; the JSON written by rank 0 only."""
+    from petsc4py import PETSc
+
+    path = str(REPO / "matrices" / DEMO[0])
+    out = tmp_path / "report.json"
+    status = main(["diagnose", path, "--engine", "petsc", "--quiet", "--json", str(out)])
+    assert status == main(["diagnose", path, "--quiet"])
+    assert out.exists() == (PETSc.COMM_WORLD.rank == 0)

@@ -19,8 +19,14 @@ MUMPS' default (eps * 1e-5) a numerically singular S factors "successfully".
 PETSc 3.18 sets ICNTL(13) = 1 (no ScaLAPACK on the root front) itself when
 ICNTL(24) = 1, so the negative pivot count INFOG(12) is an exact inertia.
 
+Implements :class:`conditioning.engine.base.Engine`; its factorization
+implements :class:`conditioning.engine.base.Factorization` and the optional
+:class:`conditioning.engine.base.OwnEigensolver` (SLEPc on the same factor).
 What this engine cannot give: the pivots D of MUMPS' factor are not handed
-back through PETSc, so ``pivots`` is NaN and ``pivots_available`` False.
+back through PETSc, so ``pivots`` is None (the diagonal decay is reported as
+not available), and MUMPS' ordering is not handed back either, so
+``ordering_permutation()`` is None (the digits stage then skips its verified
+eigenvalue bound and says why).
 
 Requires petsc4py and slepc4py with MUMPS (scripts/setup-petsc-engine.sh).
 
@@ -44,7 +50,10 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.engine.scipy_engine import EPS, diagonal_scaling, scaled_matrix
+from conditioning.engine.base import FactorizationTooLarge
+from conditioning.engine.scaling import ScaledStiffness
+from conditioning.engine.scipy_engine import PREDICT_ABOVE
+from conditioning.linalg.floating_point import EPS
 from conditioning.results import FactorizationInfo, FactorMemoryPrediction
 
 logger = logging.getLogger(__name__)
@@ -74,7 +83,7 @@ def row_split(n: int, size: int) -> NDArray[np.intp]:
     return np.concatenate([[0], np.cumsum(counts)])
 
 
-def distribute(S: Optional[sp.csr_array], comm=None):
+def distribute(S: Optional[sp.csr_array], comm=None, *, replicated: bool = False):
     """S as a PETSc MPIAIJ matrix, rows split by :func:`row_split`.
 
     Parameters
@@ -82,6 +91,9 @@ def distribute(S: Optional[sp.csr_array], comm=None):
     S : (n, n) csr_array on rank 0 (other ranks may pass None or the same; only rank 0's is read)
         Dimensionless scaled stiffness; marked symmetric for MUMPS, which
         reads its upper triangle.
+    replicated : bool
+        Every rank holds the same S (the pipeline runs replicated): each
+        takes its own block rows, nothing is sent.
 
     Returns
     -------
@@ -91,11 +103,16 @@ def distribute(S: Optional[sp.csr_array], comm=None):
     comm = comm or PETSc.COMM_WORLD
     mpi = comm.tompi4py()
     blocks = None
-    if comm.rank == 0:
+    if replicated:
+        S = sp.csr_array(S)
+        edges = row_split(S.shape[0], comm.size)
+        n, local = S.shape[0], S[edges[comm.rank]:edges[comm.rank + 1]]
+    elif comm.rank == 0:
         S = sp.csr_array(S)
         edges = row_split(S.shape[0], comm.size)
         blocks = [(S.shape[0], S[edges[r]:edges[r + 1]]) for r in range(comm.size)]
-    n, local = mpi.scatter(blocks, root=0)
+    if not replicated:
+        n, local = mpi.scatter(blocks, root=0)
     local = sp.csr_array(local)
     local.sort_indices()
     A = PETSc.Mat().createAIJ(size=((local.shape[0], n), (local.shape[0], n)),
@@ -176,7 +193,11 @@ def _analysis(F, A) -> None:
 
 
 class PetscFactorization:
-    """MUMPS LDL^T of S - sigma*I on the active rows, with the scipy engine's attributes.
+    """MUMPS LDL^T of S - sigma*I on the active rows (implements
+    :class:`conditioning.engine.base.Factorization` and
+    :class:`conditioning.engine.base.OwnEigensolver`).
+
+    Every method is collective: call it on every rank, with the same arguments.
 
     Attributes
     ----------
@@ -188,10 +209,8 @@ class PetscFactorization:
         sigma factored (dimensionless); 0.0 unshifted.
     active : (n,) bool
         Rows in the factorization (rows with stiffness).
-    pivots : (n,) float64
-        NaN: MUMPS does not hand back its pivots through PETSc.
-    pivots_available : bool
-        False on this engine.
+    pivots : None
+        MUMPS does not hand back its pivots through PETSc.
     singular : bool
         True when S had null pivots (then S - sigma*I was factored) or K has
         rows without stiffness.
@@ -203,10 +222,9 @@ class PetscFactorization:
         MUMPS' analysis estimate, INFOG(17) MB over all ranks.
     """
 
-    pivots_available = False
+    pivots = None
 
     def __init__(self, A, S, scale, active, shift, singular, ksp, factor, seconds, null_pivot_tol):
-        PETSc, _ = _petsc()
         self._A, self._S, self._ksp, self._F = A, S, ksp, factor
         self._null_pivot_tol = null_pivot_tol
         self.n = int(scale.size)
@@ -215,7 +233,6 @@ class PetscFactorization:
         self.shift = float(shift)
         self.singular = bool(singular)
         self.inertia = tuple(int(c) for c in factor.getInertia())
-        self.pivots = np.full(self.n, np.nan)
         self.memory = _memory_from_infog(factor, A.getComm().size)
         self.info = FactorizationInfo(
             ordering=_ordering_name(factor.getMumpsInfog(7)),
@@ -229,11 +246,18 @@ class PetscFactorization:
 
     @property
     def comm(self):
+        """The PETSc communicator the factor lives on."""
         return self._A.getComm()
 
+    @property
+    def eigensolver(self) -> str:
+        """The eigensolvers used, in words for the report."""
+        return (f"SLEPc Krylov-Schur, shift-and-invert on the MUMPS factor (shift {self.shift:.3g}), "
+                f"Rayleigh-Ritz with S; SLEPc Krylov-Schur for lambda_max")
+
     def solve_active(self, B: NDArray[np.float64]) -> NDArray[np.float64]:
-        """(S_a - sigma*I)^-1 B for B (n_active,) or (n_active, k), the same on every rank;
-        dimensionless, the same on every rank."""
+        """(S_a - sigma*I)^-1 B for B (n_active,) or (n_active, k); dimensionless,
+        the same on every rank."""
         if self._ksp is None:
             raise RuntimeError("the factorization was released")
         B = np.asarray(B, dtype=np.float64)
@@ -264,12 +288,25 @@ class PetscFactorization:
         s = self.scale if F.ndim == 1 else self.scale[:, None]
         return s * self.solve_scaled(s * F)
 
-    def smallest_eigenpairs(self, k: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    def ordering_permutation(self) -> None:
+        """None: MUMPS' ordering is not handed back through PETSc."""
+        return None
+
+    def _start_vector(self, vec, rng) -> None:
+        """Fill the distributed ``vec`` with this rank's part of one normal vector drawn
+        from ``rng`` (every rank draws the same vector: the generators agree)."""
+        r0, r1 = vec.getOwnershipRange()
+        vec.setArray(np.random.default_rng(rng).standard_normal(vec.getSize())[r0:r1])
+
+    def smallest_eigenpairs(self, k: int, rng=0) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """The k eigenvalues of S nearest sigma, ascending (dimensionless), and their
-        unit eigenvectors (n_active, k), by SLEPc Krylov-Schur on (S - sigma*I)^-1
+        orthonormal eigenvectors (n_active, k), by SLEPc Krylov-Schur on (S - sigma*I)^-1
         applied with this factor (shift-and-invert, no second factorization),
-        then Rayleigh-Ritz with S on the converged vectors."""
+        then Rayleigh-Ritz with S on the converged vectors. Fewer than k pairs
+        when Krylov-Schur did not converge them all (logged)."""
         PETSc, SLEPc = _petsc()
+        if self._ksp is None:
+            raise RuntimeError("the factorization was released")
         ksp = self._ksp
 
         class _Inverse:  # y = (S - sigma*I)^-1 x with the MUMPS factor
@@ -287,11 +324,13 @@ class PetscFactorization:
         eps.setType(SLEPc.EPS.Type.KRYLOVSCHUR)
         eps.setDimensions(nev=min(k, na))
         eps.setTolerances(tol=EIGEN_TOL, max_it=1000)
+        v = op.createVecRight()
+        self._start_vector(v, rng)
+        eps.setInitialSpace([v])
         eps.solve()
         nconv = min(eps.getConverged(), k)
         if nconv < k:
             logger.warning("Krylov-Schur converged %d of %d eigenpairs to %.0e", nconv, k, EIGEN_TOL)
-        v = op.createVecRight()
         values = np.empty(nconv)
         vectors = np.empty((na, nconv))
         for i in range(nconv):
@@ -302,8 +341,10 @@ class PetscFactorization:
         op.destroy()
         return _rayleigh_ritz(self._S, vectors) if nconv else (values, vectors)
 
-    def largest_eigenvalue(self) -> float:
-        """lambda_max(S) (dimensionless) by SLEPc Krylov-Schur, relative tolerance LARGEST_TOL."""
+    def largest_eigenvalue(self, rng=0) -> float:
+        """lambda_max(S) (dimensionless) by SLEPc Krylov-Schur, relative tolerance
+        :data:`LARGEST_TOL`; NaN when it did not converge (logged). Needs S only,
+        so it works after :meth:`release`."""
         _, SLEPc = _petsc()
         eps = SLEPc.EPS().create(self.comm)
         eps.setOperators(self._A)
@@ -311,17 +352,20 @@ class PetscFactorization:
         eps.setWhichEigenpairs(SLEPc.EPS.Which.LARGEST_REAL)
         eps.setDimensions(nev=1)
         eps.setTolerances(tol=LARGEST_TOL, max_it=1000)
+        v = self._A.createVecRight()
+        self._start_vector(v, rng)
+        eps.setInitialSpace([v])
         eps.solve()
-        if eps.getConverged() < 1:
+        value = float(eps.getEigenvalue(0).real) if eps.getConverged() >= 1 else float("nan")
+        if not np.isfinite(value):
             logger.warning("Krylov-Schur did not converge to lambda_max within %.0e", LARGEST_TOL)
-            return float("nan")
-        value = float(eps.getEigenvalue(0).real)
         eps.destroy()
         return value
 
     def count_below(self, c: float) -> Optional[int]:
         """Eigenvalues of S (active rows) below c: the negative pivots of a new MUMPS
-        LDL^T of S - c*I (Sylvester's law of inertia); None when S - c*I has null pivots."""
+        LDL^T of S - c*I (Sylvester's law of inertia, MUMPS ordering it anew); None
+        when S - c*I has null pivots."""
         A = _shifted(self._A, float(c))
         ksp, F = _mumps_ldlt(A, self._null_pivot_tol)
         negative, zero, _ = F.getInertia()
@@ -331,8 +375,9 @@ class PetscFactorization:
         return None if zero else int(negative)
 
     def release(self) -> None:
-        """Free the factors; ``inertia``, ``info`` stay; solves and eigensolves no longer work,
-        :meth:`count_below` and :meth:`largest_eigenvalue` still do (they need only S)."""
+        """Free the factors; ``inertia``, ``info`` stay; solves and the smallest eigenpairs
+        no longer work, :meth:`count_below` and :meth:`largest_eigenvalue` still do
+        (they need only S)."""
         if self._ksp is not None:
             self._ksp.destroy()
             self._ksp = None
@@ -365,7 +410,11 @@ def _memory_from_infog(F, ranks: int) -> FactorMemoryPrediction:
 
 
 class PetscEngine:
-    """The factorization and eigensolves of the scaled stiffness on PETSc, under MPI.
+    """MUMPS LDL^T and SLEPc eigensolvers of the scaled stiffness on PETSc, under MPI
+    (implements :class:`conditioning.engine.base.Engine`).
+
+    Every rank of ``mpiexec`` runs the same diagnosis on the same model; the
+    engine's calls are collective, and their results are the same on every rank.
 
     Parameters
     ----------
@@ -381,58 +430,54 @@ class PetscEngine:
             raise ImportError("this PETSc was built without MUMPS, which the petsc engine needs")
         self.comm = comm or PETSc.COMM_WORLD
 
-    def _scaled(self, K, active):
-        K = sp.csr_array(K)
-        if active is None:
-            from conditioning.stages.structure import rows_with_stiffness
-
-            active = rows_with_stiffness(K)
-        active = np.asarray(active, dtype=bool)
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
+    def predict_memory(self, scaled: ScaledStiffness,
+                       coords: Optional[NDArray[np.float64]] = None) -> FactorMemoryPrediction:
+        """Peak memory of the MUMPS factorization of S (bytes, summed over all ranks),
+        from MUMPS' analysis alone (INFOG(17)); ``coords`` is not used (MUMPS orders
+        by the pattern)."""
+        Sa = scaled.S
+        if Sa.shape[0] == 0:
             raise ValueError("the matrix has no stored nonzero entry")
-        s = diagonal_scaling(K)
-        Sa = sp.csr_array(scaled_matrix(K, s)[idx][:, idx])
-        Sa.eliminate_zeros()
-        return s, active, Sa
-
-    def predict_memory(self, K: sp.csr_array, active=None) -> FactorMemoryPrediction:
-        """Memory of the MUMPS factorization of S, from MUMPS' analysis alone (bytes, all ranks)."""
-        s, active, Sa = self._scaled(K, active)
-        A = distribute(Sa if self.comm.rank == 0 else None, self.comm)
+        A = distribute(Sa, self.comm, replicated=True)
         ksp, F = _mumps_ldlt(A, Sa.shape[0] * EPS, analysis_only=True)
         prediction = _memory_from_infog(F, self.comm.size)
         ksp.destroy()
         A.destroy()
         return prediction
 
-    def factorize(self, K: sp.csr_array, *, shift: Optional[float] = None,
-                  active: Optional[NDArray[np.bool_]] = None) -> PetscFactorization:
-        """MUMPS LDL^T of S = D^-1/2 K D^-1/2 on the active rows, the scipy engine's shift policy.
+    def factorize(self, scaled: ScaledStiffness, *, shift: Optional[float] = None,
+                  coords: Optional[NDArray[np.float64]] = None,
+                  memory_limit: Optional[int] = None) -> PetscFactorization:
+        """MUMPS LDL^T of S - sigma*I under the shift policy of :mod:`conditioning.engine.base`.
 
-        Parameters
-        ----------
-        K : (n, n) sparse, symmetric, float64, the same on every rank
-            Stiffness in the model's units (only rank 0's S is scattered).
-        shift : float, optional
-            Factor S - shift*I as given. By default S is factored; when MUMPS
-            finds a null pivot (below n*eps*||S||), S - sigma*I is factored
-            instead, sigma = -sqrt(eps)*||S||_inf, and the result is singular.
-        active : (n,) bool, optional
-            Rows to factor (default: rows with any stored entry).
+        A null pivot found by MUMPS (row below n*eps*||S||, CNTL(3)) plays the
+        scipy engine's tiny pivot: S - sigma*I is then factored with
+        sigma = -sqrt(eps)*||S||_inf and the result is singular. ``coords`` is
+        not used (MUMPS orders by the pattern). With ``memory_limit`` (bytes)
+        and more than :data:`conditioning.engine.scipy_engine.PREDICT_ABOVE`
+        active rows, MUMPS' analysis predicts the memory first (one more
+        analysis) and :class:`FactorizationTooLarge` is raised, on every rank,
+        when the sum over the ranks exceeds the limit.
 
         Returns
         -------
         PetscFactorization
         """
-        s, active, Sa = self._scaled(K, active)
+        Sa = scaled.S
         na = Sa.shape[0]
+        if na == 0:
+            raise ValueError("the matrix has no stored nonzero entry")
+        if memory_limit is not None and na > PREDICT_ABOVE:
+            prediction = self.predict_memory(scaled)
+            logger.info("predicted factor memory %.2f GiB (%s)", prediction.bytes / 2**30, prediction.method)
+            if prediction.bytes > memory_limit:  # INFOG(17) is global: every rank raises
+                raise FactorizationTooLarge(prediction, memory_limit)
         tol = na * EPS
         t0 = time.perf_counter()
-        S = distribute(Sa, self.comm)
+        S = distribute(Sa, self.comm, replicated=True)
         sigma = 0.0 if shift is None else float(shift)
         ksp, F = _mumps_ldlt(_shifted(S, sigma), tol)
-        singular = na < active.size
+        singular = na < scaled.n
         if shift is None and F.getInertia()[1] > 0:
             logger.info("MUMPS found %d null pivot(s): refactoring with a small negative shift",
                         F.getInertia()[1])
@@ -441,7 +486,7 @@ class PetscEngine:
             ksp, F = _mumps_ldlt(_shifted(S, sigma), tol)
             singular = True
         seconds = time.perf_counter() - t0
-        fac = PetscFactorization(S, Sa, s, active, sigma, singular, ksp, F, seconds, tol)
+        fac = PetscFactorization(S, Sa, scaled.scale, scaled.active, sigma, singular, ksp, F, seconds, tol)
         logger.info("MUMPS LDL^T of %d rows on %d rank(s): inertia %s, %.2f s",
                     na, self.comm.size, fac.inertia, seconds)
         return fac
