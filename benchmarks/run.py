@@ -17,7 +17,10 @@ allows it):
 * ``diagnose``: conditioning.diagnose on the exported files, per stage;
 * ``iterative``: the factorization-free spectrum (models whose predicted
   factor does not fit, and the free variants at small sizes);
-* ``ddspmv``: the double-double residual K x against float64 K @ x.
+* ``ddspmv``: the double-double residual K x against float64 K @ x;
+* ``petsc1``, ``petsc2`` (``--sizes engines``): ``diagnose`` with
+  ``engine="petsc"`` under ``mpiexec -n 1`` and ``-n 2`` (run the harness with
+  the engine's Python, scripts/setup-petsc-engine.sh; peaks are rank 0's).
 
 Results are printed as they come and appended, one JSON object per job, to
 ``--out``. Development runs: ``--sizes small`` (about a minute).
@@ -45,7 +48,11 @@ SIZES = {
     "small": [("plate", 70, False), ("cube", 10, False), ("plate", 70, True), ("cube", 10, True)],
     "medium": [("plate", 158, False), ("cube", 20, False), ("cube", 20, True)],
     "full": [("plate", 300, False), ("cube", 32, False), ("plate", 707, False), ("cube", 46, False)],
+    # the PETSc engine beside the scipy engine (issue 13): 180k plate, 51k and 105k cubes
+    "engines": [("plate", 300, False), ("cube", 25, False), ("cube", 32, False)],
 }
+#: Jobs that run ``diagnose`` on the PETSc engine, and their number of MPI ranks.
+PETSC_RANKS = {"petsc1": 1, "petsc2": 2}
 ORDERING_SIZES = ("tiny", "small", "medium")
 
 
@@ -200,7 +207,7 @@ def job_diagnose(args, paths):
             m.stop(stage)
 
     report = conditioning.diagnose(paths["K"], dofs=paths["dofs"], coords=paths["coords"],
-                                   load=paths["load"], progress=progress)
+                                   load=paths["load"], progress=progress, engine=args.engine)
     fi = report.factorization
     return m.result(status=report.status, modes=report.spectrum.count if report.spectrum else None,
                     ordering=fi.ordering if fi else None, fill=fi.fill if fi else None,
@@ -303,8 +310,12 @@ def machine() -> dict:
 
 def run_child(job: str, spec, directory: Path, paths, timeout: float) -> dict:
     kind, n, free = spec
-    cmd = [sys.executable, str(Path(__file__).resolve()), "--job", job, "--kind", kind, "--n", str(n),
-           "--dir", str(directory)] + (["--free"] if free else [])
+    mpi = []
+    if job in PETSC_RANKS:  # diagnose on the PETSc engine under mpiexec
+        mpi = ["mpiexec", "-n", str(PETSC_RANKS[job])]
+        job = "diagnose --engine petsc"
+    cmd = mpi + [sys.executable, str(Path(__file__).resolve()), "--job", *job.split(), "--kind", kind,
+                 "--n", str(n), "--dir", str(directory)] + (["--free"] if free else [])
     if paths:
         cmd += ["--paths", json.dumps({k: str(v) for k, v in paths.items()})]
     t0 = time.perf_counter()
@@ -447,6 +458,7 @@ def main(argv=None) -> int:
     p.add_argument("--jobs", default="baseline,predict,diagnose,orderings,iterative,ddspmv")
     p.add_argument("--tables", default=None, help="print Markdown tables of a results file and exit")
     p.add_argument("--job", help=argparse.SUPPRESS)
+    p.add_argument("--engine", default="scipy", help=argparse.SUPPRESS)
     p.add_argument("--kind", help=argparse.SUPPRESS)
     p.add_argument("--n", type=int, help=argparse.SUPPRESS)
     p.add_argument("--free", action="store_true", help=argparse.SUPPRESS)
@@ -488,7 +500,7 @@ def main(argv=None) -> int:
             plan = run_child("predict", spec, directory, paths, args.timeout) if "predict" in wanted else {}
             results["predict"] = plan
             fits = plan.get("fits", True)
-            for job in ("baseline", "diagnose", "orderings", "iterative", "ddspmv"):
+            for job in ("baseline", "diagnose", "orderings", "iterative", "ddspmv", *PETSC_RANKS):
                 if job not in wanted:
                     continue
                 if job == "orderings" and args.sizes not in ORDERING_SIZES:
