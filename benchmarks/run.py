@@ -17,7 +17,10 @@ allows it):
 * ``diagnose``: conditioning.diagnose on the exported files, per stage;
 * ``iterative``: the factorization-free spectrum (models whose predicted
   factor does not fit, and the free variants at small sizes);
-* ``ddspmv``: the double-double residual K x against float64 K @ x.
+* ``ddspmv``: the double-double residual K x against float64 K @ x;
+* ``petsc1``, ``petsc2`` (``--sizes engines``): ``diagnose`` with
+  ``engine="petsc"`` under ``mpiexec -n 1`` and ``-n 2`` (run the harness with
+  the engine's Python, scripts/setup-petsc-engine.sh; peaks are rank 0's).
 
 Results are printed as they come and appended, one JSON object per job, to
 ``--out``. Development runs: ``--sizes small`` (about a minute).
@@ -47,7 +50,11 @@ SIZES = {
     "full": [("plate", 300, False), ("cube", 32, False), ("plate", 707, False), ("cube", 46, False)],
     # the sizes the certified-digits goal names: 2D 180k and 3D ~54k rows
     "certify": [("plate", 300, False), ("cube", 26, False)],
+    # the PETSc engine beside the scipy engine (issue 13): 180k plate, 51k and 105k cubes
+    "engines": [("plate", 300, False), ("cube", 25, False), ("cube", 32, False)],
 }
+#: Jobs that run ``diagnose`` on the PETSc engine, and their number of MPI ranks.
+PETSC_RANKS = {"petsc1": 1, "petsc2": 2}
 ORDERING_SIZES = ("tiny", "small", "medium")
 
 
@@ -202,7 +209,7 @@ def job_diagnose(args, paths):
             m.stop(stage)
 
     report = conditioning.diagnose(paths["K"], dofs=paths["dofs"], coords=paths["coords"],
-                                   load=paths["load"], progress=progress)
+                                   load=paths["load"], progress=progress, engine=args.engine)
     fi = report.factorization
     dg = report.digits
     return m.result(status=report.status, modes=report.spectrum.count if report.spectrum else None,
@@ -329,7 +336,10 @@ def machine() -> dict:
 
         info["blas"] = [(d.get("internal_api"), d.get("version"), d.get("num_threads")) for d in threadpool_info()]
     except ImportError:
-        cfg = numpy.show_config(mode="dicts") if hasattr(numpy, "show_config") else {}
+        try:
+            cfg = numpy.show_config(mode="dicts")
+        except TypeError:  # numpy < 1.25 prints its config and takes no mode
+            cfg = {}
         try:
             blas = cfg["Build Dependencies"]["blas"]
             info["blas"] = f"{blas.get('name')} {blas.get('version')} (numpy build config; threadpoolctl absent)"
@@ -340,8 +350,12 @@ def machine() -> dict:
 
 def run_child(job: str, spec, directory: Path, paths, timeout: float) -> dict:
     kind, n, free = spec
-    cmd = [sys.executable, str(Path(__file__).resolve()), "--job", job, "--kind", kind, "--n", str(n),
-           "--dir", str(directory)] + (["--free"] if free else [])
+    mpi = []
+    if job in PETSC_RANKS:  # diagnose on the PETSc engine under mpiexec
+        mpi = ["mpiexec", "-n", str(PETSC_RANKS[job])]
+        job = "diagnose --engine petsc"
+    cmd = mpi + [sys.executable, str(Path(__file__).resolve()), "--job", *job.split(), "--kind", kind,
+                 "--n", str(n), "--dir", str(directory)] + (["--free"] if free else [])
     if paths:
         cmd += ["--paths", json.dumps({k: str(v) for k, v in paths.items()})]
     t0 = time.perf_counter()
@@ -484,6 +498,7 @@ def main(argv=None) -> int:
     p.add_argument("--jobs", default="baseline,predict,diagnose,orderings,iterative,ddspmv")
     p.add_argument("--tables", default=None, help="print Markdown tables of a results file and exit")
     p.add_argument("--job", help=argparse.SUPPRESS)
+    p.add_argument("--engine", default="scipy", help=argparse.SUPPRESS)
     p.add_argument("--kind", help=argparse.SUPPRESS)
     p.add_argument("--n", type=int, help=argparse.SUPPRESS)
     p.add_argument("--free", action="store_true", help=argparse.SUPPRESS)
@@ -525,7 +540,7 @@ def main(argv=None) -> int:
             plan = run_child("predict", spec, directory, paths, args.timeout) if "predict" in wanted else {}
             results["predict"] = plan
             fits = plan.get("fits", True)
-            for job in ("baseline", "diagnose", "certify", "orderings", "iterative", "ddspmv"):
+            for job in ("baseline", "diagnose", "certify", "orderings", "iterative", "ddspmv", *PETSC_RANKS):
                 if job not in wanted:
                     continue
                 if job == "orderings" and args.sizes not in ORDERING_SIZES:

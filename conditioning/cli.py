@@ -19,7 +19,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Iterator, Optional, Sequence
 
 from conditioning import results
-from conditioning.command_line import UsageError, parse
+from conditioning.command_line import UsageError, parse, written_by_rank_zero
 from conditioning.errors import ConditioningError
 
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
@@ -78,7 +78,7 @@ def diagnose_model(model, **kwargs) -> results.Report:
 
 def _diagnosed(path: str, args, progress) -> results.Report:
     return diagnose_model(_load(path, args, progress), seed=args.seed, samples=args.samples,
-                          min_digits=args.min_digits, progress=progress)
+                          min_digits=args.min_digits, progress=progress, engine=args.engine)
 
 
 def _write(report: results.Report, *, json=None, html=None, modes_vtk=None, modes_csv=None) -> None:
@@ -168,9 +168,9 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     verbose = 0
     try:
         args = parse(argv)
-        verbose = args.verbose
-        _configure_logging(verbose, quiet=args.quiet)
-        return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare}[args.command](args)
+        _configure_logging(verbose := args.verbose, quiet=args.quiet)
+        with written_by_rank_zero(args):
+            return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare}[args.command](args)
     except SystemExit as exc:  # --help, --version
         return int(exc.code or 0) if not isinstance(exc.code, str) else EXIT_INPUT
     except BrokenPipeError:  # the reader went away (| head): stop quietly, as other filters do

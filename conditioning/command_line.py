@@ -9,9 +9,15 @@ a file is read.
 from __future__ import annotations
 
 import argparse
+import importlib.util
 import math
+import os
+from contextlib import contextmanager, redirect_stderr, redirect_stdout
 from pathlib import Path
-from typing import Optional, Sequence
+from typing import Iterator, Optional, Sequence
+
+#: Engines of ``--engine`` (conditioning.engine.ENGINES, named here so that --help imports no numerics).
+ENGINES = ("scipy", "petsc")
 
 
 class UsageError(Exception):
@@ -46,6 +52,9 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
                    help="seed of the random load samples (default 0)")
     r.add_argument("--samples", metavar="N", type=int, default=3,
                    help="number of random load samples (default 3)")
+    r.add_argument("--engine", choices=ENGINES, default="scipy",
+                   help="sparse direct solver: scipy (SuperLU, default) or petsc (MUMPS and SLEPc; run "
+                        "under mpiexec, environment from scripts/setup-petsc-engine.sh)")
     o = p.add_argument_group("output")
     o.add_argument("--quiet", "-q", action="store_true", help="print only the verdict; no progress bars")
     o.add_argument("--verbose", "-v", action="count", default=0,
@@ -121,3 +130,26 @@ def check_options(args) -> None:
         raise UsageError("--modes-vtk needs a DOF map (--dofs or --dofs-per-node)")
     if getattr(args, "modes_vtk", None) and args.coords is None:
         raise UsageError("--modes-vtk needs node coordinates (--coords)")
+    missing = [m for m in ("petsc4py", "slepc4py") if importlib.util.find_spec(m) is None]
+    if getattr(args, "engine", "scipy") == "petsc" and missing:
+        raise UsageError(f"--engine petsc needs {' and '.join(missing)}, not importable here; "
+                         "build the engine's environment with scripts/setup-petsc-engine.sh VENV")
+
+
+@contextmanager
+def written_by_rank_zero(args) -> Iterator[None]:
+    """Under ``--engine petsc`` every rank of ``mpiexec`` computes the same report:
+    rank 0 prints it and writes the files, the other ranks' output goes to
+    os.devnull (their exit status is the same)."""
+    if getattr(args, "engine", "scipy") != "petsc":
+        yield
+        return
+    from petsc4py import PETSc
+
+    if PETSc.COMM_WORLD.rank == 0:
+        yield
+        return
+    for opt in ("json", "html", "modes_vtk", "modes_csv"):
+        setattr(args, opt, None)
+    with open(os.devnull, "w") as null, redirect_stdout(null), redirect_stderr(null):
+        yield

@@ -27,10 +27,10 @@ from typing import Callable, Optional, Union
 
 import numpy as np
 
+from conditioning.engine import engine_named
 from conditioning.engine.base import Engine, FactorizationTooLarge
 from conditioning.engine.memory import memory_limit as default_memory_limit
 from conditioning.engine.scaling import scale_stiffness
-from conditioning.engine.scipy_engine import ScipyEngine
 from conditioning.io.load import load_model
 from conditioning.stages.geometry import model_geometry
 from conditioning.model import DOF_NAMES, Model
@@ -41,7 +41,7 @@ from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
-from conditioning.stages.pivots import diagonal_decay
+from conditioning.stages.pivots import diagonal_decay, pivots_unavailable
 from conditioning.stages.restraints import suggest_restraints
 from conditioning.stages.spectrum import inertia_check, smallest_eigenpairs, spectrum_result, with_inertia
 from conditioning.stages.structure import check_structure
@@ -111,7 +111,7 @@ def diagnose(
     measure: bool = True,
     memory_limit: Optional[int] = None,
     progress: Optional[ProgressCallback] = None,
-    engine: Optional[Engine] = None,
+    engine: Union[Engine, str, None] = None,
 ) -> Report:
     """Diagnose a stiffness matrix: supports, modes, condition, jumps, digits.
 
@@ -143,10 +143,13 @@ def diagnose(
         and the report says what that path could not do.
     progress : callable, optional
         ``progress(stage, fraction)``, for progress bars.
-    engine : Engine, optional
-        The sparse direct solver (:class:`conditioning.engine.base.Engine`);
-        default :class:`conditioning.engine.scipy_engine.ScipyEngine` with
-        ``ordering``.
+    engine : Engine or "scipy" or "petsc", optional
+        The sparse direct solver (:class:`conditioning.engine.base.Engine`),
+        or its name (:func:`conditioning.engine.engine_named`); default
+        :class:`conditioning.engine.scipy_engine.ScipyEngine` with
+        ``ordering``. With "petsc" (MUMPS and SLEPc) run this call on every
+        rank of ``mpiexec`` with the same model: the report is the same on
+        every rank.
 
     Returns
     -------
@@ -172,7 +175,7 @@ def diagnose(
     run = _Run(
         stage=stage, rng=np.random.default_rng(seed), seed=seed, samples=samples, min_digits=min_digits,
         measure=measure, memory_limit=default_memory_limit() if memory_limit is None else memory_limit,
-        engine=ScipyEngine(ordering) if engine is None else engine,
+        engine=_engine(engine, ordering),
     )
     with stage("structure"):
         structure = check_structure(model)
@@ -190,6 +193,13 @@ def diagnose(
     return restore_report(model, structure, summarize(model), jumps, inner, keep, min_digits=min_digits)
 
 
+def _engine(engine: Union[Engine, str, None], ordering) -> Engine:
+    """diagnose's ``engine`` argument as an engine: a name is made, with ``ordering`` for scipy's."""
+    if engine is None or engine == "scipy":
+        return engine_named("scipy", ordering=ordering)
+    return engine_named(engine) if isinstance(engine, str) else engine
+
+
 @dataclass
 class _Run:
     """What every stage of one diagnosis shares: options, timer and the one generator."""
@@ -202,6 +212,15 @@ class _Run:
     measure: bool
     memory_limit: int
     engine: Engine
+
+
+def _spawn(rng: np.random.Generator, n: int) -> list[np.random.Generator]:
+    """``rng.spawn(n)``: n independent child generators (the same streams on numpy 1.24,
+    which the PETSc engine's environment runs and which lacks ``Generator.spawn``)."""
+    if hasattr(rng, "spawn"):
+        return rng.spawn(n)
+    bits = rng.bit_generator
+    return [np.random.Generator(type(bits)(seed)) for seed in bits._seed_seq.spawn(n)]
 
 
 #: What the diagnosis loses without a factorization: stage -> what is missing, and why.
@@ -229,7 +248,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         skipped.update(WITHOUT_FACTORIZATION)
     # Independent streams for the stages that draw start vectors, so that the
     # random loads (drawn from run.rng itself) do not move when they change.
-    spectrum_rng, condition_rng = run.rng.spawn(2)
+    spectrum_rng, condition_rng = _spawn(run.rng, 2)
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
     with stage("modes"):
@@ -244,8 +263,11 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         restraints = _restraints(model, structure, located)
     decay = digits = None
     if fac is not None:
-        with stage("diagonal decay"):
-            decay = diagonal_decay(model, fac)
+        if pivots_unavailable(fac):  # an engine without pivots (MUMPS through PETSc)
+            skipped["diagonal decay"] = pivots_unavailable(fac)
+        else:
+            with stage("diagonal decay"):
+                decay = diagonal_decay(model, fac)
         if run.measure:
             with stage("digits"):
                 digits = measure_digits(model, fac, condition=condition, spectrum=spectrum, samples=run.samples,

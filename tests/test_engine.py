@@ -105,6 +105,7 @@ class DenseEngine:
     """The shift policy of conditioning.engine.base on a dense LU."""
 
     name = "dense (test)"
+    factorization = DenseFactorization
 
     def __init__(self):
         self.factorizations = []
@@ -119,7 +120,7 @@ class DenseEngine:
         sigma = 0.0 if shift is None else float(shift)
         if shift is None and np.min(np.abs(np.linalg.eigvalsh(S))) <= S.shape[0] * EPS * norm_inf:
             sigma, singular = -np.sqrt(EPS) * norm_inf, True
-        fac = DenseFactorization(scaled, sigma, singular)
+        fac = self.factorization(scaled, sigma, singular)
         self.factorizations.append(fac)
         return fac
 
@@ -270,3 +271,87 @@ def test_one_norm_estimate_second_difference_inverse():
     exact = float(np.abs(Tinv).sum(axis=0).max())
     np.testing.assert_allclose(Tinv @ T, np.eye(n), atol=1e-10)
     assert one_norm_estimate(lambda X: Tinv @ X, lambda X: Tinv.T @ X, n, t=2, rng=1) == pytest.approx(exact)
+
+
+# ------------------------------------------ what an engine may lack, and what it may add
+class NoPivotsEngine(DenseEngine):
+    """The dense engine with its pivots withheld, as MUMPS through PETSc withholds them."""
+
+    name = "dense without pivots (test)"
+
+    def factorize(self, scaled, **kwargs):
+        fac = super().factorize(scaled, **kwargs)
+        fac.pivots = None
+        return fac
+
+
+class DenseEigensolverFactorization(DenseFactorization):
+    """The dense factorization with its own eigensolver (LAPACK syevd on S), as the
+    PETSc engine's has SLEPc: the optional OwnEigensolver capability."""
+
+    eigensolver = "LAPACK syevd of the dense S (test eigensolver)"
+
+    def smallest_eigenpairs(self, k, rng):
+        self.eigensolves = getattr(self, "eigensolves", 0) + 1
+        w, V = np.linalg.eigh(self._A)
+        nearest = np.sort(np.argsort(np.abs(w - self.shift))[:k])
+        return w[nearest], V[:, nearest]
+
+    def largest_eigenvalue(self, rng):
+        return float(np.linalg.eigvalsh(self._A)[-1])
+
+
+class DenseEigensolverEngine(DenseEngine):
+    name = "dense with an eigensolver (test)"
+    factorization = DenseEigensolverFactorization
+
+
+def test_engine_without_pivots_reports_the_decay_as_not_available():
+    """pivots None (an engine that does not expose them): the diagonal decay is not run,
+    Report.skipped says why, the terminal shows it; every other figure as the scipy engine's."""
+    from conditioning.render.terminal import render_text
+
+    model = truss_strip(12, supported=True)
+    reference = conditioning.diagnose(model, seed=3)
+    report = conditioning.diagnose(model, seed=3, engine=NoPivotsEngine())
+    assert report.decay is None
+    assert report.skipped["diagonal decay"].startswith("not available on this engine")
+    assert "not measured: not available on this engine" in render_text(report, width=200)
+    assert report.condition.estimate == pytest.approx(reference.condition.estimate, rel=1e-9)
+    assert report.status == reference.status
+
+
+def test_engine_eigensolver_plugs_into_the_spectrum_stage():
+    """A factorization with the OwnEigensolver capability is asked for the eigenpairs
+    above the dense limit (1204 rows here) instead of ARPACK; the free strip's 3
+    rigid-body modes (textbook count for an unsupported plane body) and the scaled
+    condition figures agree with the scipy engine's."""
+    from conditioning.engine.base import OwnEigensolver
+
+    model = truss_strip(300, supported=False)
+    engine = DenseEigensolverEngine()
+    report = conditioning.diagnose(model, measure=False, engine=engine)
+    reference = conditioning.diagnose(model, measure=False)
+    fac = engine.factorizations[0]
+    assert isinstance(fac, OwnEigensolver) and not isinstance(scipy_engine.factorize(model.K), OwnEigensolver)
+    assert fac.eigensolves >= 1
+    assert report.spectrum.method.startswith("LAPACK syevd of the dense S (test eigensolver)")
+    assert report.spectrum.count == reference.spectrum.count == 3
+    # Both are accurate to a few eps*||S|| absolutely (||S|| <= 2 with a unit diagonal).
+    np.testing.assert_allclose(report.spectrum.smallest[3:5], reference.spectrum.smallest[3:5], rtol=0, atol=1e-13)
+
+
+def test_petsc_engine_refused_where_petsc4py_is_missing(capsys):
+    """--engine petsc without petsc4py: one line saying how to get it, exit status 2."""
+    import importlib.util
+
+    if importlib.util.find_spec("petsc4py") is not None:
+        pytest.skip("petsc4py is importable here (tests/test_distributed.py runs the engine)")
+    from pathlib import Path
+
+    from conditioning.cli import main
+
+    path = Path(__file__).resolve().parents[1] / "matrices" / "footbridge.mtx"
+    assert main(["diagnose", str(path), "--engine", "petsc"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("conditioning: error: --engine petsc needs petsc4py") and len(err.splitlines()) == 1

@@ -81,9 +81,12 @@ class Factorization(Protocol):
         sigma actually factored (dimensionless, S's scale); 0.0 unshifted.
     active : (n,) bool
         Rows in the factorization (rows with stiffness).
-    pivots : (n,) float64
+    pivots : (n,) float64 or None
         Pivot of each row of S - sigma*I in the original row order
         (dimensionless); 0 for inactive rows. Kept after :meth:`release`.
+        None when the engine does not expose the pivots of its factor
+        (MUMPS through PETSc): the diagonal-decay stage then does not run and
+        the report says why (:func:`conditioning.stages.pivots.pivots_unavailable`).
     singular : bool
         True when S had no usable unshifted factorization or K has rows
         without stiffness: :meth:`solve` is then refused.
@@ -95,7 +98,7 @@ class Factorization(Protocol):
     scale: NDArray[np.float64]
     shift: float
     active: NDArray[np.bool_]
-    pivots: NDArray[np.float64]
+    pivots: Optional[NDArray[np.float64]]
     singular: bool
     info: FactorizationInfo
 
@@ -123,6 +126,34 @@ class Factorization(Protocol):
         """The fill-reducing ordering of the active rows (S_a[p][:, p] is what was
         factored), for another factorization to reuse; None when the engine
         does not expose it."""
+
+
+@runtime_checkable
+class OwnEigensolver(Protocol):
+    """Optional capability of a :class:`Factorization`: the engine's own eigensolver.
+
+    A factorization that has these members is asked by the spectrum stage
+    (:func:`conditioning.stages.spectrum.smallest_eigenpairs`) for the
+    eigenpairs of S instead of running ARPACK on :meth:`Factorization.solve_active`;
+    one that has not (the scipy engine) gets ARPACK. Used by the PETSc engine,
+    whose solves are collective MPI calls and whose eigensolver (SLEPc) works
+    on the distributed vectors.
+    """
+
+    eigensolver: str
+    """How :meth:`smallest_eigenpairs` and :meth:`largest_eigenvalue` compute, in
+    words for the report's ``method``."""
+
+    def smallest_eigenpairs(self, k: int, rng: np.random.Generator
+                            ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """The k eigenvalues of S (active rows) nearest the factorization's shift,
+        ascending (dimensionless), and orthonormal eigenvectors (n_active, k),
+        with this factor (shift-and-invert); ``rng`` draws the start vector.
+        Fewer than k when the solver did not converge them all."""
+
+    def largest_eigenvalue(self, rng: np.random.Generator) -> float:
+        """lambda_max(S) (dimensionless), to at least 3 significant digits; ``rng``
+        draws the start vector. Works after :meth:`Factorization.release`."""
 
 
 @runtime_checkable

@@ -208,6 +208,8 @@ def _jumps(r: results.Report) -> str:
 
 def _decay(r: results.Report) -> str:
     d = r.decay
+    if d is None and "diagonal decay" in r.skipped:  # e.g. an engine without pivots: said, not hidden
+        return f"<h2>Diagonal decay</h2><p>Not measured: {_e(r.skipped['diagonal decay'])}</p>"
     if d is None or not d.worst:
         return ""
     negative = {e.row for e in d.negative_pivots}

@@ -265,6 +265,8 @@ def _jumps(r: results.Report, max_ids: int):
 
 def _decay(r: results.Report):
     d = r.decay
+    if d is None and "diagonal decay" in r.skipped:  # e.g. an engine without pivots: said, not hidden
+        return Text(f"not measured: {r.skipped['diagonal decay']}", style="dim")
     if d is None or not d.worst:
         return None
     g = _grid()

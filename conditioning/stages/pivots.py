@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import logging
 import math
+from typing import Optional
 
 import numpy as np
 
@@ -34,6 +35,15 @@ _METHOD_REFERENCE = (
     "(e.g. Cook, Malkus, Plesha, Witt, Concepts and Applications of Finite "
     "Element Analysis; from memory)"
 )
+
+
+def pivots_unavailable(fac: Factorization) -> Optional[str]:
+    """Why the diagonal decay cannot be measured on ``fac``, in words for the
+    report (``Report.skipped["diagonal decay"]``); None when its pivots are there."""
+    if fac.pivots is not None:
+        return None
+    return (f"not available on this engine: its factorization ({fac.info.ordering}) does not hand back "
+            f"its pivots, which the decay K_ii / D_ii is read from")
 
 
 def diagonal_decay(model: Model, fac: Factorization, *, worst: int = 20) -> DiagonalDecay:
@@ -100,6 +110,8 @@ def diagonal_decay(model: Model, fac: Factorization, *, worst: int = 20) -> Diag
     """
     if worst < 0:
         raise ValueError(f"worst = {worst}; expected a count >= 0")
+    if pivots_unavailable(fac):
+        raise ValueError(f"diagonal decay {pivots_unavailable(fac)}")
     ratio, active = _decay_ratios(model, fac)
     digits = _digits(fac.pivots, active)
     rows = np.flatnonzero(active)
@@ -168,4 +180,4 @@ def _method_text(fac: Factorization, digits, inactive: int) -> str:
     return "; ".join(parts) + "."
 
 
-__all__ = ["diagonal_decay"]
+__all__ = ["diagonal_decay", "pivots_unavailable"]

@@ -10,7 +10,9 @@ One stage, three ways to obtain the eigenpairs, chosen by what is available:
 * a factorization of S - sigma*I (any :class:`conditioning.engine.base.Factorization`):
   shift-and-invert Lanczos (ARPACK through scipy.sparse.linalg.eigsh) at the
   factorization's shift, zero for a nonsingular S, a small negative number
-  otherwise (never exactly zero on a singular matrix);
+  otherwise (never exactly zero on a singular matrix); when the factorization
+  has its engine's own eigensolver (:class:`conditioning.engine.base.OwnEigensolver`,
+  e.g. SLEPc on the PETSc engine), that one, on the same factor and shift;
 * no factorization (it would not fit in memory): preconditioned LOBPCG
   (:mod:`conditioning.stages.spectrum_iterative`).
 
@@ -35,7 +37,7 @@ import scipy.linalg as la
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
-from conditioning.engine.base import Factorization
+from conditioning.engine.base import Factorization, OwnEigensolver
 from conditioning.engine.scaling import ScaledStiffness, scale_stiffness
 from conditioning.model import Model
 from conditioning.results import NearSingularMode, SpectrumResult
@@ -168,6 +170,8 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
 
 
 def _smallest_sparse(Sa, fac: Factorization, k: int, rng) -> tuple[NDArray, NDArray]:
+    if isinstance(fac, OwnEigensolver):  # the engine's eigensolver on its own factor
+        return fac.smallest_eigenpairs(k, rng)
     na = Sa.shape[0]
     op = spla.LinearOperator((na, na), matvec=fac.solve_active, matmat=fac.solve_active, dtype=np.float64)
     v0 = rng.standard_normal(na)
@@ -245,7 +249,8 @@ def smallest_eigenpairs(scaled: ScaledStiffness, fac: Optional[Factorization], *
         keep = max(min(na, max(k or 12, 12)), first + count + 1)
         values, vectors = w[:keep], V[:, :keep]
     elif fac is not None:
-        lam_max = largest_eigenvalue(Sa, rng=rng)
+        own = isinstance(fac, OwnEigensolver)
+        lam_max = fac.largest_eigenvalue(rng) if own else largest_eigenvalue(Sa, rng=rng)
         kk = min(na - 2, k or 4)
         while True:
             values, vectors = _smallest_sparse(Sa, fac, kk, rng)
@@ -253,7 +258,8 @@ def smallest_eigenpairs(scaled: ScaledStiffness, fac: Optional[Factorization], *
             if first + count < values.size or kk >= min(na - 2, 512):
                 break
             kk = min(na - 2, 2 * kk)
-        method = (f"shift-and-invert Lanczos (ARPACK eigsh, shift {fac.shift:.3g}) for the "
+        method = (f"{fac.eigensolver}; {values.size} smallest" if own else
+                  f"shift-and-invert Lanczos (ARPACK eigsh, shift {fac.shift:.3g}) for the "
                   f"{values.size} smallest, Lanczos for lambda_max")
     else:
         lam_max = largest_eigenvalue(Sa, rng=rng)
