@@ -54,7 +54,8 @@ from conditioning.engine.base import FactorizationTooLarge
 from conditioning.engine.scaling import ScaledStiffness
 from conditioning.engine.scipy_engine import PREDICT_ABOVE
 from conditioning.linalg.floating_point import EPS
-from conditioning.results import FactorizationInfo, FactorMemoryPrediction
+from conditioning.engine.base import FactorMemoryPrediction
+from conditioning.results import FactorizationInfo
 
 logger = logging.getLogger(__name__)
 
