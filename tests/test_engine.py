@@ -150,8 +150,8 @@ def test_stages_need_only_the_engine_interface(monkeypatch):
     assert report.condition.scaled_estimate == pytest.approx(w[-1] / w[0], rel=1e-9)
     assert report.condition.estimate == pytest.approx(reference.condition.estimate, rel=1e-9)
     assert report.spectrum.count == reference.spectrum.count == 0
-    # The decay depends on the elimination order (documented in the pivots stage): only its source is checked.
-    assert "natural (dense test engine)" in report.decay.method
+    # The digits lost at pivots depend on the elimination order (documented in the pivots stage): only its source is checked.
+    assert "natural (dense test engine)" in report.pivots.method
     assert [s.sample for s in report.digits.samples] == [s.sample for s in reference.digits.samples]
     assert report.verdict.split()[0] == reference.verdict.split()[0]
 
@@ -169,8 +169,8 @@ def test_factorization_free_and_factorized_paths_agree_with_lapack(monkeypatch, 
     free = conditioning.diagnose(model, measure=False, memory_limit=1 << 12)
     assert full.factorization is not None and free.factorization is None
     assert "LOBPCG" in free.spectrum.method
-    assert set(free.skipped) == {"factorization", "inertia check", "digits", "diagonal decay"}
-    assert free.decay is None and free.digits is None
+    assert set(free.skipped) == {"factorization", "inertia check", "digits", "pivots"}
+    assert free.pivots is None and free.digits is None
     w = lapack_scaled(model.K)
     lapack_modes = int(np.count_nonzero(np.abs(w) <= model.n * EPS * w[-1]))
     assert full.spectrum.count == free.spectrum.count == lapack_modes == (0 if supported else 3)

@@ -22,7 +22,7 @@ def test_sections_in_order_and_caution_last():
     report, _ = healthy_report()
     text = render_text(report, width=120)
     order = ["Verdict:", "Model", "Structure", "Condition number", "Near-singular modes",
-             "Stiffness jumps", "Diagonal decay", "Digits of the displacements", "Findings"]
+             "Stiffness jumps", "Digits lost at pivots", "Digits of the displacements", "Findings"]
     positions = [text.index(word) for word in order]
     assert positions == sorted(positions)
     flat = " ".join(text.split())
@@ -129,7 +129,7 @@ def test_every_view_accepts_a_minimal_report(tmp_path):
 
     report, _ = healthy_report()
     bare = dataclasses.replace(report, factorization=None, condition=None, spectrum=None,
-                               decay=None, digits=None, jumps=[], restraints=[], findings=[])
+                               pivots=None, digits=None, jumps=[], restraints=[], findings=[])
     text = render_text(bare)
     assert "not computed" in text and "not measured" in text and "no findings" in text
     assert "<h1>" in render_html(bare)

@@ -45,7 +45,7 @@ from conftest import reference_matrix_path
 
 #: Section titles of the terminal report (render/terminal.py).
 SECTIONS = ("Model", "Structure", "Condition number", "Near-singular modes", "Suggested restraints",
-            "Stiffness jumps", "Diagonal decay", "Digits of the displacements", "Findings")
+            "Stiffness jumps", "Digits lost at pivots", "Digits of the displacements", "Findings")
 
 CASES = scenarios()
 
@@ -70,7 +70,7 @@ def _non_empty_sections(report) -> dict[str, bool]:
     return {
         "near-singular modes": bool(report.spectrum is not None and report.spectrum.modes),
         "stiffness jumps": bool(report.jumps),
-        "diagonal decay": bool(report.decay is not None and report.decay.worst),
+        "digits lost at pivots": bool(report.pivots is not None and report.pivots.worst),
         "suggested restraints": bool(report.restraints),
         "findings": bool(report.findings),
         "measured digits": bool(report.digits is not None and report.digits.samples),
@@ -200,7 +200,7 @@ def check_pointers(report, text: str) -> None:
         for m in re.finditer(r"Look at the (.+?) for the cause", sentence):
             for name in re.split(r", | and ", m.group(1)):
                 assert full.get(name), f"{m.group(0)!r} but '{name}' is empty"
-        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|diagonal decay|measured digits)",
+        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|digits lost at pivots|measured digits)",
                              sentence):
             assert full[m.group(1)], f"{m.group(0)!r} but that section is empty"
         if "suggested restraints" in sentence and "report's suggested restraints" in sentence:
@@ -285,7 +285,7 @@ def test_empty_row_and_stored_zero():
 def test_ill_conditioned_without_modes_or_jumps_advice():
     """A uniform chain of 20,000 springs: scaled kappa_2 = cot^2(pi/40002) = 1.6e8
     (closed form, REFERENCES.md) passes the ill-conditioned threshold with no mode,
-    no jump and no decay: the advice must not send the reader to those sections."""
+    no jump and no pivot loss: the advice must not send the reader to those sections."""
     A = _chain(20_000)
     report = diagnose(A, measure=False)
     codes = [f.code for f in report.findings]

@@ -76,7 +76,7 @@ def render_html(report: results.Report) -> str:
         _modes(report),
         _restraints(report),
         _jumps(report),
-        _decay(report),
+        _pivots(report),
         _digits(report),
         _figures(report),
         f'<p class="caution">{_e(report.caution)}</p>',
@@ -206,19 +206,20 @@ def _jumps(r: results.Report) -> str:
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
 
 
-def _decay(r: results.Report) -> str:
-    d = r.decay
+def _pivots(r: results.Report) -> str:
+    d = r.pivots
     if d is None or not d.worst:
         return ""
     negative = {e.row for e in d.negative_pivots}
-    rows = [[e.label, fmt_number(e.ratio), "negative pivot" if e.row in negative else f"{e.digits:.1f}"]
+    rows = [[e.label, "negative pivot" if e.row in negative else fmt_digits(e.digits), fmt_number(e.kept)]
             for e in d.worst[:10]]
     largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
-               else f"Largest: {d.max_digits:.1f} digits lost at a pivot. ")
-    return ("<h2>Diagonal decay</h2>"
+               else f"At most {d.max_digits:.1f} digits lost at a pivot. ")
+    where = "DOF" if r.summary.nodes is not None else "row"
+    return ("<h2>Digits lost at pivots</h2>"
             + f"<p>{largest}"
               f'<span class="how">{_e(d.method)}</span></p>'
-            + _table(["row", "K_ii / D_ii", "digits"], rows, {1, 2}))
+            + _table([where, "digits lost", "stiffness kept at the pivot"], rows, {1, 2}))
 
 
 def _digits(r: results.Report) -> str:

@@ -58,7 +58,7 @@ class TerminalReport:
         yield from _section("Near-singular modes", _modes(r, self.max_ids))
         yield from _section("Suggested restraints", _restraints(r))
         yield from _section("Stiffness jumps", _jumps(r, self.max_ids))
-        yield from _section("Diagonal decay", _decay(r))
+        yield from _section("Digits lost at pivots", _pivots(r))
         yield from _section("Digits of the displacements", _digits(r, self.max_ids))
         yield from _section("Findings", _findings(r, self.max_ids))
         yield Rule(style="dim")
@@ -263,8 +263,8 @@ def _jumps(r: results.Report, max_ids: int):
     return Group(*parts)
 
 
-def _decay(r: results.Report):
-    d = r.decay
+def _pivots(r: results.Report):
+    d = r.pivots
     if d is None or not d.worst:
         return None
     g = _grid()
@@ -274,8 +274,8 @@ def _decay(r: results.Report):
     else:
         g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
     for e in d.worst[:5]:
-        g.add_row(e.label, f"negative pivot, K_ii/D_ii = {fmt_number(e.ratio)}" if e.row in negative
-                  else f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
+        g.add_row(e.label, "negative pivot" if e.row in negative
+                  else f"about {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
     return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
