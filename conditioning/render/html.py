@@ -191,8 +191,9 @@ def _modes(r: results.Report) -> str:
 def _restraints(r: results.Report) -> str:
     if not r.restraints:
         return ""
-    rows = [[f"node {x.node}", x.dof, x.reason] for x in r.restraints]
-    return ("<h2>Suggested restraints</h2>" + _table(["node", "dof", "why"], rows)
+    unit = "node" if r.summary.nodes is not None else "row"
+    rows = [[f"{unit} {x.node}", x.dof, x.reason] for x in r.restraints]
+    return ("<h2>Suggested restraints</h2>" + _table([unit, "dof", "why"], rows)
             + "<p>A restraint must exist in the real structure (or the part must be "
               "connected).</p>")
 

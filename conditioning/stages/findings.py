@@ -63,6 +63,15 @@ def _list_nodes(nodes: Sequence[int], limit: int = 8) -> str:
     return head if len(nodes) <= limit else f"{head} and {len(nodes) - limit:,} more"
 
 
+def _at(model: Model, rows_word: str, ids: Sequence[int], limit: int = 8) -> str:
+    """``"node 1"``, ``"nodes 5, 6, 7, 8"``, ``"all 42 nodes"`` (``rows_word`` is ``"nodes"`` or ``"rows"``)."""
+    ids = list(ids)
+    total = int(model.dofs.nodes.size) if model.dofs is not None else model.n
+    if total > 2 and len(set(ids)) == total:
+        return f"all {total:,} {rows_word}"
+    return f"{rows_word[:-1] if len(ids) == 1 else rows_word} {_list_nodes(ids, limit)}"
+
+
 def _motion_text(mode: NearSingularMode) -> str:
     parts = sorted(mode.motion.items(), key=lambda kv: -kv[1])
     return ", ".join(f"{name} {share:.0%}" for name, share in parts)
@@ -199,7 +208,7 @@ def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[
     out = []
     for mode in spectrum.modes:
         if mode.kind == "rigid-body":
-            out.append(_rigid_body_finding(structure, mode, bool(restraints), rows_word))
+            out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word))
         elif mode.kind == "mechanism":
             out.append(_mechanism_finding(model, structure, mode, rows_word))
     return out
@@ -210,15 +219,15 @@ def _held_text(mode: NearSingularMode) -> str:
                                   "soft spring), so K is invertible but badly conditioned.")
 
 
-def _rigid_body_finding(structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
+def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
                         rows_word: str) -> Finding:
     who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
     nearly = "" if mode.exact else "nearly "
     return Finding(
         "error", "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
-        f"{_list_nodes(mode.nodes)}.{_held_text(mode)}",
+        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}."
+        f"{_held_text(mode)}",
         mode.nodes,
         "Add supports in the directions that move, or connect the part to the supported "
         "structure" + ("; the report's suggested restraints are one minimal choice."
@@ -232,7 +241,7 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
     return Finding(
         "error", "support.mechanism",
         f"Internal {'near-' if not mode.exact else ''}mechanism"
-        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
+        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{_at(model, rows_word, mode.nodes)}; "
         f"scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
@@ -281,11 +290,11 @@ def _jump_findings(model: Model, jumps: list[StiffnessJump], digits: Optional[Di
         if j.swallowed:
             out.append(_swallowed_finding(model, j, rows_word))
         else:
-            out.append(_jump_finding(j, measured_worst, min_digits, rows_word))
+            out.append(_jump_finding(model, j, measured_worst, min_digits, rows_word))
     return out
 
 
-def _jump_finding(j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
+def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
                   rows_word: str) -> Finding:
     # A stiff spring to ground is absorbed by diagonal scaling; a stiff
     # link between DOFs is not. Once digits are measured (the worst-case
@@ -300,7 +309,7 @@ def _jump_finding(j: StiffnessJump, measured_worst: Optional[float], min_digits:
         if measured_worst >= min_digits and sev == "warning" and lost + 1.0 < j.digits_cost:
             sev = "note"
     return Finding(sev, "stiffness.jump",
-                   f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
+                   f"{j.kind} stiffness jump at {_at(model, rows_word, j.nodes)}: ratio "
                    f"{j.ratio:.1e}, can cost up to {j.digits_cost:.1f} digits (estimated from "
                    f"the ratio){measured}.",
                    j.nodes, j.reasoning)
@@ -383,7 +392,7 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
             else f"only about {j.structure_digits_kept:.1f} digits")
     return Finding(
         "error", "stiffness.penalty-swallowed",
-        f"A penalty link at {rows_word} {_list_nodes(j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
+        f"A penalty link at {_at(model, rows_word, j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
         f"has swallowed the structure: K keeps {kept} of the structural stiffness of {dofs} (about "
         f"{j.structural_stiffness:.2g}), so the displacements of these DOFs have no trustworthy digits. "
         "This is a stiffness jump, not a mechanism: no restraint is needed. The rest of the model "
@@ -616,7 +625,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if exact or n_empty:
         total = len(exact) if modes else n_empty
         detail = kinds(exact) if exact else f"{n_empty} dof-without-stiffness"
-        return f"singular: {total} free mode(s) ({detail})", status
+        return f"singular: {total} free mode{'' if total == 1 else 's'} ({detail})", status
     words = "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
     pivots = [f for f in findings if f.code == "factor.negative-pivot"]
@@ -641,7 +650,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
                 f"above the {audit.allowed_backward_error:.1e} of the tool's own solve; it keeps "
                 f"{_significant(audit.trustworthy_digits)}{own_figure}"), status
     if near:
-        return f"near-singular: {len(near)} nearly free mode(s) ({kinds(near)}){tail}", status
+        return f"near-singular: {len(near)} nearly free mode{'' if len(near) == 1 else 's'} ({kinds(near)}){tail}", status
     sk = condition.scaled_estimate if condition is not None and not condition.singular else None
     ill = sk is not None and sk > ILL_CONDITIONED
     below = worst is not None and worst < min_digits
