@@ -251,8 +251,9 @@ def _figures(r: results.Report) -> str:
     wanted: list[tuple[str, str, Callable[[], Optional[bytes]]]] = []
     if r.spectrum is not None and len(r.spectrum.smallest):
         wanted.append(("Eigenvalue spectrum near zero",
-                       "Smallest eigenvalues of the scaled matrix, log scale; the dashed line "
-                       "marks the gap that separates the near-singular modes.",
+                       "Smallest eigenvalues of the scaled matrix, log scale"
+                       + ("; the dashed line marks the gap that separates the near-singular modes."
+                          if r.spectrum.gap is not None else "."),
                        lambda: plots.spectrum_png(r.spectrum)))
     geometry = r.geometry
     if geometry is not None:
@@ -268,8 +269,9 @@ def _figures(r: results.Report) -> str:
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
-                               "the model size); circles mark the nodes that locate the mode.",
-                               lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k)))
+                               "the model size); circled and numbered: the nodes that locate the "
+                               "mode; green triangles: the suggested supports.",
+                               lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k, r.restraints)))
     if not wanted:
         return ""
     try:
