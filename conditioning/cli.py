@@ -99,7 +99,7 @@ def _run_diagnose(args) -> int:
 
     with _progress(not args.quiet and sys.stderr.isatty()) as progress:
         report = _diagnosed(args.matrix, args, progress)
-    Console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet))
+    Console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet, verbose=args.verbose > 0))
     _write(report, json=args.json, html=args.html, modes_vtk=args.modes_vtk, modes_csv=args.modes_csv)
     if args.html and missing_figures_note():
         print(f"conditioning: note: {missing_figures_note()}", file=sys.stderr)
@@ -119,7 +119,7 @@ def _run_demo(args) -> int:
     for name, case in scenarios().items():
         with _progress(not args.quiet and sys.stderr.isatty()) as progress:
             report = diagnose_model(case.model, seed=args.seed, samples=args.samples, progress=progress)
-        console.print(demo_case_view(name, case.description, report, quiet=args.quiet))
+        console.print(demo_case_view(name, case.description, report, quiet=args.quiet, verbose=args.verbose > 0))
         rows.append((name, report, exit_status(report)))
         _write(report, json=args.json and Path(args.json) / f"{name}.json",
                html=args.html and Path(args.html) / f"{name}.html")

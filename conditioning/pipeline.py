@@ -1,6 +1,6 @@
 """The diagnosis as one call, one path: input -> structure -> stiffness jumps
 -> factorization -> spectrum -> modes -> condition -> restraints -> diagonal
-decay -> digits -> inertia check -> findings -> report.
+pivots -> digits -> inertia check -> findings -> report.
 
 Each stage is a module of its own with a typed result; this module only
 sequences them, times them and hands progress to the caller. It never prints.
@@ -8,7 +8,7 @@ sequences them, times them and hands progress to the caller. It never prints.
 When the factorization cannot run (the factor would not fit in memory) the
 same sequence runs without it: the spectrum stage obtains its eigenpairs by
 LOBPCG instead, the condition stage gives the scaled figure only, and the
-stages that need the factor (diagonal decay, digits, inertia check) are
+stages that need the factor (pivots, digits, inertia check) are
 left as None with why in ``Report.skipped`` (the one convention: a stage
 that did not run is None and ``Report.skipped[stage]`` says why; a stage
 that ran and found nothing to measure says so in its own result, as
@@ -41,7 +41,7 @@ from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
-from conditioning.stages.pivots import diagonal_decay, pivots_unavailable
+from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import suggest_restraints
 from conditioning.stages.spectrum import inertia_check, smallest_eigenpairs, spectrum_result, with_inertia
 from conditioning.stages.structure import check_structure
@@ -228,7 +228,7 @@ WITHOUT_FACTORIZATION = {
     "inertia check": "no inertia count: the number of near-singular modes rests on the eigenvalue gap alone, "
                      "not confirmed by Sylvester's law of inertia",
     "digits": "no digits measurement: there is no factorization to solve with",
-    "diagonal decay": "no diagonal decay: there are no pivots",
+    "pivots": "no digits lost at pivots: there are no pivots",
 }
 
 
@@ -261,13 +261,13 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     spectrum = spectrum_result(eig, located.modes, located.stiff_link_eigenvalues, scaled.active)
     with stage("restraints"):
         restraints = _restraints(model, structure, located)
-    decay = digits = None
+    pivots = digits = None
     if fac is not None:
         if pivots_unavailable(fac):  # an engine without pivots (MUMPS through PETSc)
-            skipped["diagonal decay"] = pivots_unavailable(fac)
+            skipped["pivots"] = pivots_unavailable(fac)
         else:
-            with stage("diagonal decay"):
-                decay = diagonal_decay(model, fac)
+            with stage("pivots"):
+                pivots = pivot_loss(model, fac)
         if run.measure:
             with stage("digits"):
                 digits = measure_digits(model, fac, condition=condition, spectrum=spectrum, samples=run.samples,
@@ -284,14 +284,14 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         if digits is not None and digits.samples:
             with stage("certification"):
                 digits = certify_digits(model, digits, condition, perm, structure)
-    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
+    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:
         findings.append(_factorization_free_finding(too_large, eig.method))
     line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=run.min_digits)
     return Report(
         summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
-        condition=condition, spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
+        condition=condition, spectrum=spectrum, restraints=restraints, jumps=jumps, pivots=pivots, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings, seed=run.seed, skipped=skipped,
         geometry=model_geometry(model),
     )

@@ -314,35 +314,38 @@ class StiffnessJump:
 
 
 @dataclass(frozen=True)
-class DecayEntry:
-    """Diagonal decay at one pivot of the shared factorization."""
+class PivotEntry:
+    """Digits lost at one pivot of the shared factorization."""
 
     row: int
     """0-based matrix row."""
     label: str
     """The row in words, ``"node 12 uy"`` or ``"row 37"``."""
-    ratio: float
-    """K_ii / D_ii, the diagonal over the factorization's pivot."""
+    kept: float
+    """D_ii / K_ii: the share of the DOF's diagonal stiffness left at its pivot
+    once the DOFs eliminated before it are condensed out (dimensionless; 1 for
+    a DOF coupled to nothing eliminated before it, negative for a negative pivot)."""
     digits: float
-    """log10(ratio)."""
+    """-log10(kept): decimal digits of K_ii lost by cancellation at the pivot
+    (inf for a zero or negative pivot)."""
 
 
 @dataclass(frozen=True)
-class DiagonalDecay:
-    """Digits lost at the pivots, K_ii / D_ii (:mod:`conditioning.stages.pivots`).
-    The decay depends on the elimination order: it locates trouble, it does
-    not bound the error."""
+class PivotLoss:
+    """Digits lost at the pivots, -log10(D_ii / K_ii) (:mod:`conditioning.stages.pivots`).
+    Which DOF shows the loss depends on the elimination order: it locates
+    trouble, it does not bound the error."""
 
-    worst: list[DecayEntry]
-    """The rows with the largest decay, worst first."""
+    worst: list[PivotEntry]
+    """The rows that lose the most digits at their pivot, worst first."""
     max_digits: float
     """Largest ``digits`` (decimal digits; inf when a pivot is zero or negative)."""
     method: str
     """How the pivots were obtained (factorization and ordering), in words."""
-    negative_pivots: list[DecayEntry] = field(default_factory=list)
+    negative_pivots: list[PivotEntry] = field(default_factory=list)
     """Rows whose pivot is negative (at most ``worst`` of them, by row): K is
     indefinite and the DOF pushes back negatively once the DOFs
-    eliminated before it are condensed out. ``ratio`` = K_ii / D_ii < 0 for a
+    eliminated before it are condensed out. ``kept`` = D_ii / K_ii < 0 for a
     positive diagonal; ``digits`` is inf."""
 
 
@@ -634,8 +637,8 @@ class Report:
     when there are none."""
     jumps: list[StiffnessJump]
     """Stiffness jumps, costliest first; empty when none was found."""
-    decay: Optional[DiagonalDecay]
-    """Diagonal decay at the pivots; None without a factorization."""
+    pivots: Optional[PivotLoss]
+    """Digits lost at the pivots of the factorization; None without one."""
     digits: Optional[DigitsResult]
     """Digits measured per load; None when not measured (measurement turned
     off, or no factorization)."""

@@ -165,7 +165,7 @@ def test_all_outputs_written(fake_singular, tmp_path, capsys):
                  "--json", str(paths["json"]), "--html", str(paths["html"]),
                  "--modes-vtk", str(paths["vtu"]), "--modes-csv", str(paths["csv"])])
     assert code == 3
-    assert _strict(paths["json"].read_text())["schema"] == "conditioning-report/1"
+    assert _strict(paths["json"].read_text())["schema"] == "conditioning-report/2"
     assert paths["html"].read_text().startswith("<!DOCTYPE html>")
     assert ET.parse(paths["vtu"]).getroot().tag == "VTKFile"
     assert paths["csv"].read_text().splitlines()[0] == "node,dof,mode_1,mode_2,mode_3"

@@ -105,7 +105,7 @@ def test_demo_model_diagnosis_same_as_scipy_engine(name):
     if ref.condition.scaled_estimate is not None:
         assert got.condition.scaled_estimate == pytest.approx(ref.condition.scaled_estimate, rel=0.01)
     assert got.status == ref.status
-    assert got.decay is None and got.skipped["diagonal decay"].startswith("not available on this engine")
+    assert got.pivots is None and got.skipped["pivots"].startswith("not available on this engine")
 
 
 @pytest.mark.parametrize("name", REFERENCE)

@@ -151,8 +151,8 @@ def test_stages_need_only_the_engine_interface(monkeypatch):
     assert report.condition.scaled_estimate == pytest.approx(w[-1] / w[0], rel=1e-9)
     assert report.condition.estimate == pytest.approx(reference.condition.estimate, rel=1e-9)
     assert report.spectrum.count == reference.spectrum.count == 0
-    # The decay depends on the elimination order (documented in the pivots stage): only its source is checked.
-    assert "natural (dense test engine)" in report.decay.method
+    # The digits lost at pivots depend on the elimination order (documented in the pivots stage): only its source is checked.
+    assert "natural (dense test engine)" in report.pivots.method
     assert [s.sample for s in report.digits.samples] == [s.sample for s in reference.digits.samples]
     assert report.verdict.split()[0] == reference.verdict.split()[0]
 
@@ -170,8 +170,8 @@ def test_factorization_free_and_factorized_paths_agree_with_lapack(monkeypatch, 
     free = conditioning.diagnose(model, measure=False, memory_limit=1 << 12)
     assert full.factorization is not None and free.factorization is None
     assert "LOBPCG" in free.spectrum.method
-    assert set(free.skipped) == {"factorization", "inertia check", "digits", "diagonal decay"}
-    assert free.decay is None and free.digits is None
+    assert set(free.skipped) == {"factorization", "inertia check", "digits", "pivots"}
+    assert free.pivots is None and free.digits is None
     w = lapack_scaled(model.K)
     lapack_modes = int(np.count_nonzero(np.abs(w) <= model.n * EPS * w[-1]))
     assert full.spectrum.count == free.spectrum.count == lapack_modes == (0 if supported else 3)
@@ -306,17 +306,17 @@ class DenseEigensolverEngine(DenseEngine):
     factorization = DenseEigensolverFactorization
 
 
-def test_engine_without_pivots_reports_the_decay_as_not_available():
-    """pivots None (an engine that does not expose them): the diagonal decay is not run,
+def test_engine_without_pivots_reports_the_pivot_loss_as_not_available():
+    """pivots None (an engine that does not expose them): the pivot stage is not run,
     Report.skipped says why, the terminal shows it; every other figure as the scipy engine's."""
     from conditioning.render.terminal import render_text
 
     model = truss_strip(12, supported=True)
     reference = conditioning.diagnose(model, seed=3)
     report = conditioning.diagnose(model, seed=3, engine=NoPivotsEngine())
-    assert report.decay is None
-    assert report.skipped["diagonal decay"].startswith("not available on this engine")
-    assert "not measured: not available on this engine" in render_text(report, width=200)
+    assert report.pivots is None
+    assert report.skipped["pivots"].startswith("not available on this engine")
+    assert "not measured: not available on this engine" in render_text(report, width=300)
     assert report.condition.estimate == pytest.approx(reference.condition.estimate, rel=1e-9)
     assert report.status == reference.status
 

@@ -198,12 +198,12 @@ def test_dom_in_chromium_keeps_the_figures(tmp_path):
 
 
 def test_every_section_of_a_full_report():
-    """Condition figures with their methods, jumps, decay and digits all reach
+    """Condition figures with their methods, jumps, digits lost at pivots and digits all reach
     the page (text checked after the standard library's HTML parser)."""
     report, model = healthy_report()
     text = " ".join(" ".join(_parse(render_html(report)).text).split())
     for needle in ("Condition number", "Hager-Higham 1-norm estimate (a lower bound)",
-                   "Stiffness jumps", "diagonal-outlier", "Diagonal decay", "node 4 uy",
+                   "Stiffness jumps", "diagonal-outlier", "Digits lost at pivots", "node 4 uy",
                    "Digits of the displacements", "double-double refinement", "withdrawn"):
         assert needle in text, needle
 

@@ -199,7 +199,7 @@ def test_cantilever_geometric_stiffness_matches_euler_load():
 
 def test_negative_pivot_beyond_buckling_is_named_with_its_dof():
     """Beyond the Euler load (1.5 x): one negative pivot, reported with code
-    factor.negative-pivot at its node and DOF, never as 'inf digits' of decay.
+    factor.negative-pivot at its node and DOF, never as 'inf digits' lost at a pivot.
     Outside references: the count equals LAPACK's inertia (numpy eigvalsh) and
     scipy.linalg.ldl's (sytrf, Bunch-Kaufman) count of negative eigenvalues of D."""
     model = compressed_cantilever(1.5)
@@ -208,9 +208,9 @@ def test_negative_pivot_beyond_buckling_is_named_with_its_dof():
     n_neg = int(np.sum(np.linalg.eigvalsh(Kd) < 0))
     _, D, _ = la.ldl(Kd)
     assert n_neg == 1 == int(np.sum(np.linalg.eigvalsh(D) < 0))
-    assert len(report.decay.negative_pivots) == n_neg == report.factorization.negative_pivots
+    assert len(report.pivots.negative_pivots) == n_neg == report.factorization.negative_pivots
     (finding,) = [f for f in report.findings if f.code == "factor.negative-pivot"]
-    entry = report.decay.negative_pivots[0]
+    entry = report.pivots.negative_pivots[0]
     assert finding.severity == "error" and entry.label in finding.message
     assert finding.nodes == [int(model.dofs.node[entry.row])]
     assert "buckling" in finding.advice and "negative stiffness" in finding.advice
@@ -236,6 +236,6 @@ def test_negative_pivot_row_matches_leading_minors_in_natural_order():
     signs = [np.linalg.slogdet(K.toarray()[:k, :k])[0] for k in range(1, n + 1)]
     pivot_signs = [signs[0]] + [signs[k] * signs[k - 1] for k in range(1, n)]
     expected = [k for k in range(n) if pivot_signs[k] < 0]
-    assert [e.row for e in report.decay.negative_pivots] == expected
+    assert [e.row for e in report.pivots.negative_pivots] == expected
     (finding,) = [f for f in report.findings if f.code == "factor.negative-pivot"]
     assert f"node {expected[0] + 1} uy" in finding.message

@@ -50,7 +50,7 @@ def test_required_keys_present(make):
     report, _ = make()
     data = _strict_loads(dumps(report_to_dict(report)))
     assert REQUIRED["top"] <= set(data)
-    assert data["schema"] == SCHEMA == "conditioning-report/1"
+    assert data["schema"] == SCHEMA == "conditioning-report/2"
     assert REQUIRED["condition"] <= set(data["condition"])
     for key in ("near_singular_modes", "stiffness_jumps", "suggested_restraints", "findings",
                 "digits"):
@@ -158,7 +158,7 @@ def test_report_fields_are_all_written():
     from conditioning.results import Report
 
     renamed = {"restraints": "suggested_restraints", "jumps": "stiffness_jumps",
-               "decay": "diagonal_decay"}
+               "pivots": "pivot_loss"}
     not_written = {"geometry"}
     report, _ = healthy_report()
     assert report.geometry is not None

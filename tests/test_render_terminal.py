@@ -1,5 +1,5 @@
-"""The terminal view: verdict first, every section, summaries, how each figure
-was obtained, caution last. Figures shown are checked against numpy's LAPACK
+"""The terminal view: verdict first, then what to do, the key figures and the
+details, how each figure was obtained (methods with verbose), caution last. Figures shown are checked against numpy's LAPACK
 (the fixture's source) rather than pasted."""
 
 from __future__ import annotations
@@ -21,12 +21,19 @@ def test_verdict_is_the_first_line():
 def test_sections_in_order_and_caution_last():
     report, _ = healthy_report()
     text = render_text(report, width=120)
-    order = ["Verdict:", "Model", "Structure", "Condition number", "Near-singular modes",
-             "Stiffness jumps", "Diagonal decay", "Digits of the displacements", "Findings"]
+    order = ["Verdict:", "What to do", "Key figures", "Model", "Stiffness jumps",
+             "Digits of the displacements", "Findings"]
     positions = [text.index(word) for word in order]
     assert positions == sorted(positions)
     flat = " ".join(text.split())
     assert flat.endswith(" ".join(CAUTION.split()))
+    # Methods and rules only with verbose; then in their own sections, before the findings.
+    assert "Condition number ─" not in text and "Digits lost at pivots ─" not in text
+    verbose = render_text(report, width=120, verbose=True)
+    order = ["Key figures", "Stiffness jumps", "Condition number", "Digits lost at pivots",
+             "Digits of the displacements", "Findings"]
+    positions = [verbose.index(word + " ─") for word in order]
+    assert positions == sorted(positions)
 
 
 def test_condition_figure_and_how_obtained():
@@ -35,34 +42,35 @@ def test_condition_figure_and_how_obtained():
     report, model = healthy_report()
     lam = np.linalg.eigvalsh(model.K.toarray())
     text = render_text(report, width=160)
-    line = [ln for ln in text.splitlines() if ln.startswith("2-norm, raw K")][0]
+    line = [ln for ln in text.splitlines() if ln.startswith("condition number, raw K")][0]
     assert fmt_number(lam[-1] / lam[0]) in line and "estimate" in line
-    line = [ln for ln in text.splitlines() if ln.startswith("1-norm, raw K")][0]
-    assert "bound" in line
+    text = render_text(report, width=160, verbose=True)
+    line = [ln for ln in text.splitlines() if ln.startswith("1-norm, raw K: ")][0]
+    assert "(bound)" in line
 
 
 def test_digits_show_method_and_withdrawn_bound():
     report, _ = healthy_report(digits=9.0)
     text = render_text(report, width=200)
-    load, load_worst = [ln for ln in text.splitlines() if ln.startswith("load  ")][-2:]
-    assert "9.0" in load and "double-double refinement, measured" in load
-    assert load_worst.split() == ["load", "4", "(9.0),", "5", "(9.3)"]
+    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-1]
+    assert "9.0" in load and "refinement, measured" in load
     worst = [ln for ln in text.splitlines() if ln.startswith("worst-case")][0]
     assert "withdrawn" in worst
+    # The worst nodes of the worst sample, on one line.
+    assert "Worst nodes of sample 'worst-case'" in text
 
 
 def test_long_node_lists_are_summarised():
     report, _ = singular_report(many_nodes=1300)
     text = render_text(report, width=200)
-    assert "1, 2, 3, 4, 5, 6, 7, 8 and 1,302 more" in text
+    assert "1, 2, 3, 4 and 1,306 more" in text   # the mode table lists fewer ids than the findings
     assert str(1300 + 10) not in text   # the last node id is left to the JSON
 
 
 def test_singular_condition_rows_say_singular():
     report, _ = singular_report()
     text = render_text(report, width=160)
-    assert "K is singular" in text
-    for row in ("2-norm, raw K", "1-norm, raw K"):
+    for row in ("condition number, raw K", "condition number, scaled"):
         assert "singular" in [ln for ln in text.splitlines() if ln.startswith(row)][0]
 
 
@@ -109,7 +117,7 @@ def test_ceiling_and_nearly_free_are_marked():
     report = dataclasses.replace(report, digits=dataclasses.replace(report.digits,
                                                                     samples=capped))
     text = render_text(report, width=200)
-    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-2]
+    load = [ln for ln in text.splitlines() if ln.startswith("load  ")][-1]
     assert ">= 13.6" in load
     singular, _ = singular_report()
     held = dataclasses.replace(singular.spectrum.modes[0], exact=False)
@@ -129,8 +137,9 @@ def test_every_view_accepts_a_minimal_report(tmp_path):
 
     report, _ = healthy_report()
     bare = dataclasses.replace(report, factorization=None, condition=None, spectrum=None,
-                               decay=None, digits=None, jumps=[], restraints=[], findings=[])
-    text = render_text(bare)
+                               pivots=None, digits=None, jumps=[], restraints=[], findings=[])
+    assert "no findings" in render_text(bare)
+    text = render_text(bare, verbose=True)
     assert "not computed" in text and "not measured" in text and "no findings" in text
     assert "<h1>" in render_html(bare)
     data = json.loads(dumps(report_to_dict(bare)))

@@ -44,8 +44,8 @@ from conditioning.render.terminal import render_text
 from conftest import reference_matrix_path
 
 #: Section titles of the terminal report (render/terminal.py).
-SECTIONS = ("Model", "Structure", "Condition number", "Near-singular modes", "Suggested restraints",
-            "Stiffness jumps", "Diagonal decay", "Digits of the displacements", "Findings")
+SECTIONS = ("What to do", "Key figures", "Model", "Structure", "Near-singular modes", "Stiffness jumps",
+            "Condition number", "Digits lost at pivots", "Digits of the displacements", "Findings")
 
 CASES = scenarios()
 
@@ -70,7 +70,7 @@ def _non_empty_sections(report) -> dict[str, bool]:
     return {
         "near-singular modes": bool(report.spectrum is not None and report.spectrum.modes),
         "stiffness jumps": bool(report.jumps),
-        "diagonal decay": bool(report.decay is not None and report.decay.worst),
+        "digits lost at pivots": bool(report.pivots is not None and report.pivots.worst),
         "suggested restraints": bool(report.restraints),
         "findings": bool(report.findings),
         "measured digits": bool(report.digits is not None and report.digits.samples),
@@ -200,7 +200,7 @@ def check_pointers(report, text: str) -> None:
         for m in re.finditer(r"Look at the (.+?) for the cause", sentence):
             for name in re.split(r", | and ", m.group(1)):
                 assert full.get(name), f"{m.group(0)!r} but '{name}' is empty"
-        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|diagonal decay|measured digits)",
+        for m in re.finditer(r"see the (near-singular modes|stiffness jumps|digits lost at pivots|measured digits)",
                              sentence):
             assert full[m.group(1)], f"{m.group(0)!r} but that section is empty"
         if "suggested restraints" in sentence and "report's suggested restraints" in sentence:
@@ -221,7 +221,8 @@ def check_views(report, text: str) -> None:
 
 
 def check_all(report, K, width: int = 200) -> None:
-    text = render_text(report, width=width)
+    # The verbose view: every count and method these checks compare is in it.
+    text = render_text(report, width=width, verbose=True)
     check_mode_counts(report, text, sp.csr_array(K))
     check_positions(report, text)
     check_confirmations(report, text)
@@ -267,7 +268,7 @@ def test_saddle_point_zero_diagonals_with_coupling():
     report = diagnose(A)
     assert list(report.structure.zero_diagonal) == [10, 11]
     check_all(report, A)
-    assert "2 in rows with coupling terms" in _flat(render_text(report))
+    assert "2 in rows with coupling terms" in _flat(render_text(report, verbose=True))
 
 
 def test_empty_row_and_stored_zero():
@@ -279,13 +280,13 @@ def test_empty_row_and_stored_zero():
     A = sp.csr_array(A)
     report = diagnose(A)
     check_all(report, A)
-    assert "1, all in the DOFs without stiffness" in _flat(render_text(report))
+    assert "1, all in the DOFs without stiffness" in _flat(render_text(report, verbose=True))
 
 
 def test_ill_conditioned_without_modes_or_jumps_advice():
     """A uniform chain of 20,000 springs: scaled kappa_2 = cot^2(pi/40002) = 1.6e8
     (closed form, REFERENCES.md) passes the ill-conditioned threshold with no mode,
-    no jump and no decay: the advice must not send the reader to those sections."""
+    no jump and no pivot loss: the advice must not send the reader to those sections."""
     A = _chain(20_000)
     report = diagnose(A, measure=False)
     codes = [f.code for f in report.findings]
@@ -308,7 +309,7 @@ def test_failed_re_solve_is_not_called_a_confirmation(monkeypatch):
     A = _chain(48)
     report = diagnose(A, load=np.ones(48))
     assert report.digits.samples and not any(confirmed(s) for s in report.digits.samples)
-    text = _flat(render_text(report))
+    text = _flat(render_text(report, verbose=True))
     assert "Independent confirmation" not in text and "Not independently confirmed" in text
     check_all(report, A)
 
@@ -318,7 +319,7 @@ def test_report_at_terminal_widths_keeps_its_cross_references():
     case = CASES["rack_penalty_tie"]
     report = diagnose(case.model)
     for width in (80, 100):
-        text = render_text(report, width=width)
+        text = render_text(report, width=width, verbose=True)
         check_mode_counts(report, text)
         check_positions(report, text)
         check_confirmations(report, text)

@@ -116,7 +116,7 @@ def singular_report(many_nodes: int = 0) -> tuple[results.Report, Model]:
                                 "Restrain node 1 ux, uy and node 5 uy, if such supports exist.")]
     report = results.Report(
         summary=_summary(model), structure=_structure(model), factorization=None,
-        condition=condition, spectrum=spectrum, restraints=restraints, jumps=[], decay=None,
+        condition=condition, spectrum=spectrum, restraints=restraints, jumps=[], pivots=None,
         digits=None, findings=findings, verdict="singular: 3 free modes", status="errors",
         timings={"structure": 0.001}, geometry=model_geometry(model))
     return report, model
@@ -167,7 +167,7 @@ def healthy_report(digits: float = 12.5) -> tuple[results.Report, Model]:
         summary=_summary(model), structure=_structure(model),
         factorization=results.FactorizationInfo("MMD_AT_PLUS_A", 0.0, 0, 120, 1.2e4, 0.001, True),
         condition=condition, spectrum=spectrum, restraints=[], jumps=[jump],
-        decay=results.DiagonalDecay([results.DecayEntry(7, "node 4 uy", 1e3, 3.0)], 3.0,
+        pivots=results.PivotLoss([results.PivotEntry(7, "node 4 uy", 1e-3, 3.0)], 3.0,
                                     "K_ii / D_ii from the shared factorization"),
         digits=digits_result, findings=findings, verdict=f"trustworthy to {digits:.0f} digits",
         status="warnings", timings={"structure": 0.001, "digits": 0.01},

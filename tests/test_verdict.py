@@ -107,7 +107,7 @@ def test_free_chain_is_singular():
 
 def test_negative_spring_is_indefinite():
     """One spring of the chain entered as -3: LAPACK finds a negative eigenvalue;
-    the verdict says indefinite, not 'diagonal decay' or ill-conditioned."""
+    the verdict says indefinite, not 'digits lost at pivots' or ill-conditioned."""
     n = 30
     K = chain(n).toarray()
     a, b = 14, 15                             # the spring between DOFs 15 and 16

@@ -85,7 +85,7 @@ class Factorization(Protocol):
         Pivot of each row of S - sigma*I in the original row order
         (dimensionless); 0 for inactive rows. Kept after :meth:`release`.
         None when the engine does not expose the pivots of its factor
-        (MUMPS through PETSc): the diagonal-decay stage then does not run and
+        (MUMPS through PETSc): the pivot stage then does not run and
         the report says why (:func:`conditioning.stages.pivots.pivots_unavailable`).
     singular : bool
         True when S had no usable unshifted factorization or K has rows

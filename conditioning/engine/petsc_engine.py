@@ -23,7 +23,7 @@ Implements :class:`conditioning.engine.base.Engine`; its factorization
 implements :class:`conditioning.engine.base.Factorization` and the optional
 :class:`conditioning.engine.base.OwnEigensolver` (SLEPc on the same factor).
 What this engine cannot give: the pivots D of MUMPS' factor are not handed
-back through PETSc, so ``pivots`` is None (the diagonal decay is reported as
+back through PETSc, so ``pivots`` is None (the digits lost at the pivots are reported as
 not available), and MUMPS' ordering is not handed back either, so
 ``ordering_permutation()`` is None (the digits stage then skips its verified
 eigenvalue bound and says why).

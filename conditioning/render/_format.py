@@ -106,7 +106,47 @@ def fmt_digits(value: Optional[float]) -> str:
         return "nan"
     if math.isinf(value):
         return "all" if value > 0 else "none"
-    return f"{value:.1f}"
+    text = f"{value:.1f}"
+    return "0.0" if text == "-0.0" else text  # never "-0.0"
+
+
+def unit_word(report: "results.Report") -> str:
+    """``"node"`` with a DOF map, else ``"row"``: without a map the ids are 1-based matrix rows."""
+    return "node" if report.summary.nodes is not None else "row"
+
+
+def total_of(report: "results.Report") -> int:
+    """How many nodes (with a DOF map) or rows (without) the model has."""
+    s = report.summary
+    return int(s.nodes) if s.nodes is not None else int(s.rows)
+
+
+def ids_phrase(ids: Iterable[int], word: Optional[str], total: Optional[int] = None,
+               limit: int = 8, *, bare: bool = False) -> str:
+    """``"node 3"``, ``"nodes 5, 6 and 12 more"``, ``"all 42 nodes"``.
+
+    ``word`` is the singular (``"node"`` or ``"row"``); with ``bare`` (or no
+    word) the list comes without it, ``"all 42"`` for the whole model.
+
+    Examples
+    --------
+    >>> ids_phrase([3], "node"), ids_phrase([4, 7], "row"), ids_phrase(range(1, 43), "node", 42)
+    ('node 3', 'rows 4, 7', 'all 42 nodes')
+    >>> ids_phrase(range(1, 43), "node", 42, bare=True)
+    'all 42'
+    """
+    ids = [int(i) for i in ids]
+    if total is not None and total > 2 and len(ids) == total and len(set(ids)) == total:
+        return f"all {total:,}" if bare or not word else f"all {total:,} {word}s"
+    listed = summarise_ids(ids, limit)
+    if bare or not word:
+        return listed
+    return f"{word}{'' if len(ids) == 1 else 's'} {listed}"
+
+
+def rows_phrase(rows: Iterable[int], limit: int = 8) -> str:
+    """0-based matrix rows as the 1-based text the reader sees: ``"row 4"``, ``"rows 4, 9"``."""
+    return ids_phrase([int(r) + 1 for r in rows], "row", None, limit)
 
 
 def fmt_motion(motion: dict[str, float], threshold: float = 0.01) -> str:
@@ -136,8 +176,8 @@ def zero_diagonal_text(st: results.StructureResult, max_ids: int = 8) -> str:
     empty, coupled = len(st.empty_rows), len(st.zero_diagonal)
     if not empty and not coupled:
         return "none"
-    with_coupling = (f"{coupled:,} in rows with coupling terms (rows "
-                     f"{summarise_ids([int(x) + 1 for x in st.zero_diagonal], max_ids)})")
+    with_coupling = (f"{coupled:,} in rows with coupling terms "
+                     f"({rows_phrase(st.zero_diagonal, max_ids)})")
     if not coupled:
         return f"{empty:,}, all in the DOFs without stiffness (no coupling terms either)"
     if not empty:

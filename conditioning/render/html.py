@@ -76,7 +76,7 @@ def render_html(report: results.Report) -> str:
         _modes(report),
         _restraints(report),
         _jumps(report),
-        _decay(report),
+        _pivots(report),
         _digits(report),
         _figures(report),
         f'<p class="caution">{_e(report.caution)}</p>',
@@ -191,8 +191,9 @@ def _modes(r: results.Report) -> str:
 def _restraints(r: results.Report) -> str:
     if not r.restraints:
         return ""
-    rows = [[f"node {x.node}", x.dof, x.reason] for x in r.restraints]
-    return ("<h2>Suggested restraints</h2>" + _table(["node", "dof", "why"], rows)
+    unit = "node" if r.summary.nodes is not None else "row"
+    rows = [[f"{unit} {x.node}", x.dof, x.reason] for x in r.restraints]
+    return ("<h2>Suggested restraints</h2>" + _table([unit, "dof", "why"], rows)
             + "<p>A restraint must exist in the real structure (or the part must be "
               "connected).</p>")
 
@@ -206,21 +207,22 @@ def _jumps(r: results.Report) -> str:
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
 
 
-def _decay(r: results.Report) -> str:
-    d = r.decay
-    if d is None and "diagonal decay" in r.skipped:  # e.g. an engine without pivots: said, not hidden
-        return f"<h2>Diagonal decay</h2><p>Not measured: {_e(r.skipped['diagonal decay'])}</p>"
+def _pivots(r: results.Report) -> str:
+    d = r.pivots
+    if d is None and "pivots" in r.skipped:  # e.g. an engine without pivots: said, not hidden
+        return f"<h2>Digits lost at the pivots</h2><p>Not measured: {_e(r.skipped['pivots'])}</p>"
     if d is None or not d.worst:
         return ""
     negative = {e.row for e in d.negative_pivots}
-    rows = [[e.label, fmt_number(e.ratio), "negative pivot" if e.row in negative else f"{e.digits:.1f}"]
+    rows = [[e.label, "negative pivot" if e.row in negative else fmt_digits(e.digits), fmt_number(e.kept)]
             for e in d.worst[:10]]
     largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
-               else f"Largest: {d.max_digits:.1f} digits lost at a pivot. ")
-    return ("<h2>Diagonal decay</h2>"
+               else f"At most {d.max_digits:.1f} digits lost at a pivot. ")
+    where = "DOF" if r.summary.nodes is not None else "row"
+    return ("<h2>Digits lost at pivots</h2>"
             + f"<p>{largest}"
               f'<span class="how">{_e(d.method)}</span></p>'
-            + _table(["row", "K_ii / D_ii", "digits"], rows, {1, 2}))
+            + _table([where, "digits lost", "stiffness kept at the pivot"], rows, {1, 2}))
 
 
 def _digits(r: results.Report) -> str:
@@ -251,8 +253,9 @@ def _figures(r: results.Report) -> str:
     wanted: list[tuple[str, str, Callable[[], Optional[bytes]]]] = []
     if r.spectrum is not None and len(r.spectrum.smallest):
         wanted.append(("Eigenvalue spectrum near zero",
-                       "Smallest eigenvalues of the scaled matrix, log scale; the dashed line "
-                       "marks the gap that separates the near-singular modes.",
+                       "Smallest eigenvalues of the scaled matrix, log scale"
+                       + ("; the dashed line marks the gap that separates the near-singular modes."
+                          if r.spectrum.gap is not None else "."),
                        lambda: plots.spectrum_png(r.spectrum)))
     geometry = r.geometry
     if geometry is not None:
@@ -268,8 +271,9 @@ def _figures(r: results.Report) -> str:
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
-                               "the model size); circles mark the nodes that locate the mode.",
-                               lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k)))
+                               "the model size); circled and numbered: the nodes that locate the "
+                               "mode; green triangles: the suggested supports.",
+                               lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k, r.restraints)))
     if not wanted:
         return ""
     try:

@@ -33,7 +33,7 @@ from conditioning import results
 
 #: Version of the JSON layout; bump the number when a key changes meaning or
 #: disappears (adding keys keeps the version).
-SCHEMA = "conditioning-report/1"
+SCHEMA = "conditioning-report/2"
 COMPARE_SCHEMA = "conditioning-compare/1"
 
 #: Fields that are not serialised (large, or only meaningful with the model).
@@ -46,7 +46,7 @@ _NOT_WRITTEN = {"geometry"}
 
 #: Report fields :func:`report_to_dict` writes under its own layout.
 _HANDLED = {"summary", "structure", "factorization", "condition", "spectrum", "restraints",
-            "jumps", "decay", "digits", "findings", "verdict", "status", "timings", "caution"}
+            "jumps", "pivots", "digits", "findings", "verdict", "status", "timings", "caution"}
 
 
 def report_to_dict(report: results.Report) -> dict[str, Any]:
@@ -79,7 +79,7 @@ def report_to_dict(report: results.Report) -> dict[str, Any]:
         "near_singular_modes": _modes(report.spectrum),
         "suggested_restraints": [_plain(r) for r in report.restraints],
         "stiffness_jumps": [_plain(j) for j in report.jumps],
-        "diagonal_decay": _plain(report.decay),
+        "pivot_loss": _plain(report.pivots),
         "digits": _digits(report.digits),
         "digits_summary": _digits_summary(report.digits),
         "findings": [_plain(f) for f in report.findings],

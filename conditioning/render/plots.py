@@ -52,14 +52,17 @@ def spectrum_png(spectrum: results.SpectrumResult) -> bytes:
     pos = lam > 0
     shown = np.where(pos, lam, _FLOOR)
     is_mode = idx <= spectrum.count
-    ax.semilogy(idx[is_mode & pos], shown[is_mode & pos], "o", color="#c0392b",
-                label="near-singular mode")
-    ax.semilogy(idx[~is_mode & pos], shown[~is_mode & pos], "o", color="#2c5d8a",
-                label="rest of the spectrum")
+    # A legend entry only for what is drawn: no "near-singular mode" on a healthy model.
+    if (is_mode & pos).any():
+        ax.semilogy(idx[is_mode & pos], shown[is_mode & pos], "o", color="#c0392b",
+                    label="near-singular mode")
+    if (~is_mode & pos).any():
+        ax.semilogy(idx[~is_mode & pos], shown[~is_mode & pos], "o", color="#2c5d8a",
+                    label="rest of the spectrum")
     if (~pos).any():
         ax.semilogy(idx[~pos], shown[~pos], "v", color="#7d3c98",
                     label="zero or negative (drawn at 1e-20)")
-    if spectrum.count and spectrum.count < lam.size:
+    if spectrum.gap is not None and spectrum.count and spectrum.count < lam.size:
         lo, hi = shown[spectrum.count - 1], shown[spectrum.count]
         line = math.sqrt(max(lo, _FLOOR) * max(hi, _FLOOR))
         ax.axhline(line, ls="--", color="#555555", lw=1)
@@ -69,8 +72,17 @@ def spectrum_png(spectrum: results.SpectrumResult) -> bytes:
     ax.set_ylabel("eigenvalue of D^-1/2 K D^-1/2")
     ax.set_xticks(idx if idx.size <= 20 else idx[:: max(1, idx.size // 10)])
     ax.grid(True, which="major", alpha=0.3)
+    ax.set_yscale("log")
+    ax.set_ylim(*_log_limits(shown))
     ax.legend(fontsize=8, loc="lower right")
     return _png(fig)
+
+
+def _log_limits(values: NDArray[np.float64]) -> tuple[float, float]:
+    """Whole decades around the data (half a decade of margin), not matplotlib's default span."""
+    v = values[values > 0]
+    lo, hi = (float(v.min()), float(v.max())) if v.size else (_FLOOR, 1.0)
+    return 10.0 ** math.floor(math.log10(lo) - 0.5), 10.0 ** math.ceil(math.log10(hi) + 0.5)
 
 
 def diagonal_histogram_png(geometry: results.ModelGeometry,
@@ -157,12 +169,14 @@ def digits_png(geometry: results.ModelGeometry, sample: results.DigitsSample) ->
 
 
 def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMode,
-                   k: int) -> Optional[bytes]:
+                   k: int, restraints: Optional[list[results.Restraint]] = None) -> Optional[bytes]:
     """Mode ``k`` drawn as a displaced shape over the node positions (PNG bytes).
 
     The node graph of K (``geometry.edges``: nodes coupled by a stored entry)
     is drawn undeformed in grey and displaced in colour; without edges (a
-    large model) only the nodes. 3D models are shown in an oblique
+    large model) only the nodes. The nodes that locate the mode are numbered
+    (at most :data:`MAX_NODE_LABELS`) and the suggested ``restraints`` are
+    marked with their node and DOF. 3D models are shown in an oblique
     projection (:data:`VIEW_AZIMUTH`, :data:`VIEW_ELEVATION`). Returns None
     when the model has no map, a node without a position, or the mode no
     vector.
@@ -197,6 +211,20 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
     if located.any() and located.sum() < nodes.size:
         ax.plot(base[located, 0], base[located, 1], "o", mfc="none", color="#1a5276", ms=8,
                 label="nodes that locate the mode")
+    # Node numbers at the defect, so the engineer can find it on the structure.
+    for i in np.flatnonzero(located)[:MAX_NODE_LABELS]:
+        ax.annotate(str(int(nodes[i])), base[i], xytext=(4, 4), textcoords="offset points",
+                    fontsize=7, color="#1a5276")
+    for res in restraints or []:
+        at = np.flatnonzero(nodes == res.node)
+        if at.size:
+            p = base[at[0]]
+            ax.plot(p[0], p[1], "^", color="#117a65", ms=10, mfc="none", mew=1.5)
+            ax.annotate(f"support {res.node} {res.dof}", p, xytext=(6, -12), textcoords="offset points",
+                        fontsize=7, color="#117a65")
+    if restraints:
+        ax.plot([], [], "^", color="#117a65", mfc="none", label="suggested support")
+    if located.any() and located.sum() < nodes.size or restraints:
         ax.legend(fontsize=8, loc="best")
     ax.set_aspect("equal", adjustable="datalim")
     ax.autoscale_view()
@@ -212,6 +240,9 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
 
 
 # ------------------------------------------------------------------ helpers
+#: Node numbers written on a mode plot at most (the rest are in the tables).
+MAX_NODE_LABELS = 12
+
 #: Viewing angles of the 3D projection (degrees): azimuth about z, elevation.
 #: Not 45 degrees, so square plans do not put corner nodes on top of each other.
 VIEW_AZIMUTH, VIEW_ELEVATION = 30.0, 20.0

@@ -1,10 +1,15 @@
-"""The report in the terminal (rich), verdict first.
+"""The report in the terminal (rich): verdict, what to do, key figures, details.
 
 :class:`TerminalReport` is a rich renderable over a
 :class:`~conditioning.results.Report`: ``console.print(TerminalReport(r))``.
-It only reads the report; every figure is shown with how it was obtained
-(estimate, bound, measured, certified, exact), taken from the ``method``
-fields the stages filled in.
+It only reads the report. Every figure is tagged with how it was obtained
+(estimate, bound, computed, measured, certified, exact), from the ``method``
+fields the stages filled in; the methods themselves, rules and references
+are shown with ``verbose`` (``-v``) and are always in the JSON and HTML.
+
+Budget (tests/test_terminal_budget.py): a small model's whole report fits in
+60 lines at 100 columns with the action in the first 15, and no table row
+wraps at 80 columns.
 """
 
 from __future__ import annotations
@@ -19,15 +24,15 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         mode_count_lines, scaling_sentence, summarise_ids,
-                                         zero_diagonal_text)
+                                         ids_phrase, mode_count_lines, rows_phrase, scaling_sentence,
+                                         summarise_ids, total_of, unit_word, zero_diagonal_text)
 
 _STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
 _SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
 
 
 class TerminalReport:
-    """Rich view of a report.
+    """Rich view of a report: the verdict, what to do, the key figures, then the details.
 
     Parameters
     ----------
@@ -39,28 +44,34 @@ class TerminalReport:
     extra_verdict : str, optional
         A line the command adds under the verdict (e.g. the ``--min-digits``
         test failing).
+    verbose : bool
+        Also show how each figure was obtained in full (methods, rules,
+        references), the input notes and each finding's advice; these are
+        always in the JSON and HTML reports.
     """
 
     def __init__(self, report: results.Report, *, max_ids: int = 8,
-                 extra_verdict: Optional[str] = None):
+                 extra_verdict: Optional[str] = None, verbose: bool = False):
         self.report = report
         self.max_ids = max_ids
         self.extra_verdict = extra_verdict
+        self.verbose = verbose
 
     def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
-        r = self.report
+        r, v, ids = self.report, self.verbose, self.max_ids
         yield verdict_line(r)
         if self.extra_verdict:
             yield Text(self.extra_verdict, style="bold red")
-        yield from _section("Model", _model(r))
-        yield from _section("Structure", _structure(r, self.max_ids))
-        yield from _section("Condition number", _condition(r))
-        yield from _section("Near-singular modes", _modes(r, self.max_ids))
-        yield from _section("Suggested restraints", _restraints(r))
-        yield from _section("Stiffness jumps", _jumps(r, self.max_ids))
-        yield from _section("Diagonal decay", _decay(r))
-        yield from _section("Digits of the displacements", _digits(r, self.max_ids))
-        yield from _section("Findings", _findings(r, self.max_ids))
+        yield from _section("What to do", _actions(r, ids))
+        yield from _section("Key figures", _key_figures(r))
+        yield from _section("Model", _model(r, ids, v))
+        yield from _section("Near-singular modes", _modes(r, ids, v))
+        yield from _section("Stiffness jumps", _jumps(r, ids))
+        if v:
+            yield from _section("Condition number", _condition_methods(r))
+            yield from _section("Digits lost at pivots", _pivots(r))
+        yield from _section("Digits of the displacements", _digits(r, ids, v))
+        yield from _section("Findings", _findings(r, ids, v))
         yield Rule(style="dim")
         yield Text(r.caution, style="italic")
 
@@ -88,22 +99,23 @@ def below_minimum_message(report: results.Report) -> Optional[str]:
     return None
 
 
-def command_view(report: results.Report, *, quiet: bool = False):
+def command_view(report: results.Report, *, quiet: bool = False, verbose: bool = False):
     """What ``conditioning diagnose`` prints: the whole report, or with
     ``quiet`` the verdict line; either way the below-minimum-digits message
     under the verdict when there is one. A rich renderable."""
     extra = below_minimum_message(report)
     if not quiet:
-        return TerminalReport(report, extra_verdict=extra)
+        return TerminalReport(report, extra_verdict=extra, verbose=verbose)
     # A plain string, as the message was always printed (rich markup applies).
     return Group(verdict_line(report), *([extra] if extra else []))
 
 
-def demo_case_view(name: str, description: str, report: results.Report, *, quiet: bool = False):
+def demo_case_view(name: str, description: str, report: results.Report, *, quiet: bool = False,
+                   verbose: bool = False):
     """One case of ``conditioning demo``: a rule with its name, the invented
     model's description in italics, then the report (``quiet``: the verdict)."""
     parts = [Rule(name)] + ([Text(description, style="italic")] if description else [])
-    return Group(*parts, verdict_line(report) if quiet else TerminalReport(report))
+    return Group(*parts, verdict_line(report) if quiet else TerminalReport(report, verbose=verbose))
 
 
 def demo_summary(rows: Iterable[tuple[str, results.Report, int]]):
@@ -131,7 +143,172 @@ def _grid() -> Table:
     return table
 
 
-def _model(r: results.Report):
+class _FittedTable(Table):
+    """A table whose columns keep their full width except the last one, which is cut
+    with an ellipsis: a row never wraps onto a second line, even at 80 columns."""
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        for column in self.columns[:-1]:
+            column.min_width = max([len(str(c)) for c in column._cells] + [len(str(column.header))])
+        yield from super().__rich_console__(console, options)
+
+
+def _table(*columns: str, right: Iterable[int] = ()) -> Table:
+    """A borderless table whose rows never wrap (see :class:`_FittedTable`)."""
+    t = _FittedTable(box=None, pad_edge=False, show_edge=False)
+    right = set(right)
+    for i, name in enumerate(columns):
+        t.add_column(name, justify="right" if i in right else "left", no_wrap=True, overflow="ellipsis")
+    return t
+
+
+def _where(r: results.Report, ids, max_ids: int) -> str:
+    """``"node 3"``, ``"nodes 5, 6, 7, 8"``, ``"all 42 nodes"``, or rows without a DOF map."""
+    return ids_phrase(ids, unit_word(r), total_of(r), max_ids)
+
+
+# ------------------------------------------------------------- what to do
+def _actions(r: results.Report, max_ids: int):
+    """The changes to the model the findings call for, in the engineer's words."""
+    lines: list[Text] = []
+    restraints = r.restraints
+    if restraints:
+        lines.append(Text(f"Add {'this support' if len(restraints) == 1 else 'these supports'} "
+                          "(one minimal choice; each must exist in the real structure):"))
+        for res in restraints[:max_ids]:
+            dof = f" {res.dof}" if res.dof and res.dof != "-" else ""
+            line = Text(f"  {unit_word(r)} {res.node}{dof}", style="bold")
+            line.append(f"  {res.reason}")
+            lines.append(line)
+        if len(restraints) > max_ids:
+            lines.append(Text(f"  and {len(restraints) - max_ids:,} more (all in the JSON report)"))
+    seen: set[str] = set()
+    for f in _by_severity(r.findings):
+        if f.severity == "note" or f.code in _COVERED or (f.code in _COVERED_BY_RESTRAINTS and restraints):
+            continue
+        text = _action_text(r, f, max_ids)
+        if text and text not in seen:
+            seen.add(text)
+            lines.append(Text(f"- {text}"))
+    if not lines:
+        return Text("Nothing to fix: K can be trusted to the digits above." if r.status == "healthy"
+                    else "No change to the model is called for; see the findings below.")
+    return Group(*lines)
+
+
+#: Findings whose action is another finding's (they point at the cause, not at a change).
+_COVERED = {"digits.below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
+            "spectrum.inertia-mismatch", "digits.refinement-not-converged"}
+#: Findings the suggested supports answer.
+_COVERED_BY_RESTRAINTS = {"support.rigid-body-mode"}
+
+
+def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
+    """One action for a finding: where, then what to change (the finding's advice)."""
+    if f.code in ("stiffness.jump", "stiffness.penalty-swallowed"):
+        jump = next((j for j in r.jumps if list(j.nodes) == list(f.nodes)), None)
+        if jump is not None and jump.advice_value is not None:
+            return (f"Lower the stiffness at {_where(r, jump.nodes, max_ids)} to about "
+                    f"{fmt_number(jump.advice_value)} (now {fmt_number(jump.ratio, 2)} times the "
+                    f"typical stiffness; it can cost {_jump_cost(jump)} digits).")
+    if f.code == "support.mechanism":
+        return (f"{_where(r, f.nodes, max_ids).capitalize()} move as a mechanism: look there for a "
+                "missing brace, a hinge too many, or a member attached at one node only.")
+    if f.code == "pivot.digits-lost":
+        if (r.spectrum is not None and r.spectrum.modes) or r.jumps:
+            return ""  # a symptom of the modes or jumps listed above, not a change of its own
+        label = f.message.split(" at the pivot of ", 1)[-1].split(":", 1)[0]
+        return (f"{label[0].upper() + label[1:]} is nearly unsupported once the rest is eliminated: "
+                "check its supports and the members that hold it.")
+    where = _where(r, f.nodes, max_ids) if f.nodes else ""
+    advice = f.advice or f.message
+    return f"{where[0].upper() + where[1:]}: {advice}" if where else advice
+
+
+def _jump_cost(j: results.StiffnessJump) -> str:
+    return "all" if j.swallowed else f"up to {j.digits_cost:.1f}"
+
+
+# ------------------------------------------------------------- key figures
+def _key_figures(r: results.Report):
+    t = _table("figure", "value", "how obtained", right=(1,))
+    c = r.condition
+    if c is not None:
+        t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
+        t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
+                  _how(c.scaled_estimate, c.scaled_method)
+                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are units"
+                     if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
+    sp = r.spectrum
+    if sp is not None:
+        t.add_row("near-singular modes", _mode_count(sp), _mode_how(sp))
+    if r.jumps:
+        worst = max(r.jumps, key=lambda j: j.digits_cost)
+        t.add_row("stiffness jumps", str(len(r.jumps)), f"estimated; worst {_jump_cost(worst)} digits")
+    p = r.pivots
+    if p is None and "pivots" in r.skipped:
+        t.add_row("digits lost at a pivot", "-", f"not measured: {r.skipped['pivots']}")
+    if p is not None and p.worst:
+        if p.negative_pivots:
+            t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
+        else:
+            t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
+    dg = r.digits
+    if dg is not None and dg.samples and not dg.skipped:
+        worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
+        n = len(dg.samples)
+        t.add_row("trustworthy digits", _digits_shown(worst),
+                  f"{_how_digits(worst.method)}; worst of {n} sample{'s' if n != 1 else ''}")
+    elif dg is not None and dg.skipped:
+        t.add_row("trustworthy digits", "-", "not measured (see below)")
+    return t if t.row_count else None
+
+
+def _kappa(value: Optional[float], singular: bool) -> str:
+    return fmt_number(value) if value is not None else ("singular" if singular else "-")
+
+
+def _how(value: Optional[float], method: str) -> str:
+    return how_obtained(method) if value is not None else "-"
+
+
+def _mode_count(sp: results.SpectrumResult) -> str:
+    if not sp.modes:
+        return "none"
+    kinds: dict[str, int] = {}
+    for m in sp.modes:
+        kinds[m.kind] = kinds.get(m.kind, 0) + 1
+    return ", ".join(f"{n} {k}" for k, n in kinds.items())
+
+
+def _mode_how(sp: results.SpectrumResult) -> str:
+    parts = [how_obtained(sp.method)]
+    if sp.gap is not None:
+        parts.append(f"gap {fmt_number(sp.gap, 2)}")
+    if sp.inertia_agrees is not None:
+        parts.append("inertia agrees" if sp.inertia_agrees else "inertia DISAGREES")
+    return ", ".join(parts)
+
+
+# ----------------------------------------------------------------- details
+def _model(r: results.Report, max_ids: int, verbose: bool):
+    """One sentence for the model and one for the structure checks; with ``verbose`` the full tables."""
+    if verbose:
+        return Group(_model_grid(r), Rule("Structure", align="left", style="dim"), _structure_grid(r, max_ids))
+    s, st = r.summary, r.structure
+    where = (f"{s.rows:,} rows on {s.nodes:,} nodes" + (f" ({s.dim}D" if s.dim else " (")
+             + (f"; {', '.join(s.dof_types)})" if s.dof_types else ")")
+             if s.nodes is not None else f"{s.rows:,} rows, no DOF map (reported by row; --dofs or "
+                                          "--dofs-per-node give node numbers)")
+    given = [name for name, on in (("load", s.has_load), ("solution", s.has_solution)) if on]
+    lines = [Text(f"{s.source}: {where}; {s.stored_entries:,} nonzeros; "
+                  + (f"{' and '.join(given)} given" if given else "no load given")
+                  + (f"; {s.restrained:,} restrained rows removed" if s.restrained else "") + ".")]
+    lines.append(Text(_structure_line(st, max_ids)))
+    return Group(*lines)
+
+
+def _model_grid(r: results.Report):
     s = r.summary
     g = _grid()
     g.add_row("source", s.source)
@@ -153,20 +330,20 @@ def _model(r: results.Report):
     return g
 
 
-def _structure(r: results.Report, max_ids: int):
+def _structure_grid(r: results.Report, max_ids: int):
     st = r.structure
     g = _grid()
     sizes = sorted((int(x) for x in st.part_sizes[: st.parts]), reverse=True)  # counted parts come first
     g.add_row("connected parts", f"{st.parts}" + (
         f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else ""))
     if st.placeholder_rows.size:
-        g.add_row("diagonal-only rows", f"{st.placeholder_rows.size:,} (rows "
-                  f"{summarise_ids([x + 1 for x in st.placeholder_rows], max_ids)}), not counted as parts")
+        g.add_row("diagonal-only rows", f"{st.placeholder_rows.size:,} "
+                  f"({rows_phrase(st.placeholder_rows, max_ids)}), not counted as parts")
     for name, rows in (("DOFs without stiffness", st.empty_rows),
                        ("negative diagonal", st.negative_diagonal)):
         rows = list(rows)
         g.add_row(name, "none" if not rows else
-                  f"{len(rows):,} (rows {summarise_ids([x + 1 for x in rows], max_ids)})")
+                  f"{len(rows):,} ({rows_phrase(rows, max_ids)})")
         if name.startswith("DOFs"):
             g.add_row("zero diagonal", zero_diagonal_text(st, max_ids))
     a = st.asymmetry
@@ -176,97 +353,97 @@ def _structure(r: results.Report, max_ids: int):
     return g
 
 
-def _condition(r: results.Report):
+def _structure_line(st: results.StructureResult, max_ids: int) -> str:
+    sizes = sorted((int(x) for x in st.part_sizes[: st.parts]), reverse=True)  # counted parts come first
+    parts = [f"{st.parts} connected part{'s' if st.parts != 1 else ''}"
+             + (f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else "")]
+    if st.placeholder_rows.size:
+        parts.append(f"{_count(st.placeholder_rows.size, 'diagonal-only row')} "
+                     f"({rows_phrase(st.placeholder_rows, max_ids)}), not counted as parts")
+    bad = [(name, rows) for name, rows in (("without stiffness", st.empty_rows),
+                                           ("with a negative diagonal", st.negative_diagonal),
+                                           ("with a zero diagonal and coupling", st.zero_diagonal))
+           if len(rows)]
+    for name, rows in bad:
+        parts.append(f"{_count(len(rows), 'row')} {name} ({rows_phrase(rows, max_ids)})")
+    if not bad:
+        parts.append("no row without stiffness, no zero or negative diagonal")
+    a = st.asymmetry
+    parts.append("symmetric" if a.row < 0 else
+                 f"not symmetric: largest relative difference {fmt_number(a.relative)} at row "
+                 f"{a.row + 1}, column {a.col + 1}")
+    return "Structure: " + "; ".join(parts) + "."
+
+
+def _count(n: int, word: str) -> str:
+    return f"{n:,} {word}{'' if n == 1 else 's'}"
+
+
+def _condition_methods(r: results.Report):
     c = r.condition
     if c is None:
         return Text("not computed", style="dim")
-    t = Table(box=None, pad_edge=False, show_edge=False)
-    t.add_column("figure")
-    t.add_column("value", justify="right")
-    t.add_column("how obtained")
-    sing = "singular" if c.singular else "-"
-    rows = (("2-norm, raw K", c.estimate, c.estimate_method),
-            ("2-norm, scaled D^-1/2 K D^-1/2", c.scaled_estimate, c.scaled_method),
-            ("1-norm, raw K", c.one_norm_estimate, c.one_norm_method))
-    notes = []
-    for i, (name, value, method) in enumerate(rows, start=1):
-        how = how_obtained(method) if value is not None else "-"
-        t.add_row(name, fmt_number(value) if value is not None else sing, f"{how} [{i}]")
-        notes.append(Text(f"[{i}] {method}", style="dim"))
-    parts = [t]
-    if c.singular:
-        parts.append(Text("K is singular at working precision: it has a null space "
-                          "(see the near-singular modes).", style="red"))
+    lines = [Text(f"{name}: {method}", style="dim") for name, method in
+             (("2-norm, raw K", c.estimate_method), ("2-norm, scaled D^-1/2 K D^-1/2", c.scaled_method),
+              ("1-norm, raw K", c.one_norm_method))]
+    if c.one_norm_estimate is not None:
+        lines.insert(0, Text(f"1-norm, raw K: {fmt_number(c.one_norm_estimate)} "
+                             f"({how_obtained(c.one_norm_method)})"))
     if c.scaling_gain_digits is not None:
-        parts.append(Text(scaling_sentence(c.scaling_gain_digits)))
-    return Group(*parts, *notes)
-
-
-def _modes(r: results.Report, max_ids: int):
-    sp = r.spectrum
-    if sp is None:
-        return Text("not computed", style="dim")
-    lines = [Text(line, style="red" if "DISAGREES" in line else "")
-             for line in mode_count_lines(sp, bool(r.jumps))]
-    if sp.negative_eigenvalues:
-        lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
-                          "stiffness is indefinite", style="red"))
-    lines.append(Text(f"method: {sp.method}", style="dim"))
-    lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))
-    if sp.modes:
-        t = Table(box=None, pad_edge=False)
-        t.add_column("#", justify="right")
-        t.add_column("kind")
-        t.add_column("eigenvalue (scaled)", justify="right")
-        t.add_column("relative", justify="right")
-        t.add_column("motion")
-        t.add_column("part", justify="right")
-        t.add_column("nodes")
-        for i, m in enumerate(sp.modes, start=1):
-            motion = fmt_motion(m.motion) if m.motion else (
-                f"groups: {len(m.groups)}" if m.groups else "-")
-            kind = m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)"
-            t.add_row(str(i), kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
-                      motion, str(m.part), summarise_ids(m.nodes, max_ids))
-        lines.append(t)
+        lines.append(Text(scaling_sentence(c.scaling_gain_digits)))
     return Group(*lines)
 
 
-def _restraints(r: results.Report):
-    if not r.restraints:
-        return None
-    g = _grid()
-    for res in r.restraints:
-        g.add_row(f"node {res.node} {res.dof}", res.reason)
-    note = Text("A restraint must exist in the real structure (or the part must be "
-                "connected); do not add one only to silence the solver.", style="italic")
-    return Group(g, note)
+#: Modes listed in the terminal before "and N more" (all are in the JSON and the mode files).
+MAX_MODE_ROWS = 10
+
+
+def _modes(r: results.Report, max_ids: int, verbose: bool):
+    sp = r.spectrum
+    if sp is None:
+        return Text("not computed", style="dim") if verbose else None
+    lines = []
+    counts = mode_count_lines(sp, bool(r.jumps))
+    if verbose or len(counts) > 2 or sp.negative_eigenvalues or sp.inertia_agrees is False:
+        lines += [Text(line, style="red" if "DISAGREES" in line else "") for line in counts]
+    if sp.negative_eigenvalues:
+        lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
+                          "stiffness is indefinite", style="red"))
+    if verbose:
+        lines.append(Text(f"method: {sp.method}", style="dim"))
+        lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))
+    if sp.modes:
+        t = _table("#", "kind", "eigenvalue", "motion", "part", unit_word(r) + "s", right=(0, 2, 4))
+        for i, m in enumerate(sp.modes[:MAX_MODE_ROWS], start=1):
+            motion = fmt_motion(m.motion) if m.motion else (
+                f"{len(m.groups)} rigid groups" if m.groups else "-")
+            kind = m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)"
+            t.add_row(str(i), kind, fmt_number(m.eigenvalue), motion, str(m.part),
+                      ids_phrase(m.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
+        lines.append(t)
+        if len(sp.modes) > MAX_MODE_ROWS:
+            lines.append(Text(f"and {len(sp.modes) - MAX_MODE_ROWS:,} more modes (all in the JSON "
+                              "report and the mode files)"))
+    return Group(*lines) if lines else None
 
 
 def _jumps(r: results.Report, max_ids: int):
     if not r.jumps:
-        return Text("none found")
-    t = Table(box=None, pad_edge=False)
-    t.add_column("kind")
-    t.add_column("nodes")
-    t.add_column("ratio", justify="right")
-    t.add_column("digits cost", justify="right")
-    t.add_column("suggested stiffness", justify="right")
+        return None
+    t = _table("kind", unit_word(r) + "s", "ratio", "digits cost", "suggested", right=(2, 3, 4))
     for j in r.jumps[:max_ids]:
-        t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio),
-                  "all" if j.swallowed else f"about {j.digits_cost:.1f}", fmt_number(j.advice_value))
+        t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio, 2),
+                  "all" if j.swallowed else f"up to {j.digits_cost:.1f}", fmt_number(j.advice_value))
     parts = [t]
     if len(r.jumps) > max_ids:
         parts.append(Text(f"and {len(r.jumps) - max_ids:,} more (all in the JSON report)"))
-    parts.append(Text("The reasoning behind each suggested stiffness is in the findings "
-                      "below and in the JSON report.", style="dim"))
     return Group(*parts)
 
 
-def _decay(r: results.Report):
-    d = r.decay
-    if d is None and "diagonal decay" in r.skipped:  # e.g. an engine without pivots: said, not hidden
-        return Text(f"not measured: {r.skipped['diagonal decay']}", style="dim")
+def _pivots(r: results.Report):
+    d = r.pivots
+    if d is None and "pivots" in r.skipped:  # e.g. an engine without pivots: said, not hidden
+        return Text(f"not measured: {r.skipped['pivots']}", style="dim")
     if d is None or not d.worst:
         return None
     g = _grid()
@@ -276,64 +453,65 @@ def _decay(r: results.Report):
     else:
         g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
     for e in d.worst[:5]:
-        g.add_row(e.label, f"negative pivot, K_ii/D_ii = {fmt_number(e.ratio)}" if e.row in negative
-                  else f"K_ii/D_ii = {fmt_number(e.ratio)}, about {e.digits:.1f} digits")
+        g.add_row(e.label, "negative pivot" if e.row in negative
+                  else f"about {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
     return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
-def _digits(r: results.Report, max_ids: int):
+def _digits(r: results.Report, max_ids: int, verbose: bool):
     dg = r.digits
     if dg is None:
-        return Text("not measured", style="dim")
+        return Text("not measured", style="dim") if verbose else None
     if dg.skipped:
         return Group(Text(f"not measured: {dg.skipped}", style="yellow"), *_audit_lines(dg.audit))
-    t = Table(box=None, pad_edge=False)
-    t.add_column("sample", no_wrap=True)
-    t.add_column("trustworthy digits", justify="right")
-    t.add_column("digits lost", justify="right")
-    t.add_column("how obtained")
-    t.add_column("converged")
-    t.add_column("reference error bound", justify="right")
-    worst = _grid()
+    show_bound = verbose or any(not s.converged or not s.bound_trusted for s in dg.samples)
+    columns = ["sample", "digits", "lost", "how obtained"]
+    if show_bound:
+        columns += ["converged", "reference error bound"]
+    t = _table(*columns, right=(1, 2) + ((5,) if show_bound else ()))
     for s in dg.samples:
-        bound = (fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
-                 else "withdrawn")
-        t.add_row(s.sample, _digits_shown(s), fmt_digits(s.digits_lost),
-                  _how_digits(s.method), "yes" if s.converged else f"no: {s.stop_reason}",
-                  bound)
-        if s.worst_nodes:
-            shown = ", ".join(f"{w.node} ({fmt_digits(w.digits)})"
-                              for w in s.worst_nodes[:max_ids // 2 or 1])
-            more = len(s.worst_nodes) - (max_ids // 2 or 1)
-            worst.add_row(s.sample, shown + (f" and {more:,} more" if more > 0 else ""))
+        row = [s.sample, _digits_shown(s), fmt_digits(s.digits_lost), _how_digits(s.method)]
+        if show_bound:
+            row += ["yes" if s.converged else f"no: {s.stop_reason}",
+                    fmt_number(s.normwise_bound) if s.bound_trusted and s.normwise_bound is not None
+                    else "withdrawn"]
+        t.add_row(*row)
     lines = [t]
+    worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
+    if worst.worst_nodes:
+        lines.append(Text(f"Worst {unit_word(r)}s of sample '{worst.sample}' (digits of the worst "
+                          f"component against its own size): {_worst_nodes(worst, max_ids)}"))
     if any(getattr(s, "at_ceiling", False) for s in dg.samples):
         lines.append(Text(">= : the error is below what the reference can resolve; the true "
                           "figure is at least this.", style="dim"))
-    if worst.row_count:
-        unit = "node" if r.summary.nodes is not None else "row"
-        lines.append(Text(f"Worst {unit}s, {unit} (digits of its worst component against its own size):"))
-        lines.append(worst)
-    if dg.summary:
-        lines.append(Text(dg.summary))
-    else:
-        pred = []
-        if dg.predicted_raw is not None:
-            pred.append(f"from the raw condition number {fmt_digits(dg.predicted_raw)}")
-        if dg.predicted_scaled is not None:
-            pred.append(f"from the scaled one {fmt_digits(dg.predicted_scaled)}")
-        if pred:
-            lines.append(Text("Rule-of-thumb prediction (16 - log10 kappa): "
-                              + ", ".join(pred) + " digits."))
-        if dg.factorization_flops:
-            lines.append(Text(f"The factorization took about "
-                              f"{fmt_number(dg.factorization_flops)} operations; digits are "
-                              "lost to conditioning, not to the operation count.", style="dim"))
-    lines.extend(_confirmation_lines(dg.samples))
-    if dg.certification:
-        lines.append(Text(f"Verified eigenvalue bound: {dg.certification}.", style="dim"))
+    if verbose:
+        if dg.summary:
+            lines.append(Text(dg.summary))
+        elif dg.predicted_scaled is not None:
+            lines.append(Text(f"Rule-of-thumb prediction (16 - log10 kappa scaled): "
+                              f"{fmt_digits(dg.predicted_scaled)} digits."))
+        lines.extend(_confirmation_lines(dg.samples))
+        if dg.certification:
+            lines.append(Text(f"Verified eigenvalue bound: {dg.certification}.", style="dim"))
     lines.extend(_audit_lines(dg.audit))
     return Group(*lines)
+
+
+def _worst_nodes(s: results.DigitsSample, max_ids: int) -> str:
+    """``"7, 8, 9 (3.5); 10 (3.6)"``: the worst nodes, those with the same digits together."""
+    shown = s.worst_nodes[: max(max_ids // 3, 1)]
+    if not shown:
+        return "-"
+    groups: list[tuple[str, list[int]]] = []
+    for w in shown:
+        text = fmt_digits(w.digits)
+        if groups and groups[-1][0] == text:
+            groups[-1][1].append(w.node)
+        else:
+            groups.append((text, [w.node]))
+    out = "; ".join(f"{', '.join(str(n) for n in nodes)} ({text})" for text, nodes in groups)
+    more = len(s.worst_nodes) - len(shown)
+    return out + (f" and {more:,} more" if more > 0 else "")
 
 
 def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
@@ -379,6 +557,8 @@ def _digits_shown(s: results.DigitsSample) -> str:
 
 #: Short labels for the digits table (the full method is in the JSON and HTML).
 _SHORT_METHOD = {
+    "double-double refinement": "refinement, measured",
+    "arbitrary precision": "arb. precision, measured",
     "certified (verified eigenvalue bound)": "certified (eig. bound)",
     "certified (ball arithmetic)": "certified (ball)",
 }
@@ -391,20 +571,21 @@ def _how_digits(method: str) -> str:
     return method if tag in method else f"{method}, {tag}"
 
 
-def _findings(r: results.Report, max_ids: int):
+def _findings(r: results.Report, max_ids: int, verbose: bool):
     if not r.findings:
         return Text("no findings")
     rows = []
+    unit = unit_word(r)
     for f in _by_severity(r.findings):
         line = Text()
         line.append(f"{f.severity:<7} ", style=_SEVERITY_STYLE.get(f.severity, ""))
         line.append(f"[{f.code}] ", style="dim")
         line.append(f.message)
-        listed = summarise_ids(f.nodes, max_ids)
-        if f.nodes and listed not in f.message:
-            line.append(f" (nodes {listed})")
+        phrase = ids_phrase(f.nodes, unit, total_of(r), max_ids)
+        if f.nodes and summarise_ids(f.nodes, max_ids) not in f.message and phrase not in f.message:
+            line.append(f" ({phrase})")
         rows.append(line)
-        if f.advice:
+        if verbose and f.advice:
             rows.append(Text(f"        advice: {f.advice}"))
     return Group(*rows)
 

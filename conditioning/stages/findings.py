@@ -15,7 +15,7 @@ import numpy as np
 from conditioning.model import Model
 from conditioning.linalg.doubledouble import U
 from conditioning.results import (
-    Asymmetry, ConditionResult, DiagonalDecay, DigitsResult, Finding, NearSingularMode,
+    Asymmetry, ConditionResult, PivotLoss, DigitsResult, Finding, NearSingularMode,
     OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
 from conditioning.stages.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
@@ -42,7 +42,7 @@ CODES = {
     "spectrum.inertia-mismatch": "the eigenvalue count and the inertia count disagree",
     "condition.ill-conditioned": "the scaled condition number is large",
     "condition.units-only": "the raw condition number is large only through units or DOF-type mixing",
-    "factor.diagonal-decay": "large diagonal decay at some pivots",
+    "pivot.digits-lost": "many digits lost at a pivot: a DOF nearly unsupported once the others are eliminated",
     "factor.negative-pivot": "a negative pivot: K is indefinite at that DOF",
     "digits.below-minimum": "fewer trustworthy digits than required",
     "digits.refinement-not-converged": "the extended-precision reference did not converge",
@@ -52,15 +52,24 @@ CODES = {
 }
 
 
-#: Digits lost at one pivot from which the decay is a finding (the project's choice:
+#: Digits lost at one pivot from which the loss is a finding (the project's choice:
 #: half of float64's digits).
-DECAY_FINDING_DIGITS = 8
+PIVOT_LOSS_DIGITS = 8
 
 
 def _list_nodes(nodes: Sequence[int], limit: int = 8) -> str:
     nodes = list(nodes)
     head = ", ".join(str(v) for v in nodes[:limit])
     return head if len(nodes) <= limit else f"{head} and {len(nodes) - limit:,} more"
+
+
+def _at(model: Model, rows_word: str, ids: Sequence[int], limit: int = 8) -> str:
+    """``"node 1"``, ``"nodes 5, 6, 7, 8"``, ``"all 42 nodes"`` (``rows_word`` is ``"nodes"`` or ``"rows"``)."""
+    ids = list(ids)
+    total = int(model.dofs.nodes.size) if model.dofs is not None else model.n
+    if total > 2 and len(set(ids)) == total:
+        return f"all {total:,} {rows_word}"
+    return f"{rows_word[:-1] if len(ids) == 1 else rows_word} {_list_nodes(ids, limit)}"
 
 
 def _motion_text(mode: NearSingularMode) -> str:
@@ -109,7 +118,7 @@ def build_findings(
     spectrum: Optional[SpectrumResult],
     restraints: list[Restraint],
     jumps: list[StiffnessJump],
-    decay: Optional[DiagonalDecay],
+    pivots: Optional[PivotLoss],
     digits: Optional[DigitsResult],
     *,
     min_digits: float = 4.0,
@@ -123,11 +132,11 @@ def build_findings(
         _input_findings(model, structure)
         + _structure_findings(model, structure)
         + _mode_findings(model, structure, spectrum, restraints, rows_word)
-        + _spectrum_findings(spectrum, decay)
+        + _spectrum_findings(spectrum, pivots)
         + _stiff_link_findings(stiff_link_eigenvalues, jumps)
         + _jump_findings(model, jumps, digits, min_digits, rows_word)
-        + _condition_findings(condition, spectrum, jumps, decay, digits)
-        + _pivot_findings(model, decay, spectrum)
+        + _condition_findings(condition, spectrum, jumps, pivots, digits)
+        + _pivot_findings(model, pivots, spectrum)
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(digits, min_digits)
     )
@@ -199,7 +208,7 @@ def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[
     out = []
     for mode in spectrum.modes:
         if mode.kind == "rigid-body":
-            out.append(_rigid_body_finding(structure, mode, bool(restraints), rows_word))
+            out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word))
         elif mode.kind == "mechanism":
             out.append(_mechanism_finding(model, structure, mode, rows_word))
     return out
@@ -210,15 +219,15 @@ def _held_text(mode: NearSingularMode) -> str:
                                   "soft spring), so K is invertible but badly conditioned.")
 
 
-def _rigid_body_finding(structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
+def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
                         rows_word: str) -> Finding:
     who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
     nearly = "" if mode.exact else "nearly "
     return Finding(
         "error", "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}. {rows_word.capitalize()}: "
-        f"{_list_nodes(mode.nodes)}.{_held_text(mode)}",
+        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}."
+        f"{_held_text(mode)}",
         mode.nodes,
         "Add supports in the directions that move, or connect the part to the supported "
         "structure" + ("; the report's suggested restraints are one minimal choice."
@@ -232,7 +241,7 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
     return Finding(
         "error", "support.mechanism",
         f"Internal {'near-' if not mode.exact else ''}mechanism"
-        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{rows_word} {_list_nodes(mode.nodes)}; "
+        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{_at(model, rows_word, mode.nodes)}; "
         f"scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
@@ -241,12 +250,12 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
         "only touches the rest at one node.")
 
 
-def _spectrum_findings(spectrum: Optional[SpectrumResult], decay: Optional[DiagonalDecay]) -> list[Finding]:
+def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:
     """stiffness.indefinite (when no pivot locates it) and spectrum.inertia-mismatch."""
     if spectrum is None:
         return []
     out = []
-    if spectrum.negative_eigenvalues and not (decay is not None and decay.negative_pivots):
+    if spectrum.negative_eigenvalues and not (pivots is not None and pivots.negative_pivots):
         # With pivots, the negative-pivot finding says it with a location.
         out.append(Finding("error", "stiffness.indefinite",
                            f"K has {spectrum.negative_eigenvalues:,} negative eigenvalue(s) (counted from "
@@ -281,11 +290,11 @@ def _jump_findings(model: Model, jumps: list[StiffnessJump], digits: Optional[Di
         if j.swallowed:
             out.append(_swallowed_finding(model, j, rows_word))
         else:
-            out.append(_jump_finding(j, measured_worst, min_digits, rows_word))
+            out.append(_jump_finding(model, j, measured_worst, min_digits, rows_word))
     return out
 
 
-def _jump_finding(j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
+def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
                   rows_word: str) -> Finding:
     # A stiff spring to ground is absorbed by diagonal scaling; a stiff
     # link between DOFs is not. Once digits are measured (the worst-case
@@ -300,14 +309,14 @@ def _jump_finding(j: StiffnessJump, measured_worst: Optional[float], min_digits:
         if measured_worst >= min_digits and sev == "warning" and lost + 1.0 < j.digits_cost:
             sev = "note"
     return Finding(sev, "stiffness.jump",
-                   f"{j.kind} stiffness jump at {rows_word} {_list_nodes(j.nodes)}: ratio "
+                   f"{j.kind} stiffness jump at {_at(model, rows_word, j.nodes)}: ratio "
                    f"{j.ratio:.1e}, can cost up to {j.digits_cost:.1f} digits (estimated from "
                    f"the ratio){measured}.",
                    j.nodes, j.reasoning)
 
 
 def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional[SpectrumResult],
-                        jumps: list[StiffnessJump], decay: Optional[DiagonalDecay],
+                        jumps: list[StiffnessJump], pivots: Optional[PivotLoss],
                         digits: Optional[DigitsResult]) -> list[Finding]:
     """condition.ill-conditioned and condition.units-only (K nonsingular only)."""
     if condition is None or condition.singular:
@@ -320,7 +329,7 @@ def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional
                            "digits may be lost" + (" (see the measured digits)."
                                                    if digits is not None and digits.samples
                                                    else " (digits not measured)."), [],
-                           _where_to_look(spectrum, jumps, decay)))
+                           _where_to_look(spectrum, jumps, pivots)))
     if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
         out.append(Finding("note", "condition.units-only",
                            f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
@@ -330,18 +339,19 @@ def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional
     return out
 
 
-def _pivot_findings(model: Model, decay: Optional[DiagonalDecay],
+def _pivot_findings(model: Model, pivots: Optional[PivotLoss],
                     spectrum: Optional[SpectrumResult]) -> list[Finding]:
-    """factor.negative-pivot and factor.diagonal-decay."""
-    if decay is None:
+    """factor.negative-pivot and pivot.digits-lost."""
+    if pivots is None:
         return []
     out = []
-    if decay.negative_pivots:
-        out.append(_negative_pivot_finding(model, decay, spectrum))
-    positive = [e for e in decay.worst if np.isfinite(e.digits)]
-    if positive and positive[0].digits >= DECAY_FINDING_DIGITS:
-        out.append(Finding("warning", "factor.diagonal-decay",
-                           f"Diagonal decay of {positive[0].digits:.1f} digits at {positive[0].label}.",
+    if pivots.negative_pivots:
+        out.append(_negative_pivot_finding(model, pivots, spectrum))
+    positive = [e for e in pivots.worst if np.isfinite(e.digits)]
+    if positive and positive[0].digits >= PIVOT_LOSS_DIGITS:
+        out.append(Finding("warning", "pivot.digits-lost",
+                           f"{positive[0].digits:.1f} digits lost at the pivot of {positive[0].label}: "
+                           "elimination leaves almost none of its stiffness.",
                            model.nodes_of([positive[0].row]),
                            "A pivot far smaller than its diagonal means the DOF is nearly unsupported "
                            "once the others are eliminated."))
@@ -382,7 +392,7 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
             else f"only about {j.structure_digits_kept:.1f} digits")
     return Finding(
         "error", "stiffness.penalty-swallowed",
-        f"A penalty link at {rows_word} {_list_nodes(j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
+        f"A penalty link at {_at(model, rows_word, j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
         f"has swallowed the structure: K keeps {kept} of the structural stiffness of {dofs} (about "
         f"{j.structural_stiffness:.2g}), so the displacements of these DOFs have no trustworthy digits. "
         "This is a stiffness jump, not a mechanism: no restraint is needed. The rest of the model "
@@ -393,9 +403,9 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
         + ", or tie the DOFs with a constraint that eliminates one of them.")
 
 
-def _negative_pivot_finding(model: Model, decay: DiagonalDecay, spectrum: Optional[SpectrumResult]) -> Finding:
+def _negative_pivot_finding(model: Model, pivots: PivotLoss, spectrum: Optional[SpectrumResult]) -> Finding:
     """Negative pivots, where they appeared, how many eigenvalues are negative, and what usually causes one."""
-    neg = decay.negative_pivots
+    neg = pivots.negative_pivots
     where = ", ".join(e.label for e in neg[:6]) + (f" and {len(neg) - 6} more" if len(neg) > 6 else "")
     count = spectrum.negative_eigenvalues if spectrum is not None else 0
     counted = (f"K has {count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from the pivots' "
@@ -448,15 +458,15 @@ def own_samples(digits: Optional[DigitsResult]) -> list:
 
 
 def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],
-                   decay: Optional[DiagonalDecay]) -> str:
+                   pivots: Optional[PivotLoss]) -> str:
     """Advice that points only at sections of the report that hold something."""
     shown = []
     if spectrum is not None and spectrum.modes:
         shown.append("near-singular modes")
     if jumps:
         shown.append("stiffness jumps")
-    if decay is not None and decay.worst and decay.max_digits >= DECAY_FINDING_DIGITS:
-        shown.append("diagonal decay")
+    if pivots is not None and pivots.worst and pivots.max_digits >= PIVOT_LOSS_DIGITS:
+        shown.append("digits lost at pivots")
     if shown:
         return f"Look at the {', '.join(shown[:-1]) + ' and ' if len(shown) > 1 else ''}{shown[-1]} for the cause."
     return ("No near-singular mode or stiffness jump was found to explain it: look for elements "
@@ -615,7 +625,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if exact or n_empty:
         total = len(exact) if modes else n_empty
         detail = kinds(exact) if exact else f"{n_empty} dof-without-stiffness"
-        return f"singular: {total} free mode(s) ({detail})", status
+        return f"singular: {total} free mode{'' if total == 1 else 's'} ({detail})", status
     words = "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
     pivots = [f for f in findings if f.code == "factor.negative-pivot"]
@@ -640,7 +650,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
                 f"above the {audit.allowed_backward_error:.1e} of the tool's own solve; it keeps "
                 f"{_significant(audit.trustworthy_digits)}{own_figure}"), status
     if near:
-        return f"near-singular: {len(near)} nearly free mode(s) ({kinds(near)}){tail}", status
+        return f"near-singular: {len(near)} nearly free mode{'' if len(near) == 1 else 's'} ({kinds(near)}){tail}", status
     sk = condition.scaled_estimate if condition is not None and not condition.singular else None
     ill = sk is not None and sk > ILL_CONDITIONED
     below = worst is not None and worst < min_digits

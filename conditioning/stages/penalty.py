@@ -39,7 +39,7 @@ from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.geometry import model_geometry
 from conditioning.model import Model
 from conditioning.results import (
-    DecayEntry, DiagonalDecay, DigitsResult, Finding, ModelSummary, Report, StiffnessJump, StructureResult,
+    PivotEntry, PivotLoss, DigitsResult, Finding, ModelSummary, Report, StiffnessJump, StructureResult,
 )
 
 logger = logging.getLogger(__name__)
@@ -115,15 +115,15 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
         condition = replace(condition, estimate_method=REST + condition.estimate_method,
                             scaled_method=REST + condition.scaled_method,
                             one_norm_method=REST + condition.one_norm_method)
-    decay = back.decay(rest.decay)
+    pivots = back.pivots(rest.pivots)
     digits = back.digits(rest.digits, swallowed_rows(jumps))
-    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, decay, digits,
+    findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=min_digits)
     findings += [f for f in rest.findings if f.code == "stiffness.stiff-link-eigenvalue"]
     line, status = verdict(findings, spectrum, structure, digits, condition)
     return Report(
         summary=summary, structure=structure, factorization=rest.factorization, condition=condition,
-        spectrum=spectrum, restraints=restraints, jumps=jumps, decay=decay, digits=digits,
+        spectrum=spectrum, restraints=restraints, jumps=jumps, pivots=pivots, digits=digits,
         findings=findings, verdict=line, status=status, timings=rest.timings, seed=rest.seed,
         skipped=rest.skipped,
         geometry=model_geometry(model),
@@ -161,11 +161,11 @@ class _Renumber:
             return np.arange(1, self.model.n + 1)
         return np.asarray(self.model.dofs.node)
 
-    def _entry(self, e: DecayEntry) -> DecayEntry:
+    def _entry(self, e: PivotEntry) -> PivotEntry:
         row = int(self.keep[e.row])
         return replace(e, row=row, label=self.model.row_label(row))
 
-    def decay(self, d: Optional[DiagonalDecay]) -> Optional[DiagonalDecay]:
+    def pivots(self, d: Optional[PivotLoss]) -> Optional[PivotLoss]:
         if d is None:
             return None
         return replace(d, worst=[self._entry(e) for e in d.worst],

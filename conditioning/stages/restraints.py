@@ -279,7 +279,7 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     if dist.min() <= AXIS_AT_NODE * span:
         about = f"node {int(model.dofs.node[near])}"
     else:
-        about = "(" + ", ".join(f"{v:.3g}" for v in pivot[: (2 if geometry.planar else 3)]) + ")"
+        about = "(" + ", ".join(_coordinate(v, span) for v in pivot[: (2 if geometry.planar else 3)]) + ")"
     if not geometry.planar:
         about = "an axis through " + about
     dof = int(model.dofs.dof[row])
@@ -290,6 +290,12 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     lever = float(abs(np.cross(geometry.xyz[row] - pivot, e) @ (theta / np.linalg.norm(theta))))
     return (f"restrain {where}: stops the rotation {name} of {part} about {about}, "
             f"with a lever arm of {lever:.3g} (model length units)")
+
+
+def _coordinate(v: float, span: float) -> str:
+    """A coordinate rounded to the model's scale (3 figures of its span): "6040", "0", never "-3.4e-15"."""
+    decimals = max(2 - int(np.floor(np.log10(span))), 0)
+    return f"{round(float(v), decimals) + 0.0:.{decimals}f}"  # + 0.0 turns -0.0 into 0.0
 
 
 def _motion_without_coords(model: Model, motion, rows) -> str:

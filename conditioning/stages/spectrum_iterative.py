@@ -14,7 +14,7 @@ This is one of the ways the spectrum stage
 (:func:`conditioning.stages.spectrum.smallest_eigenpairs`) obtains its
 eigenpairs; the gap rule and the result are the stage's. Without a
 factorization there is no inertia count (Sylvester's law) to confirm the
-number of modes, no pivots for diagonal decay, and no solve for the measured
+number of modes, no pivots to count digits lost at, and no solve for the measured
 digits: the pipeline records those stages as skipped, with why.
 """
 
