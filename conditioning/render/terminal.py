@@ -222,12 +222,21 @@ def _modes(r: results.Report, max_ids: int):
         t.add_column("motion")
         t.add_column("part", justify="right")
         t.add_column("nodes")
-        for i, m in enumerate(sp.modes, start=1):
-            motion = fmt_motion(m.motion) if m.motion else (
-                f"groups: {len(m.groups)}" if m.groups else "-")
-            kind = m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)"
-            t.add_row(str(i), kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
-                      motion, str(m.part), summarise_ids(m.nodes, max_ids))
+        groups = sp.mode_groups if sum(g.count for g in sp.mode_groups) == len(sp.modes) else [
+            results.ModeGroup(m.kind, m.part, 1, m.exact, "", m.nodes, [i], m.eigenvalue)
+            for i, m in enumerate(sp.modes, start=1)]  # a report whose modes were edited without regrouping
+        for g in groups:
+            # One row per group of modes (kind, part): hundreds of modes of one kind fit on one line.
+            m = sp.modes[g.modes[0] - 1]
+            kind = g.kind if g.exact else f"{g.kind} (nearly free)"
+            if g.count == 1:
+                motion = m.description or (fmt_motion(m.motion) if m.motion else (
+                    f"groups: {len(m.groups)}" if m.groups else "-"))
+                t.add_row(str(g.modes[0]), kind, fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+                          motion, str(g.part), summarise_ids(m.nodes, max_ids))
+            else:
+                t.add_row(f"{g.modes[0]}-{g.modes[-1]}", f"{g.count:,} x {kind}", f"<= {fmt_number(g.eigenvalue_max)}",
+                          "", g.motion or "-", str(g.part), summarise_ids(g.nodes, max_ids))
         lines.append(t)
     return Group(*lines)
 
