@@ -241,7 +241,8 @@ class ModeGroup:
     kind: ModeKind
     """Kind shared by the modes of the group."""
     part: int
-    """Connected part, 1-based (as NearSingularMode.part)."""
+    """Connected part, 1-based (as NearSingularMode.part); 0 for the group of
+    empty rows when they lie on several parts (each empty row is a part)."""
     count: int
     """Number of modes in the group (at least 1)."""
     exact: bool

@@ -56,7 +56,7 @@ class TerminalReport:
         yield from _section("Structure", _structure(r, self.max_ids))
         yield from _section("Condition number", _condition(r))
         yield from _section("Near-singular modes", _modes(r, self.max_ids))
-        yield from _section("Suggested restraints", _restraints(r))
+        yield from _section("Suggested restraints", _restraints(r, self.max_ids))
         yield from _section("Stiffness jumps", _jumps(r, self.max_ids))
         yield from _section("Diagonal decay", _decay(r))
         yield from _section("Digits of the displacements", _digits(r, self.max_ids))
@@ -236,17 +236,25 @@ def _modes(r: results.Report, max_ids: int):
                           motion, str(g.part), summarise_ids(m.nodes, max_ids))
             else:
                 t.add_row(f"{g.modes[0]}-{g.modes[-1]}", f"{g.count:,} x {kind}", f"<= {fmt_number(g.eigenvalue_max)}",
-                          "", g.motion or "-", str(g.part), summarise_ids(g.nodes, max_ids))
+                          "", g.motion or "-", str(g.part) if g.part else "several", summarise_ids(g.nodes, max_ids))
         lines.append(t)
     return Group(*lines)
 
 
-def _restraints(r: results.Report):
+#: Restraints listed before the rest are counted (all are in the JSON report).
+RESTRAINTS_SHOWN = 20
+
+
+def _restraints(r: results.Report, max_ids: int):
     if not r.restraints:
         return None
     g = _grid()
-    for res in r.restraints:
+    for res in r.restraints[:RESTRAINTS_SHOWN]:
         g.add_row(f"node {res.node} {res.dof}", res.reason)
+    rest = r.restraints[RESTRAINTS_SHOWN:]
+    if rest:
+        g.add_row(f"and {len(rest):,} more", f"at nodes {summarise_ids(sorted({x.node for x in rest}), max_ids)} "
+                  "(all in the JSON report)")
     note = Text("A restraint must exist in the real structure (or the part must be "
                 "connected); do not add one only to silence the solver.", style="italic")
     return Group(g, note)

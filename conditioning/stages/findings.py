@@ -231,7 +231,7 @@ def _held_text(mode: NearSingularMode) -> str:
 
 
 def _where(structure: StructureResult, part: int) -> str:
-    return "" if structure.parts <= 1 else f" in part {part}"
+    return "" if structure.parts <= 1 or part == 0 else f" in part {part}"
 
 
 def _rigid_body_finding(structure: StructureResult, mode: NearSingularMode, restraints_given: bool,

@@ -22,6 +22,9 @@ AXES_SHOWN = 4
 def group_modes(modes: list[NearSingularMode]) -> list[ModeGroup]:
     """Group ``modes`` by (kind, part, exact), in the order of each group's first mode.
 
+    DOFs without stiffness that are empty rows (each a part of its own) form
+    one group whatever their parts, with part 0 when they are on several.
+
     Returns
     -------
     list of ModeGroup
@@ -30,10 +33,14 @@ def group_modes(modes: list[NearSingularMode]) -> list[ModeGroup]:
     """
     keyed: dict[tuple, list[int]] = {}
     for i, m in enumerate(modes):
-        keyed.setdefault((m.kind, m.part, bool(m.exact)), []).append(i)
+        # An empty row is a part of its own: all of them make one group (part 0).
+        empty_row = m.kind == "dof-without-stiffness" and not m.description
+        keyed.setdefault((m.kind, 0 if empty_row else m.part, bool(m.exact), empty_row), []).append(i)
     out = []
-    for (kind, part, exact), members in keyed.items():
+    for (kind, part, exact, _), members in keyed.items():
         ms = [modes[i] for i in members]
+        if len({m.part for m in ms}) == 1:
+            part = ms[0].part
         nodes = sorted({v for m in ms for v in m.nodes})
         out.append(ModeGroup(kind, part, len(ms), exact, _motion_words(ms), nodes,
                              [i + 1 for i in members], float(max(m.eigenvalue for m in ms))))
