@@ -184,16 +184,23 @@ class NearSingularMode:
     """eigenvalue / lambda_max(S)."""
     kind: ModeKind
     """``rigid-body`` (a rigid motion of its part), ``mechanism`` (a motion
-    that is not rigid), ``dof-without-stiffness`` (a row with no entry).
+    that is not rigid), ``dof-without-stiffness`` (a row with no entry,
+    or a direction at one node that its own diagonal block gives no
+    stiffness and nothing couples: a drilling rotation about an inclined
+    shell normal).
     Without coordinates rotations cannot be recognised, so a rotation of a
     part is reported as a mechanism."""
     motion: dict[str, float]
     """Share of each rigid motion (dof name -> share, summing to 1); in-plane
-    rotation is ``rz``. Empty for a mechanism."""
+    rotation is ``rz``. For a DOF without stiffness found at one node and a
+    mechanism that turns about one axis, the shares of ``axis`` on the rotation
+    (or translation) names. Empty for other mechanisms."""
     nodes: list[int]
-    """Nodes that locate the mode: the part's nodes (rigid body), the meeting
-    nodes (mechanism), the node (DOF without stiffness). 1-based rows without
-    a DOF map."""
+    """Nodes that locate the mode: the part's nodes (rigid body), the nodes
+    that carry the mechanism (weight sum of v_i^2 over the node's rows of the
+    scaled mode v = D^1/2 u at least 1% of the largest node's; the meeting
+    nodes are ``meeting``), the node (DOF without stiffness). 1-based rows
+    without a DOF map."""
     part: int
     """Connected part the mode lives on, 1-based (StructureResult.part_of_row + 1)."""
     rigid_share: float
@@ -207,6 +214,49 @@ class NearSingularMode:
     """True when the eigenvalue is zero at working precision (|lambda| <=
     n*eps*lambda_max(S)): K is singular. False for a nearly free mode that
     some small stiffness (a soft spring) still holds."""
+    axis: Optional[tuple[float, float, float]] = None
+    """Unit direction (global x, y, z; dimensionless) of the motion when it
+    has one: the axis a DOF without stiffness turns about (or moves along)
+    at its node, the axis a mechanism turns about when it is a rotation
+    only (a member spinning about its own axis). None otherwise."""
+    meeting: list[int] = field(default_factory=list)
+    """For a mechanism: nodes where two of ``groups`` really meet (a node
+    next to two groups whose own neighbourhood moves rigidly with neither);
+    empty when no two groups meet."""
+    description: str = ""
+    """The motion in words, e.g. ``"rotation about the axis (0.00, -0.89,
+    0.45)"`` or ``"spin of a member about its own axis"``; empty when
+    ``kind`` and ``motion`` say it all."""
+
+
+@dataclass(frozen=True)
+class ModeGroup:
+    """Near-singular modes of one kind on one part, reported as one line.
+
+    A model may have hundreds of modes of one kind (drilling rotations
+    without stiffness, free nodes of a mass matrix); the renderers print one
+    line per group, the JSON keeps every mode in ``SpectrumResult.modes``.
+    """
+
+    kind: ModeKind
+    """Kind shared by the modes of the group."""
+    part: int
+    """Connected part, 1-based (as NearSingularMode.part); 0 for the group of
+    empty rows when they lie on several parts (each empty row is a part)."""
+    count: int
+    """Number of modes in the group (at least 1)."""
+    exact: bool
+    """True when every mode of the group is zero at working precision."""
+    motion: str
+    """The free motions in words, e.g. ``"rotation about 4 axes: (0.00,
+    -0.89, 0.45) x 30, ..."`` or ``"ux, uy, rz"``; empty for mechanisms
+    without one description."""
+    nodes: list[int]
+    """Nodes of the group's modes (the union of their ``nodes``), sorted."""
+    modes: list[int]
+    """1-based positions of the group's modes in SpectrumResult.modes."""
+    eigenvalue_max: float
+    """Largest scaled eigenvalue in the group (dimensionless)."""
 
 
 @dataclass(frozen=True)
@@ -252,6 +302,9 @@ class SpectrumResult:
     stiff_link_eigenvalues: list[float] = field(default_factory=list)
     """Scaled eigenvalues below the split that stiff links explain (see the
     stiffness jumps); they are not near-singular modes and not in ``modes``."""
+    mode_groups: list[ModeGroup] = field(default_factory=list)
+    """``modes`` grouped by kind, part and exactness, in the order of their
+    first mode: one line each in the terminal and HTML reports."""
 
 
 @dataclass(frozen=True)

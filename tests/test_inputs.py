@@ -226,3 +226,19 @@ def test_bad_arrays():
 def test_missing_matrix_file(tmp_path):
     with pytest.raises(InputError, match="file not found"):
         load_model(tmp_path / "absent.mtx")
+
+
+def test_dof_codes_one_to_six_are_read_as_ux_to_rz(tmp_path):
+    """Issue 11: exports often number the DOFs 1-6 (ux, uy, uz, rx, ry, rz);
+    such a --dofs file is accepted and the notes say how it was read."""
+    import scipy.io
+    import scipy.sparse as sp
+    from conditioning.io.load import load_model
+
+    K = sp.random(12, 12, density=0.5, random_state=1)
+    K = sp.csr_array(K + K.T + 12 * sp.eye(12))
+    scipy.io.mmwrite(tmp_path / "k.mtx", K)
+    (tmp_path / "dofs.csv").write_text("node,dof\n" + "".join(f"{n},{c}\n" for n in (1, 2) for c in range(1, 7)))
+    model = load_model(str(tmp_path / "k.mtx"), dofs=str(tmp_path / "dofs.csv"))
+    assert model.dofs.dof.tolist() == list(range(6)) * 2
+    assert any("DOF codes 1-6" in note for note in model.notes)

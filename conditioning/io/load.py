@@ -48,6 +48,10 @@ MatrixInput = Union[PathLike, sp.sparray, sp.spmatrix, np.ndarray]
 DofPairs = Sequence[tuple[int, Union[str, int]]]
 
 _DOF_INDEX = {name: k for k, name in enumerate(DOF_NAMES)}
+#: DOF codes 1..6 for ux, uy, uz, rx, ry, rz, a widespread convention in
+#: exported DOF lists; accepted as text in ``--dofs`` files (never as the
+#: 0-based integer indices of an in-memory map).
+DOF_CODES = {str(k + 1): k for k in range(len(DOF_NAMES))}
 _FIRST_SHOWN = 3
 
 
@@ -207,6 +211,8 @@ def _dof_map(dofs, dofs_per_node, n: int, matrix_source: str, notes: list[str]) 
     if _is_path(dofs):
         source = str(dofs)
         node, dof, lines = _dof_pairs_from_csv(source)
+        if _uses_dof_codes(source):
+            notes.append(f"DOF codes 1-6 in {source} read as {', '.join(DOF_NAMES)}")
     elif isinstance(dofs, DofTable):
         source, lines = ARRAY_SOURCE, None
         node, dof = np.asarray(dofs.node, dtype=np.int64), np.asarray(dofs.dof, dtype=np.int8)
@@ -264,6 +270,8 @@ def _parse_dof(source: str, cell, line_no: Optional[int]) -> int:
             return int(cell)
         raise InputError(source, f"{where}dof index {int(cell)} is not in 0..{len(DOF_NAMES) - 1}")
     name = str(cell).strip().lower()
+    if name in DOF_CODES:
+        return DOF_CODES[name]
     if name not in _DOF_INDEX:
         raise InputError(source, f"{where}unknown dof {str(cell)!r}; use one of {', '.join(DOF_NAMES)}")
     return _DOF_INDEX[name]
@@ -320,14 +328,23 @@ def _fast_table(source: str, columns: tuple[str, ...]) -> Optional[NDArray]:
     return np.char.strip(table[:, [names.index(c) for c in columns]])
 
 
+def _uses_dof_codes(source: str) -> bool:
+    """True when a ``node,dof`` file names its DOFs by the codes 1-6."""
+    rows = read_csv_rows(source)
+    header = _header_columns(source, rows, ("node", "dof"))
+    di = 1 if header is None else header["dof"]
+    return any(len(cells) > di and cells[di].strip() in DOF_CODES for _, cells in rows)
+
+
 def _dof_pairs_from_csv(source: str):
     table = _fast_table(source, ("node", "dof"))
     if table is not None:
         try:
             node = table[:, 0].astype(np.int64)
             names, inverse = np.unique(np.char.lower(table[:, 1]), return_inverse=True)
-            if all(str(v) in _DOF_INDEX for v in names):
-                dof = np.array([_DOF_INDEX[str(v)] for v in names], dtype=np.int8)[inverse.ravel()]
+            index = {**_DOF_INDEX, **DOF_CODES}
+            if all(str(v) in index for v in names):
+                dof = np.array([index[str(v)] for v in names], dtype=np.int8)[inverse.ravel()]
                 return node, dof, list(range(2, node.size + 2))
         except (ValueError, OverflowError):
             pass  # a bad cell: the line-by-line reader says which

@@ -414,15 +414,26 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
         lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))
     if sp.modes:
         t = _table("#", "kind", "eigenvalue", "motion", "part", unit_word(r) + "s", right=(0, 2, 4))
-        for i, m in enumerate(sp.modes[:MAX_MODE_ROWS], start=1):
-            motion = fmt_motion(m.motion) if m.motion else (
-                f"{len(m.groups)} rigid groups" if m.groups else "-")
-            kind = m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)"
-            t.add_row(str(i), kind, fmt_number(m.eigenvalue), motion, str(m.part),
-                      ids_phrase(m.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
+        groups = sp.mode_groups if sum(g.count for g in sp.mode_groups) == len(sp.modes) else [
+            results.ModeGroup(m.kind, m.part, 1, m.exact, "", m.nodes, [i], m.eigenvalue)
+            for i, m in enumerate(sp.modes, start=1)]  # a report whose modes were edited without regrouping
+        # One row per group of modes (kind, part): hundreds of modes of one kind fit on one line.
+        for g in groups[:MAX_MODE_ROWS]:
+            m = sp.modes[g.modes[0] - 1]
+            kind = g.kind if g.exact else f"{g.kind} (nearly free)"
+            if g.count == 1:
+                motion = m.description or (fmt_motion(m.motion) if m.motion else (
+                    f"{len(m.groups)} rigid groups" if m.groups else "-"))
+                t.add_row(str(g.modes[0]), kind, fmt_number(m.eigenvalue), motion, str(g.part),
+                          ids_phrase(m.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
+            else:
+                t.add_row(f"{g.modes[0]}-{g.modes[-1]}", f"{g.count:,} x {kind}",
+                          f"<= {fmt_number(g.eigenvalue_max)}", g.motion or "-",
+                          str(g.part) if g.part else "several",
+                          ids_phrase(g.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
         lines.append(t)
-        if len(sp.modes) > MAX_MODE_ROWS:
-            lines.append(Text(f"and {len(sp.modes) - MAX_MODE_ROWS:,} more modes (all in the JSON "
+        if len(groups) > MAX_MODE_ROWS:
+            lines.append(Text(f"and {len(groups) - MAX_MODE_ROWS:,} more rows of modes (all in the JSON "
                               "report and the mode files)"))
     return Group(*lines) if lines else None
 

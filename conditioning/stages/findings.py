@@ -15,7 +15,7 @@ import numpy as np
 from conditioning.model import Model
 from conditioning.linalg.doubledouble import U
 from conditioning.results import (
-    Asymmetry, ConditionResult, PivotLoss, DigitsResult, Finding, NearSingularMode,
+    Asymmetry, ConditionResult, PivotLoss, DigitsResult, Finding, ModeGroup, NearSingularMode,
     OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
 from conditioning.stages.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
@@ -35,6 +35,7 @@ CODES = {
     "structure.separate-parts": "the model has parts that share no stiffness",
     "support.rigid-body-mode": "a part can move as a rigid body",
     "support.mechanism": "an internal mechanism",
+    "support.dof-without-stiffness": "a direction at a node that nothing resists, though no row is empty",
     "stiffness.indefinite": "negative eigenvalues: the stiffness is not positive semi-definite",
     "stiffness.jump": "a stiffness jump that costs digits",
     "stiffness.penalty-swallowed": "a penalty so stiff that K no longer holds the structural stiffness of the DOFs it links",
@@ -198,25 +199,48 @@ def _structure_findings(model: Model, structure: StructureResult) -> list[Findin
     return out
 
 
+#: Modes of one kind on one part listed one finding each up to this count;
+#: more make one finding for the group (the project's choice: one screen).
+MODES_LISTED = 3
+#: Groups of a mechanism named in its finding, and nodes per group.
+GROUPS_NAMED, GROUP_NODES_NAMED = 4, 6
+
+
 def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[SpectrumResult],
                    restraints: list[Restraint], rows_word: str) -> list[Finding]:
-    """support.*: one finding per rigid-body mode and per mechanism, all errors:
-    a nearly free mode (held by a soft spring) is an error too, since K's
-    scaled condition number is then at least 1e8 (the gap rule)."""
+    """support.*: per group of modes (kind, part), one finding per rigid-body
+    mode and per mechanism, or one for the group when it has more than
+    MODES_LISTED; one per group of DOFs without stiffness found at single
+    nodes (empty rows are the structure finding's). All errors: a nearly
+    free mode (held by a soft spring) is an error too, since K's scaled
+    condition number is then at least 1e8 (the gap rule)."""
     if spectrum is None:
         return []
     out = []
-    for mode in spectrum.modes:
-        if mode.kind == "rigid-body":
-            out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word))
-        elif mode.kind == "mechanism":
-            out.append(_mechanism_finding(model, structure, mode, rows_word))
+    for group in spectrum.mode_groups:
+        modes = [spectrum.modes[i - 1] for i in group.modes]
+        if group.kind == "dof-without-stiffness":
+            local = [m for m in modes if m.description]
+            if local:
+                out.append(_node_dof_finding(structure, group, local, rows_word))
+        elif group.count > MODES_LISTED:
+            out.append(_mode_group_finding(structure, group, rows_word))
+        else:
+            for mode in modes:
+                if mode.kind == "rigid-body":
+                    out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word))
+                else:
+                    out.append(_mechanism_finding(model, structure, mode, rows_word))
     return out
 
 
 def _held_text(mode: NearSingularMode) -> str:
     return "" if mode.exact else (" It is held only by a very small stiffness (for example a "
                                   "soft spring), so K is invertible but badly conditioned.")
+
+
+def _where(structure: StructureResult, part: int) -> str:
+    return "" if structure.parts <= 1 or part == 0 else f" in part {part}"
 
 
 def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
@@ -236,18 +260,57 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
 
 def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingularMode,
                        rows_word: str) -> Finding:
-    where = (f"groups of {', '.join(str(len(g)) for g in mode.groups[:5])} nodes moving "
-             "rigidly, meeting at " if mode.groups else "located at ")
+    head = (f"Internal {'near-' if not mode.exact else ''}mechanism{_where(structure, mode.part)}: "
+            f"it moves {_at(model, rows_word, mode.nodes)}")
+    if mode.description:
+        head += f" ({mode.description})"
+    if mode.groups:
+        named = "; ".join(f"{{{_list_nodes(g, GROUP_NODES_NAMED)}}}" for g in mode.groups[:GROUPS_NAMED])
+        more = len(mode.groups) - GROUPS_NAMED
+        head += (f"; {len(mode.groups)} groups moving rigidly: {named}"
+                 + (f" and {more} more" if more > 0 else ""))
+        if mode.meeting:
+            head += f", meeting at {rows_word} {_list_nodes(mode.meeting)}"
+    advice = ("Restrain the member's rotation about its own axis at one end (release torsion at one end "
+              "only), or restrain that rotation at one of its nodes." if mode.description.startswith("spin")
+              else "Look for a missing brace, a released end (hinge) too many, or a member that "
+                   "only touches the rest at one node.")
     return Finding(
         "error", "support.mechanism",
-        f"Internal {'near-' if not mode.exact else ''}mechanism"
-        f"{'' if structure.parts <= 1 else f' in part {mode.part}'}: {where}{_at(model, rows_word, mode.nodes)}; "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
+        f"{head}; scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
-        mode.nodes,
-        "Look for a missing brace, a released end (hinge) too many, or a member that "
-        "only touches the rest at one node.")
+        mode.nodes, advice)
+
+
+def _mode_group_finding(structure: StructureResult, group: ModeGroup, rows_word: str) -> Finding:
+    """One finding for many rigid-body modes or mechanisms of one part."""
+    what = "rigid-body modes" if group.kind == "rigid-body" else "internal mechanisms"
+    code = "support.rigid-body-mode" if group.kind == "rigid-body" else "support.mechanism"
+    nearly = "" if group.exact else "nearly free "
+    motion = f" ({group.motion})" if group.motion else ""
+    return Finding(
+        "error", code,
+        f"{group.count:,} {nearly}{what}{_where(structure, group.part)}{motion}; {rows_word}: "
+        f"{_list_nodes(group.nodes)}; largest scaled eigenvalue {group.eigenvalue_max:.2e}.",
+        group.nodes,
+        "Each mode is listed in the JSON report (and --modes-csv). Look for nodes no element "
+        "connects in some direction, missing supports or released ends.")
+
+
+def _node_dof_finding(structure: StructureResult, group: ModeGroup, modes: list[NearSingularMode],
+                      rows_word: str) -> Finding:
+    """DOFs without stiffness found at single nodes (no empty row), one finding per part."""
+    nodes = sorted({v for m in modes for v in m.nodes})
+    motion = group.motion if len(modes) == group.count else "; ".join(sorted({m.description for m in modes}))
+    return Finding(
+        "error", "support.dof-without-stiffness",
+        f"{len(modes):,} direction(s) at single {rows_word}{_where(structure, group.part)} have no stiffness "
+        f"though no row is empty: {motion}. {rows_word.capitalize()}: {_list_nodes(nodes)}.",
+        nodes,
+        "Each is a DOF without stiffness along its axis, not a mechanism: typically the rotation about "
+        "the normal of shell elements without drilling stiffness on an inclined wall. Restrain it at each "
+        "node (the suggested restraints), or use elements with drilling stiffness.")
 
 
 def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:

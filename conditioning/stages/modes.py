@@ -8,13 +8,22 @@ eigenvectors of the scaled matrix S). Within that basis:
    between two DOFs makes S nearly singular although K is not) are separated
    out by a second, per-dof-type scaling T (median diagonal of each dof type):
    a true near-null vector has a small Rayleigh quotient u'Ku / u'Tu too.
-2. The remaining basis is split by connected part; on each part, the rigid
+2. Zero directions of one node's own diagonal block (a rotation about an
+   inclined shell normal, a drilling DOF) are DOFs without stiffness with
+   an axis; they are taken out of the basis before anything else, so that
+   an eigensolver's mixing of a hundred of them is undone.
+3. The remaining basis is split by connected part; on each part, the rigid
    motions (translations, rotations about the centroid) that lie in the null
    space are found by a small generalized eigenproblem, and the rest of the
-   part's null space is a mechanism.
-3. A mechanism is cut into groups of nodes that move rigidly together by
+   part's null space is a mechanism, rotated to its sparsest basis
+   (column-pivoted QR) so that separate local mechanisms come out separate.
+4. A mechanism is located at the nodes that carry it (its weight in the
+   scaled coordinates) and cut into groups of nodes that move rigidly together by
    fitting a rigid motion to each node's neighbourhood; nodes whose
-   neighbourhood fits no single rigid motion are where the groups meet.
+   neighbourhood fits no single rigid motion, next to two groups, are where
+   the groups meet. A mechanism without translations whose nodes all turn
+   about one axis is a rotation about that axis (a member spinning about
+   its own axis when its nodes lie on that axis).
 """
 
 from __future__ import annotations
@@ -28,11 +37,11 @@ import scipy.sparse as sp
 from numpy.typing import NDArray
 from scipy.sparse import csgraph
 
+from conditioning.linalg.local_null import group_null_directions, sparsest_basis
 from conditioning.linalg.orthonormal import orthonormal_basis
 from conditioning.linalg.rigid_motions import RigidBasis, rigid_motions
-from conditioning.model import Model
+from conditioning.model import DOF_NAMES, ROTATIONS, TRANSLATIONS, Model
 from conditioning.results import NearSingularMode, StructureResult
-from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.stages.spectrum import MODE_THRESHOLD, Eigenpairs
 
 logger = logging.getLogger(__name__)
@@ -81,13 +90,31 @@ MOTION_SHARE_MIN = 1e-6
 #: which a direction of the part's null space is not rigid: a mechanism
 #: (project's choice).
 MECHANISM_MIN = 1e-3
-#: Nodes named for a mechanism when its meeting nodes cannot be found.
+#: Nodes named for a mechanism too large for the per-node fit.
 MECHANISM_NODES_SHOWN = 10
 #: A node moves when its displacement exceeds this share of the largest.
 MOVING_MIN = 1e-6
 #: A node's neighbourhood moves rigidly, and two neighbouring fits agree, to
 #: within this share of the largest displacement (project's choice).
 RIGID_FIT_TOL = 1e-3
+#: A node carries a mechanism when its weight (sum of the scaled mode's
+#: squares over its rows) is at least this share of the largest node's
+#: (project's choice; the truth in tests is LAPACK's node weights).
+CARRIES_MIN = 1e-2
+#: A mechanism is a rotation only when its translation rows hold at most
+#: this share of its weight in the scaled coordinates (project's choice).
+ROTATION_ONLY = 1e-6
+#: Rotation vectors of the moving nodes share one axis when the second
+#: singular value of their stack is at most this share of the first.
+COMMON_AXIS_TOL = 1e-3
+#: Nodes lie on a line along the axis when their spread across it is at most
+#: this share of their spread along it (or of the model's extent).
+ON_AXIS_TOL = 1e-3
+#: Entries of a node's zero direction below this share of its largest are
+#: the block eigensolver's round-off (~1e-16; project's choice).
+NODE_VECTOR_ROUNDOFF = 1e-8
+#: Rounding (decimals) of an axis when grouping DOFs without stiffness by axis.
+AXIS_DECIMALS = 2
 
 
 @dataclass(frozen=True)
@@ -173,7 +200,9 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
         return LocatedModes(modes, np.zeros((model.n, 0)), [])
     Wg, stiff_links = _without_stiff_links(ctx, W)
     sq = np.sqrt(np.where(ctx.d > 0, ctx.d, 1.0))
-    columns: list[NDArray] = []
+    local_modes, local_columns, Wg = _node_local_modes(ctx, structure, sq, Wg)
+    modes += local_modes
+    columns: list[NDArray] = list(local_columns)
     for p, rows, B in _null_space_by_part(structure.part_of_row, sq, Wg):
         part_modes, part_columns = _part_modes(ctx, int(p), rows, B)
         modes += part_modes
@@ -221,8 +250,65 @@ def _without_stiff_links(ctx: _Context, W: NDArray) -> tuple[NDArray, list[float
     return W @ Y[:, genuine], stiff_links
 
 
+def _node_local_modes(ctx: _Context, structure: StructureResult, sq: NDArray, Wg: NDArray):
+    """Step (2): the zero directions of single nodes' diagonal blocks that lie
+    in span(Wg) (a drilling rotation about an inclined normal), as DOFs
+    without stiffness; returns (modes, their vectors, the rest of the basis)."""
+    model = ctx.model
+    if model.dofs is None or Wg.shape[1] == 0:
+        return [], [], Wg
+    V = la.qr(sq[:, None] * Wg, mode="economic")[0]
+    node_index = np.unique(model.dofs.node, return_inverse=True)[1]
+    label = node_index.copy()
+    label[structure.empty_rows] = -1  # already modes of their own
+    weight = np.bincount(node_index, weights=np.sum(V**2, axis=1))
+    candidates = np.flatnonzero(weight > PART_WEIGHT_MIN)
+    S = sp.diags_array(1.0 / sq) @ model.K @ sp.diags_array(1.0 / sq)
+    found = group_null_directions(S, label, candidates, MODE_THRESHOLD * ctx.lambda_max)
+    Z = found.Z
+    inside = np.linalg.norm(Z - V @ (V.T @ Z), axis=0) <= RIGID_TOL  # unit columns
+    Z = Z[:, inside]
+    if Z.shape[1] == 0:
+        return [], [], Wg
+    Ur, sr, _ = la.svd(V - Z @ (Z.T @ V), full_matrices=False)
+    rest = Ur[:, sr > PART_SHARE_MIN] / sq[:, None]
+    modes, columns = [], []
+    for k, z in enumerate(Z.T):
+        u = np.where(np.abs(z) > NODE_VECTOR_ROUNDOFF * np.abs(z).max(), z, 0.0) / sq
+        modes.append(_node_mode(ctx, structure, u, keep_vector=k < VECTORS_KEPT))
+        columns.append(u)
+    logger.info("%d zero direction(s) of single nodes taken out of the near-null basis", Z.shape[1])
+    return modes, columns, rest
+
+
+def _node_mode(ctx: _Context, structure: StructureResult, u: NDArray, keep_vector: bool) -> NearSingularMode:
+    """A DOF without stiffness at one node along ``u`` (nonzero on that node's
+    rows): its axis when it moves only rotations or only translations."""
+    model = ctx.model
+    rows = np.flatnonzero(u)
+    dof = model.dofs.dof[rows].astype(np.intp)
+    axis, description = None, ""
+    if np.all(dof >= 3) or np.all(dof < 3):
+        vec = np.zeros(3)
+        vec[dof % 3] = u[rows]
+        axis = _signed_axis(vec)
+        types = ROTATIONS if dof[0] >= 3 else TRANSLATIONS
+        motion = _axis_shares(axis, types)
+        what = "rotation about" if dof[0] >= 3 else "translation along"
+        description = f"{what} the axis {_axis_text(axis)}"
+    else:
+        w = u[rows] ** 2 * ctx.d[rows]
+        motion = {DOF_NAMES[t]: float(x / w.sum()) for t, x in zip(dof, w) if x > MOTION_SHARE_MIN * w.sum()}
+        description = "a combination of the node's translations and rotations"
+    lam = _rayleigh_scaled(model.K, u, ctx.d)
+    return NearSingularMode(lam, lam / ctx.lambda_max, "dof-without-stiffness", motion, model.nodes_of(rows),
+                            int(structure.part_of_row[rows[0]]) + 1, float("nan"), [],
+                            u / np.max(np.abs(u)) if keep_vector else None, exact=abs(lam) <= ctx.zero,
+                            axis=axis, description=description)
+
+
 def _null_space_by_part(parts: NDArray[np.intp], sq: NDArray, Wg: NDArray):
-    """Step (2): yield (part, its rows, orthonormal basis of its null space in
+    """Step (3): yield (part, its rows, orthonormal basis of its null space in
     K's DOFs). The basis is split in the scaled coordinates v = D^1/2 u, where
     the null spaces of separate parts are exactly orthogonal: a part's share
     of the basis has singular values near 1."""
@@ -236,7 +322,7 @@ def _null_space_by_part(parts: NDArray[np.intp], sq: NDArray, Wg: NDArray):
 
 
 def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode], list[NDArray]]:
-    """Rigid-body modes of one part, then (step 3) its mechanisms."""
+    """Rigid-body modes of one part, then (step 3) its mechanisms in their sparsest basis."""
     rb = part_rigid_motions(ctx.model, rows)
     modes, columns, rigid_vecs = [], [], []
     node_list = ctx.model.nodes_of(rows)
@@ -250,8 +336,9 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
                                       1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero))
         columns.append(u)
         rigid_vecs.append(u_part)
-    for u_part in _mechanisms(B, rigid_vecs).T:
-        mode, u = _mechanism_mode(ctx, p, rows, u_part, rb.basis)
+    sq = np.sqrt(np.where(ctx.d[rows] > 0, ctx.d[rows], 1.0))
+    for v_part in sparsest_basis(sq[:, None] * _mechanisms(B, rigid_vecs)).T:
+        mode, u = _mechanism_mode(ctx, p, rows, v_part / sq, rb.basis)
         modes.append(mode)
         columns.append(u)
     return modes, columns
@@ -296,7 +383,7 @@ def _canonical_rigid(names: tuple[str, ...], coeff_basis: NDArray) -> list[NDArr
 
 
 def _mechanisms(B: NDArray, rigid_vecs: list[NDArray]) -> NDArray:
-    """Step (3): orthonormal directions of span(B) left once its rigid motions are removed."""
+    """Orthonormal directions of span(B) left once its rigid motions are removed."""
     if not rigid_vecs:
         return B
     Q = orthonormal_basis(np.column_stack(rigid_vecs), BASIS_RTOL)
@@ -305,24 +392,80 @@ def _mechanisms(B: NDArray, rigid_vecs: list[NDArray]) -> NDArray:
 
 
 def _mechanism_mode(ctx: _Context, p: int, rows, u_part, R) -> tuple[NearSingularMode, NDArray]:
-    """A mechanism of part ``p``: its rigid share, groups and meeting nodes."""
+    """A mechanism of part ``p``: the nodes that carry it, its rigid share,
+    and either its axis (a rotation only) or its groups and meeting nodes."""
     model = ctx.model
     u = _on_all_rows(model.n, rows, u_part)
     share = 0.0
     if R.shape[1]:
         c, *_ = np.linalg.lstsq(R, u_part, rcond=None)
         share = float(np.linalg.norm(R @ c) ** 2 / np.linalg.norm(u_part) ** 2)
+    v = np.sqrt(np.where(ctx.d[rows] > 0, ctx.d[rows], 1.0)) * u_part  # scaled: comparable across DOF types
+    carrying = _carrying_rows(model, rows, v)
+    axis, description = _common_rotation_axis(model, rows[carrying], u_part[carrying], v, rows)
     groups, meeting = [], []
-    if model.coords is not None and model.dofs is not None:
+    if axis is None and model.coords is not None and model.dofs is not None:
         groups, meeting = _mechanism_groups(model, rows, u_part)
-    if not meeting:
-        top = rows[np.argsort(-np.abs(u_part))[:MECHANISM_NODES_SHOWN]]
-        meeting = model.nodes_of(top)
     lam = _rayleigh_scaled(model.K, u, ctx.d)
-    mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", {}, meeting, p + 1,
+    motion = {} if axis is None else _axis_shares(axis, ROTATIONS)
+    mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", motion, model.nodes_of(rows[carrying]), p + 1,
                             share if model.coords is not None else float("nan"),
-                            groups, u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero)
+                            groups, u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero,
+                            axis=axis, meeting=meeting, description=description)
     return mode, u
+
+
+def _carrying_rows(model: Model, rows, v) -> NDArray[np.bool_]:
+    """Rows of the nodes whose weight sum(v_i^2 over the node's rows) is at
+    least CARRIES_MIN of the largest node's (each row alone without a map)."""
+    if model.dofs is None:
+        w = v**2
+        return w >= CARRIES_MIN * w.max()
+    _, inv = np.unique(model.dofs.node[rows], return_inverse=True)
+    w = np.bincount(inv, weights=v**2)
+    return (w >= CARRIES_MIN * w.max())[inv]
+
+
+def _common_rotation_axis(model: Model, rows, u_rows, v, part_rows):
+    """(axis, words) when the mechanism moves no translation (scaled weight)
+    and every moving node turns about one axis; (None, "") otherwise."""
+    if model.dofs is None or model.coords is None:
+        return None, ""
+    dof = model.dofs.dof
+    trans = np.isin(dof[part_rows], TRANSLATIONS)
+    if not np.any(~trans) or np.sum(v[trans] ** 2) > ROTATION_ONLY * np.sum(v**2):
+        return None, ""
+    rot = np.isin(dof[rows], ROTATIONS)
+    nodes, inv = np.unique(model.dofs.node[rows[rot]], return_inverse=True)
+    theta = np.zeros((nodes.size, 3))
+    theta[inv, dof[rows[rot]] - 3] = u_rows[rot]
+    _, sv, Vt = la.svd(theta, full_matrices=False)
+    if sv.size > 1 and sv[1] > COMMON_AXIS_TOL * sv[0]:
+        return None, ""
+    axis = _signed_axis(Vt[0])
+    X = model.coords.lookup(nodes)
+    along = (X - X.mean(axis=0)) @ np.array(axis)
+    across = np.linalg.norm((X - X.mean(axis=0)) - np.outer(along, axis), axis=1)
+    if nodes.size >= 2 and across.max() <= ON_AXIS_TOL * np.ptp(along):
+        return axis, f"spin of a member about its own axis {_axis_text(axis)} (torsion released at both ends?)"
+    return axis, f"rotation of {nodes.size} node(s) about the axis {_axis_text(axis)}"
+
+
+def _signed_axis(a) -> tuple[float, float, float]:
+    """Unit axis with its largest component positive (an axis has no sign)."""
+    a = np.asarray(a, dtype=np.float64)
+    a = a / np.linalg.norm(a)
+    a = a if a[np.argmax(np.abs(a))] > 0 else -a
+    return tuple(float(x) + 0.0 for x in a)
+
+
+def _axis_text(axis) -> str:
+    return "(" + ", ".join(f"{x:.2f}" for x in np.asarray(axis) + 0.0) + ")"
+
+
+def _axis_shares(axis, types) -> dict[str, float]:
+    """Shares of an axis on the DOF names of ``types`` (translations or rotations)."""
+    return {DOF_NAMES[t]: float(a**2) for t, a in zip(types, axis) if a**2 > MOTION_SHARE_MIN}
 
 
 def _on_all_rows(n: int, rows, u_part) -> NDArray[np.float64]:
@@ -375,8 +518,31 @@ def _mechanism_groups(model: Model, rows: NDArray[np.intp], u: NDArray) -> tuple
         if members.size >= 2 or (members.size == 1 and moving[members[0]]):
             groups.append([int(v) for v in uniq[members]])
     groups.sort(key=len, reverse=True)
-    meeting = [int(v) for v in uniq[~rigid]]
-    return groups, meeting
+    return groups, [int(v) for v in uniq[_meeting(A, lab, rigid, groups, uniq)]]
+
+
+def _meeting(A, lab, rigid, groups, uniq) -> NDArray[np.bool_]:
+    """Nodes that fit no rigid motion and, with the other such nodes they
+    touch, lie next to at least two of ``groups``: where groups really meet."""
+    group_of = np.full(uniq.size, -1)
+    for g, members in enumerate(groups):
+        group_of[np.searchsorted(uniq, members)] = g
+    loose = ~rigid
+    if not loose.any() or len(groups) < 2:
+        return np.zeros(uniq.size, dtype=bool)
+    Al = A[loose][:, loose]
+    ncomp, comp = csgraph.connected_components(Al, directed=False)
+    coo = A.tocoo()
+    out = np.zeros(uniq.size, dtype=bool)
+    loose_idx = np.flatnonzero(loose)
+    comp_of = np.full(uniq.size, -1)
+    comp_of[loose_idx] = comp
+    edge = (comp_of[coo.row] >= 0) & (group_of[coo.col] >= 0)
+    for c in range(ncomp):
+        touched = np.unique(group_of[coo.col[edge & (comp_of[coo.row] == c)]])
+        if touched.size >= 2:
+            out[loose_idx[comp == c]] = True
+    return out
 
 
 def _local_rigid_fits(A, X3: NDArray, U: NDArray, scale: float) -> tuple[NDArray, NDArray[np.bool_]]:

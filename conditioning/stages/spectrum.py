@@ -42,6 +42,7 @@ from conditioning.engine.scaling import ScaledStiffness, scale_stiffness
 from conditioning.model import Model
 from conditioning.results import NearSingularMode, SpectrumResult
 from conditioning.stages import spectrum_iterative
+from conditioning.stages.mode_groups import group_modes
 
 from conditioning.linalg.floating_point import EPS
 
@@ -336,8 +337,8 @@ def spectrum_result(eig: Eigenpairs, modes: list[NearSingularMode], stiff_link_e
     SpectrumResult
         ``smallest`` keeps at least 12 eigenvalues and one beyond the split;
         ``count`` is the number of located modes (DOFs without stiffness
-        included); ``inertia_agrees`` compares ``inertia_count`` with
-        ``eig.below_split``.
+        included), ``mode_groups`` groups them by kind and part;
+        ``inertia_agrees`` compares ``inertia_count`` with ``eig.below_split``.
     """
     method = eig.method if eig.converged else (
         eig.method + "; did not converge: the smallest eigenvalue is an upper bound")
@@ -355,6 +356,7 @@ def spectrum_result(eig: Eigenpairs, modes: list[NearSingularMode], stiff_link_e
         smallest_vector=_smallest_vector(eig, active),
         below_split=eig.below_split,
         stiff_link_eigenvalues=list(stiff_link_eigenvalues),
+        mode_groups=group_modes(modes),
     )
 
 
