@@ -139,8 +139,7 @@ def measure_digits(
             audit = audit_singular_solution(model, spectrum, structure)
         return DigitsResult([], predicted_raw, predicted_scaled, flops,
                             summary="No digits measured: K is singular, so no displacement is defined.",
-                            skipped="K is singular: the factorization needed a shift "
-                                    f"({fac.info.shift:.1e}); restrain the rigid-body modes or mechanisms first",
+                            skipped=_why_singular(fac),
                             audit=audit)
     K = sp.csr_array(model.K)
     rng = np.random.default_rng(seed if rng is None else rng)
@@ -187,6 +186,16 @@ def _verify(K, perm, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]
     except (MemoryError, RuntimeError, ValueError) as exc:
         return None, f"not attempted: {exc}"
     return bound, bound.reason
+
+
+def _why_singular(fac) -> str:
+    """Why no displacement is defined, in the report's words."""
+    empty = int(fac.active.size - np.count_nonzero(fac.active))
+    if fac.shift == 0.0 and empty:
+        return (f"K is singular: {empty:,} row{'s' if empty != 1 else ''} without stiffness; "
+                "restrain or remove those DOFs first")
+    return (f"K is singular: the factorization needed a shift ({fac.shift:.1e}); restrain the rigid-body "
+            "modes or mechanisms first")
 
 
 def _placeholder_rows(structure) -> NDArray[np.intp]:
