@@ -40,6 +40,8 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
                       help="CSV 'node,dof', one line per matrix row (dof: ux uy uz rx ry rz)")
     dofs.add_argument("--dofs-per-node", metavar="K", type=int, choices=(2, 3, 6),
                       help="shortcut for a regular map: 2 (ux,uy), 3 (ux,uy,uz), 6 (+rx,ry,rz)")
+    dofs.add_argument("--dof-names", metavar="LIST", type=lambda v: tuple(x.strip() for x in v.split(",")),
+                      help="a regular map naming each node's DOFs in row order, e.g. ux,uy,rz (2D frame)")
     g.add_argument("--coords", metavar="FILE", help="CSV 'node,x,y[,z]' of node positions")
     g.add_argument("--load", metavar="FILE", help="load vector (Matrix Market array or CSV)")
     g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited")
@@ -126,8 +128,9 @@ def check_options(args) -> None:
         parent = Path(value).expanduser().resolve().parent if value and value != "-" else None
         if parent is not None and not parent.is_dir():
             raise UsageError(f"--{opt.replace('_', '-')} {value}: folder {parent} does not exist")
-    if getattr(args, "modes_vtk", None) and args.dofs is None and args.dofs_per_node is None:
-        raise UsageError("--modes-vtk needs a DOF map (--dofs or --dofs-per-node)")
+    if getattr(args, "modes_vtk", None) and args.dofs is None and args.dofs_per_node is None \
+            and args.dof_names is None:
+        raise UsageError("--modes-vtk needs a DOF map (--dofs, --dofs-per-node or --dof-names)")
     if getattr(args, "modes_vtk", None) and args.coords is None:
         raise UsageError("--modes-vtk needs node coordinates (--coords)")
     missing = [m for m in ("petsc4py", "slepc4py") if importlib.util.find_spec(m) is None]

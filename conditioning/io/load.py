@@ -76,9 +76,11 @@ def load_model(
     dofs : path, DofTable or sequence of (node, dof) pairs, optional
         Which node and component each matrix row is, in row order. A pair's
         ``dof`` is a name (``"ux"`` ... ``"rz"``) or its index 0-5.
-    dofs_per_node : {2, 3, 6}, optional
+    dofs_per_node : {2, 3, 6} or sequence of DOF names, optional
         Shortcut instead of ``dofs``: nodes 1..N in row order, each with the
-        layout :data:`conditioning.model.DOFS_PER_NODE_LAYOUT` ``[K]``.
+        layout :data:`conditioning.model.DOFS_PER_NODE_LAYOUT` ``[K]``, or
+        with the DOFs named (``("ux", "uy", "rz")`` for a 2D frame, whose
+        in-plane rotation the number 3 would read as uz).
     coords : path, Coordinates, (m, 3) or (m, 4) array, or mapping, optional
         Node positions: file ``node,x,y[,z]``; an array with the same columns
         (node id first); or ``{node: (x, y[, z])}``. Needs a DOF map.
@@ -229,6 +231,8 @@ def _dof_map(dofs, dofs_per_node, n: int, matrix_source: str, notes: list[str]) 
 
 
 def _uniform_dof_map(k, n: int, matrix_source: str, notes: list[str]) -> DofTable:
+    if isinstance(k, (list, tuple)):
+        return _named_dof_map(tuple(k), n, matrix_source, notes)
     if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or int(k) not in DOFS_PER_NODE_LAYOUT:
         raise InputError(matrix_source, f"dofs per node must be one of {sorted(DOFS_PER_NODE_LAYOUT)}, got {k!r}")
     k = int(k)
@@ -239,6 +243,25 @@ def _uniform_dof_map(k, n: int, matrix_source: str, notes: list[str]) -> DofTabl
     notes.append(f"DOF map assumed: {nodes} nodes numbered 1..{nodes} in row order, "
                  f"{k} dofs per node ({', '.join(DOFS_PER_NODE_LAYOUT[k])})")
     return DofTable(node=np.repeat(np.arange(1, nodes + 1, dtype=np.int64), k), dof=np.tile(layout, nodes))
+
+
+def _named_dof_map(names: tuple, n: int, matrix_source: str, notes: list[str]) -> DofTable:
+    """A regular map whose node layout is given by DOF names (``ux`` ... ``rz``)."""
+    bad = [str(x) for x in names if str(x).lower() not in _DOF_INDEX]
+    if not names or bad:
+        raise InputError(matrix_source, f"DOF names must be among {', '.join(DOF_NAMES)}"
+                         + (f", got {', '.join(bad)}" if bad else ", got none"))
+    layout = [_DOF_INDEX[str(x).lower()] for x in names]
+    if len(set(layout)) != len(layout):
+        raise InputError(matrix_source, f"DOF names repeat: {', '.join(map(str, names))}")
+    k = len(layout)
+    if n % k:
+        raise InputError(matrix_source, f"matrix has {n} rows, not a multiple of {k} dofs per node")
+    nodes = n // k
+    notes.append(f"DOF map assumed: {nodes} nodes numbered 1..{nodes} in row order, "
+                 f"{k} dofs per node ({', '.join(DOF_NAMES[i] for i in layout)}, as named)")
+    return DofTable(node=np.repeat(np.arange(1, nodes + 1, dtype=np.int64), k),
+                    dof=np.tile(np.array(layout, dtype=np.int8), nodes))
 
 
 def _header_columns(source: str, rows, required: tuple[str, ...], optional: tuple[str, ...] = ()):
