@@ -260,3 +260,20 @@ def test_demo_models_bound_contains_flints_enclosure(name):
     assert ours <= digits_of(lo) + 1e-9
     if kappa_scaled < 1e8:
         assert abs(ours - digits_of(lo)) <= 0.3
+
+
+def test_round_off_asymmetry_is_bounded_through_the_symmetric_part():
+    """bcsstk05 with every upper entry perturbed by one ulp (an export's round-off):
+    no longer exactly symmetric, still proved, and the bound is below the smallest
+    singular value of E K E (LAPACK SVD), as x'Kx = x'Hx guarantees."""
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk05")))
+    A = K.toarray()
+    iu = np.triu_indices_from(A, 1)
+    A[iu] = np.nextafter(A[iu], np.inf)
+    Kp = sp.csr_array(A)
+    assert abs(Kp - Kp.T).max() > 0
+    bound = verified_smallest_eigenvalue(Kp, unit_scaled_lambda_min(K))
+    assert bound.verified, bound.reason
+    e = bound.scale
+    sigma = np.linalg.svd(A * e[:, None] * e[None, :], compute_uv=False)[-1]
+    assert bound.lower <= sigma
