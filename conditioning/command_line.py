@@ -43,8 +43,8 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
     dofs.add_argument("--dof-names", metavar="LIST", type=lambda v: tuple(x.strip() for x in v.split(",")),
                       help="a regular map naming each node's DOFs in row order, e.g. ux,uy,rz (2D frame)")
     g.add_argument("--coords", metavar="FILE", help="CSV 'node,x,y[,z]' of node positions")
-    g.add_argument("--load", metavar="FILE", help="load vector (Matrix Market array or CSV)")
-    g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited")
+    g.add_argument("--load", metavar="FILE", help="load vector, or load cases as columns (Matrix Market array or CSV)")
+    g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited (one column per load case)")
     g.add_argument("--fix", metavar="FILE",
                    help="CSV 'node,dof' of restrained DOFs to remove before the diagnosis")
     r = p.add_argument_group("diagnosis")

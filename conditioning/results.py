@@ -431,7 +431,9 @@ class DigitsSample:
     """The digits one float64 solve keeps, measured against a reference solution."""
 
     sample: str
-    """``load``, ``random-1``..., ``worst-case``, ``solution``."""
+    """``load`` (one load case) or each case's name (the load file's column
+    header, else ``load-1``...), ``random-1``..., ``worst-case``,
+    ``solution`` (or ``solution (<case>)`` for several cases)."""
     trustworthy_digits: float
     """-log10 of the relative normwise forward error of the float64 solution
     against the reference (measured)."""
@@ -495,6 +497,9 @@ class DigitsSample:
     which the certification proves an error bound for; not serialised."""
     reference_lo: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """Low part of that refined solution; not serialised."""
+    audited: bool = False
+    """True for a supplied solution (``--solution``) measured for its audit,
+    False for the tool's own float64 solve."""
 
 
 @dataclass(frozen=True)
@@ -536,6 +541,9 @@ class SolutionAudit:
     -log10(free_mode_share) (0 when the free-mode component is arbitrary)."""
     method: str
     """How ``trustworthy_digits`` was obtained."""
+    case: Optional[str] = None
+    """The load case this solution column answers (its name); None for a
+    single load."""
 
 
 @dataclass(frozen=True)
@@ -543,8 +551,9 @@ class DigitsResult:
     """Digits measured per load sample, beside what the condition numbers predicted."""
 
     samples: list[DigitsSample]
-    """One per load: ``load`` (the user's), ``random-k``, ``worst-case``,
-    ``solution`` (an audited supplied solution); empty when ``skipped``."""
+    """One per load: the user's load cases (``load``, or one per column,
+    fewest digits first), ``random-k``, ``worst-case``, then the audited
+    supplied solutions (``audited``); empty when ``skipped``."""
     predicted_raw: Optional[float]
     """16 - log10(kappa_2 raw): the rule-of-thumb prediction (digits)."""
     predicted_scaled: Optional[float]
@@ -558,12 +567,17 @@ class DigitsResult:
     skipped: Optional[str] = None
     """Why the stage did not run, if it did not."""
     audit: Optional["SolutionAudit"] = None
-    """How the supplied solution fits K and f, when one was given."""
+    """How the supplied solution fits K and f, when one was given; with
+    several load cases, the worst of ``audits`` (one that does not fit,
+    else the fewest digits)."""
     certification: Optional[str] = None
     """What the verified eigenvalue bound proved ("proved: lambda_min(S) >=
     ..."), or why it proved nothing (not positive definite at the shift, a
     rounding bound above the shift, not attempted); None when the stage
     did not get that far."""
+    audits: list["SolutionAudit"] = field(default_factory=list)
+    """One audit per load case of a supplied solution (its ``case`` names
+    it), worst first; ``audit`` is the first. Empty without a solution."""
 
 
 # --------------------------------------------------------------- findings

@@ -474,7 +474,8 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
     if dg is None:
         return Text("not measured", style="dim") if verbose else None
     if dg.skipped:
-        return Group(Text(f"not measured: {dg.skipped}", style="yellow"), *_audit_lines(dg.audit))
+        return Group(Text(f"not measured: {dg.skipped}", style="yellow"),
+                     *[line for a in (dg.audits or [dg.audit]) for line in _audit_lines(a)])
     show_bound = verbose or any(not s.converged or not s.bound_trusted for s in dg.samples)
     columns = ["sample", "digits", "lost", "how obtained"]
     if show_bound:
@@ -504,7 +505,8 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
         lines.extend(_confirmation_lines(dg.samples))
         if dg.certification:
             lines.append(Text(f"Verified eigenvalue bound: {dg.certification}.", style="dim"))
-    lines.extend(_audit_lines(dg.audit))
+    for audit in (dg.audits or [dg.audit]):
+        lines.extend(_audit_lines(audit))
     return Group(*lines)
 
 
@@ -529,12 +531,13 @@ def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
     """How the supplied solution fits K and f, in one or two lines."""
     if audit is None:
         return []
+    who = "Supplied solution" + (f" of '{audit.case}'" if audit.case is not None else "")
     if audit.free_mode_share is not None:
-        return [Text(f"Supplied solution: K is singular; its component along the free modes is "
+        return [Text(f"{who}: K is singular; its component along the free modes is "
                      f"{fmt_number(audit.free_mode_share)} of it, so it keeps {fmt_digits(audit.trustworthy_digits)} "
                      f"digits (bound); backward error {fmt_number(audit.backward_error)}.")]
     fit = "fits" if audit.fits else "does NOT fit"
-    text = (f"Supplied solution {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
+    text = (f"{who} {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
             f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; "
             f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
     if audit.digits_written is not None:
