@@ -731,3 +731,85 @@ class Report:
     """Nodes, positions, row map and node graph for the figures and mode
     files; None when the report was built without a model (then the views
     draw the spectrum only and number rows instead of nodes)."""
+
+
+# ---------------------------------------------------------------- explain
+@dataclass(frozen=True)
+class RowCoupling:
+    """One off-diagonal stiffness of an explained row (:mod:`conditioning.stages.explain`)."""
+
+    row: int
+    """0-based matrix row it couples to."""
+    label: str
+    """That row in words (``"node 12 uy"`` or ``"row 37"``)."""
+    value: float
+    """K_ij in K's units (force/length, moment/rotation or mixed)."""
+    strength: float
+    """|K_ij| / sqrt(|K_ii K_jj|): the coupling of the scaled matrix S
+    (dimensionless; at most 1 for a positive definite K)."""
+
+
+@dataclass(frozen=True)
+class ModeShare:
+    """How much of one near-singular mode lives at the explained row."""
+
+    mode: int
+    """1-based index in :attr:`SpectrumResult.modes`."""
+    kind: str
+    """The mode's kind (``rigid-body``, ``mechanism``, ``dof-without-stiffness``)."""
+    eigenvalue: float
+    """The mode's eigenvalue of S (dimensionless)."""
+    share: float
+    """v_i^2 / ||v||_2^2 for the scaled mode v = D^1/2 u (dimensionless, 0..1):
+    the row's share of the mode's motion, weighted as the modes stage weighs
+    nodes."""
+
+
+@dataclass(frozen=True)
+class RowExplanation:
+    """What is at one matrix row and why it matters (:func:`conditioning.stages.explain.explain_row`)."""
+
+    row: int
+    """0-based matrix row explained."""
+    row_base: int
+    """The numbering the row was asked in (1: first row is 1; 0: first row is 0)."""
+    label: str
+    """The row in words (``"node 12 uy"`` or ``"row 37"``, 1-based)."""
+    node: Optional[int]
+    """Its node id; None without a DOF map."""
+    dof: Optional[str]
+    """Its DOF name (``ux`` ... ``rz``); None without a DOF map."""
+    diagonal: float
+    """K_ii in K's units (force/length or moment/rotation)."""
+    neighbour_diagonal: Optional[float]
+    """Median K_jj of the rows it is coupled to that have its DOF type (K's
+    units); None when it is coupled to none."""
+    type_diagonal: Optional[float]
+    """Median K_jj of every row of its DOF type (all rows without a DOF map)."""
+    couplings: list[RowCoupling]
+    """Its strongest couplings, strongest (in |K_ij| / sqrt(|K_ii K_jj|)) first."""
+    jumps: list[StiffnessJump]
+    """The stiffness jumps the row belongs to."""
+    pivot_kept: Optional[float]
+    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``);
+    None when K is singular (no unshifted factorization)."""
+    pivot_digits: Optional[float]
+    """-log10(pivot_kept): digits of K_ii lost at the pivot in that order (inf
+    for a zero or negative pivot); None with ``pivot_kept``."""
+    least_kept: Optional[float]
+    """1 / (K_ii (K^-1)_ii): the smallest share any elimination order can
+    leave (the pivot when the row is eliminated last); None when K is
+    singular. The pivot of a positive definite K lies between 1/(K^-1)_ii
+    and K_ii whatever the order."""
+    most_digits: Optional[float]
+    """log10(K_ii (K^-1)_ii): the most digits any elimination order can lose
+    at this pivot (0 is the least: the row eliminated first); None with
+    ``least_kept``."""
+    pivot_method: str
+    """How the pivot was obtained (factorization and ordering), or why not."""
+    mode_shares: list[ModeShare]
+    """Its share of each near-singular mode, in the modes' order; empty
+    without modes."""
+    advice: list[str]
+    """What would help at this row, in plain words; the suggested
+    restraint(s) first."""
