@@ -19,14 +19,14 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Iterator, Optional, Sequence
 
 from conditioning import results
-from conditioning.command_line import UsageError, parse, written_by_rank_zero
+from conditioning.command_line import UsageError, configure_logging, parse, written_by_rank_zero
 from conditioning.errors import ConditioningError
 
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
     from conditioning.pipeline import ProgressCallback
 
-EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL = 0, 1, 2, 3, 4
-EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = 130, 141
+EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = (
+    0, 1, 2, 3, 4, 130, 141)
 
 
 def exit_status(report: results.Report) -> int:
@@ -144,14 +144,13 @@ def _run_compare(args) -> int:
     return exit_status(after)
 
 
-def _configure_logging(verbose: int, quiet: bool = False) -> None:
-    """-v: INFO, -vv: DEBUG; default WARNING; --quiet: ERROR only."""
-    level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
-    handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
-    root = logging.getLogger("conditioning")
-    root.handlers[:] = [handler]
-    root.setLevel(logging.ERROR if quiet and verbose <= 0 else level)
+def _run_explain(args) -> int:  # what is at one row, in the numbering it was asked in
+    from rich.console import Console
+    from conditioning.pipeline import explain
+    from conditioning.render.terminal import explanation_view
+    Console().print(explanation_view(explain(_load(args.matrix, args, None), args.row - args.row_base,
+                                             row_base=args.row_base, seed=args.seed, engine=args.engine)[1]))
+    return EXIT_HEALTHY
 
 
 def _fail(message: str, status: int = EXIT_INPUT) -> int:
@@ -168,9 +167,10 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     verbose = 0
     try:
         args = parse(argv)
-        _configure_logging(verbose := args.verbose, quiet=args.quiet)
+        configure_logging(verbose := args.verbose, quiet=args.quiet)
         with written_by_rank_zero(args):
-            return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare}[args.command](args)
+            return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare,
+                    "explain": _run_explain}[args.command](args)
     except SystemExit as exc:  # --help, --version
         return int(exc.code or 0) if not isinstance(exc.code, str) else EXIT_INPUT
     except BrokenPipeError:  # the reader went away (| head): stop quietly, as other filters do

@@ -10,8 +10,10 @@ from __future__ import annotations
 
 import argparse
 import importlib.util
+import logging
 import math
 import os
+import sys
 from contextlib import contextmanager, redirect_stderr, redirect_stdout
 from pathlib import Path
 from typing import Iterator, Optional, Sequence
@@ -43,8 +45,8 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
     dofs.add_argument("--dof-names", metavar="LIST", type=lambda v: tuple(x.strip() for x in v.split(",")),
                       help="a regular map naming each node's DOFs in row order, e.g. ux,uy,rz (2D frame)")
     g.add_argument("--coords", metavar="FILE", help="CSV 'node,x,y[,z]' of node positions")
-    g.add_argument("--load", metavar="FILE", help="load vector (Matrix Market array or CSV)")
-    g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited")
+    g.add_argument("--load", metavar="FILE", help="load vector, or load cases as columns (Matrix Market array or CSV)")
+    g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited (one column per load case)")
     g.add_argument("--fix", metavar="FILE",
                    help="CSV 'node,dof' of restrained DOFs to remove before the diagnosis")
     r = p.add_argument_group("diagnosis")
@@ -98,7 +100,25 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("after", metavar="AFTER")
     _add_input_options(c).add_argument("--json", metavar="FILE",
                                        help="write the comparison as JSON ('-': stdout)")
+    e = sub.add_parser("explain", help="what is at one matrix row (a row a solver warned about)",
+                       description="Explain one row of a stiffness export: its node and DOF, couplings, "
+                                   "stiffness jumps, pivot, share of the near-singular modes, what would help.")
+    e.add_argument("matrix", metavar="MATRIX", help=".mtx, .mtx.gz, .mtx.bz2, .rsa, .rua, .hb")
+    e.add_argument("--row", metavar="N", type=int, required=True, help="the row (equation) number")
+    e.add_argument("--row-base", metavar="B", type=int, choices=(0, 1), default=1,
+                   help="1 (default): the first row is 1; 0: the first row is 0")
+    _add_input_options(e)
     return parser
+
+
+def configure_logging(verbose: int, quiet: bool = False) -> None:
+    """-v: INFO, -vv: DEBUG; default WARNING; --quiet: ERROR only."""
+    level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+    root = logging.getLogger("conditioning")
+    root.handlers[:] = [handler]
+    root.setLevel(logging.ERROR if quiet and verbose <= 0 else level)
 
 
 def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:
@@ -119,6 +139,8 @@ def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:
 
 def check_options(args) -> None:
     """Refuse, before the work, options out of range and outputs the inputs cannot support."""
+    if getattr(args, "row", 0) < getattr(args, "row_base", 0):
+        raise UsageError(f"--row {args.row}: rows are numbered from {args.row_base} (--row-base)")
     if getattr(args, "samples", 0) < 0:
         raise UsageError(f"--samples {args.samples}: must be 0 or more")
     if getattr(args, "min_digits", 0.0) < 0 or not math.isfinite(getattr(args, "min_digits", 0.0)):

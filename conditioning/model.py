@@ -112,10 +112,15 @@ class Model:
         Row-to-(node, dof) map; ``None`` when the user gave none.
     coords : Coordinates or None
         Node positions; ``None`` when not given.
-    load : (n,) float64 array or None
-        Load vector of the user's load case.
-    solution : (n,) float64 array or None
-        A displacement vector computed elsewhere, to be audited.
+    load : (n,) or (n, m) float64 array or None
+        Load vector of the user's load case (force units), or m >= 2 load
+        cases as columns.
+    solution : (n,) or (n, m) float64 array or None
+        A displacement vector computed elsewhere, to be audited; one column
+        per load case when ``load`` has m columns.
+    load_names : tuple of str
+        Names of the m load cases when ``load`` has columns (the file's
+        header, else ``load-1``...); empty for a single load vector.
     restrained : int
         Number of rows and columns removed by ``--fix`` restraints.
     notes : tuple of str
@@ -133,6 +138,7 @@ class Model:
     coords: Optional[Coordinates] = None
     load: Optional[NDArray[np.float64]] = None
     solution: Optional[NDArray[np.float64]] = None
+    load_names: tuple[str, ...] = ()
     restrained: int = 0
     notes: tuple[str, ...] = field(default_factory=tuple)
     one_triangle: Optional[OneTriangleExport] = None

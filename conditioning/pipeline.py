@@ -31,12 +31,14 @@ from conditioning.engine import engine_named
 from conditioning.engine.base import Engine, FactorizationTooLarge
 from conditioning.engine.memory import memory_limit as default_memory_limit
 from conditioning.engine.scaling import scale_stiffness
+from conditioning.errors import InputError
 from conditioning.io.load import load_model
 from conditioning.stages.geometry import model_geometry
 from conditioning.model import DOF_NAMES, Model
-from conditioning.results import Finding, ModelSummary, Report, Restraint
+from conditioning.results import Finding, ModelSummary, Report, Restraint, RowExplanation
 from conditioning.stages.condition import condition_numbers
 from conditioning.stages.digits import certify_digits, measure_digits
+from conditioning.stages.explain import explain_row
 from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
@@ -316,3 +318,27 @@ def _restraints(model: Model, structure, located) -> list[Restraint]:
     if located.basis.shape[1]:
         out += suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
     return out
+
+
+def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,
+            engine: Union[Engine, str, None] = None) -> tuple[Report, RowExplanation]:
+    """Diagnose ``model`` (without the digits measurement) and explain 0-based ``row``.
+
+    The diagnosis gives the near-singular modes, the stiffness jumps and the
+    suggested supports; a second factorization of S (released before
+    returning) gives the row's pivot and (K^-1)_ii. Returns the report and
+    the :class:`RowExplanation` (units per field). Raises InputError for a
+    row outside the matrix.
+    """
+    if not 0 <= row < model.n:
+        raise InputError(model.source, f"row {row + row_base} is outside {row_base}..{model.n - 1 + row_base} "
+                                       f"(rows numbered from {row_base})")
+    report = diagnose(model, seed=seed, measure=False, engine=engine)
+    scaled = scale_stiffness(model.K, report.structure.empty_rows)
+    fac = _engine(engine, "auto").factorize(scaled, coords=_row_coordinates(model))
+    try:
+        explanation = explain_row(model, row, fac=fac, spectrum=report.spectrum, jumps=report.jumps,
+                                  restraints=report.restraints, row_base=row_base)
+    finally:
+        fac.release()
+    return report, explanation

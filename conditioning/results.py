@@ -431,7 +431,9 @@ class DigitsSample:
     """The digits one float64 solve keeps, measured against a reference solution."""
 
     sample: str
-    """``load``, ``random-1``..., ``worst-case``, ``solution``."""
+    """``load`` (one load case) or each case's name (the load file's column
+    header, else ``load-1``...), ``random-1``..., ``worst-case``,
+    ``solution`` (or ``solution (<case>)`` for several cases)."""
     trustworthy_digits: float
     """-log10 of the relative normwise forward error of the float64 solution
     against the reference (measured)."""
@@ -495,6 +497,9 @@ class DigitsSample:
     which the certification proves an error bound for; not serialised."""
     reference_lo: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """Low part of that refined solution; not serialised."""
+    audited: bool = False
+    """True for a supplied solution (``--solution``) measured for its audit,
+    False for the tool's own float64 solve."""
 
 
 @dataclass(frozen=True)
@@ -536,6 +541,9 @@ class SolutionAudit:
     -log10(free_mode_share) (0 when the free-mode component is arbitrary)."""
     method: str
     """How ``trustworthy_digits`` was obtained."""
+    case: Optional[str] = None
+    """The load case this solution column answers (its name); None for a
+    single load."""
 
 
 @dataclass(frozen=True)
@@ -543,8 +551,9 @@ class DigitsResult:
     """Digits measured per load sample, beside what the condition numbers predicted."""
 
     samples: list[DigitsSample]
-    """One per load: ``load`` (the user's), ``random-k``, ``worst-case``,
-    ``solution`` (an audited supplied solution); empty when ``skipped``."""
+    """One per load: the user's load cases (``load``, or one per column,
+    fewest digits first), ``random-k``, ``worst-case``, then the audited
+    supplied solutions (``audited``); empty when ``skipped``."""
     predicted_raw: Optional[float]
     """16 - log10(kappa_2 raw): the rule-of-thumb prediction (digits)."""
     predicted_scaled: Optional[float]
@@ -558,12 +567,17 @@ class DigitsResult:
     skipped: Optional[str] = None
     """Why the stage did not run, if it did not."""
     audit: Optional["SolutionAudit"] = None
-    """How the supplied solution fits K and f, when one was given."""
+    """How the supplied solution fits K and f, when one was given; with
+    several load cases, the worst of ``audits`` (one that does not fit,
+    else the fewest digits)."""
     certification: Optional[str] = None
     """What the verified eigenvalue bound proved ("proved: lambda_min(S) >=
     ..."), or why it proved nothing (not positive definite at the shift, a
     rounding bound above the shift, not attempted); None when the stage
     did not get that far."""
+    audits: list["SolutionAudit"] = field(default_factory=list)
+    """One audit per load case of a supplied solution (its ``case`` names
+    it), worst first; ``audit`` is the first. Empty without a solution."""
 
 
 # --------------------------------------------------------------- findings
@@ -717,3 +731,85 @@ class Report:
     """Nodes, positions, row map and node graph for the figures and mode
     files; None when the report was built without a model (then the views
     draw the spectrum only and number rows instead of nodes)."""
+
+
+# ---------------------------------------------------------------- explain
+@dataclass(frozen=True)
+class RowCoupling:
+    """One off-diagonal stiffness of an explained row (:mod:`conditioning.stages.explain`)."""
+
+    row: int
+    """0-based matrix row it couples to."""
+    label: str
+    """That row in words (``"node 12 uy"`` or ``"row 37"``)."""
+    value: float
+    """K_ij in K's units (force/length, moment/rotation or mixed)."""
+    strength: float
+    """|K_ij| / sqrt(|K_ii K_jj|): the coupling of the scaled matrix S
+    (dimensionless; at most 1 for a positive definite K)."""
+
+
+@dataclass(frozen=True)
+class ModeShare:
+    """How much of one near-singular mode lives at the explained row."""
+
+    mode: int
+    """1-based index in :attr:`SpectrumResult.modes`."""
+    kind: str
+    """The mode's kind (``rigid-body``, ``mechanism``, ``dof-without-stiffness``)."""
+    eigenvalue: float
+    """The mode's eigenvalue of S (dimensionless)."""
+    share: float
+    """v_i^2 / ||v||_2^2 for the scaled mode v = D^1/2 u (dimensionless, 0..1):
+    the row's share of the mode's motion, weighted as the modes stage weighs
+    nodes."""
+
+
+@dataclass(frozen=True)
+class RowExplanation:
+    """What is at one matrix row and why it matters (:func:`conditioning.stages.explain.explain_row`)."""
+
+    row: int
+    """0-based matrix row explained."""
+    row_base: int
+    """The numbering the row was asked in (1: first row is 1; 0: first row is 0)."""
+    label: str
+    """The row in words (``"node 12 uy"`` or ``"row 37"``, 1-based)."""
+    node: Optional[int]
+    """Its node id; None without a DOF map."""
+    dof: Optional[str]
+    """Its DOF name (``ux`` ... ``rz``); None without a DOF map."""
+    diagonal: float
+    """K_ii in K's units (force/length or moment/rotation)."""
+    neighbour_diagonal: Optional[float]
+    """Median K_jj of the rows it is coupled to that have its DOF type (K's
+    units); None when it is coupled to none."""
+    type_diagonal: Optional[float]
+    """Median K_jj of every row of its DOF type (all rows without a DOF map)."""
+    couplings: list[RowCoupling]
+    """Its strongest couplings, strongest (in |K_ij| / sqrt(|K_ii K_jj|)) first."""
+    jumps: list[StiffnessJump]
+    """The stiffness jumps the row belongs to."""
+    pivot_kept: Optional[float]
+    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``);
+    None when K is singular (no unshifted factorization)."""
+    pivot_digits: Optional[float]
+    """-log10(pivot_kept): digits of K_ii lost at the pivot in that order (inf
+    for a zero or negative pivot); None with ``pivot_kept``."""
+    least_kept: Optional[float]
+    """1 / (K_ii (K^-1)_ii): the smallest share any elimination order can
+    leave (the pivot when the row is eliminated last); None when K is
+    singular. The pivot of a positive definite K lies between 1/(K^-1)_ii
+    and K_ii whatever the order."""
+    most_digits: Optional[float]
+    """log10(K_ii (K^-1)_ii): the most digits any elimination order can lose
+    at this pivot (0 is the least: the row eliminated first); None with
+    ``least_kept``."""
+    pivot_method: str
+    """How the pivot was obtained (factorization and ordering), or why not."""
+    mode_shares: list[ModeShare]
+    """Its share of each near-singular mode, in the modes' order; empty
+    without modes."""
+    advice: list[str]
+    """What would help at this row, in plain words; the suggested
+    restraint(s) first."""

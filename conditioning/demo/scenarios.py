@@ -538,6 +538,8 @@ def scenarios() -> dict[str, DemoCase]:
 
 #: The case exported a second time before its supports are applied, with a fix file.
 FIX_VARIANT = "footbridge"
+#: The case also exported with several load cases as the columns of one CSV file.
+LOAD_CASES_VARIANT = "footbridge"
 
 
 def export(case: DemoCase, directory, *, with_fix_variant: bool = False) -> list[Path]:
@@ -569,6 +571,8 @@ def export(case: DemoCase, directory, *, with_fix_variant: bool = False) -> list
             w.writerow(["node", "dof"])
             w.writerows([node, name] for node, name in case.supports)
         written.append(path)
+    if case.name == LOAD_CASES_VARIANT:
+        written.append(_write_load_cases(case.model, directory / f"{case.name}_load_cases.csv"))
     logger.info("wrote %d files for %s", len(written), case.name)
     return written
 
@@ -591,6 +595,23 @@ def _write_model(model: Model, directory: Path, stem: str, description: str) -> 
     scipy.io.mmwrite(paths[3], np.asarray(model.load, dtype=float).reshape(-1, 1),
                      comment=f" {stem}: load vector (N, N mm); {INVENTED}")
     return paths
+
+
+def _write_load_cases(model: Model, path: Path) -> Path:
+    """Three load cases (N, N mm) as the columns of a CSV file with a header:
+    ``deck`` (the model's load), ``left_half`` (that load on the nodes left of
+    midspan) and ``braking`` (a horizontal pull of a tenth of the deck load's
+    total, shared by the ux rows of the nodes at the lowest level)."""
+    deck = np.asarray(model.load, dtype=float)
+    x = model.coords.lookup(model.dofs.node)
+    left = np.where(x[:, 0] < 0.5 * (x[:, 0].min() + x[:, 0].max()), deck, 0.0)
+    rows = (np.asarray(model.dofs.dof) == 0) & (x[:, 1] == x[:, 1].min())
+    braking = np.where(rows, 0.1 * abs(deck.sum()) / max(int(rows.sum()), 1), 0.0)
+    with path.open("w", newline="") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(["deck", "left_half", "braking"])
+        w.writerows([repr(float(a)), repr(float(b)), repr(float(c))] for a, b, c in zip(deck, left, braking))
+    return path
 
 
 def export_all(directory) -> list[Path]:

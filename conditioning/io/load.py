@@ -13,7 +13,9 @@ and lines starting with ``#`` are skipped):
   integer id, ``dof`` one of ``ux, uy, uz, rx, ry, rz``.
 * Coordinates: ``node,x,y,z`` (``z`` may be left out: a 2D model).
 * Restraints: ``node,dof``, one line per restrained degree of freedom.
-* Load and solution: one value per line, or a Matrix Market n x 1 file.
+* Load and solution: one value per line, or a Matrix Market n x 1 file; several
+  load cases as m columns (CSV ``n x m`` with an optional header naming the
+  cases, or a Matrix Market ``n x m`` file), and a solution with the same m columns.
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from dataclasses import replace
 from typing import Optional, Sequence, Union
 
 import numpy as np
+import scipy.io
 import scipy.sparse as sp
 from numpy.typing import ArrayLike, NDArray
 
@@ -121,8 +124,9 @@ def load_model(
     n = int(K.shape[0])
     table = _dof_map(dofs, dofs_per_node, n, source, notes)
     positions = _coordinates(coords, table, notes)
-    f = _vector(load, n, "load", notes)
-    u = _vector(solution, n, "solution", notes)
+    f, load_names = _vector(load, n, "load", notes)
+    u, _ = _vector(solution, n, "solution", notes)
+    _require_matching_columns(solution, u, load, f)
     restrained = 0
     if fix is not None:
         keep, restrained = _restraint_rows(fix, table, n, notes)
@@ -133,7 +137,7 @@ def load_model(
         u = u[keep] if u is not None else None
     logger.info("model %s: n = %d, %d restrained", source, K.shape[0], restrained)
     return Model(K=K, source=source, dofs=table, coords=positions, load=f, solution=u,
-                 restrained=restrained, notes=tuple(notes), one_triangle=one_triangle)
+                 load_names=load_names, restrained=restrained, notes=tuple(notes), one_triangle=one_triangle)
 
 
 # --------------------------------------------------------------------------- #
@@ -517,27 +521,115 @@ def _require_unique_nodes(source: str, node, lines: Optional[list[int]]) -> None
 # --------------------------------------------------------------------------- #
 
 
-def _vector(value, n: int, what: str, notes: list[str]) -> Optional[NDArray[np.float64]]:
+def _vector(value, n: int, what: str, notes: list[str]) -> tuple[Optional[NDArray[np.float64]], tuple[str, ...]]:
+    """The load or solution as (n,) float64 (one case) or (n, m) (m >= 2 cases),
+    and the case names (header cells, else ``load-1``...; empty for one case)."""
     if value is None:
-        return None
+        return None, ()
     if _is_path(value):
-        vec = read_vector(value, n, what)
-        notes.append(f"{what} vector from {value}")
-        return vec
+        if _column_count(str(value)) <= 1:
+            vec = read_vector(value, n, what)
+            notes.append(f"{what} vector from {value}")
+            return vec, ()
+        block, names = _read_columns(str(value), n, what)
+        notes.append(f"{what}: {block.shape[1]} load cases from {value}")
+        return block, names
     try:
         vec = np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError):
         raise InputError(ARRAY_SOURCE, f"the {what} vector cannot be converted to float64") from None
     if vec.ndim == 2 and 1 in vec.shape:
         vec = vec.ravel()
-    if vec.ndim != 1 or vec.size != n:
+    if not (vec.ndim in (1, 2) and vec.shape[0] == n):
         raise InputError(ARRAY_SOURCE, f"the {what} vector has shape {vec.shape} but the matrix has {n} rows")
-    bad = np.flatnonzero(~np.isfinite(vec))
+    bad = np.flatnonzero(~np.isfinite(vec.reshape(n, -1)).all(axis=1))
     if bad.size:
         first = ", ".join(str(int(k) + 1) for k in bad[:_FIRST_SHOWN])
-        raise InputError(ARRAY_SOURCE, f"the {what} vector has {bad.size} NaN or Inf values (first at rows {first})")
-    notes.append(f"{what} vector given as an array")
-    return vec.copy()
+        raise InputError(ARRAY_SOURCE, f"the {what} vector has {bad.size} NaN or Inf values (first at rows {first})"
+                         if vec.ndim == 1 else
+                         f"the {what} block has NaN or Inf values in {bad.size} rows (first at rows {first})")
+    notes.append(f"{what} vector given as an array" if vec.ndim == 1
+                 else f"{what}: {vec.shape[1]} load cases given as an array")
+    return vec.copy(), _default_case_names(vec.shape[1]) if vec.ndim == 2 else ()
+
+
+def _default_case_names(m: int) -> tuple[str, ...]:
+    return tuple(f"load-{k + 1}" for k in range(m))
+
+
+def _column_count(name: str) -> int:
+    """Columns of a load or solution file: 1 for a vector (or a file the
+    vector reader will reject with its own message)."""
+    try:
+        rows, cols, *_ = scipy.io.mminfo(name)
+        return 1 if 1 in (rows, cols) else int(cols)
+    except (OSError, ValueError, TypeError, IndexError):
+        pass  # not Matrix Market: a CSV file
+    try:
+        rows = read_csv_rows(name)
+    except InputError:
+        return 1
+    return len(rows[0][1]) if rows else 1
+
+
+def _read_columns(name: str, n: int, what: str) -> tuple[NDArray[np.float64], tuple[str, ...]]:
+    """An (n, m) block of load cases (force units) or solutions (length,
+    rotation) from a Matrix Market n x m or a CSV file with m columns, and
+    the case names (the CSV header's cells, else ``load-1``...)."""
+    names: tuple[str, ...] = ()
+    try:
+        scipy.io.mminfo(name)
+        is_mm = True
+    except (OSError, ValueError, TypeError, IndexError):
+        is_mm = False
+    if is_mm:
+        data = scipy.io.mmread(name)
+        block = np.asarray(data.toarray() if sp.issparse(data) else data)
+        if np.iscomplexobj(block):
+            raise InputError(name, f"the {what} file holds complex values")
+        block = block.astype(np.float64)
+    else:
+        rows = read_csv_rows(name)
+        m = len(rows[0][1])
+        if not all(_is_float(c) for c in rows[0][1]):
+            names = tuple(c or f"load-{k + 1}" for k, c in enumerate(rows[0][1]))
+            if len(set(names)) != m:
+                raise InputError(name, f"line {rows[0][0]}: the {what} case names repeat: {', '.join(names)}")
+            rows = rows[1:]
+        values = []
+        for line_no, cells in rows:
+            if len(cells) != m:
+                raise InputError(name, f"line {line_no}: expected {m} values (one per load case), found {len(cells)}")
+            values.append([parse_float(name, c, line_no, "value") for c in cells])
+        block = np.asarray(values, dtype=np.float64).reshape(-1, m)
+    if block.shape[0] != n:
+        raise InputError(name, f"the {what} file has {block.shape[0]} rows ({block.shape[1]} load cases) "
+                               f"but the matrix has {n} rows")
+    bad = np.flatnonzero(~np.isfinite(block).all(axis=1))
+    if bad.size:
+        first = ", ".join(str(int(k) + 1) for k in bad[:_FIRST_SHOWN])
+        raise InputError(name, f"the {what} file has NaN or Inf values in {bad.size} rows (first at rows {first})")
+    return block, names or _default_case_names(block.shape[1])
+
+
+def _is_float(cell: str) -> bool:
+    try:
+        float(cell)
+    except ValueError:
+        return False
+    return True
+
+
+def _require_matching_columns(solution, u, load, f) -> None:
+    """One solution column per load case, or an InputError naming the solution file."""
+    if u is None or f is None:
+        return
+    mu, mf = (1 if u.ndim == 1 else u.shape[1]), (1 if f.ndim == 1 else f.shape[1])
+    if mu != mf:
+        where = str(solution) if _is_path(solution) else ARRAY_SOURCE
+        load_where = f" ({load})" if _is_path(load) else ""
+        raise InputError(where, f"the solution has {mu} column{'s' if mu != 1 else ''} but the load{load_where} "
+                                f"has {mf}: one solution column per load case")
 
 
 def _restraint_rows(fix, table: Optional[DofTable], n: int, notes: list[str]) -> tuple[NDArray[np.intp], int]:

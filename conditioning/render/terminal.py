@@ -474,7 +474,8 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
     if dg is None:
         return Text("not measured", style="dim") if verbose else None
     if dg.skipped:
-        return Group(Text(f"not measured: {dg.skipped}", style="yellow"), *_audit_lines(dg.audit))
+        return Group(Text(f"not measured: {dg.skipped}", style="yellow"),
+                     *[line for a in (dg.audits or [dg.audit]) for line in _audit_lines(a)])
     show_bound = verbose or any(not s.converged or not s.bound_trusted for s in dg.samples)
     columns = ["sample", "digits", "lost", "how obtained"]
     if show_bound:
@@ -504,7 +505,8 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
         lines.extend(_confirmation_lines(dg.samples))
         if dg.certification:
             lines.append(Text(f"Verified eigenvalue bound: {dg.certification}.", style="dim"))
-    lines.extend(_audit_lines(dg.audit))
+    for audit in (dg.audits or [dg.audit]):
+        lines.extend(_audit_lines(audit))
     return Group(*lines)
 
 
@@ -529,12 +531,13 @@ def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
     """How the supplied solution fits K and f, in one or two lines."""
     if audit is None:
         return []
+    who = "Supplied solution" + (f" of '{audit.case}'" if audit.case is not None else "")
     if audit.free_mode_share is not None:
-        return [Text(f"Supplied solution: K is singular; its component along the free modes is "
+        return [Text(f"{who}: K is singular; its component along the free modes is "
                      f"{fmt_number(audit.free_mode_share)} of it, so it keeps {fmt_digits(audit.trustworthy_digits)} "
                      f"digits (bound); backward error {fmt_number(audit.backward_error)}.")]
     fit = "fits" if audit.fits else "does NOT fit"
-    text = (f"Supplied solution {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
+    text = (f"{who} {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
             f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; "
             f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
     if audit.digits_written is not None:
@@ -686,3 +689,39 @@ def render_comparison_text(comparison, *, width: int = 100) -> str:
     console = Console(file=io.StringIO(), width=width, record=True, color_system=None)
     console.print(ComparisonView(comparison))
     return console.export_text()
+
+
+def explanation_view(e: results.RowExplanation) -> Group:
+    """What is at one row (``conditioning explain``), as the command prints it."""
+    asked = e.row + e.row_base
+    lines = [Rule(f"Row {asked} ({'1' if e.row_base == 1 else '0'}-based numbering): {e.label}")]
+    where = f"node {e.node}, DOF {e.dof}" if e.node is not None else "no DOF map given: rows are their own nodes"
+    lines.append(Text(f"Where: {where}; matrix row {e.row + 1} counted from 1, {e.row} counted from 0."))
+    lines.append(Text(f"Diagonal K_ii = {fmt_number(e.diagonal)}: {_times(e.diagonal, e.neighbour_diagonal)} the "
+                      f"median of its coupled rows of the same DOF type, {_times(e.diagonal, e.type_diagonal)} "
+                      "the median of its DOF type."))
+    t = _table("coupled to", "K_ij", "|K_ij|/sqrt(K_ii K_jj)", right=(1, 2))
+    for c in e.couplings:
+        t.add_row(c.label, fmt_number(c.value), f"{c.strength:.3f}")
+    lines.append(t if e.couplings else Text("Coupled to no other row."))
+    for j in e.jumps:
+        lines.append(Text(f"Stiffness jump ({j.kind}, ratio {fmt_number(j.ratio)}, about "
+                          f"{fmt_digits(j.digits_cost)} digits): nodes {', '.join(map(str, j.nodes))}."))
+    if e.most_digits is not None:
+        here = (f"{fmt_digits(e.pivot_digits)} digits of K_ii lost at its pivot in this tool's order"
+                if e.pivot_digits is not None else "its pivot in this tool's order is not available")
+        lines.append(Text(f"Pivot: {here}; any elimination order loses between 0 (eliminated first) and "
+                          f"{fmt_digits(e.most_digits)} (eliminated last) digits here. {e.pivot_method}.",
+                          style="dim" if e.most_digits < 4 else None))
+    else:
+        lines.append(Text(f"Pivot: {e.pivot_method}.", style="yellow"))
+    for s in e.mode_shares:
+        lines.append(Text(f"Near-singular mode {s.mode} ({s.kind}, eigenvalue {fmt_number(s.eigenvalue)}): "
+                          f"{100 * s.share:.1f}% of its motion is at this row."))
+    lines.extend(Text(f"What would help: {a}", style="bold") for a in e.advice)
+    return Group(*lines)
+
+
+def _times(value: float, reference: Optional[float]) -> str:
+    """``"0.5 times"``, or ``"- (none to compare with)"``."""
+    return f"{value / reference:.2g} times" if reference else "- (none to compare with)"

@@ -134,21 +134,21 @@ def measure_digits(
     flops = float(fac.info.flops)
     placeholders = _placeholder_rows(structure)
     if fac.singular or fac.shift != 0.0:
-        audit = None
+        audits = []
         if model.solution is not None:
-            audit = audit_singular_solution(model, spectrum, structure)
+            audits = _worst_first(audit_singular_solutions(model, spectrum, structure))
         return DigitsResult([], predicted_raw, predicted_scaled, flops,
                             summary="No digits measured: K is singular, so no displacement is defined.",
                             skipped=_why_singular(fac),
-                            audit=audit)
+                            audit=audits[0] if audits else None, audits=audits)
     K = sp.csr_array(model.K)
     rng = np.random.default_rng(seed if rng is None else rng)
-    names, F = _loads(model, fac, spectrum, samples, rng, placeholders)
-    X = fac.solve(F)
+    names, F, cases = _loads(model, fac, spectrum, samples, rng, placeholders)
+    X = fac.solve(F)  # every load case and sample in one multi-column solve
     op = dd_operator(K)
     kappa = scaled_condition_estimate(K, fac, rng=rng)
     # The componentwise bound (a few solves per sample) for the sample that
-    # matters most: the user's load, else the first random one.
+    # matters most: the user's (first) load, else the first random one.
     want = [j == 0 for j in range(len(names))]
     refs = refine_block(K, fac, F, X0=X, kappa=kappa, operator=op, want_componentwise=want)
     confirmation, why_not = _confirm(K, F, kappa) if confirm else (None, "arbitrary-precision re-solve not requested")
@@ -160,16 +160,38 @@ def measure_digits(
         _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured)
         for j, name in enumerate(names)
     ]
-    audit = None
-    if model.solution is not None and (not names or names[0] != "load"):
+    audits = []
+    if model.solution is not None and not cases:
         logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
     elif model.solution is not None:
-        solution = _sample(model, op, "solution", F[:, 0], np.asarray(model.solution, dtype=np.float64),
-                           refs[0], confirmation, 0, why_not, measured)
-        out.append(solution)
-        audit = _audit(solution, out[0])
+        U_s = np.asarray(model.solution, dtype=np.float64).reshape(model.n, -1)
+        for j, (case, column) in enumerate(cases):
+            name = _solution_name(case)
+            solution = replace(_sample(model, op, name, F[:, j], U_s[:, column], refs[j], confirmation, j,
+                                       why_not, measured), audited=True)
+            out.append(solution)
+            audits.append(_audit(solution, out[j], case))
+    out = _cases_first(out, len(cases))
+    audits = _worst_first(audits)
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
-                        summary=_summary(out, predicted_raw, predicted_scaled, flops), audit=audit)
+                        summary=_summary(out, predicted_raw, predicted_scaled, flops),
+                        audit=audits[0] if audits else None, audits=audits)
+
+
+def _solution_name(case: Optional[str]) -> str:
+    """The sample name of the supplied solution of a load case."""
+    return "solution" if case is None else f"solution ({case})"
+
+
+def _cases_first(samples: list[DigitsSample], n_cases: int) -> list[DigitsSample]:
+    """The user's load cases (the first ``n_cases`` samples) fewest digits first, the rest in order."""
+    cases = sorted(samples[:n_cases], key=lambda s: s.trustworthy_digits)  # stable: file order on ties
+    return cases + samples[n_cases:]
+
+
+def _worst_first(audits: list[SolutionAudit]) -> list[SolutionAudit]:
+    """Audits that do not fit first, then by fewest trustworthy digits."""
+    return sorted(audits, key=lambda a: (a.fits, a.trustworthy_digits))
 
 
 def _verify(K, perm, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
@@ -211,18 +233,37 @@ def _placeholder_rows(structure) -> NDArray[np.intp]:
 FIT_FACTOR = 100.0
 
 
-def _audit(solution: DigitsSample, own: DigitsSample) -> SolutionAudit:
-    """Compare the supplied solution's backward error with the tool's own solve's."""
+def _audit(solution: DigitsSample, own: DigitsSample, case: Optional[str] = None) -> SolutionAudit:
+    """Compare the supplied solution's backward error with the tool's own solve's (same load case)."""
     eta, allowed = float(solution.backward_error), float(own.backward_error)
     return SolutionAudit(
         backward_error=eta, allowed_backward_error=allowed,
         fits=bool(eta <= FIT_FACTOR * max(allowed, U)),
         digits_written=digits_written(solution.solution),
         free_mode_share=None, load_free_mode_share=None,
-        trustworthy_digits=solution.trustworthy_digits, method=f"measured ({solution.method})")
+        trustworthy_digits=solution.trustworthy_digits, method=f"measured ({solution.method})", case=case)
 
 
-def audit_singular_solution(model: Model, spectrum: Optional[SpectrumResult], structure) -> SolutionAudit:
+def audit_singular_solutions(model: Model, spectrum: Optional[SpectrumResult], structure) -> list[SolutionAudit]:
+    """:func:`audit_singular_solution` for every column of a supplied solution (one per load case).
+
+    Returns
+    -------
+    list of SolutionAudit
+        In column order, each naming its ``case`` (None for a single load).
+    """
+    X = np.asarray(model.solution, dtype=np.float64)
+    if X.ndim == 1:
+        return [audit_singular_solution(model, spectrum, structure)]
+    n, m = X.shape
+    F = np.zeros((n, m)) if model.load is None else np.asarray(model.load, dtype=np.float64).reshape(n, -1)
+    names = model.load_names or tuple(f"load-{k + 1}" for k in range(m))
+    return [audit_singular_solution(replace(model, solution=X[:, k], load=F[:, k], load_names=()),
+                                    spectrum, structure, case=names[k]) for k in range(m)]
+
+
+def audit_singular_solution(model: Model, spectrum: Optional[SpectrumResult], structure,
+                            case: Optional[str] = None) -> SolutionAudit:
     """Audit a supplied solution of a singular K: how much of it K does not determine.
 
     Any multiple of a free mode (rigid-body mode, mechanism, DOF without
@@ -259,7 +300,7 @@ def audit_singular_solution(model: Model, spectrum: Optional[SpectrumResult], st
         fits=bool(eta <= FIT_FACTOR * U), digits_written=digits_written(x),
         free_mode_share=share, load_free_mode_share=load_share, trustworthy_digits=trust,
         method="bound: K is singular, so the solution's component along the free modes is arbitrary; "
-               "digits = -log10 of that component's share of the solution")
+               "digits = -log10 of that component's share of the solution", case=case)
 
 
 def digits_written(values: NDArray[np.float64], sample: int = 2000) -> Optional[int]:
@@ -287,14 +328,31 @@ def digits_written(values: NDArray[np.float64], sample: int = 2000) -> Optional[
 
 # ------------------------------------------------------------------- loads
 def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, placeholders=None):
-    """Sample names and the (n, k) load block; random loads are zero on placeholder rows."""
+    """Sample names, the (n, k) load block, and the user's load cases.
+
+    Returns
+    -------
+    names : list of str
+    F : (n, k) float64, force units
+    cases : list of (str or None, int)
+        For each of the first ``len(cases)`` columns of F, the load case's
+        name (None for a single load vector) and its column in the user's
+        load (and solution); zero load cases are left out.
+    """
     n = model.n
-    names, cols = [], []
-    if model.load is not None and np.any(model.load):
-        names.append("load")
-        cols.append(np.asarray(model.load, dtype=np.float64))
-    elif model.load is not None:
-        logger.warning("the load vector is zero: no displacement to measure; the load sample is left out")
+    names, cols, cases = [], [], []
+    if model.load is not None:
+        L = np.asarray(model.load, dtype=np.float64)
+        labels = [None] if L.ndim == 1 else list(model.load_names or (f"load-{k + 1}" for k in range(L.shape[1])))
+        for k, label in enumerate(labels):
+            f = L.reshape(n, -1)[:, k]
+            if not np.any(f):
+                logger.warning("the load %s is zero: no displacement to measure; it is left out",
+                               "vector" if label is None else f"case '{label}'")
+                continue
+            names.append("load" if label is None else label)
+            cols.append(f)
+            cases.append((label, k))
     for k in range(samples):
         names.append(f"random-{k + 1}")
         f = rng.standard_normal(n)
@@ -305,7 +363,7 @@ def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, 
     if mode is not None:
         names.append("worst-case")
         cols.append(mode)
-    return names, np.column_stack(cols)
+    return names, np.column_stack(cols), cases
 
 
 def worst_case_load(K, fac, spectrum: Optional[SpectrumResult] = None) -> Optional[NDArray[np.float64]]:
@@ -462,12 +520,19 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
     op = dd_operator(K)
     samples = [s if s.method == CERTIFIED_BALL else _certified(model, op, s, rows, verified)
                for s in digits.samples]
-    audit = digits.audit
-    solution = next((s for s in samples if s.sample == "solution"), None)
-    if audit is not None and solution is not None:
-        audit = replace(audit, trustworthy_digits=solution.trustworthy_digits,
-                        method=f"measured ({solution.method})")
-    return replace(digits, samples=samples, audit=audit, certification=reason,
+    n_cases = _case_count(model, samples)
+    samples = _cases_first(samples, n_cases)
+    by_name = {s.sample: s for s in samples if s.audited}
+    audits = []
+    for audit in digits.audits:
+        solution = by_name.get(_solution_name(audit.case))
+        if solution is not None:
+            audit = replace(audit, trustworthy_digits=solution.trustworthy_digits,
+                            method=f"measured ({solution.method})")
+        audits.append(audit)
+    audits = _worst_first(audits)
+    return replace(digits, samples=samples, audit=audits[0] if audits else None, audits=audits,
+                   certification=reason,
                    summary=_summary(samples, digits.predicted_raw, digits.predicted_scaled,
                                     digits.factorization_flops))
 
@@ -490,6 +555,17 @@ def _certified(model: Model, op, s: DigitsSample, rows, verified) -> DigitsSampl
         converged=True, worst_nodes=_worst_nodes(model, per_dof), normwise_bound=float(np.max(cert)) / scale,
         componentwise_bound=float(np.max(cw)) if np.all(ref.x_hi != 0) else None, bound_trusted=True,
         per_dof_digits=per_dof, forward_error=forward, resolution=resolution, at_ceiling=forward <= resolution)
+
+
+def _case_count(model: Model, samples: list[DigitsSample]) -> int:
+    """How many of the first samples are the user's load cases."""
+    names = {"load"} if model.load is None or np.ndim(model.load) == 1 else set(model.load_names)
+    count = 0
+    for s in samples:
+        if s.audited or s.sample not in names:
+            break
+        count += 1
+    return count
 
 
 @dataclass(frozen=True)
@@ -652,7 +728,7 @@ def _predictions(condition: Optional[ConditionResult]):
 
 def _summary(samples: list[DigitsSample], pr, ps, flops: float) -> str:
     """One sentence: measured against predicted, and why."""
-    own = [s for s in samples if s.sample != "solution"]  # a supplied solution is audited on its own
+    own = [s for s in samples if not s.audited]  # a supplied solution is audited on its own
     if not own:
         return "No load sample could be measured."
     worst = min(own, key=lambda s: s.trustworthy_digits)

@@ -82,6 +82,7 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
     """What the audit of a supplied solution found (see :class:`SolutionAudit`)."""
     out = []
     written = ""
+    of_case = f" of load case '{audit.case}'" if audit.case is not None else ""
     if audit.digits_written is not None:
         written = (f" Its values carry only {audit.digits_written} significant figures"
                    + (", which alone explains a backward error of this size."
@@ -93,7 +94,7 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
                     "of it): no static equilibrium exists for it.")
         out.append(Finding(
             "error", "solution.free-mode-component",
-            f"K is singular, so a solution is determined only up to its free modes: the supplied solution's "
+            f"K is singular, so a solution is determined only up to its free modes: the supplied solution{of_case}'s "
             f"component along them is {audit.free_mode_share:.1e} of it, so it keeps "
             f"{audit.trustworthy_digits:.1f} trustworthy digits (bound).{load}",
             [], "Restrain the free modes (see the suggested restraints) and solve again; until then, "
@@ -102,7 +103,7 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
         ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U**2)
         out.append(Finding(
             "error", "solution.does-not-fit",
-            f"The supplied solution does not solve this K and f: its backward error {audit.backward_error:.1e} "
+            f"The supplied solution{of_case} does not solve this K and f: its backward error {audit.backward_error:.1e} "
             f"is {ratio:.0e} times that of the tool's own float64 solve "
             f"({audit.allowed_backward_error:.1e}). It keeps {audit.trustworthy_digits:.1f} trustworthy digits, "
             f"and the cause is the vector, not the conditioning of K.{written}",
@@ -429,8 +430,14 @@ def _digits_findings(digits: Optional[DigitsResult], min_digits: float) -> list[
     audit = digits.audit
     # A supplied solution that does not fit is the solution's fault, not
     # K's: it has its own finding.
-    judged = own_samples(digits) + [s for s in digits.samples
-                                    if s.sample == "solution" and (audit is None or audit.fits)]
+
+    def fits(sample) -> bool:
+        match = [a for a in digits.audits if sample.sample == ("solution" if a.case is None
+                                                               else f"solution ({a.case})")]
+        a = match[0] if match else audit
+        return a is None or a.fits
+
+    judged = own_samples(digits) + [s for s in digits.samples if s.audited and fits(s)]
     worst = min(judged, key=lambda s: s.trustworthy_digits)
     if worst.trustworthy_digits < min_digits:
         out.append(Finding("error", "digits.below-minimum",
@@ -517,7 +524,7 @@ def own_samples(digits: Optional[DigitsResult]) -> list:
     """The samples of the tool's own solves (a supplied solution is audited apart)."""
     if digits is None:
         return []
-    return [s for s in digits.samples if s.sample != "solution"]
+    return [s for s in digits.samples if not s.audited]
 
 
 def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],

@@ -77,7 +77,7 @@ def hold_swallowed(model: Model, held: NDArray[np.intp]) -> tuple[Model, NDArray
 
     rest = Model(K, source=model.source, dofs=None if model.dofs is None else model.dofs.take(keep),
                  coords=model.coords, load=take(model.load), solution=take(model.solution),
-                 restrained=model.restrained, notes=model.notes)
+                 load_names=model.load_names, restrained=model.restrained, notes=model.notes)
     return rest, keep
 
 
