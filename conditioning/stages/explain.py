@@ -119,12 +119,13 @@ def _pivot(model: Model, fac, row: int, k_ii: float):
     kept = digits = None
     if fac.pivots is not None:
         kept = float(np.sign(k_ii) * fac.pivots[row])
-        digits = -math.log10(kept) if kept > 0 else math.inf
+        # A pivot a rounding above its diagonal loses no digit, not -1e-16 of one.
+        digits = max(0.0, -math.log10(kept)) if kept > 0 else math.inf
     e = np.zeros(model.n)
     e[row] = 1.0
     inv_ii = float(fac.solve(e)[row])  # (K^-1)_ii in 1/(K's units)
     least = float(1.0 / (k_ii * inv_ii)) if k_ii * inv_ii != 0 else None
-    most = float(math.log10(k_ii * inv_ii)) if k_ii * inv_ii > 0 else None
+    most = float(max(0.0, math.log10(k_ii * inv_ii))) if k_ii * inv_ii > 0 else None
     method = (f"pivot of this tool's elimination order ({fac.info.ordering}); the bounds hold for any order "
               "of a positive definite K (one solve for (K^-1)_ii)")
     return kept, digits, least, most, method
