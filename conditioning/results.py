@@ -654,6 +654,13 @@ class ModelGeometry:
     edges as K's graph shows them. None without a map, or when there are
     more than :data:`conditioning.stages.geometry.MAX_EDGES` (then the views
     draw the nodes only)."""
+    other_nodes: Optional[NDArray[np.int64]] = field(default=None, repr=False)
+    """(p,) ids of nodes the coordinates list but the DOF map does not (nodes
+    with every DOF restrained, or unused), sorted ascending; K holds nothing
+    about them, so no edge reaches them. None without a map or coordinates."""
+    other_xyz: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """(p, 3) positions of ``other_nodes``, in the model's length unit (z = 0
+    for a 2D model); None when ``other_nodes`` is."""
 
     def node_index(self) -> NDArray[np.intp]:
         """(rows,) position in ``nodes`` of each row's node (requires a map)."""
