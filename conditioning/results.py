@@ -28,16 +28,17 @@ class Asymmetry:
 
     relative: float
     """max |K_ij - K_ji| / max |K_ij| over stored entries (dimensionless)."""
-    row: int
-    """0-based row of the worst pair (-1 when symmetric)."""
-    col: int
-    """0-based column of the worst pair (-1 when symmetric)."""
+    row: Optional[int]
+    """0-based row of the worst pair (row < col); None when K is symmetric."""
+    col: Optional[int]
+    """0-based column of the worst pair; None when K is symmetric."""
     pair_relative: float = 0.0
     """|K_ij - K_ji| / max(|K_ij|, |K_ji|) at the worst pair: the difference
     relative to the entry itself (dimensionless; 0.01 for an entry changed by
     1%, 1.0 when one side of the pair is missing)."""
-    pair_values: tuple[float, float] = (0.0, 0.0)
-    """(K[row, col], K[col, row]) at the worst pair, in K's units."""
+    pair_values: Optional[tuple[float, float]] = None
+    """(K[row, col], K[col, row]) at the worst pair, in K's units; None when
+    K is symmetric."""
     pairs: int = 0
     """Number of pairs (i < j) that differ beyond round-off (the rule of
     :func:`conditioning.stages.structure.asymmetry_reported`, applied per pair)."""

@@ -146,7 +146,7 @@ def _summary(r: results.Report) -> str:
             ["DOFs without stiffness", str(len(st.empty_rows))],
             ["zero diagonal", zero_diagonal_text(st, 12)],
             ["negative diagonal", f"{len(st.negative_diagonal):,}" if len(st.negative_diagonal) else "none"],
-            ["asymmetry", "none" if st.asymmetry.row < 0 else fmt_number(st.asymmetry.relative)]]
+            ["asymmetry", "none" if st.asymmetry.row is None else fmt_number(st.asymmetry.relative)]]
     if s.restrained:
         rows.append(["restrained (removed)", f"{s.restrained:,}"])
     rows += [["note", n] for n in s.notes]

@@ -347,7 +347,7 @@ def _structure_grid(r: results.Report, max_ids: int):
         if name.startswith("DOFs"):
             g.add_row("zero diagonal", zero_diagonal_text(st, max_ids))
     a = st.asymmetry
-    g.add_row("asymmetry", "none (symmetric)" if a.row < 0 else
+    g.add_row("asymmetry", "none (symmetric)" if a.row is None else
               f"largest relative {fmt_number(a.relative)} at row {a.row + 1}, "
               f"column {a.col + 1}")
     return g
@@ -369,7 +369,7 @@ def _structure_line(st: results.StructureResult, max_ids: int) -> str:
     if not bad:
         parts.append("no row without stiffness, no zero or negative diagonal")
     a = st.asymmetry
-    parts.append("symmetric" if a.row < 0 else
+    parts.append("symmetric" if a.row is None else
                  f"not symmetric: largest relative difference {fmt_number(a.relative)} at row "
                  f"{a.row + 1}, column {a.col + 1}")
     return "Structure: " + "; ".join(parts) + "."
