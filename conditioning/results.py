@@ -662,6 +662,10 @@ class ModelGeometry:
     other_xyz: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """(p, 3) positions of ``other_nodes``, in the model's length unit (z = 0
     for a 2D model); None when ``other_nodes`` is."""
+    lacks_dofs: Optional[NDArray[np.bool_]] = field(default=None, repr=False)
+    """(m,) True for a node of ``nodes`` without some DOF that other nodes
+    carry (a restrained DOF removed from K, or an element type without it);
+    None without a map."""
 
     def node_index(self) -> NDArray[np.intp]:
         """(rows,) position in ``nodes`` of each row's node (requires a map)."""

@@ -66,3 +66,39 @@ def test_monorail_mode_plot_has_four_views_a_depth_cue_labels_and_the_support(mo
     labels = {t.get_text() for t in axes[0].texts} - {f"support {r.node} {r.dof}"}
     located = {str(n) for n in report.spectrum.modes[0].nodes}
     assert labels and labels <= located
+
+
+@pytest.mark.parametrize("name", ["mast_missing_brace", "rack_no_sway_support"])
+def test_mode_plot_draws_the_existing_supports(monkeypatch, name):
+    """Supports the export already has, read from its CSV files with the csv
+    module: nodes of the coordinates without a line in the DOF map are filled
+    triangles at their positions; nodes with fewer DOF lines than the most
+    any node has are hollow squares."""
+    import csv
+
+    from conditioning import diagnose
+
+    files = {k: DEMO / f"{name}{s}" for k, s in (("K", ".mtx"), ("dofs", "_dofs.csv"),
+                                                  ("coords", "_coords.csv"))}
+    with files["coords"].open(newline="") as fh:
+        coords = {int(r["node"]): (float(r["x"]), float(r["y"])) for r in csv.DictReader(fh)}
+    with files["dofs"].open(newline="") as fh:
+        count: dict[int, int] = {}
+        for r in csv.DictReader(fh):
+            count[int(r["node"])] = count.get(int(r["node"]), 0) + 1
+    without = sorted(set(coords) - set(count))
+    fewer = sorted(n for n, c in count.items() if c < max(count.values()))
+    report = diagnose(str(files["K"]), dofs=str(files["dofs"]), coords=str(files["coords"]),
+                      samples=0)
+    figures = []
+    monkeypatch.setattr(plots, "_png", lambda fig: figures.append(fig) or b"")
+    plots.mode_shape_png(report.geometry, report.spectrum.modes[0], 1, report.restraints)
+    (ax,) = figures[0].axes
+    by_label = {line.get_label(): line for line in ax.lines}
+    for nodes, label in ((without, "support (node without DOFs)"),
+                         (fewer, "node without some DOFs (restrained?)")):
+        if not nodes:
+            assert label not in by_label
+            continue
+        drawn = sorted(zip(*by_label[label].get_data()))
+        assert drawn == sorted(coords[n] for n in nodes)

@@ -287,7 +287,8 @@ def _figures(r: results.Report) -> str:
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
                                "the model size); circled and numbered: the nodes that locate the "
-                               "mode; green triangles: the suggested supports"
+                               "mode; grey triangles: supports (nodes without DOFs); squares: nodes "
+                               "missing a DOF the others have; green triangles: the suggested supports"
                                + ("; a 3D model from four sides, far lines paler in the first view."
                                   if geometry.dim == 3 else ".") if k == 1 else
                                "Displaced shape, drawn as mode 1.",

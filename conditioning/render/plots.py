@@ -208,21 +208,22 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
         fig = Figure(figsize=(6.5, 4.2))
         ax = fig.subplots()
         _mode_panel(ax, geometry, nodes, xyz[:, :2], (xyz + scale * trans)[:, :2], trans, amp, mode,
-                    restraints, legend=True)
+                    restraints, legend=True, fixed=_fixed_xyz(geometry)[:, :2])
         ax.set_title(title, fontsize=9)
         return _png(fig)
     fig = Figure(figsize=(8.0, 6.4))
     axes = fig.subplots(2, 2)
     moved_xyz = xyz + scale * trans
+    fixed = _fixed_xyz(geometry)
     _mode_panel(axes[0, 0], geometry, nodes, _project(xyz, 3), _project(moved_xyz, 3), trans, amp,
-                mode, restraints, legend=True, depth=_depth(xyz))
+                mode, restraints, legend=True, depth=_depth(xyz), fixed=_project(fixed, 3))
     axes[0, 0].set_title(f"view from azimuth {VIEW_AZIMUTH:g}, elevation {VIEW_ELEVATION:g} deg "
                          "(far lines paler)", fontsize=8)
     for ax, (a, b), name in ((axes[0, 1], (0, 1), "plan: x right, y up"),
                              (axes[1, 0], (0, 2), "front: x right, z up"),
                              (axes[1, 1], (1, 2), "side: y right, z up")):
         _mode_panel(ax, geometry, nodes, xyz[:, [a, b]], moved_xyz[:, [a, b]], trans, amp, mode,
-                    restraints, legend=False)
+                    restraints, legend=False, fixed=fixed[:, [a, b]])
         ax.set_title(name, fontsize=8)
     fig.suptitle(title, fontsize=9)
     return _png(fig)
@@ -232,10 +233,13 @@ def _mode_panel(ax, geometry: results.ModelGeometry, nodes: NDArray[np.int64],
                 base: NDArray[np.float64], moved: NDArray[np.float64], trans: NDArray[np.float64],
                 amp: float, mode: results.NearSingularMode,
                 restraints: Optional[list[results.Restraint]], *, legend: bool,
-                depth: Optional[NDArray[np.float64]] = None) -> None:
+                depth: Optional[NDArray[np.float64]] = None,
+                fixed: Optional[NDArray[np.float64]] = None) -> None:
     """One projection of a mode plot: undeformed (grey) and displaced (red)
-    shape, located nodes numbered, suggested supports marked; ``depth`` (0
-    nearest to 1 farthest, per node) fades and thins the far lines."""
+    shape, located nodes numbered, the model's supports (``fixed``: projected
+    positions of the nodes without DOFs; nodes lacking a DOF) and the
+    suggested supports marked; ``depth`` (0 nearest to 1 farthest, per node)
+    fades and thins the far lines."""
     edges = geometry.edges
     # Only what moves is drawn in colour (more than 1% of the largest motion).
     moving = np.linalg.norm(trans, axis=1) > 0.01 * amp if amp > 0 else np.zeros(len(nodes), bool)
@@ -250,6 +254,13 @@ def _mode_panel(ax, geometry: results.ModelGeometry, nodes: NDArray[np.int64],
                                          linewidths=_thinned(1.1, depth, live)))
     ax.plot(base[:, 0], base[:, 1], ".", color="#999999", ms=3)
     ax.plot(moved[moving, 0], moved[moving, 1], ".", color="#c0392b", ms=4)
+    # the existing supports, so a missing one stands out beside them
+    if fixed is not None and len(fixed):
+        ax.plot(fixed[:, 0], fixed[:, 1], "^", color="#4d4d4d", ms=7, label="support (node without DOFs)")
+    if geometry.lacks_dofs is not None and geometry.lacks_dofs.any():
+        part = base[geometry.lacks_dofs]
+        ax.plot(part[:, 0], part[:, 1], "s", color="#4d4d4d", mfc="none", ms=6,
+                label="node without some DOFs (restrained?)")
     located = np.isin(nodes, np.asarray(mode.nodes, dtype=np.int64))
     if located.any() and located.sum() < nodes.size:
         ax.plot(base[located, 0], base[located, 1], "o", mfc="none", color="#1a5276", ms=8,
@@ -267,12 +278,17 @@ def _mode_panel(ax, geometry: results.ModelGeometry, nodes: NDArray[np.int64],
                         fontsize=7, color="#117a65")
     if restraints:
         ax.plot([], [], "^", color="#117a65", mfc="none", label="suggested support")
-    if legend and (located.any() and located.sum() < nodes.size or restraints):
+    if legend and ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=7, loc="best")
     ax.set_aspect("equal", adjustable="datalim")
     ax.autoscale_view()
     ax.set_xticks([])
     ax.set_yticks([])
+
+
+def _fixed_xyz(geometry: results.ModelGeometry) -> NDArray[np.float64]:
+    """(p, 3) positions of the coordinates' nodes without DOFs (model length unit)."""
+    return geometry.other_xyz if geometry.other_xyz is not None else np.zeros((0, 3))
 
 
 def _faded(rgb: NDArray[np.float64], depth: Optional[NDArray[np.float64]],

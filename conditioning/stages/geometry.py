@@ -61,7 +61,16 @@ def model_geometry(model: Model) -> ModelGeometry:
                          row_node=np.asarray(model.dofs.node, dtype=np.int64),
                          row_dof=np.asarray(model.dofs.dof, dtype=np.int8),
                          xyz=xyz, dim=dim, edges=_node_edges(model, nodes),
-                         other_nodes=other_nodes, other_xyz=other_xyz)
+                         other_nodes=other_nodes, other_xyz=other_xyz,
+                         lacks_dofs=_lacks_dofs(model, nodes))
+
+
+def _lacks_dofs(model: Model, nodes: NDArray[np.int64]) -> NDArray[np.bool_]:
+    """(m,) True where a node carries fewer of the model's DOF types than exist."""
+    types = np.unique(model.dofs.dof)
+    per_node = np.zeros((nodes.size, 6), dtype=bool)
+    per_node[np.searchsorted(nodes, model.dofs.node), model.dofs.dof] = True
+    return per_node[:, types].sum(axis=1) < types.size
 
 
 def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.intp]]:
