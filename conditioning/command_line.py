@@ -75,6 +75,9 @@ def build_parser() -> argparse.ArgumentParser:
                             "options; 3 errors found (singular, a free or nearly free mode, or "
                             "fewer trustworthy digits than --min-digits); 4 internal error; "
                             "130 interrupted.")
+    from conditioning import __version__
+
+    parser.add_argument("--version", action="version", version=f"conditioning {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     d = sub.add_parser("diagnose", help="diagnose one stiffness export",
                        description="Diagnose one stiffness export (Matrix Market or Harwell-Boeing).")

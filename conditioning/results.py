@@ -28,16 +28,17 @@ class Asymmetry:
 
     relative: float
     """max |K_ij - K_ji| / max |K_ij| over stored entries (dimensionless)."""
-    row: int
-    """0-based row of the worst pair (-1 when symmetric)."""
-    col: int
-    """0-based column of the worst pair (-1 when symmetric)."""
+    row: Optional[int]
+    """0-based row of the worst pair (row < col); None when K is symmetric."""
+    col: Optional[int]
+    """0-based column of the worst pair; None when K is symmetric."""
     pair_relative: float = 0.0
     """|K_ij - K_ji| / max(|K_ij|, |K_ji|) at the worst pair: the difference
     relative to the entry itself (dimensionless; 0.01 for an entry changed by
     1%, 1.0 when one side of the pair is missing)."""
-    pair_values: tuple[float, float] = (0.0, 0.0)
-    """(K[row, col], K[col, row]) at the worst pair, in K's units."""
+    pair_values: Optional[tuple[float, float]] = None
+    """(K[row, col], K[col, row]) at the worst pair, in K's units; None when
+    K is symmetric."""
     pairs: int = 0
     """Number of pairs (i < j) that differ beyond round-off (the rule of
     :func:`conditioning.stages.structure.asymmetry_reported`, applied per pair)."""
@@ -668,6 +669,17 @@ class ModelGeometry:
     edges as K's graph shows them. None without a map, or when there are
     more than :data:`conditioning.stages.geometry.MAX_EDGES` (then the views
     draw the nodes only)."""
+    other_nodes: Optional[NDArray[np.int64]] = field(default=None, repr=False)
+    """(p,) ids of nodes the coordinates list but the DOF map does not (nodes
+    with every DOF restrained, or unused), sorted ascending; K holds nothing
+    about them, so no edge reaches them. None without a map or coordinates."""
+    other_xyz: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """(p, 3) positions of ``other_nodes``, in the model's length unit (z = 0
+    for a 2D model); None when ``other_nodes`` is."""
+    lacks_dofs: Optional[NDArray[np.bool_]] = field(default=None, repr=False)
+    """(m,) True for a node of ``nodes`` without some DOF that other nodes
+    carry (a restrained DOF removed from K, or an element type without it);
+    None without a map."""
 
     def node_index(self) -> NDArray[np.intp]:
         """(rows,) position in ``nodes`` of each row's node (requires a map)."""

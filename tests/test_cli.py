@@ -112,6 +112,13 @@ def test_help_exits_zero(capsys):
     assert "diagnose" in capsys.readouterr().out
 
 
+def test_version_exits_zero(capsys):
+    from conditioning import __version__
+
+    assert main(["--version"]) == 0
+    assert capsys.readouterr().out.strip() == f"conditioning {__version__}"
+
+
 def test_memory_error_and_interrupt(monkeypatch, capsys):
     def boom(*a, **k):
         raise MemoryError

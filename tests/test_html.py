@@ -114,6 +114,31 @@ def test_without_matplotlib_says_which_plots_need_it(monkeypatch):
         assert title in page
 
 
+@pytest.mark.parametrize("name", ["footbridge_spring_bearings", "mast_soft_spring",
+                                  "bracket_loose_pad"])
+def test_no_paragraph_said_twice(name):
+    """A sentence of prose (text from the standard library's html.parser)
+    appears no more often than the distinct findings that say it: a jump's
+    reasoning is not repeated in the jump table, the rule-of-thumb prediction
+    is stated once, and findings that share their advice (three modes of one
+    part) print it once."""
+    from collections import Counter
+
+    from conditioning import diagnose
+
+    demo = Path(__file__).resolve().parents[1] / "matrices"
+    report = diagnose(str(demo / f"{name}.mtx"), dofs=str(demo / f"{name}_dofs.csv"),
+                      coords=str(demo / f"{name}_coords.csv"), load=str(demo / f"{name}_load.mtx"))
+    text = " ".join(_parse(render_html(report)).text)
+    prose = Counter(s.strip() for s in re.split(r"(?<=[.;])\s+", text)
+                    if re.search(r"[a-z]{3,} [a-z]{3,} [a-z]{3,}", s))   # not lists of node ids
+    own = {f"{f.message} {f.advice or ''}" for f in report.findings}
+    for sentence, k in prose.items():
+        assert k <= max(1, sum(sentence in t for t in own)), sentence
+    assert text.count("Advice: Add supports") <= 1
+    assert text.count("16 - log10") <= 2          # the prediction once: raw and scaled
+
+
 def test_markup_is_escaped():
     import dataclasses
 

@@ -239,7 +239,7 @@ def test_crlf_case_and_upper_triangle_in_symmetric_file(tmp_path):
 BAD_MATRIX_TEXT = {
     "empty": ("", "file is empty"),
     "blank": ("\n  \n", "file is empty"),
-    "not_matrix_market": ("hello world\n1 2 3\n", "not a Matrix Market file"),
+    "not_matrix_market": ("hello world\n1 2 3\n", "not a Matrix Market, Harwell-Boeing or triplet"),
     "banner_words": ("%%MatrixMarket matrix coordinate real\n2 2 1\n1 1 1\n", "line 1: the Matrix Market banner needs 5 words"),
     "vector_object": ("%%MatrixMarket vector coordinate real general\n2\n1 1\n", "object 'vector'"),
     "bad_format": ("%%MatrixMarket matrix sparse real general\n2 2 1\n1 1 1\n", "format 'sparse'"),

@@ -133,5 +133,5 @@ def test_reference_matrix_every_output(tmp_path):
     assert write_modes_csv(report, tmp_path / "m.csv") == 0
     with (tmp_path / "m.csv").open(newline="") as fh:
         rows = list(csv.reader(fh))
-    assert rows[0] == ["node", "dof"] and len(rows) == 1 + int(row["n"])
+    assert rows == [["node", "dof"]]             # no mode: the header alone
     assert exit_status(report) in (0, 1)

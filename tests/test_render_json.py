@@ -170,3 +170,21 @@ def test_report_fields_are_all_written():
         assert renamed.get(f.name, f.name) in data, f.name
     left_out = DOCS.read_text().split("## Not in the JSON", 1)[1].split("\n## ", 1)[0]
     assert all(f"`Report.{name}`" in left_out for name in not_written)
+
+
+def test_timings_keys_and_symmetric_asymmetry_have_no_sentinels():
+    """Stage timings under snake_case keys; a symmetric K (the fixture truss,
+    symmetric by construction: numpy says K == K.T) writes null positions,
+    never -1."""
+    from conditioning import diagnose
+    from test_report_fixtures import truss_model
+
+    model = truss_model(supported=True)
+    K = model.K.toarray()
+    assert np.array_equal(K, K.T)
+    data = _strict_loads(dumps(report_to_dict(diagnose(model))))
+    assert data["timings"] and all(re.fullmatch(r"[a-z]+(_[a-z]+)*", k) for k in data["timings"])
+    assert "stiffness_jumps" in data["timings"]
+    a = data["structure"]["asymmetry"]
+    assert a["row"] is None and a["col"] is None and a["pair_values"] is None
+    assert a["relative"] == 0 and a["pairs"] == 0

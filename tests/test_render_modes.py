@@ -18,6 +18,7 @@ import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
+import scipy.sparse as sp
 
 from conditioning.model import Model
 from conditioning.stages.geometry import model_geometry
@@ -42,14 +43,21 @@ def test_vtu_structure_and_rigid_motion(tmp_path):
     assert root.tag == "VTKFile" and root.get("type") == "UnstructuredGrid"
     piece = root.find("UnstructuredGrid/Piece")
     m = int(piece.get("NumberOfPoints"))
-    assert m == int(piece.get("NumberOfCells")) == 10
+    assert m == 10
     points = _arrays(piece, "Points")["Points"]
     assert points.shape == (m, 3)
     np.testing.assert_allclose(points, model.coords.xyz)
+    # the 17 bars of the fixture, as line cells (type 3) between their end points
     cells = _arrays(piece, "Cells")
-    np.testing.assert_array_equal(cells["connectivity"], np.arange(m))
-    np.testing.assert_array_equal(cells["offsets"], np.arange(1, m + 1))
-    np.testing.assert_array_equal(cells["types"], np.ones(m))
+    assert int(piece.get("NumberOfCells")) == 17
+    np.testing.assert_array_equal(cells["types"], np.full(17, 3))
+    np.testing.assert_array_equal(cells["offsets"], 2 * np.arange(1, 18))
+    lines = {tuple(sorted(p)) for p in cells["connectivity"].astype(int).reshape(-1, 2)}
+    coupled = {(i, j) for i in range(m) for j in range(i + 1, m)
+               if np.any(model.K.toarray()[2 * i:2 * i + 2, 2 * j:2 * j + 2])}
+    assert lines == coupled
+    lengths = sorted({round(float(np.linalg.norm(points[a] - points[b])), 6) for a, b in lines})
+    assert lengths == [1.5, 2.0, 2.5]           # chords 2.0, posts 1.5, diagonals hypot(2, 1.5)
     data = _arrays(piece, "PointData")
     np.testing.assert_array_equal(data["node"], np.arange(1, 11))
     K = model.K.toarray()
@@ -134,4 +142,90 @@ def test_no_modes_writes_points_only(tmp_path):
     path = tmp_path / "none.vtu"
     assert write_modes_vtu(report, path) == 0
     piece = ET.parse(path).getroot().find("UnstructuredGrid/Piece")
-    assert set(_arrays(piece, "PointData")) == {"node"}
+    assert set(_arrays(piece, "PointData")) == {"node", "has_dofs"}
+
+
+def test_csv_without_modes_is_a_header(tmp_path):
+    """No near-singular mode: the header alone, not a line per row with no value."""
+    report, model = healthy_report()
+    path = tmp_path / "none.csv"
+    assert write_modes_csv(report, path) == 0
+    assert path.read_text().splitlines() == ["node,dof"]
+
+
+def test_vtu_keeps_a_node_without_rows(tmp_path):
+    """Node 1 of the free truss pinned by removing its rows (as an FE export
+    does): it stays a point, with zero displacement, has_dofs 0 and a vertex
+    cell (K couples nothing to it), and the bars between the other nodes
+    stay line cells."""
+    from conditioning.model import DofTable
+
+    report, model = singular_report()
+    keep = np.arange(2, model.n)
+    K = model.K.toarray()[np.ix_(keep, keep)]
+    pinned = Model(K=sp.csr_array(K), dofs=DofTable(model.dofs.node[keep], model.dofs.dof[keep]),
+                   coords=model.coords)
+    modes = [dataclasses.replace(md, vector=md.vector[keep]) for md in report.spectrum.modes]
+    report = dataclasses.replace(report, geometry=model_geometry(pinned),
+                                 spectrum=dataclasses.replace(report.spectrum, modes=modes))
+    path = tmp_path / "pinned.vtu"
+    write_modes_vtu(report, path)
+    piece = ET.parse(path).getroot().find("UnstructuredGrid/Piece")
+    assert int(piece.get("NumberOfPoints")) == 10
+    data = _arrays(piece, "PointData")
+    cells = _arrays(piece, "Cells")
+    points = _arrays(piece, "Points")["Points"]
+    where = int(np.flatnonzero(data["node"] == 1)[0])
+    np.testing.assert_allclose(points[where], model.coords.xyz[0])
+    assert data["has_dofs"][where] == 0 and data["has_dofs"].sum() == 9
+    assert np.all(data["mode_1"][where] == 0)
+    # 17 bars less the 3 at node 1 (to nodes 2, 6 and 7), and a vertex for node 1
+    types = cells["types"].astype(int)
+    assert sorted(types.tolist()) == [1] + [3] * 14
+    assert cells["connectivity"][-1] == where and types[-1] == 1
+
+
+@pytest.mark.parametrize("name", ["mast_missing_brace", "rack_no_sway_support",
+                                  "monorail_no_torsion_support"])
+def test_vtu_of_a_demo_export_counts(tmp_path, name):
+    """The bundled exports read back: a point per line of the coordinates
+    file (read with the csv module), a line cell per node pair with a stored
+    entry of the .mtx (read with scipy.io.mmread), a vertex for every point
+    no line reaches, and a 3-component array per mode."""
+    from pathlib import Path
+
+    import scipy.io
+
+    from conditioning import diagnose
+
+    demo = Path(__file__).resolve().parents[1] / "matrices"
+    files = {k: demo / f"{name}{s}" for k, s in (("K", ".mtx"), ("dofs", "_dofs.csv"),
+                                                  ("coords", "_coords.csv"))}
+    report = diagnose(str(files["K"]), dofs=str(files["dofs"]), coords=str(files["coords"]))
+    path = tmp_path / f"{name}.vtu"
+    written = write_modes_vtu(report, path)
+    with files["coords"].open(newline="") as fh:
+        coord_nodes = [int(r["node"]) for r in csv.DictReader(fh)]
+    with files["dofs"].open(newline="") as fh:
+        row_node = np.array([int(r["node"]) for r in csv.DictReader(fh)])
+    coo = scipy.io.mmread(str(files["K"])).tocoo()
+    pairs = {tuple(sorted((int(row_node[i]), int(row_node[j]))))
+             for i, j in zip(coo.row, coo.col) if row_node[i] != row_node[j]}
+    piece = ET.parse(path).getroot().find("UnstructuredGrid/Piece")
+    data = _arrays(piece, "PointData")
+    cells = _arrays(piece, "Cells")
+    m = int(piece.get("NumberOfPoints"))
+    assert m == len(coord_nodes) and sorted(data["node"].astype(int)) == sorted(coord_nodes)
+    types = cells["types"].astype(int)
+    ids = data["node"].astype(int)
+    conn = cells["connectivity"].astype(int)
+    lines = {tuple(sorted((int(ids[a]), int(ids[b])))) for a, b in conn[:2 * (types == 3).sum()]
+             .reshape(-1, 2)}
+    assert lines == pairs
+    reached = {n for p in pairs for n in p}
+    assert (types == 1).sum() == len(set(coord_nodes) - reached)
+    assert int(piece.get("NumberOfCells")) == types.size == len(pairs) + (types == 1).sum()
+    assert written == len(report.spectrum.modes) >= 1
+    for k in range(1, written + 1):
+        assert data[f"mode_{k}"].shape == (m, 3)
+        assert np.all(data[f"mode_{k}"][data["has_dofs"] == 0] == 0)

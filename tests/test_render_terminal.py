@@ -154,3 +154,16 @@ def test_scaling_sentence_depends_on_the_gain():
 
     assert "Scaling removes 11.9 digits" in scaling_sentence(11.9)
     assert "not an effect of units" in scaling_sentence(0.1)
+
+
+def test_model_line_without_coordinates_has_no_empty_dimension():
+    """A DOF map without coordinates: '(ux, uy, rz)', never '(; ux, uy, rz)'."""
+    import dataclasses
+
+    from conditioning.render.terminal import render_text
+    from test_report_fixtures import healthy_report
+
+    report, _ = healthy_report()
+    report = dataclasses.replace(report, summary=dataclasses.replace(report.summary, dim=None))
+    text = render_text(report, width=100)
+    assert "(; " not in text and "nodes (ux, uy)" in text

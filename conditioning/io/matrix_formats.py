@@ -7,6 +7,11 @@ read can be a stiffness matrix, turns every failure into an
 brings the matrix to the form every stage expects: ``float64``, full
 symmetric storage, no explicitly stored zeros.
 
+A plain triplet list (one ``i j value`` entry a line, separated by commas,
+semicolons or white space, an optional header line, ``#`` or ``%`` comments),
+as many programs export a stiffness matrix, is read too: 0-based when an
+index 0 occurs, else 1-based, and the notes say which.
+
 What the readers did to the data (mirroring a stored triangle, summing
 duplicate entries, dropping stored zeros, converting integers) is returned
 as plain-language notes for the report.
@@ -126,9 +131,11 @@ def read_matrix(path: PathLike) -> tuple[sp.csr_array, list[str]]:
         rows, cols, vals, n, stored, notes = _read_matrix_market(name, head)
     elif _looks_like_harwell_boeing(name, head):
         rows, cols, vals, n, stored, notes = _read_harwell_boeing(name)
+    elif _looks_like_triplets(head):
+        rows, cols, vals, n, stored, notes = _read_triplets(name)
     else:
-        raise InputError(name, "not a Matrix Market file (line 1 lacks the '%%MatrixMarket' banner) "
-                               "nor a Harwell-Boeing file (line 3 lacks a matrix type such as RSA)")
+        raise InputError(name, "not a Matrix Market, Harwell-Boeing or triplet (i j value) file; "
+                               + _what_it_looks_like(head))
     if n == 0:
         raise InputError(name, "matrix has no rows (order 0)")
     K = assemble_symmetric(rows, cols, vals, n, stored=stored, source=name, notes=notes)
@@ -617,6 +624,102 @@ _HB_TYPE = re.compile(r"^[RCPI][SUHZR][AE]$")
 
 def _hb_lines(head: bytes) -> list[str]:
     return head.decode("latin-1").splitlines()[:5]
+
+
+# --------------------------------------------------------------------------- #
+# Plain triplet lists
+# --------------------------------------------------------------------------- #
+
+_SEPARATORS = re.compile(r"[,;\s]+")
+_INTEGER = re.compile(r"[+-]?\d+$")
+_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eEdD][+-]?\d+)?$")
+
+
+def _data_lines(text: str) -> list[tuple[int, list[str]]]:
+    """``(line number, fields)`` of each line that is not blank or a comment."""
+    out = []
+    for k, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        if not stripped or stripped[0] in "#%" or stripped.startswith("//"):
+            continue
+        out.append((k, [f for f in _SEPARATORS.split(stripped) if f]))
+    return out
+
+
+def _is_entry(fields: list[str]) -> bool:
+    return (len(fields) == 3 and bool(_INTEGER.match(fields[0])) and bool(_INTEGER.match(fields[1]))
+            and bool(_NUMBER.match(fields[2])))
+
+
+def _is_header(fields: list[str]) -> bool:
+    """A header such as ``row,col,value``: three words, none a number."""
+    return len(fields) == 3 and not any(_NUMBER.match(f) for f in fields)
+
+
+def _looks_like_triplets(head: bytes) -> bool:
+    """True when the first data lines (a header aside) are ``i j value``."""
+    if b"\0" in head:
+        return False
+    lines = _data_lines(head.decode("utf-8", errors="replace"))[:21]
+    if lines and _is_header(lines[0][1]):
+        lines = lines[1:]
+    lines = lines[:-1] if len(lines) > 1 else lines   # the sniffed block may cut the last line
+    return bool(lines) and all(_is_entry(f) for _, f in lines)
+
+
+def _read_triplets(name: str):
+    """Triplets of a plain ``i j value`` list, 0-based, as the readers return them."""
+    try:
+        text = _read_all_bytes(name).decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(name, f"not UTF-8 text (undecodable byte at position {exc.start + 1})") from None
+    lines = _data_lines(text)
+    if lines and _is_header(lines[0][1]):
+        lines = lines[1:]
+    for k, fields in lines:
+        if not _is_entry(fields):
+            raise InputError(name, f"line {k}: {' '.join(fields)!r} is not 'row column value' "
+                                   "(two integer indices and a number), as the lines before it are")
+    if not lines:
+        raise InputError(name, "holds a header but no entries")
+    first = lines[0][1]
+    if first[2].lstrip("+").isdigit() and int(first[2]) == len(lines) - 1 and first[0] == first[1] \
+            and int(first[0]) > 0:     # an MM size line: n n entries
+        raise InputError(name, f"looks like a Matrix Market file without its banner line: line "
+                               f"{lines[0][0]} '{' '.join(first)}' reads as a size line (rows, columns, "
+                               "entries); add '%%MatrixMarket matrix coordinate real general' above it")
+    table = np.array([f for _, f in lines])
+    rows, cols = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
+    vals = np.char.replace(np.char.replace(table[:, 2], "D", "E"), "d", "e").astype(np.float64)
+    low = int(min(rows.min(), cols.min()))
+    if low < 0:
+        raise InputError(name, f"looks like a triplet list, but an index is negative ({low})")
+    base = 0 if low == 0 else 1
+    rows, cols = rows - base, cols - base
+    n = int(max(rows.max(), cols.max())) + 1
+    notes = [f"read as a triplet list (row column value), {n} x {n} from {len(lines)} entries; "
+             + ("0-based indices (an index 0 occurs)" if base == 0 else
+                "1-based indices (no index 0 occurs" + (")" if low == 1 else
+                                                        f"; the smallest is {low})"))]
+    return rows, cols, vals, n, "general", notes
+
+
+def _what_it_looks_like(head: bytes) -> str:
+    """One phrase on what an unrecognised file seems to be, for the error."""
+    if b"\0" in head:
+        return "it holds binary data"
+    lines = _data_lines(head.decode("utf-8", errors="replace"))[:20]
+    if not lines:
+        return "it holds no data lines"
+    widths = {len(f) for _, f in lines[1:] or lines}
+    numeric = all(_NUMBER.match(x) for _, f in lines[1:] or lines for x in f)
+    if numeric and widths == {3}:
+        return "it looks like a triplet list, but the indices are not all integers"
+    if numeric and len(widths) == 1:
+        w = widths.pop()
+        return (f"it looks like a table of {w} numbers a line; a triplet list has 3 "
+                "(row column value), a dense matrix needs a Matrix Market 'array' header")
+    return f"line {lines[0][0]} starts {' '.join(lines[0][1])[:40]!r}"
 
 
 def _looks_like_harwell_boeing(name: str, head: bytes) -> bool:

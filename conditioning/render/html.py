@@ -13,6 +13,7 @@ from __future__ import annotations
 import base64
 import html
 import logging
+import re
 from pathlib import Path
 from typing import Callable, Optional, Union
 
@@ -123,10 +124,19 @@ def _findings(r: results.Report) -> str:
         return "<h2>Findings</h2><p>No findings.</p>"
     items = []
     order = {"error": 0, "warning": 1, "note": 2}
+    previous_advice = None
     for f in sorted(r.findings, key=lambda f: order.get(f.severity, 3)):
         listed = summarise_ids(f.nodes, 12)
-        nodes = f" (nodes {_e(listed)})" if f.nodes and listed not in f.message else ""
-        advice = f"<br>Advice: {_e(f.advice)}" if f.advice else ""
+        # a message that names its nodes itself ("it moves nodes 201, ...") gets no second list
+        named = listed in f.message or re.search(r"\bnodes? \d", f.message)
+        nodes = f" (nodes {_e(listed)})" if f.nodes and not named else ""
+        if not f.advice:
+            advice = ""
+        elif f.advice == previous_advice:   # three modes of one part: one advice
+            advice = "<br>Advice: as above."
+        else:
+            advice = f"<br>Advice: {_e(f.advice)}"
+        previous_advice = f.advice
         items.append(f'<li><span class="sev-{_e(f.severity)}">{_e(f.severity)}</span> '
                      f'<code>{_e(f.code)}</code> {_e(f.message)}{nodes}{advice}</li>')
     return "<h2>Findings</h2><ul>" + "".join(items) + "</ul>"
@@ -146,7 +156,7 @@ def _summary(r: results.Report) -> str:
             ["DOFs without stiffness", str(len(st.empty_rows))],
             ["zero diagonal", zero_diagonal_text(st, 12)],
             ["negative diagonal", f"{len(st.negative_diagonal):,}" if len(st.negative_diagonal) else "none"],
-            ["asymmetry", "none" if st.asymmetry.row < 0 else fmt_number(st.asymmetry.relative)]]
+            ["asymmetry", "none" if st.asymmetry.row is None else fmt_number(st.asymmetry.relative)]]
     if s.restrained:
         rows.append(["restrained (removed)", f"{s.restrained:,}"])
     rows += [["note", n] for n in s.notes]
@@ -201,8 +211,11 @@ def _restraints(r: results.Report) -> str:
 def _jumps(r: results.Report) -> str:
     if not r.jumps:
         return ""
+    # a jump's reasoning is usually a finding's advice already: say it once, in the findings
+    advised = {f.advice for f in r.findings if f.advice}
     rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), "all" if j.swallowed else f"{j.digits_cost:.1f}",
-             fmt_number(j.advice_value), j.reasoning] for j in r.jumps]
+             fmt_number(j.advice_value), "see the findings" if j.reasoning in advised else j.reasoning]
+            for j in r.jumps]
     return "<h2>Stiffness jumps</h2>" + _table(
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
 
@@ -241,9 +254,10 @@ def _digits(r: results.Report) -> str:
                      s.method, "yes" if s.converged else f"no ({s.stop_reason})",
                      fmt_number(s.normwise_bound) if s.bound_trusted else "withdrawn",
                      worst or "-"])
-    pred = (f"<p>Rule-of-thumb prediction (16 - log10 kappa): raw "
-            f"{fmt_digits(dg.predicted_raw)}, scaled {fmt_digits(dg.predicted_scaled)} "
-            f"digits. {_e(dg.summary)}</p>")
+    rule = (f"Rule-of-thumb prediction (16 - log10 kappa): raw {fmt_digits(dg.predicted_raw)}, "
+            f"scaled {fmt_digits(dg.predicted_scaled)} digits. ")
+    # the summary usually states the prediction already: once is enough
+    pred = f"<p>{'' if '16 - log10' in dg.summary else rule}{_e(dg.summary)}</p>"
     return ("<h2>Digits of the displacements</h2>"
             + _table(["sample", "trustworthy digits", "digits lost", "method", "converged",
                       "reference error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
@@ -269,10 +283,15 @@ def _figures(r: results.Report) -> str:
                            lambda: plots.digits_png(geometry, sample)))
         if r.spectrum is not None and r.spectrum.modes:
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
+                # the key once, under the first mode plot
                 wanted.append((f"Mode {k}: {mode.kind}",
                                "Displaced shape (grey: undeformed, red: mode, scaled to 15% of "
                                "the model size); circled and numbered: the nodes that locate the "
-                               "mode; green triangles: the suggested supports.",
+                               "mode; grey triangles: supports (nodes without DOFs); squares: nodes "
+                               "missing a DOF the others have; green triangles: the suggested supports"
+                               + ("; a 3D model from four sides, far lines paler in the first view."
+                                  if geometry.dim == 3 else ".") if k == 1 else
+                               "Displaced shape, drawn as mode 1.",
                                lambda mode=mode, k=k: plots.mode_shape_png(geometry, mode, k, r.restraints)))
     if not wanted:
         return ""

@@ -83,7 +83,8 @@ def report_to_dict(report: results.Report) -> dict[str, Any]:
         "digits": _digits(report.digits),
         "digits_summary": _digits_summary(report.digits),
         "findings": [_plain(f) for f in report.findings],
-        "timings": _plain(report.timings),
+        # snake_case as every other key; the stage names keep their spaces for people
+        "timings": {name.replace(" ", "_"): _plain(t) for name, t in report.timings.items()},
         "caution": report.caution,
     }
     # Fields added to Report later are written under their own names, so a new

@@ -2,14 +2,21 @@
 
 * :func:`write_modes_vtu` writes a VTK XML UnstructuredGrid (``.vtu``, the
   open format of the VTK file-format specification, "VTK File Formats",
-  Kitware): one point per node, one VTK_VERTEX cell per point, and per mode
-  a 3-component point-data array ``mode_k`` with the translations (ux, uy,
+  Kitware): one point per node of the coordinates (the DOF map's nodes
+  first, then the nodes without rows, i.e. fully restrained supports), one
+  VTK_LINE cell per pair of nodes K couples (the members as K's graph shows
+  them) and one VTK_VERTEX cell per point no line reaches; per mode a
+  3-component point-data array ``mode_k`` with the translations (ux, uy,
   uz) and, when the model has rotational DOFs, ``mode_k_rotation`` with
-  (rx, ry, rz). A DOF the node does not carry is 0. Field data
+  (rx, ry, rz). A DOF the node does not carry (restrained) is 0, so a
+  viewer's warp-by-vector filter draws the deformed structure with its
+  supports in place. Point data ``node`` holds the node ids and
+  ``has_dofs`` is 1 for a node with rows, 0 for one without. Field data
   ``eigenvalue`` lists the scaled eigenvalue of each written mode.
 * :func:`write_modes_csv` writes ``node,dof,mode_1,mode_2,...``, one line per
   matrix row in row order; without a DOF map, ``node`` is the 1-based row
-  and ``dof`` is empty.
+  and ``dof`` is empty. Without near-singular modes it writes the header
+  ``node,dof`` and no rows.
 
 Mode ``k`` is the k-th near-singular mode of the report (1-based), in K's
 DOFs with unit max-norm (dimensionless shape). Modes without a stored
@@ -23,7 +30,7 @@ from __future__ import annotations
 import csv
 import xml.etree.ElementTree as ET
 from pathlib import Path
-from typing import Union
+from typing import Optional, Union
 
 import numpy as np
 from numpy.typing import NDArray
@@ -31,8 +38,9 @@ from numpy.typing import NDArray
 from conditioning import results
 from conditioning.errors import ConditioningError
 
-#: VTK cell type id of a single point ("VTK File Formats", cell type table).
+#: VTK cell type ids ("VTK File Formats", cell type table): a point, a 2-node line.
 VTK_VERTEX = 1
+VTK_LINE = 3
 
 
 class ExportError(ConditioningError):
@@ -95,9 +103,12 @@ def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
     if not have.all():
         raise ExportError(f"--modes-vtk: no coordinates for {int((~have).sum())} mapped nodes "
                           f"(first: node {int(nodes[~have][0])})")
-    xyz = g.xyz
-    m = nodes.size
+    other = g.other_nodes if g.other_nodes is not None else np.zeros(0, dtype=np.int64)
+    other_xyz = g.other_xyz if g.other_xyz is not None else np.zeros((0, 3))
+    xyz = np.vstack([g.xyz, other_xyz])
+    m = xyz.shape[0]
     has_rotations = bool(np.isin(g.row_dof, (3, 4, 5)).any())
+    connectivity, offsets, types = _cells(g.edges, m)
 
     root = ET.Element("VTKFile", type="UnstructuredGrid", version="1.0",
                       byte_order="LittleEndian", header_type="UInt64")
@@ -107,33 +118,53 @@ def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
         field_data = ET.SubElement(grid, "FieldData")
         _array(field_data, "eigenvalue", "Float64", 1, [m_.eigenvalue for _, m_ in modes])
         field_data[0].set("NumberOfTuples", str(len(modes)))
-    piece = ET.SubElement(grid, "Piece", NumberOfPoints=str(m), NumberOfCells=str(m))
+    piece = ET.SubElement(grid, "Piece", NumberOfPoints=str(m), NumberOfCells=str(types.size))
     point_data = ET.SubElement(piece, "PointData")
     if modes:
         point_data.set("Vectors", f"mode_{modes[0][0]}")
-    _array(point_data, "node", "Int64", 1, nodes)
+    _array(point_data, "node", "Int64", 1, np.concatenate([nodes, other]))
+    _array(point_data, "has_dofs", "UInt8", 1,
+           np.concatenate([np.ones(nodes.size), np.zeros(other.size)]))
+    restrained = np.zeros((other.size, 3))      # no rows: the node does not move
     for k, mode in modes:
         _, trans = nodal_field(g, mode.vector, (0, 1, 2))
-        _array(point_data, f"mode_{k}", "Float64", 3, trans.ravel())
+        _array(point_data, f"mode_{k}", "Float64", 3, np.vstack([trans, restrained]).ravel())
         if has_rotations:
             _, rot = nodal_field(g, mode.vector, (3, 4, 5))
-            _array(point_data, f"mode_{k}_rotation", "Float64", 3, rot.ravel())
+            _array(point_data, f"mode_{k}_rotation", "Float64", 3,
+                   np.vstack([rot, restrained]).ravel())
     points = ET.SubElement(piece, "Points")
     _array(points, "Points", "Float64", 3, xyz.ravel())
     cells = ET.SubElement(piece, "Cells")
-    _array(cells, "connectivity", "Int64", 1, np.arange(m))
-    _array(cells, "offsets", "Int64", 1, np.arange(1, m + 1))
-    _array(cells, "types", "UInt8", 1, np.full(m, VTK_VERTEX))
+    _array(cells, "connectivity", "Int64", 1, connectivity)
+    _array(cells, "offsets", "Int64", 1, offsets)
+    _array(cells, "types", "UInt8", 1, types)
     ET.indent(root)
     ET.ElementTree(root).write(str(path), encoding="utf-8", xml_declaration=True)
     return len(modes)
+
+
+def _cells(edges: Optional[NDArray[np.intp]], points: int
+           ) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.int64]]:
+    """VTK cell arrays ``(connectivity, offsets, types)``: a line per edge
+    (point indices), then a vertex per point no line reaches (all points when
+    ``edges`` is None), so that every node stays visible in a viewer."""
+    lines = np.zeros((0, 2), dtype=np.int64) if edges is None else np.asarray(edges, dtype=np.int64)
+    alone = np.setdiff1d(np.arange(points), lines.ravel())
+    connectivity = np.concatenate([lines.ravel(), alone])
+    offsets = np.concatenate([2 * np.arange(1, lines.shape[0] + 1),
+                              2 * lines.shape[0] + np.arange(1, alone.size + 1)])
+    types = np.concatenate([np.full(lines.shape[0], VTK_LINE), np.full(alone.size, VTK_VERTEX)])
+    return connectivity, offsets, types
 
 
 def write_modes_csv(report: results.Report, path: Union[str, Path]) -> int:
     """Write the near-singular modes as CSV ``node,dof,mode_1,...``.
 
     One line per matrix row; ``node`` and ``dof`` from ``report.geometry``,
-    or the 1-based row and an empty dof without a DOF map.
+    or the 1-based row and an empty dof without a DOF map. Without a mode
+    to write, the header ``node,dof`` alone (a row of node ids would carry
+    no information).
 
     Returns
     -------
@@ -147,7 +178,7 @@ def write_modes_csv(report: results.Report, path: Union[str, Path]) -> int:
         out = csv.writer(fh)
         out.writerow(["node", "dof"] + [f"mode_{k}" for k, _ in modes])
         columns = [np.asarray(m.vector, dtype=float) for _, m in modes]
-        for row in range(report.summary.rows):
+        for row in range(report.summary.rows if modes else 0):
             if mapped:
                 head = [int(g.row_node[row]), results.DOF_NAMES[int(g.row_dof[row])]]
             else:

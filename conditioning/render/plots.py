@@ -148,6 +148,11 @@ def digits_png(geometry: results.ModelGeometry, sample: results.DigitsSample) ->
     mapped = geometry.nodes is not None
     if mapped and geometry.xyz is not None and geometry.has_position().all():
         xy = _project(geometry.xyz, geometry.dim)
+        if geometry.edges is not None and geometry.edges.size:
+            from matplotlib.collections import LineCollection
+
+            # the members under the dots, so a digit can be found on the structure
+            ax.add_collection(LineCollection(xy[geometry.edges], colors="#cccccc", lw=0.6, zorder=0))
         # An absolute scale, 0 to 16 digits (float64 carries about 15.95), so a
         # healthy model is green everywhere rather than stretched to its own range.
         sc = ax.scatter(xy[:, 0], xy[:, 1], c=digits, cmap="RdYlGn", vmin=0.0, vmax=16.0,
@@ -176,10 +181,12 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
     is drawn undeformed in grey and displaced in colour; without edges (a
     large model) only the nodes. The nodes that locate the mode are numbered
     (at most :data:`MAX_NODE_LABELS`) and the suggested ``restraints`` are
-    marked with their node and DOF. 3D models are shown in an oblique
-    projection (:data:`VIEW_AZIMUTH`, :data:`VIEW_ELEVATION`). Returns None
-    when the model has no map, a node without a position, or the mode no
-    vector.
+    marked with their node and DOF. A 3D model gets four panels: an
+    axonometric view (:data:`VIEW_AZIMUTH`, :data:`VIEW_ELEVATION`) whose
+    lines fade and thin with distance from the viewer (the depth cue), and
+    the plan (x-y), front (x-z) and side (y-z) views, since one projection
+    can hide a motion along the line of sight. Returns None when the model
+    has no map, a node without a position, or the mode no vector.
     """
     Figure = require_matplotlib()
     if geometry.nodes is None or geometry.xyz is None or mode.vector is None:
@@ -191,22 +198,69 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
     extent = float(np.ptp(xyz, axis=0).max()) or 1.0
     amp = float(np.abs(trans).max())
     scale = 0.15 * extent / amp if amp > 0 else 0.0
-    dim = geometry.dim
-    base = _project(xyz, dim)
-    moved = _project(xyz + scale * trans, dim)
-    fig = Figure(figsize=(6.5, 4.2))
-    ax = fig.subplots()
+    how = f"{mode.kind}"
+    if mode.motion:
+        how += ": " + ", ".join(f"{n} {s:.0%}" for n, s in
+                                sorted(mode.motion.items(), key=lambda t: -t[1]) if s >= 0.01)
+    note = "" if amp > 0 else " (no translation: rotations only)"
+    title = f"mode {k}, {how}{note}"
+    if geometry.dim != 3:
+        fig = Figure(figsize=(6.5, 4.2))
+        ax = fig.subplots()
+        _mode_panel(ax, geometry, nodes, xyz[:, :2], (xyz + scale * trans)[:, :2], trans, amp, mode,
+                    restraints, legend=True, fixed=_fixed_xyz(geometry)[:, :2])
+        ax.set_title(title, fontsize=9)
+        return _png(fig)
+    fig = Figure(figsize=(8.0, 6.4))
+    axes = fig.subplots(2, 2)
+    moved_xyz = xyz + scale * trans
+    fixed = _fixed_xyz(geometry)
+    _mode_panel(axes[0, 0], geometry, nodes, _project(xyz, 3), _project(moved_xyz, 3), trans, amp,
+                mode, restraints, legend=True, depth=_depth(xyz), fixed=_project(fixed, 3))
+    axes[0, 0].set_title(f"view from azimuth {VIEW_AZIMUTH:g}, elevation {VIEW_ELEVATION:g} deg "
+                         "(far lines paler)", fontsize=8)
+    for ax, (a, b), name in ((axes[0, 1], (0, 1), "plan: x right, y up"),
+                             (axes[1, 0], (0, 2), "front: x right, z up"),
+                             (axes[1, 1], (1, 2), "side: y right, z up")):
+        _mode_panel(ax, geometry, nodes, xyz[:, [a, b]], moved_xyz[:, [a, b]], trans, amp, mode,
+                    restraints, legend=False, fixed=fixed[:, [a, b]])
+        ax.set_title(name, fontsize=8)
+    fig.suptitle(title, fontsize=9)
+    return _png(fig)
+
+
+def _mode_panel(ax, geometry: results.ModelGeometry, nodes: NDArray[np.int64],
+                base: NDArray[np.float64], moved: NDArray[np.float64], trans: NDArray[np.float64],
+                amp: float, mode: results.NearSingularMode,
+                restraints: Optional[list[results.Restraint]], *, legend: bool,
+                depth: Optional[NDArray[np.float64]] = None,
+                fixed: Optional[NDArray[np.float64]] = None) -> None:
+    """One projection of a mode plot: undeformed (grey) and displaced (red)
+    shape, located nodes numbered, the model's supports (``fixed``: projected
+    positions of the nodes without DOFs; nodes lacking a DOF) and the
+    suggested supports marked; ``depth`` (0 nearest to 1 farthest, per node)
+    fades and thins the far lines."""
     edges = geometry.edges
     # Only what moves is drawn in colour (more than 1% of the largest motion).
     moving = np.linalg.norm(trans, axis=1) > 0.01 * amp if amp > 0 else np.zeros(len(nodes), bool)
     if edges is not None and edges.size:
         from matplotlib.collections import LineCollection
 
-        ax.add_collection(LineCollection(base[edges], colors="#bbbbbb", lw=0.8))
         live = edges[moving[edges].any(axis=1)]
-        ax.add_collection(LineCollection(moved[live], colors="#c0392b", lw=1.0))
+        grey, red = np.array([0.55, 0.55, 0.55]), np.array([0.75, 0.22, 0.17])
+        ax.add_collection(LineCollection(base[edges], colors=_faded(grey, depth, edges),
+                                         linewidths=_thinned(0.8, depth, edges)))
+        ax.add_collection(LineCollection(moved[live], colors=_faded(red, depth, live),
+                                         linewidths=_thinned(1.1, depth, live)))
     ax.plot(base[:, 0], base[:, 1], ".", color="#999999", ms=3)
     ax.plot(moved[moving, 0], moved[moving, 1], ".", color="#c0392b", ms=4)
+    # the existing supports, so a missing one stands out beside them
+    if fixed is not None and len(fixed):
+        ax.plot(fixed[:, 0], fixed[:, 1], "^", color="#4d4d4d", ms=7, label="support (node without DOFs)")
+    if geometry.lacks_dofs is not None and geometry.lacks_dofs.any():
+        part = base[geometry.lacks_dofs]
+        ax.plot(part[:, 0], part[:, 1], "s", color="#4d4d4d", mfc="none", ms=6,
+                label="node without some DOFs (restrained?)")
     located = np.isin(nodes, np.asarray(mode.nodes, dtype=np.int64))
     if located.any() and located.sum() < nodes.size:
         ax.plot(base[located, 0], base[located, 1], "o", mfc="none", color="#1a5276", ms=8,
@@ -224,19 +278,32 @@ def mode_shape_png(geometry: results.ModelGeometry, mode: results.NearSingularMo
                         fontsize=7, color="#117a65")
     if restraints:
         ax.plot([], [], "^", color="#117a65", mfc="none", label="suggested support")
-    if located.any() and located.sum() < nodes.size or restraints:
-        ax.legend(fontsize=8, loc="best")
+    if legend and ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=7, loc="best")
     ax.set_aspect("equal", adjustable="datalim")
     ax.autoscale_view()
-    how = f"{mode.kind}"
-    if mode.motion:
-        how += ": " + ", ".join(f"{n} {s:.0%}" for n, s in
-                                sorted(mode.motion.items(), key=lambda t: -t[1]) if s >= 0.01)
-    note = "" if amp > 0 else " (no translation: rotations only)"
-    ax.set_title(f"mode {k}, {how}{note}", fontsize=9)
     ax.set_xticks([])
     ax.set_yticks([])
-    return _png(fig)
+
+
+def _fixed_xyz(geometry: results.ModelGeometry) -> NDArray[np.float64]:
+    """(p, 3) positions of the coordinates' nodes without DOFs (model length unit)."""
+    return geometry.other_xyz if geometry.other_xyz is not None else np.zeros((0, 3))
+
+
+def _faded(rgb: NDArray[np.float64], depth: Optional[NDArray[np.float64]],
+           edges: NDArray[np.intp]) -> NDArray[np.float64]:
+    """(e, 4) RGBA per edge: opaque nearest, down to alpha 0.25 farthest."""
+    alpha = np.ones(len(edges)) if depth is None else 1.0 - 0.75 * depth[edges].mean(axis=1)
+    return np.column_stack([np.tile(rgb, (len(edges), 1)), alpha])
+
+
+def _thinned(width: float, depth: Optional[NDArray[np.float64]],
+             edges: NDArray[np.intp]) -> NDArray[np.float64]:
+    """(e,) line widths in points: ``width`` nearest, half of it farthest."""
+    if depth is None:
+        return np.full(len(edges), width)
+    return width * (1.0 - 0.5 * depth[edges].mean(axis=1))
 
 
 # ------------------------------------------------------------------ helpers
@@ -257,6 +324,17 @@ def _project(xyz: NDArray[np.float64], dim: int) -> NDArray[np.float64]:
     horizontal = x * math.cos(az) - y * math.sin(az)
     depth = x * math.sin(az) + y * math.cos(az)
     return np.column_stack([horizontal, z * math.cos(el) + depth * math.sin(el)])
+
+
+def _depth(xyz: NDArray[np.float64]) -> NDArray[np.float64]:
+    """(m,) distance of each point from the viewer of :func:`_project`, scaled
+    to 0 (nearest) .. 1 (farthest); all 0 for a model without depth."""
+    az, el = math.radians(VIEW_AZIMUTH), math.radians(VIEW_ELEVATION)
+    x, y, z = xyz[:, 0], xyz[:, 1], xyz[:, 2]
+    # the viewer sits at -y (rotated by the azimuth), above by the elevation
+    along = (x * math.sin(az) + y * math.cos(az)) * math.cos(el) - z * math.sin(el)
+    span = float(np.ptp(along))
+    return (along - along.min()) / span if span > 0 else np.zeros(len(xyz))
 
 
 def _marker(m: int) -> float:

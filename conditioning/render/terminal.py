@@ -296,8 +296,9 @@ def _model(r: results.Report, max_ids: int, verbose: bool):
     if verbose:
         return Group(_model_grid(r), Rule("Structure", align="left", style="dim"), _structure_grid(r, max_ids))
     s, st = r.summary, r.structure
-    where = (f"{s.rows:,} rows on {s.nodes:,} nodes" + (f" ({s.dim}D" if s.dim else " (")
-             + (f"; {', '.join(s.dof_types)})" if s.dof_types else ")")
+    # "(2D; ux, uy, rz)", "(ux, uy, rz)" without coordinates, "(2D)" without DOF names
+    inside = "; ".join(x for x in ((f"{s.dim}D" if s.dim else ""), ", ".join(s.dof_types)) if x)
+    where = (f"{s.rows:,} rows on {s.nodes:,} nodes" + (f" ({inside})" if inside else "")
              if s.nodes is not None else f"{s.rows:,} rows, no DOF map (reported by row; --dofs or "
                                           "--dofs-per-node give node numbers)")
     given = [name for name, on in (("load", s.has_load), ("solution", s.has_solution)) if on]
@@ -347,7 +348,7 @@ def _structure_grid(r: results.Report, max_ids: int):
         if name.startswith("DOFs"):
             g.add_row("zero diagonal", zero_diagonal_text(st, max_ids))
     a = st.asymmetry
-    g.add_row("asymmetry", "none (symmetric)" if a.row < 0 else
+    g.add_row("asymmetry", "none (symmetric)" if a.row is None else
               f"largest relative {fmt_number(a.relative)} at row {a.row + 1}, "
               f"column {a.col + 1}")
     return g
@@ -369,7 +370,7 @@ def _structure_line(st: results.StructureResult, max_ids: int) -> str:
     if not bad:
         parts.append("no row without stiffness, no zero or negative diagonal")
     a = st.asymmetry
-    parts.append("symmetric" if a.row < 0 else
+    parts.append("symmetric" if a.row is None else
                  f"not symmetric: largest relative difference {fmt_number(a.relative)} at row "
                  f"{a.row + 1}, column {a.col + 1}")
     return "Structure: " + "; ".join(parts) + "."

@@ -38,7 +38,8 @@ def model_geometry(model: Model) -> ModelGeometry:
     -------
     ModelGeometry
         Node ids and the row -> (node, dof) map from ``model.dofs``,
-        positions from ``model.coords`` (model length unit), K's diagonal
+        positions from ``model.coords`` (model length unit), the nodes the
+        coordinates list without rows and their positions, K's diagonal
         (K's units) and the node pairs K couples; the fields that need a map
         or coordinates are None without them.
     """
@@ -46,16 +47,30 @@ def model_geometry(model: Model) -> ModelGeometry:
     if model.dofs is None:
         return ModelGeometry(rows=model.n, diagonal=diagonal)
     nodes = model.dofs.nodes
-    xyz, dim = None, None
+    xyz, dim, other_nodes, other_xyz = None, None, None, None
     if model.coords is not None:
         dim = int(model.coords.dim)
         xyz = np.full((nodes.size, 3), np.nan)
         have = model.coords.has(nodes)
         xyz[have] = model.coords.lookup(nodes[have])
+        # nodes without rows (fully restrained supports) still belong in the picture
+        other = ~np.isin(model.coords.node, nodes)
+        other_nodes = np.asarray(model.coords.node[other], dtype=np.int64)
+        other_xyz = np.asarray(model.coords.xyz[other], dtype=np.float64)
     return ModelGeometry(rows=model.n, diagonal=diagonal, nodes=nodes,
                          row_node=np.asarray(model.dofs.node, dtype=np.int64),
                          row_dof=np.asarray(model.dofs.dof, dtype=np.int8),
-                         xyz=xyz, dim=dim, edges=_node_edges(model, nodes))
+                         xyz=xyz, dim=dim, edges=_node_edges(model, nodes),
+                         other_nodes=other_nodes, other_xyz=other_xyz,
+                         lacks_dofs=_lacks_dofs(model, nodes))
+
+
+def _lacks_dofs(model: Model, nodes: NDArray[np.int64]) -> NDArray[np.bool_]:
+    """(m,) True where a node carries fewer of the model's DOF types than exist."""
+    types = np.unique(model.dofs.dof)
+    per_node = np.zeros((nodes.size, 6), dtype=bool)
+    per_node[np.searchsorted(nodes, model.dofs.node), model.dofs.dof] = True
+    return per_node[:, types].sum(axis=1) < types.size
 
 
 def _node_edges(model: Model, nodes: NDArray[np.int64]) -> Optional[NDArray[np.intp]]:

@@ -51,7 +51,7 @@ def _asymmetry(K: sp.csr_array) -> Asymmetry:
     A = sp.csr_array(K - K.T)
     A.eliminate_zeros()
     if A.nnz == 0:
-        return Asymmetry(relative=0.0, row=-1, col=-1)
+        return Asymmetry(relative=0.0, row=None, col=None)
     scale = float(np.max(np.abs(K.data))) if K.nnz else 1.0
     coo = A.tocoo()
     upper = coo.row < coo.col  # K - K^T is antisymmetric: each pair appears twice
