@@ -229,3 +229,29 @@ def test_vtu_of_a_demo_export_counts(tmp_path, name):
     for k in range(1, written + 1):
         assert data[f"mode_{k}"].shape == (m, 3)
         assert np.all(data[f"mode_{k}"][data["has_dofs"] == 0] == 0)
+
+
+@pytest.mark.parametrize("name", ["mast_missing_brace", "monorail_no_torsion_support"])
+def test_vtu_reads_back_with_meshio(tmp_path, name):
+    """meshio (a general-purpose mesh reader from the package index, test-only) reads the
+    file: as many points as the coordinates file has nodes, line cells for the members,
+    and one 3-component displacement array per mode whose restrained points are zero."""
+    meshio = pytest.importorskip("meshio", reason="meshio (test extra) is not installed")
+    from pathlib import Path
+
+    from conditioning import diagnose
+
+    demo = Path(__file__).resolve().parents[1] / "matrices"
+    report = diagnose(str(demo / f"{name}.mtx"), dofs=str(demo / f"{name}_dofs.csv"),
+                      coords=str(demo / f"{name}_coords.csv"), measure=False)
+    path = tmp_path / "modes.vtu"
+    written = write_modes_vtu(report, path)
+    mesh = meshio.read(str(path))
+    with (demo / f"{name}_coords.csv").open(newline="") as fh:
+        nodes = sum(1 for _ in csv.DictReader(fh))
+    assert mesh.points.shape == (nodes, 3)
+    assert "line" in mesh.cells_dict and mesh.cells_dict["line"].shape[1] == 2
+    for k in range(1, written + 1):
+        u = mesh.point_data[f"mode_{k}"]
+        assert u.shape == (nodes, 3) and np.abs(u).max() > 0
+        assert np.all(u[mesh.point_data["has_dofs"] == 0] == 0)
