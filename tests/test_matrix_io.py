@@ -408,3 +408,16 @@ def test_read_vector_bad(tmp_path, text, expected):
         read_vector(p, 3, "solution")
     assert info.value.path == str(p)
     assert expected in str(info.value)
+
+
+def test_size_line_claiming_more_entries_than_the_file_holds(tmp_path):
+    """A size line claiming 10^12 entries in a file of a few lines: one line saying so,
+    not a failed allocation (a Matrix Market entry line takes at least 6 bytes)."""
+    from conditioning.errors import InputError
+    from conditioning.io.matrix_formats import read_matrix
+
+    path = tmp_path / "claims.mtx"
+    path.write_text("%%MatrixMarket matrix coordinate real general\n1000000 1000000 1000000000000\n"
+                    "1 1 1.0\n2 2 1.0\n3 3 1.0\n")
+    with pytest.raises(InputError, match="claims 1,000,000,000,000 entries"):
+        read_matrix(str(path))

@@ -39,6 +39,8 @@ import warnings
 import zlib
 from typing import Literal, Optional, Union
 
+from pathlib import Path
+
 import numpy as np
 import scipy.io
 import scipy.sparse as sp
@@ -566,6 +568,10 @@ def _mm_size(name: str, canonical: bytes) -> tuple[int, int, int]:
     return int(info[0]), int(info[1]), int(info[2])
 
 
+#: Fewest bytes one coordinate entry line can take ("1 1 1" and a newline).
+MIN_ENTRY_BYTES = 6
+
+
 def _require_plausible_size(name: str, fmt: str, n: int, entries: int) -> None:
     if fmt == "array" and n > _MAX_DENSE_ORDER:
         raise InputError(name, f"dense (array) format of order {n} is too large to read "
@@ -573,6 +579,15 @@ def _require_plausible_size(name: str, fmt: str, n: int, entries: int) -> None:
     if fmt == "coordinate" and n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * max(entries, 1):
         raise InputError(name, f"size line announces order {n} but only {entries} entries; "
                                "check the size line (rows columns entries)")
+    if fmt == "coordinate" and not _compression(name):
+        # Every entry line holds at least "i j v" and a newline: 6 bytes. A size
+        # line claiming more entries than the file can hold is a broken header,
+        # said as such rather than as a failed allocation.
+        size = Path(name).stat().st_size
+        if entries > size // MIN_ENTRY_BYTES:
+            raise InputError(name, f"the size line claims {entries:,} entries, but the file ({size:,} bytes) "
+                                   f"can hold at most {size // MIN_ENTRY_BYTES:,}: check the size line "
+                                   "(rows columns entries)")
 
 
 def _read_matrix_market(name: str, head: bytes):
