@@ -32,7 +32,8 @@ from conditioning.io.load import load_model  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 SHARED = Path(os.environ.get("CONDITIONING_SHARED", REPO.parent / "shared")) / "reference-matrices"
-DEMO = sorted(p.name for p in (REPO / "matrices").glob("*.mtx") if not p.stem.endswith("_load"))
+# Stiffness matrices only: the load vectors and the shipped supplied solution are n x 1.
+DEMO = sorted(p.name for p in (REPO / "matrices").glob("*.mtx") if not p.stem.endswith(("_load", "_solution")))
 #: Public matrices (SuiteSparse Harwell-Boeing BCSSTK set, ../shared/reference-matrices/PROVENANCE.md):
 #: small ones take the dense spectrum path of the pipeline, bcsstk13 (n = 2003) the sparse one,
 #: where SLEPc's shift-and-invert and lambda_max are used.
