@@ -442,7 +442,8 @@ def _digits_findings(digits: Optional[DigitsResult], min_digits: float) -> list[
     if worst.trustworthy_digits < min_digits:
         out.append(Finding("error", "digits.below-minimum",
                            f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for sample "
-                           f"'{worst.sample}' (required: {min_digits:g}; measured, {worst.method}).",
+                           f"'{worst.sample}' (required: {min_digits:g}; "
+                           f"{worst.method if worst.method.startswith('certified') else 'measured, ' + worst.method}).",
                            [w.node for w in worst.worst_nodes],
                            "Remove the cause of the ill-conditioning (modes, stiffness jumps) rather "
                            "than trusting more digits than were measured."))
