@@ -34,6 +34,7 @@ from numpy.typing import ArrayLike, NDArray
 from conditioning.errors import InputError
 from conditioning.io.matrix_formats import (
     assemble_symmetric,
+    is_number,
     mirror_one_triangle_export,
     parse_float,
     read_csv_rows,
@@ -591,7 +592,7 @@ def _read_columns(name: str, n: int, what: str) -> tuple[NDArray[np.float64], tu
     else:
         rows = read_csv_rows(name)
         m = len(rows[0][1])
-        if not all(_is_float(c) for c in rows[0][1]):
+        if not all(is_number(c) for c in rows[0][1]):
             names = tuple(c or f"load-{k + 1}" for k, c in enumerate(rows[0][1]))
             if len(set(names)) != m:
                 raise InputError(name, f"line {rows[0][0]}: the {what} case names repeat: {', '.join(names)}")
@@ -610,14 +611,6 @@ def _read_columns(name: str, n: int, what: str) -> tuple[NDArray[np.float64], tu
         first = ", ".join(str(int(k) + 1) for k in bad[:_FIRST_SHOWN])
         raise InputError(name, f"the {what} file has NaN or Inf values in {bad.size} rows (first at rows {first})")
     return block, names or _default_case_names(block.shape[1])
-
-
-def _is_float(cell: str) -> bool:
-    try:
-        float(cell)
-    except ValueError:
-        return False
-    return True
 
 
 def _require_matching_columns(solution, u, load, f) -> None:

@@ -880,7 +880,7 @@ def parse_float(name: str, cell: str, line_no: int, what: str) -> float:
 
 def _read_csv_vector(name: str, n: int, what: str) -> NDArray[np.float64]:
     rows = read_csv_rows(name)
-    if rows and not _is_number(rows[0][1][0]):
+    if rows and not is_number(rows[0][1][0]):
         rows = rows[1:]  # header line
     values = []
     for line_no, cells in rows:
@@ -892,7 +892,8 @@ def _read_csv_vector(name: str, n: int, what: str) -> NDArray[np.float64]:
     return np.asarray(values, dtype=np.float64)
 
 
-def _is_number(cell: str) -> bool:
+def is_number(cell: str) -> bool:
+    """True when the text cell reads as a float (a data line, not a header)."""
     try:
         float(cell)
     except ValueError:

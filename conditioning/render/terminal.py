@@ -305,7 +305,7 @@ def _model(r: results.Report, max_ids: int, verbose: bool):
     lines = [Text(f"{s.source}: {where}; {s.stored_entries:,} nonzeros; "
                   + (f"{' and '.join(given)} given" if given else "no load given")
                   + (f"; {s.restrained:,} restrained rows removed" if s.restrained else "") + ".")]
-    lines.append(Text(_structure_line(st, max_ids)))
+    lines.append(Text(_structure_line(st, max_ids, r.geometry)))
     return Group(*lines)
 
 
@@ -354,7 +354,18 @@ def _structure_grid(r: results.Report, max_ids: int):
     return g
 
 
-def _structure_line(st: results.StructureResult, max_ids: int) -> str:
+def _dof_phrase(rows, max_ids: int, geometry: Optional[results.ModelGeometry]) -> str:
+    """Rows by node and DOF when the report has a DOF map (``"node 4 ux, ..."``), else by row."""
+    if geometry is None or geometry.row_node is None or geometry.row_dof is None:
+        return rows_phrase(rows, max_ids)
+    labels = [f"node {int(geometry.row_node[r])} {results.DOF_NAMES[int(geometry.row_dof[r])]}"
+              for r in list(rows)[:max_ids]]
+    more = len(rows) - len(labels)
+    return ", ".join(labels) + (f" and {more:,} more" if more > 0 else "")
+
+
+def _structure_line(st: results.StructureResult, max_ids: int,
+                    geometry: Optional[results.ModelGeometry] = None) -> str:
     sizes = sorted((int(x) for x in st.part_sizes[: st.parts]), reverse=True)  # counted parts come first
     parts = [f"{st.parts} connected part{'s' if st.parts != 1 else ''}"
              + (f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else "")]
@@ -366,7 +377,7 @@ def _structure_line(st: results.StructureResult, max_ids: int) -> str:
                                            ("with a zero diagonal and coupling", st.zero_diagonal))
            if len(rows)]
     for name, rows in bad:
-        parts.append(f"{_count(len(rows), 'row')} {name} ({rows_phrase(rows, max_ids)})")
+        parts.append(f"{_count(len(rows), 'row')} {name} ({_dof_phrase(rows, max_ids, geometry)})")
     if not bad:
         parts.append("no row without stiffness, no zero or negative diagonal")
     a = st.asymmetry
