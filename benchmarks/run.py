@@ -194,7 +194,8 @@ def job_predict(args, paths):
     return m.result(ordering=getattr(plan.ordering, "ordering_name", str(plan.ordering)),
                     predicted_bytes=pred.bytes, predicted_fill=pred.factor_entries,
                     predicted_flops=pred.flops, proxy_fill=proxy.factor_entries,
-                    limit_bytes=plan.limit_bytes, fits=plan.fits, method=pred.method)
+                    limit_bytes=plan.limit_bytes, fits=plan.fits, reads_pivots=plan.reads_pivots,
+                    method=pred.method)
 
 
 def job_diagnose(args, paths):

@@ -277,7 +277,11 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         else:
             skipped["digits"] = "not requested (measure=False)"
         perm = fac.ordering_permutation()
-        if eig.split_point is not None:
+        if fac.info.pivots_note:
+            skipped["inertia check"] = (
+                f"the factorization's pivots were {fac.info.pivots_note}: negative eigenvalues are those "
+                "the eigensolver found near zero, not counted by Sylvester's law of inertia")
+        elif eig.split_point is not None:
             with stage("inertia check"):
                 spectrum = with_inertia(spectrum, inertia_check(fac, eig))
         # The proof factors the shifted S once more: after the shared factor is
@@ -285,7 +289,8 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         fac.release()
         if digits is not None and digits.samples:
             with stage("certification"):
-                digits = certify_digits(model, digits, condition, perm, structure)
+                digits = certify_digits(model, digits, condition, perm, structure,
+                                        factor_entries=fac.info.fill, memory_limit=run.memory_limit)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:

@@ -113,9 +113,10 @@ class FactorizationInfo:
     """Fill-reducing ordering used (e.g. ``"nested-dissection"``, ``"MMD_AT_PLUS_A"``)."""
     shift: float
     """sigma in S - sigma*I that was factored (S the scaled matrix); 0 when unshifted."""
-    negative_pivots: int
+    negative_pivots: Optional[int]
     """Negative pivots of the factorization = eigenvalues of S below ``shift``
-    (Sylvester's law of inertia)."""
+    (Sylvester's law of inertia); None when the pivots were not read (see
+    ``pivots_note``)."""
     fill: int
     """Stored entries of L + U."""
     flops: float
@@ -126,6 +127,8 @@ class FactorizationInfo:
     symmetric_pivoting: bool
     """True when the row permutation equals the column permutation, so the
     pivots are those of an LDL^T and the inertia count is valid."""
+    pivots_note: str = ""
+    """Why the pivots were not read, in words; empty when they were."""
 
 
 # ------------------------------------------------------------- condition

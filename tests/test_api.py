@@ -89,3 +89,67 @@ def test_memory_limit_from_the_environment(monkeypatch):
     monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "4G")
     report = conditioning.diagnose(model, measure=False)
     assert report.factorization is not None and report.spectrum.count == 3
+
+
+def _between_factor_and_pivot_read(model):
+    """A memory limit the shared factor fits under but not the copy of it that reading its pivots makes."""
+    from conditioning.engine.memory import predict_factor_memory
+    from conditioning.engine.scaling import scale_stiffness
+
+    eng = factorization.ScipyEngine()
+    scaled = scale_stiffness(model.K)
+    coords = model.coords.lookup(model.dofs.node)
+    pred = eng.predict_memory(scaled, coords)
+    assert pred.pivot_read_bytes > 0
+    assert predict_factor_memory(scaled.S, None).pivot_read_bytes > 0
+    return pred.bytes - pred.pivot_read_bytes // 2
+
+
+def test_factor_that_fits_without_its_pivot_read(monkeypatch):
+    """When the factor fits the memory limit but the copy that reading its pivots makes
+    does not, the model is still factored and diagnosed: the solves, condition and
+    measured digits equal the full run's; what needs the pivots (digits lost at pivots,
+    inertia count) and the proof (which reads its factors) are skipped with why.
+    Reference: LAPACK (numpy eigvalsh of S = D^-1/2 K D^-1/2) for the condition number,
+    scikit-fem for the model (a clamped solid block)."""
+    fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")
+    ref = fe.solid_block(nx=6, ny=3, nz=3)
+    clamped = [(int(node), name) for node, x in zip(ref.coords.node, ref.coords.xyz[:, 0])
+               if x == ref.coords.xyz[:, 0].min() for name in ("ux", "uy", "uz")]
+    ref = fe.restrained(ref, clamped)
+    rng = np.random.default_rng(3)
+    model = Model(ref.K, dofs=ref.dofs, coords=ref.coords, load=rng.standard_normal(ref.K.shape[0]))
+    full = conditioning.diagnose(model)
+    monkeypatch.setattr(factorization, "PREDICT_ABOVE", 100)
+    limit = _between_factor_and_pivot_read(model)
+    tight = conditioning.diagnose(model, memory_limit=limit)
+    assert tight.factorization is not None and tight.factorization.negative_pivots is None
+    assert "copy" in tight.factorization.pivots_note
+    assert tight.pivots is None and "copy" in tight.skipped["pivots"]
+    assert "Sylvester" in tight.skipped["inertia check"]
+    assert tight.digits.certification.startswith("not attempted") and "GiB" in tight.digits.certification
+    assert full.digits.certification.startswith("proved")
+    d = 1 / np.sqrt(ref.K.diagonal())
+    w = np.linalg.eigvalsh(ref.K.toarray() * d[:, None] * d[None, :])  # LAPACK syevd
+    assert tight.condition.scaled_estimate == pytest.approx(w[-1] / w[0], rel=1e-3)
+    assert not tight.condition.singular and tight.spectrum.count == 0
+    # The same factor, the same solves: the measured figures of the load case agree.
+    load_full = next(s for s in full.digits.samples if s.sample == "load")
+    load_tight = next(s for s in tight.digits.samples if s.sample == "load")
+    assert load_tight.method != "certified (verified eigenvalue bound)"  # small: ball arithmetic may certify
+    assert load_tight.trustworthy_digits <= load_full.trustworthy_digits + 0.05
+    assert load_tight.trustworthy_digits == pytest.approx(load_full.trustworthy_digits, abs=0.3)
+
+
+def test_singular_model_found_without_reading_pivots(monkeypatch):
+    """Without the pivots, the shift policy's test (one solve) still finds a free
+    scikit-fem block singular: S - sigma*I is factored and the six rigid-body modes
+    are found (common practice: a free solid has six)."""
+    fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")
+    ref = fe.solid_block(nx=6, ny=3, nz=3)
+    model = Model(ref.K, dofs=ref.dofs, coords=ref.coords)
+    monkeypatch.setattr(factorization, "PREDICT_ABOVE", 100)
+    report = conditioning.diagnose(model, memory_limit=_between_factor_and_pivot_read(model))
+    assert report.factorization.negative_pivots is None and report.factorization.shift < 0
+    assert report.condition.singular and report.spectrum.count == 6
+    assert "inertia check" in report.skipped

@@ -47,6 +47,10 @@ class FactorMemoryPrediction:
     confidence: float
     """Relative accuracy of ``bytes`` measured on the benchmark models
     (0.25: within 25%)."""
+    pivot_read_bytes: int = 0
+    """The part of ``bytes`` spent reading the pivots out of the factor (a
+    copy of it); the factorization can run without that read when
+    ``bytes - pivot_read_bytes`` fits and ``bytes`` does not."""
 
 
 class FactorizationTooLarge(MemoryError):
@@ -85,7 +89,8 @@ class Factorization(Protocol):
         Pivot of each row of S - sigma*I in the original row order
         (dimensionless); 0 for inactive rows. Kept after :meth:`release`.
         None when the engine does not expose the pivots of its factor
-        (MUMPS through PETSc): the pivot stage then does not run and
+        (MUMPS through PETSc), or when reading them would not have fitted
+        in memory beside the factor: the pivot stage then does not run and
         the report says why (:func:`conditioning.stages.pivots.pivots_unavailable`).
     singular : bool
         True when S had no usable unshifted factorization or K has rows

@@ -125,14 +125,22 @@ def predict_factor_memory(
     fill = 2 * nnz_l - n
     # Flops: sum over the DOF columns of (column count)^2.
     flops = float(np.sum(_dof_column_square_sums(counts, weights)))
-    nbytes = int((SUPERLU_BYTES_PER_ENTRY + PIVOT_READ_BYTES_PER_ENTRY) * fill
-                 + MATRIX_COPY_BYTES_PER_NNZ * K.nnz)
+    pivot_read = int(PIVOT_READ_BYTES_PER_ENTRY * fill)
+    nbytes = int(SUPERLU_BYTES_PER_ENTRY * fill + MATRIX_COPY_BYTES_PER_NNZ * K.nnz) + pivot_read
     method = ("symbolic Cholesky column counts (elimination tree, Gilbert-Ng-Peyton) "
               + ("of a nested-dissection proxy ordering" if proxy else "of the given ordering"))
     return FactorMemoryPrediction(
         bytes=nbytes, factor_entries=fill, flops=flops, method=method,
-        confidence=BYTES_ACCURACY if not proxy else 2 * BYTES_ACCURACY,
+        confidence=BYTES_ACCURACY if not proxy else 2 * BYTES_ACCURACY, pivot_read_bytes=pivot_read,
     )
+
+
+def refactorization_bytes(factor_entries: int, matrix_entries: int) -> int:
+    """Predicted peak bytes of one more factorization with a known fill that
+    reads its factors back (the inertia check, the verified eigenvalue bound):
+    SuperLU's storage, the copies of L and U, the matrix copies."""
+    return int((SUPERLU_BYTES_PER_ENTRY + PIVOT_READ_BYTES_PER_ENTRY) * factor_entries
+               + MATRIX_COPY_BYTES_PER_NNZ * matrix_entries)
 
 
 @dataclass(frozen=True)
@@ -147,14 +155,22 @@ class FactorizationPlan:
         recomputes it only if called on a matrix of another size).
     prediction : FactorMemoryPrediction
     fits : bool
-        ``prediction.bytes`` within :func:`memory_limit` (or the given limit).
+        The factorization runs: the factor itself (``prediction.bytes -
+        prediction.pivot_read_bytes``) is within :func:`memory_limit` (or the
+        given limit).
     limit_bytes : int
+    reads_pivots : bool
+        The copy of the factor that reading its pivots makes fits too
+        (``prediction.bytes`` within the limit); when False the shared
+        factorization runs without its pivots (no inertia count, no digits
+        lost at pivots, no verified eigenvalue bound).
     """
 
     ordering: object
     prediction: FactorMemoryPrediction
     fits: bool
     limit_bytes: int
+    reads_pivots: bool = True
 
 
 def plan_factorization(
@@ -195,7 +211,8 @@ def plan_factorization(
         ordering = _precomputed(perm, choice)
     prediction = predict_factor_memory(K, perm, coords=coords)
     limit = memory_limit() if limit_bytes is None else int(limit_bytes)
-    return FactorizationPlan(ordering, prediction, prediction.bytes <= limit, limit)
+    alone = prediction.bytes - prediction.pivot_read_bytes
+    return FactorizationPlan(ordering, prediction, alone <= limit, limit, prediction.bytes <= limit)
 
 
 def _precomputed(perm, fallback):
@@ -209,7 +226,7 @@ def _precomputed(perm, fallback):
 
 
 def fits(prediction: FactorMemoryPrediction, limit_bytes: Optional[int] = None) -> bool:
-    """True when the predicted factorization fits in the memory limit.
+    """True when the predicted factorization, pivot read included, fits in the memory limit.
 
     Parameters
     ----------

@@ -63,9 +63,10 @@ class SharedFactorization:
         sigma; 0.0 when S itself was factored.
     active : (n,) bool
         Rows included in the factorization (rows with any stiffness).
-    pivots : (n,) float64
+    pivots : (n,) float64 or None
         Pivot of each row in the factorization of S - sigma*I, original row
-        order; 0 for inactive rows.
+        order; 0 for inactive rows. None when reading them would not have
+        fitted in memory (``info.pivots_note`` says so).
     singular : bool
         True when S (restricted to active rows) had no usable unshifted
         factorization, or K has rows without stiffness.
@@ -76,7 +77,7 @@ class SharedFactorization:
     scale: NDArray[np.float64]
     shift: float
     active: NDArray[np.bool_]
-    pivots: NDArray[np.float64]
+    pivots: Optional[NDArray[np.float64]]
     singular: bool
     info: FactorizationInfo
     _lu: object
@@ -139,9 +140,12 @@ class SharedFactorization:
         """
         if self._S is None:
             raise RuntimeError("this factorization keeps no copy of S to shift")
+        if self.pivots is None:  # they did not fit in memory beside the factor: nor will these
+            logger.info("inertia check not run: the pivots %s", self.info.pivots_note)
+            return None
         A = sp.csr_array(self._S - c * sp.eye_array(self._S.shape[0], format="csr"))
         try:
-            _, _, d, _, _, _, symmetric = _factor_once(A, self._ordering, None)
+            _, _, d, _, _, _, symmetric, _ = _factor_once(A, self._ordering, None)
         except RuntimeError as exc:  # c hit an eigenvalue exactly
             logger.warning("inertia check failed: %s", exc)
             return None
@@ -163,15 +167,29 @@ def _superlu(A: sp.csc_array, permc_spec: str):
 
 
 def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None):
-    """splu of S with the ordering; returns (lu, perm or None, pivots in S's order, name, fill, flops, symmetric)."""
+    """splu of S with the ordering.
+
+    Returns (lu, perm or None, pivots in S's order or None, name, fill,
+    flops, symmetric, note). The pivots are None, and ``note`` says why, when
+    the prediction puts the factor within ``memory_limit`` but not the copy
+    of it that reading them makes (scipy's ``SuperLU.U`` builds and keeps
+    CSC copies of L and U).
+    """
     perm = None
     if callable(ordering):
         perm = np.asarray(ordering(S, coords), dtype=np.intp)
+    read_pivots, note, prediction = True, "", None
     if memory_limit is not None and S.shape[0] > PREDICT_ABOVE:
         prediction = predict_factor_memory(S, perm, coords=coords)
         logger.info("predicted factor memory %.2f GiB (%s)", prediction.bytes / 2**30, prediction.method)
         if prediction.bytes > memory_limit:
-            raise FactorizationTooLarge(prediction, memory_limit)
+            alone = prediction.bytes - prediction.pivot_read_bytes
+            if alone > memory_limit:
+                raise FactorizationTooLarge(prediction, memory_limit)
+            read_pivots = False
+            note = (f"not read: the factor fits ({alone / 2**30:.1f} GiB predicted) but not the copy of it "
+                    f"that reading the pivots makes ({prediction.bytes / 2**30:.1f} GiB together, "
+                    f"{memory_limit / 2**30:.1f} GiB allowed)")
     if callable(ordering):
         A = sp.csc_array(S[perm][:, perm])
         name = getattr(ordering, "ordering_name", getattr(ordering, "__name__", "custom"))
@@ -182,6 +200,11 @@ def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None)
         A = sp.csc_array(S)
         name = spec = ordering
     lu = _superlu(A, spec)
+    del A
+    fill = int(lu.nnz)
+    symmetric = bool(np.array_equal(lu.perm_r, lu.perm_c))
+    if not read_pivots:
+        return lu, perm, None, name, fill, prediction.flops, symmetric, note
     U = lu.U
     d_perm = U.diagonal()
     # Pr A Pc = L U: column j of A is column perm_c[j] of the factored matrix.
@@ -189,14 +212,31 @@ def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None)
     # U = D L^T in symmetric mode: row counts of U are the column counts of L.
     counts = np.bincount(U.indices, minlength=U.shape[0]).astype(np.float64)
     flops = float(np.sum(counts**2))
-    fill = int(lu.nnz)
-    symmetric = bool(np.array_equal(lu.perm_r, lu.perm_c))
     del U
     if perm is not None:  # back to S's order
         dd = np.empty_like(d)
         dd[perm] = d
         d = dd
-    return lu, perm, d, name, fill, flops, symmetric
+    return lu, perm, d, name, fill, flops, symmetric, note
+
+
+def _near_singular_without_pivots(lu, perm, n: int, norm_inf: float) -> bool:
+    """The shift policy's test when the pivots were not read: one solve.
+
+    A pivot below n*eps*||S||_inf makes S^-1 b grow by about its inverse in
+    the direction of that pivot's row; a seeded random b (fixed, so the
+    verdict repeats) has a component there. True when
+    ||S^-1 b||_inf > ||b||_inf / (n eps ||S||_inf), the same threshold as the
+    pivot test (the project's substitute for it, not a proof either way).
+    """
+    b = np.random.default_rng(20261203).standard_normal(n)
+    if perm is None:
+        x = lu.solve(b)
+    else:
+        x = np.empty_like(b)
+        x[perm] = lu.solve(b[perm])
+    growth = float(np.max(np.abs(x))) if np.all(np.isfinite(x)) else np.inf
+    return growth * n * EPS * norm_inf > float(np.max(np.abs(b)))
 
 
 class _FixedPermutation:
@@ -318,7 +358,10 @@ def _factorize_scaled(scaled: ScaledStiffness, *, shift, ordering, coords, memor
     try:
         A = Sa if sigma == 0.0 else sp.csr_array(Sa - sigma * sp.eye_array(idx.size, format="csr"))
         result = _factor_once(A, ordering, ca, memory_limit)
-        tiny = np.min(np.abs(result[2])) <= idx.size * EPS * norm_inf
+        if result[2] is None:
+            tiny = _near_singular_without_pivots(result[0], result[1], idx.size, norm_inf)
+        else:
+            tiny = np.min(np.abs(result[2])) <= idx.size * EPS * norm_inf
         if shift is None and tiny:
             logger.info("smallest pivot below n*eps*||S||: refactoring with a small negative shift")
             result = None
@@ -332,19 +375,22 @@ def _factorize_scaled(scaled: ScaledStiffness, *, shift, ordering, coords, memor
         singular = True
         sigma = -np.sqrt(EPS) * norm_inf
         A = sp.csr_array(Sa - sigma * sp.eye_array(idx.size, format="csr"))
-        result = _factor_once(A, ordering, ca)
-    lu, perm, d, name, fill, flops, symmetric = result
+        result = _factor_once(A, ordering, ca, memory_limit)
+    lu, perm, d, name, fill, flops, symmetric, note = result
     seconds = time.perf_counter() - t0
-    pivots = np.zeros(n)
-    pivots[idx] = d
+    pivots = None
+    if d is not None:
+        pivots = np.zeros(n)
+        pivots[idx] = d
     info = FactorizationInfo(
         ordering=name,
         shift=sigma,
-        negative_pivots=int(np.count_nonzero(d < 0)),
+        negative_pivots=None if d is None else int(np.count_nonzero(d < 0)),
         fill=fill,
         flops=flops,
         seconds=seconds,
         symmetric_pivoting=symmetric,
+        pivots_note=note,
     )
     logger.info("factorized %d rows, ordering %s, fill %d, %.2f s", idx.size, name, fill, seconds)
     # Refactorizations (the inertia check) reuse this ordering, never a fresh choice without coordinates.

@@ -45,6 +45,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from numpy.typing import NDArray
 
+from conditioning.engine.memory import refactorization_bytes
 from conditioning.linalg.doubledouble import U, dd_operator, dd_residual
 from conditioning.model import Model
 from conditioning.linalg.verified_eigenvalue import (
@@ -492,12 +493,16 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
 
 
 def certify_digits(model: Model, digits: DigitsResult, condition: Optional[ConditionResult],
-                   perm: Optional[NDArray[np.intp]], structure=None) -> DigitsResult:
+                   perm: Optional[NDArray[np.intp]], structure=None, *, factor_entries: Optional[int] = None,
+                   memory_limit: Optional[int] = None) -> DigitsResult:
     """Prove the measured figures with the verified eigenvalue bound.
 
     Run after the shared factorization is released: the proof's own
     factorization of the shifted scaled K (reusing the shared ordering
-    ``perm``) is then the only factor in memory. Every sample not already
+    ``perm``) is then the only factor in memory; it is not attempted when
+    that factor (``factor_entries`` entries, the shared one's fill) and the
+    copies of it the proof reads would exceed ``memory_limit`` bytes
+    (:func:`conditioning.engine.memory.refactorization_bytes`). Every sample not already
     certified by the ball-arithmetic re-solve is re-derived from the proved
     error bound of its refined solution (:func:`certified_errors`).
 
@@ -511,6 +516,12 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
     if not digits.samples:
         return digits
     K = sp.csr_array(model.K)
+    if factor_entries is not None and memory_limit is not None:
+        need = refactorization_bytes(factor_entries, K.nnz)
+        if need > memory_limit:
+            return replace(digits, certification=(
+                f"not attempted: the proof's factorization and the copy of its factors it reads would need "
+                f"about {need / 2**30:.1f} GiB, more than the {memory_limit / 2**30:.1f} GiB allowed"))
     verified, reason = _verify(K, perm, condition)
     if verified is None or not verified.verified:
         return replace(digits, certification=reason)

@@ -39,6 +39,8 @@ def pivots_unavailable(fac: Factorization) -> Optional[str]:
     for the report (``Report.skipped["pivots"]``); None when its pivots are there."""
     if fac.pivots is not None:
         return None
+    if getattr(fac.info, "pivots_note", ""):
+        return f"the pivots were {fac.info.pivots_note}"
     return (f"not available on this engine: its factorization ({fac.info.ordering}) does not hand back "
             f"its pivots, which the share of stiffness kept at each pivot is read from")
 

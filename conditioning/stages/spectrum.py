@@ -286,12 +286,14 @@ def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, 
         lo = max(values[first + count - 1], zero)
         hi = values[first + count]
         split_point = float(np.sqrt(lo * hi))
-        if fac is not None:
+        if fac is not None and fac.info.negative_pivots is not None:
             expected = int(fac.info.negative_pivots
                            + np.count_nonzero((values >= fac.shift) & (values < split_point)))
     # Shift-and-invert finds eigenvalues near the shift only: true negative
-    # ones far below are counted by the factorization's inertia.
-    negative = first if dense or fac is None else int(fac.info.negative_pivots)
+    # ones far below are counted by the factorization's inertia (when its
+    # pivots were read; otherwise only those found are counted).
+    known = dense or fac is None or fac.info.negative_pivots is None
+    negative = first if known else int(fac.info.negative_pivots)
     return Eigenpairs(values, vectors, lam_max, count, first, gap, zero, split_point, expected, negative,
                       method, converged)
 
