@@ -15,9 +15,20 @@ def test_dof_map_fast_path_equals_line_by_line(tmp_path):
     p = tmp_path / "map.csv"
     p.write_text("node,dof\n" + "".join(f"{i // 3 + 1},{['ux', 'UY', ' rz'][i % 3]}\n" for i in range(300)))
     assert _fast_table(str(p), ("node", "dof")) is not None
-    node, dof, lines = _dof_pairs_from_csv(str(p))
+    node, dof, lines, codes = _dof_pairs_from_csv(str(p))
     ref_node, ref_dof, ref_lines = _csv_pairs(str(p))
     assert np.array_equal(node, ref_node) and np.array_equal(dof, ref_dof) and list(lines) == ref_lines
+    assert not codes
+
+
+def test_dof_codes_seen_by_both_readers(tmp_path):
+    """DOF codes 1-6 are noticed (and said in the notes) by the fast and the line-by-line reader alike."""
+    fast, slow = tmp_path / "fast.csv", tmp_path / "slow.csv"
+    fast.write_text("node,dof\n1,1\n1,2\n2,6\n")
+    slow.write_text("node,dof\n# codes\n1,1\n1,2\n2,6\n")
+    for p in (fast, slow):
+        node, dof, _, codes = _dof_pairs_from_csv(str(p))
+        assert codes and list(dof) == [0, 1, 5]
 
 
 def test_coordinates_fast_path_equals_line_by_line(tmp_path):
@@ -38,8 +49,8 @@ def test_irregular_files_take_the_line_by_line_reader(tmp_path, text):
     p = tmp_path / "map.csv"
     p.write_text(text)
     assert _fast_table(str(p), ("node", "dof")) is None
-    node, dof, _ = _dof_pairs_from_csv(str(p))
-    assert list(node) == [1, 2] and list(dof) == [0, 1]
+    node, dof, _, codes = _dof_pairs_from_csv(str(p))
+    assert list(node) == [1, 2] and list(dof) == [0, 1] and not codes
 
 
 def test_bad_cell_still_named_by_line(tmp_path):
@@ -53,5 +64,5 @@ def test_extra_columns_and_any_order(tmp_path):
     """A map written as row,dof,node (columns found by name) reads the same."""
     p = tmp_path / "map.csv"
     p.write_text("row,dof,node\n1,ux,4\n2,uy,4\n3,rz,9\n")
-    node, dof, lines = _dof_pairs_from_csv(str(p))
+    node, dof, lines, _ = _dof_pairs_from_csv(str(p))
     assert list(node) == [4, 4, 9] and list(dof) == [0, 1, 5] and lines == [2, 3, 4]

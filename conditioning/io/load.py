@@ -217,8 +217,8 @@ def _dof_map(dofs, dofs_per_node, n: int, matrix_source: str, notes: list[str]) 
         return None
     if _is_path(dofs):
         source = str(dofs)
-        node, dof, lines = _dof_pairs_from_csv(source)
-        if _uses_dof_codes(source):
+        node, dof, lines, codes = _dof_pairs_from_csv(source)
+        if codes:
             notes.append(f"DOF codes 1-6 in {source} read as {', '.join(DOF_NAMES)}")
     elif isinstance(dofs, DofTable):
         source, lines = ARRAY_SOURCE, None
@@ -365,6 +365,7 @@ def _uses_dof_codes(source: str) -> bool:
 
 
 def _dof_pairs_from_csv(source: str):
+    """(node, dof, line numbers, True when the DOFs are named by the codes 1-6)."""
     table = _fast_table(source, ("node", "dof"))
     if table is not None:
         try:
@@ -373,11 +374,12 @@ def _dof_pairs_from_csv(source: str):
             index = {**_DOF_INDEX, **DOF_CODES}
             if all(str(v) in index for v in names):
                 dof = np.array([index[str(v)] for v in names], dtype=np.int8)[inverse.ravel()]
-                return node, dof, list(range(2, node.size + 2))
+                codes = any(str(v) in DOF_CODES for v in names)
+                return node, dof, list(range(2, node.size + 2)), codes
         except (ValueError, OverflowError):
             pass  # a bad cell: the line-by-line reader says which
     nodes, dofs, lines = _csv_pairs(source)
-    return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8), lines
+    return np.asarray(nodes, dtype=np.int64), np.asarray(dofs, dtype=np.int8), lines, _uses_dof_codes(source)
 
 
 def _dof_pairs_from_sequence(pairs, source: str):
