@@ -295,6 +295,8 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:
         findings.append(_factorization_free_finding(too_large, eig.method))
+    if fac is not None and fac.info.pivots_note:
+        findings.append(_pivots_not_read_finding(fac.info.pivots_note))
     line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=run.min_digits)
     return Report(
         summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
@@ -312,6 +314,16 @@ def _factorization_free_finding(too_large: FactorizationTooLarge, method: str) -
         f"{too_large.limit / 2**30:.1f} GiB allowed, so the spectrum was computed without one "
         f"({method}). Not available on this path: {'; '.join(WITHOUT_FACTORIZATION.values())}.",
         [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis.")
+
+
+def _pivots_not_read_finding(note: str) -> Finding:
+    return Finding(
+        "note", "analysis.pivots-not-read",
+        f"The factorization ran, but its pivots were {note}. Not available therefore: the digits lost at "
+        "pivots; the inertia count, so that positive definiteness rests on the eigenvalues found nearest "
+        "zero rather than on Sylvester's law; and the verified eigenvalue bound, so the digits are measured, "
+        "not certified.",
+        [], "Raise CONDITIONING_MEMORY_LIMIT or run on a machine with more memory for these figures.")
 
 
 def _restraints(model: Model, structure, located) -> list[Restraint]:

@@ -5,6 +5,7 @@ details, how each figure was obtained (methods with verbose), caution last. Figu
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from conditioning.render._format import fmt_number, how_obtained, summarise_ids
 from conditioning.render.terminal import TerminalReport, render_text
@@ -167,3 +168,21 @@ def test_model_line_without_coordinates_has_no_empty_dimension():
     report = dataclasses.replace(report, summary=dataclasses.replace(report.summary, dim=None))
     text = render_text(report, width=100)
     assert "(; " not in text and "nodes (ux, uy)" in text
+
+
+@pytest.mark.parametrize("width", [60, 80, 100])
+def test_a_long_last_cell_never_drops_an_earlier_column(width):
+    """A long 'how obtained' is cut with an ellipsis; the value column stays
+    (rich would otherwise drop a whole column to fit the long cell)."""
+    from rich.console import Console
+
+    from conditioning.render.terminal import _table
+
+    t = _table("figure", "value", "how obtained", right=(1,))
+    t.add_row("condition number, raw K", "5.69e+03", "bound")
+    t.add_row("digits lost at a pivot", "-", "not measured: " + "reason " * 30)
+    console = Console(width=width, record=True)
+    console.print(t)
+    lines = console.export_text().splitlines()
+    assert "value" in lines[0] and "5.69e+03" in lines[1]
+    assert all(len(line) <= width for line in lines) and lines[2].endswith("…")

@@ -148,8 +148,12 @@ class _FittedTable(Table):
     with an ellipsis: a row never wraps onto a second line, even at 80 columns."""
 
     def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        used = 0
         for column in self.columns[:-1]:
             column.min_width = max([len(str(c)) for c in column._cells] + [len(str(column.header))])
+            used += column.min_width + self.padding[1] + self.padding[3]
+        # Cap the last column, or rich may drop a whole earlier column to fit a long cell.
+        self.columns[-1].max_width = max(options.max_width - used, 8)
         yield from super().__rich_console__(console, options)
 
 
@@ -241,13 +245,14 @@ def _key_figures(r: results.Report):
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
     if sp is not None:
-        t.add_row("near-singular modes", _mode_count(sp), _mode_how(sp))
+        t.add_row("near-singular modes", _mode_count(sp),
+                  _mode_how(sp) + ("; inertia not counted" if "inertia check" in r.skipped else ""))
     if r.jumps:
         worst = max(r.jumps, key=lambda j: j.digits_cost)
         t.add_row("stiffness jumps", str(len(r.jumps)), f"estimated; worst {_jump_cost(worst)} digits")
     p = r.pivots
     if p is None and "pivots" in r.skipped:
-        t.add_row("digits lost at a pivot", "-", f"not measured: {r.skipped['pivots']}")
+        t.add_row("digits lost at a pivot", "-", "not measured (see below)")
     if p is not None and p.worst:
         if p.negative_pivots:
             t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")

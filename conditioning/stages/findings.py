@@ -48,6 +48,7 @@ CODES = {
     "digits.below-minimum": "fewer trustworthy digits than required",
     "digits.refinement-not-converged": "the extended-precision reference did not converge",
     "analysis.factorization-free": "the factor would not fit in memory; a reduced diagnosis ran",
+    "analysis.pivots-not-read": "the factor fitted in memory but reading its pivots would not; figures that need them were skipped",
     "solution.does-not-fit": "the supplied solution does not solve this K and f to working precision",
     "solution.free-mode-component": "K is singular: the supplied solution's component along the free modes is arbitrary",
 }
