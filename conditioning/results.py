@@ -833,20 +833,22 @@ class RowExplanation:
     jumps: list[StiffnessJump]
     """The stiffness jumps the row belongs to."""
     pivot_kept: Optional[float]
-    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``);
-    None when K is singular (no unshifted factorization)."""
+    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``;
+    from a saved report, the earlier run's, to 4 significant figures); None
+    when K is singular (no unshifted factorization)."""
     pivot_digits: Optional[float]
     """-log10(pivot_kept): digits of K_ii lost at the pivot in that order (inf
     for a zero or negative pivot); None with ``pivot_kept``."""
     least_kept: Optional[float]
     """1 / (K_ii (K^-1)_ii): the smallest share any elimination order can
     leave (the pivot when the row is eliminated last); None when K is
-    singular. The pivot of a positive definite K lies between 1/(K^-1)_ii
+    singular, and from a saved report. The pivot of a positive definite K lies between 1/(K^-1)_ii
     and K_ii whatever the order."""
     most_digits: Optional[float]
     """log10(K_ii (K^-1)_ii): the most digits any elimination order can lose
     at this pivot (0 is the least: the row eliminated first); None with
-    ``least_kept``."""
+    ``least_kept``, and when explained from a saved report (it needs
+    (K^-1)_ii, one solve with a factorization)."""
     pivot_method: str
     """How the pivot was obtained (factorization and ordering), or why not."""
     mode_shares: list[ModeShare]

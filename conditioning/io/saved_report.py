@@ -98,12 +98,16 @@ def read_saved_report(path: Union[str, Path], model: Model) -> SavedReport:
     """
     where = str(path)
     data = _json(where)
-    _check_schema(where, data)
     try:
+        _check_schema(where, data)
         _check_model(where, data, model)
         return _saved(where, data, model.n)
-    except (KeyError, TypeError, ValueError, IndexError) as exc:
-        raise InputError(where, f"not a complete conditioning report ({type(exc).__name__}: {exc})") from None
+    except InputError:
+        raise
+    except KeyError as exc:
+        raise InputError(where, f"not a complete conditioning report (no key {exc})") from None
+    except (AttributeError, TypeError, ValueError, IndexError) as exc:
+        raise InputError(where, f"not a complete conditioning report ({exc})") from None
 
 
 def _json(where: str) -> Any:
