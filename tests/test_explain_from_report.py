@@ -40,7 +40,7 @@ from conditioning.model import matrix_fingerprint
 from conditioning.pipeline import explain, explain_from_report
 from conditioning.render.json_report import write_json
 from conditioning.stages.explain import SHARE_STORED
-from test_explain import SPRINGS, chain
+from test_explain import chain
 from test_penalty import TIED, rows_of, tied_portal
 
 MATRICES = Path(__file__).resolve().parents[1] / "matrices"
