@@ -25,8 +25,7 @@ from conditioning.errors import ConditioningError
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
     from conditioning.pipeline import ProgressCallback
 
-EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = (
-    0, 1, 2, 3, 4, 130, 141)
+EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = 0, 1, 2, 3, 4, 130, 141
 
 
 def exit_status(report: results.Report) -> int:
@@ -146,10 +145,11 @@ def _run_compare(args) -> int:
 
 def _run_explain(args) -> int:  # what is at one row, in the numbering it was asked in
     from rich.console import Console
-    from conditioning.pipeline import explain
+    from conditioning.pipeline import explain, explain_from_report
     from conditioning.render.terminal import explanation_view
-    Console().print(explanation_view(explain(_load(args.matrix, args, None), args.row - args.row_base,
-                                             row_base=args.row_base, seed=args.seed, engine=args.engine)[1]))
+    model, row, base = _load(args.matrix, args, None), args.row - args.row_base, args.row_base
+    Console().print(explanation_view(explain_from_report(model, row, args.from_report, row_base=base) if args.from_report
+                                     else explain(model, row, row_base=base, seed=args.seed, engine=args.engine)[1]))
     return EXIT_HEALTHY
 
 

@@ -110,6 +110,9 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--row", metavar="N", type=int, required=True, help="the row (equation) number")
     e.add_argument("--row-base", metavar="B", type=int, choices=(0, 1), default=1,
                    help="1 (default): the first row is 1; 0: the first row is 0")
+    e.add_argument("--from-report", metavar="FILE",
+                   help="take the pivot, modes, jumps and supports from the JSON report of an earlier "
+                        "'diagnose --json' run of this matrix: no factorization")
     _add_input_options(e)
     return parser
 

@@ -169,3 +169,35 @@ class Model:
         if not np.all(self.coords.has(nodes)):
             return None
         return self.coords.lookup(nodes)
+
+
+#: Entries hashed per update (bounds the temporary copies to a few tens of MB).
+_FINGERPRINT_CHUNK = 1 << 22
+
+
+def matrix_fingerprint(K) -> str:
+    """SHA-256 of K's sparsity and values, ``"sha256:<64 hex digits>"``.
+
+    Hashed in a form that does not depend on how K was stored: CSR with
+    sorted column indices and duplicates summed, explicit zeros dropped,
+    shape, row pointers and column indices as little-endian int64 and the
+    values as little-endian float64. Two matrices with the same fingerprint
+    are the same matrix bit for bit (SHA-256 collisions aside); one pass over
+    the entries, no arithmetic on them. Used to tell whether a saved report
+    belongs to a matrix read later (``conditioning explain --from-report``).
+    """
+    import hashlib
+
+    A = sp.csr_array(K)
+    if A.dtype != np.float64 or not A.has_canonical_format or not np.all(A.data):
+        A = A.astype(np.float64)  # a copy: the caller's K is left as it was
+        A.sum_duplicates()
+        A.eliminate_zeros()
+    h = hashlib.sha256()
+    h.update(np.asarray(A.shape, dtype="<i8").tobytes())
+    h.update(np.asarray(A.indptr, dtype="<i8").tobytes())
+    for start in range(0, A.nnz, _FINGERPRINT_CHUNK):
+        part = slice(start, start + _FINGERPRINT_CHUNK)
+        h.update(np.asarray(A.indices[part], dtype="<i8").tobytes())
+        h.update(np.asarray(A.data[part], dtype="<f8").tobytes())
+    return "sha256:" + h.hexdigest()

@@ -22,7 +22,7 @@ from __future__ import annotations
 import logging
 import time
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Callable, Optional, Union
 
 import numpy as np
@@ -33,12 +33,13 @@ from conditioning.engine.memory import memory_limit as default_memory_limit
 from conditioning.engine.scaling import scale_stiffness
 from conditioning.errors import InputError
 from conditioning.io.load import load_model
+from conditioning.io.saved_report import read_saved_report
 from conditioning.stages.geometry import model_geometry
-from conditioning.model import DOF_NAMES, Model
+from conditioning.model import DOF_NAMES, Model, matrix_fingerprint
 from conditioning.results import Finding, ModelSummary, Report, Restraint, RowExplanation
 from conditioning.stages.condition import condition_numbers
 from conditioning.stages.digits import certify_digits, measure_digits
-from conditioning.stages.explain import explain_row
+from conditioning.stages.explain import explain_row, explain_saved_row, with_row_shares
 from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import locate_modes
@@ -94,6 +95,7 @@ def summarize(model: Model) -> ModelSummary:
         has_solution=model.solution is not None,
         restrained=model.restrained,
         notes=list(model.notes),
+        fingerprint=matrix_fingerprint(model.K),
     )
 
 
@@ -185,14 +187,18 @@ def diagnose(
         jumps = find_stiffness_jumps(model, structure)
     held = swallowed_rows(jumps)
     if held.size == 0:
-        return _analyse(model, structure, jumps, run)
-    # A penalty has swallowed the structure: diagnose the rest with the linked
-    # rows held (conditioning.stages.penalty says why that is the honest choice).
-    rest, keep = hold_swallowed(model, held)
-    with stage("structure"):
-        rest_structure = check_structure(rest)
-    inner = _analyse(rest, rest_structure, find_stiffness_jumps(rest, rest_structure), run)
-    return restore_report(model, structure, summarize(model), jumps, inner, keep, min_digits=min_digits)
+        report = _analyse(model, structure, jumps, run)
+    else:
+        # A penalty has swallowed the structure: diagnose the rest with the linked
+        # rows held (conditioning.stages.penalty says why that is the honest choice).
+        rest, keep = hold_swallowed(model, held)
+        with stage("structure"):
+            rest_structure = check_structure(rest)
+        inner = _analyse(rest, rest_structure, find_stiffness_jumps(rest, rest_structure), run)
+        report = restore_report(model, structure, summarize(model), jumps, inner, keep, min_digits=min_digits)
+    # The rows that carry each mode, in the whole model's numbering, so that a
+    # row can be explained later from the saved report (explain_from_report).
+    return replace(report, spectrum=with_row_shares(report.spectrum, model.K.diagonal()))
 
 
 def _engine(engine: Union[Engine, str, None], ordering) -> Engine:
@@ -347,9 +353,7 @@ def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,
     the :class:`RowExplanation` (units per field). Raises InputError for a
     row outside the matrix.
     """
-    if not 0 <= row < model.n:
-        raise InputError(model.source, f"row {row + row_base} is outside {row_base}..{model.n - 1 + row_base} "
-                                       f"(rows numbered from {row_base})")
+    _check_row(model, row, row_base)
     report = diagnose(model, seed=seed, measure=False, engine=engine)
     scaled = scale_stiffness(model.K, report.structure.empty_rows)
     fac = _engine(engine, "auto").factorize(scaled, coords=_row_coordinates(model))
@@ -359,3 +363,26 @@ def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,
     finally:
         fac.release()
     return report, explanation
+
+
+def explain_from_report(model: Model, row: int, report_path, *, row_base: int = 1) -> RowExplanation:
+    """Explain 0-based ``row`` with the figures of an earlier run's JSON report: no factorization.
+
+    ``report_path`` is a file written by ``diagnose --json`` (or
+    :func:`conditioning.render.json_report.write_json`) for this very K and
+    DOF map; the row's diagonal and couplings are read from ``model``, its
+    pivot (in the earlier run's order), mode shares, stiffness jumps and the
+    suggested supports from the report. Returns the :class:`RowExplanation`
+    (``from_report`` set; no range over elimination orders, which needs a
+    factorization). Raises InputError for a row outside the matrix, or a
+    report that is not one, is older than the per-row figures, or belongs to
+    another matrix or DOF map.
+    """
+    _check_row(model, row, row_base)
+    return explain_saved_row(model, row, read_saved_report(report_path, model), row_base=row_base)
+
+
+def _check_row(model: Model, row: int, row_base: int) -> None:
+    if not 0 <= row < model.n:
+        raise InputError(model.source, f"row {row + row_base} is outside {row_base}..{model.n - 1 + row_base} "
+                                       f"(rows numbered from {row_base})")

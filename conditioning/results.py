@@ -177,6 +177,22 @@ class ConditionResult:
 
 # ------------------------------------------------------------------ modes
 @dataclass(frozen=True)
+class RowShares:
+    """Where one near-singular mode lives, row by row, kept so that a row can be
+    explained later from the saved report (:func:`conditioning.stages.explain.row_shares`)."""
+
+    rows: NDArray[np.intp] = field(repr=False)
+    """0-based rows whose share is at least ``smallest``, ascending."""
+    shares: NDArray[np.float64] = field(repr=False)
+    """v_i^2 / ||v||_2^2 at those rows for the scaled mode v = D^1/2 u
+    (dimensionless, 0..1; as :attr:`ModeShare.share`)."""
+    smallest: float
+    """The smallest share kept (dimensionless): a row not in ``rows`` has
+    less. The shares sum to 1, so at most 1 / ``smallest`` rows are kept,
+    whatever the size of the model."""
+
+
+@dataclass(frozen=True)
 class NearSingularMode:
     """One zero-energy (or nearly zero-energy) motion of K, classified and located."""
 
@@ -231,6 +247,10 @@ class NearSingularMode:
     """The motion in words, e.g. ``"rotation about the axis (0.00, -0.89,
     0.45)"`` or ``"spin of a member about its own axis"``; empty when
     ``kind`` and ``motion`` say it all."""
+    row_shares: Optional[RowShares] = None
+    """The rows that carry the mode and their shares of it, for ``conditioning
+    explain`` from a saved report; None when the mode has no ``vector`` (or
+    for a report built without them)."""
 
 
 @dataclass(frozen=True)
@@ -404,6 +424,12 @@ class PivotLoss:
     indefinite and the DOF pushes back negatively once the DOFs
     eliminated before it are condensed out. ``kept`` = D_ii / K_ii < 0 for a
     positive diagonal; ``digits`` is inf."""
+    kept_by_row: Optional[NDArray[np.float64]] = field(default=None, repr=False)
+    """(n,) D_ii / K_ii of every row in row order, as ``kept`` of
+    :class:`PivotEntry` (dimensionless; NaN for a row that was not factored:
+    a row without stiffness, or one held because a penalty swallowed it).
+    The same elimination order as ``method`` names; the JSON keeps 4
+    significant figures, which fix the digits lost to 0.0002."""
 
 
 # ----------------------------------------------------------------- digits
@@ -629,6 +655,10 @@ class ModelSummary:
     notes: list[str]
     """How the input was read (mirroring, zeros dropped, restraints
     applied), in words."""
+    fingerprint: str = ""
+    """``"sha256:<hex>"`` of K as diagnosed (:func:`conditioning.model.matrix_fingerprint`):
+    tells whether a saved report belongs to a matrix read later; empty when
+    not computed."""
 
 
 CAUTION = (
@@ -806,20 +836,22 @@ class RowExplanation:
     jumps: list[StiffnessJump]
     """The stiffness jumps the row belongs to."""
     pivot_kept: Optional[float]
-    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``);
-    None when K is singular (no unshifted factorization)."""
+    """D_ii / K_ii at its pivot in this tool's elimination order (``pivot_method``;
+    from a saved report, the earlier run's, to 4 significant figures); None
+    when K is singular (no unshifted factorization)."""
     pivot_digits: Optional[float]
     """-log10(pivot_kept): digits of K_ii lost at the pivot in that order (inf
     for a zero or negative pivot); None with ``pivot_kept``."""
     least_kept: Optional[float]
     """1 / (K_ii (K^-1)_ii): the smallest share any elimination order can
     leave (the pivot when the row is eliminated last); None when K is
-    singular. The pivot of a positive definite K lies between 1/(K^-1)_ii
+    singular, and from a saved report. The pivot of a positive definite K lies between 1/(K^-1)_ii
     and K_ii whatever the order."""
     most_digits: Optional[float]
     """log10(K_ii (K^-1)_ii): the most digits any elimination order can lose
     at this pivot (0 is the least: the row eliminated first); None with
-    ``least_kept``."""
+    ``least_kept``, and when explained from a saved report (it needs
+    (K^-1)_ii, one solve with a factorization)."""
     pivot_method: str
     """How the pivot was obtained (factorization and ordering), or why not."""
     mode_shares: list[ModeShare]
@@ -828,3 +860,8 @@ class RowExplanation:
     advice: list[str]
     """What would help at this row, in plain words; the suggested
     restraint(s) first."""
+    from_report: Optional[str] = None
+    """The JSON report of an earlier run that the pivot, near-singular modes,
+    stiffness jumps and suggested supports were read from (as the user named
+    it); no factorization was made for this explanation. None when they were
+    computed for it."""

@@ -714,6 +714,10 @@ def explanation_view(e: results.RowExplanation) -> Group:
     lines = [Rule(f"Row {asked} ({'1' if e.row_base == 1 else '0'}-based numbering): {e.label}")]
     where = f"node {e.node}, DOF {e.dof}" if e.node is not None else "no DOF map given: rows are their own nodes"
     lines.append(Text(f"Where: {where}; matrix row {e.row + 1} counted from 1, {e.row} counted from 0."))
+    if e.from_report is not None:
+        lines.append(Text(f"From the earlier run's report {e.from_report}: its pivot, near-singular modes, stiffness "
+                          "jumps and suggested supports; the diagonal and couplings from the matrix. No "
+                          "factorization was made for this explanation."))
     lines.append(Text(f"Diagonal K_ii = {fmt_number(e.diagonal)}: {_times(e.diagonal, e.neighbour_diagonal)} the "
                       f"median of its coupled rows of the same DOF type, {_times(e.diagonal, e.type_diagonal)} "
                       "the median of its DOF type."))
@@ -730,6 +734,10 @@ def explanation_view(e: results.RowExplanation) -> Group:
         lines.append(Text(f"Pivot: {here}; any elimination order loses between 0 (eliminated first) and "
                           f"{fmt_digits(e.most_digits)} (eliminated last) digits here. {e.pivot_method}.",
                           style="dim" if e.most_digits < 4 else None))
+    elif e.pivot_digits is not None:
+        lines.append(Text(f"Pivot: {fmt_digits(e.pivot_digits)} digits of K_ii lost at its pivot (share kept "
+                          f"{fmt_number(e.pivot_kept)}), the {e.pivot_method}.",
+                          style="dim" if e.pivot_digits < 4 else None))
     else:
         lines.append(Text(f"Pivot: {e.pivot_method}.", style="yellow"))
     for s in e.mode_shares:

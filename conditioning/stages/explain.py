@@ -15,19 +15,30 @@ K_ii (i eliminated first), because Schur complements only shrink as more
 rows are condensed out. So the digits lost at the pivot lie between 0 and
 log10(K_ii (K^-1)_ii) whatever the order; one solve with the unit load e_i
 gives (K^-1)_ii.
+
+From the JSON report of an earlier run (:func:`explain_saved_row`) the row
+is explained without any factorization: the report keeps the pivot of every
+row in its run's elimination order and the rows that carry each
+near-singular mode (:func:`row_shares`); the range over every order needs
+(K^-1)_ii, which no report holds (it would take n solves), and is left out.
 """
 
 from __future__ import annotations
 
 import logging
 import math
-from typing import Optional
+from dataclasses import replace
+from typing import TYPE_CHECKING, Optional
 
 import numpy as np
 import scipy.sparse as sp
 
 from conditioning.model import Model
-from conditioning.results import ModeShare, Restraint, RowCoupling, RowExplanation, SpectrumResult, StiffnessJump
+from conditioning.results import (ModeShare, Restraint, RowCoupling, RowExplanation, RowShares, SpectrumResult,
+                                  StiffnessJump)
+
+if TYPE_CHECKING:
+    from conditioning.io.saved_report import SavedReport
 
 logger = logging.getLogger(__name__)
 
@@ -38,6 +49,13 @@ COUPLINGS_SHOWN = 5
 SHARE_NAMED = 0.01
 #: Digits lost at a pivot worth advice (the project's choice: a quarter of float64's 16).
 DIGITS_NAMED = 4.0
+#: Smallest share of a mode a report keeps per row (the project's choice: the
+#: output shows shares to 0.1%, so a smaller one prints as 0.0% either way;
+#: the shares sum to 1, so a mode keeps at most 2000 rows in the report).
+SHARE_STORED = 5e-4
+#: Why a singular K has no pivot to explain.
+SINGULAR = ("K is singular: no displacement is defined and a DOF in a free mode has a zero pivot in some "
+            "elimination order; restrain the free modes first")
 
 
 def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[SpectrumResult] = None,
@@ -70,9 +88,75 @@ def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[Spectrum
     ValueError
         ``row`` outside 0..n-1.
     """
-    n = model.n
-    if not 0 <= row < n:
-        raise ValueError(f"row {row} is outside 0..{n - 1}")
+    _check_row(model, row)
+    d = model.K.diagonal()
+    return _explain(model, row, _pivot(model, fac, row, d[row]), _mode_shares(spectrum, d, row), jumps,
+                    restraints, row_base)
+
+
+def explain_saved_row(model: Model, row: int, saved: "SavedReport", *, row_base: int = 1) -> RowExplanation:
+    """Explain 0-based ``row`` of ``model.K`` with the figures of an earlier run's report: no factorization.
+
+    Parameters
+    ----------
+    model : Model
+        K and its DOF map, read again: the row's diagonal, couplings and DOF
+        type come from it.
+    row : int
+        0-based row.
+    saved : SavedReport
+        The earlier run's pivots, modes, stiffness jumps and supports,
+        checked to belong to this K (:func:`conditioning.io.saved_report.read_saved_report`).
+    row_base : int
+        The numbering the row was asked in (0 or 1), recorded for the output.
+
+    Returns
+    -------
+    RowExplanation
+        As :func:`explain_row`, with ``from_report`` the report's path; the
+        pivot is the earlier run's (its order, 4 significant figures) and
+        ``least_kept`` / ``most_digits`` are None: they need (K^-1)_ii. A
+        mode share below the report's ``smallest`` is given as 0.
+
+    Raises
+    ------
+    ValueError
+        ``row`` outside 0..n-1.
+    """
+    _check_row(model, row)
+    d = model.K.diagonal()
+    explanation = _explain(model, row, _saved_pivot(saved, row, d[row]), _saved_shares(saved, d, row),
+                           saved.jumps, saved.restraints, row_base)
+    return replace(explanation, from_report=saved.path)
+
+
+def row_shares(vector, diagonal) -> RowShares:
+    """The rows that carry a mode and their shares v_i^2 / ||v||^2 (v = D^1/2 u), at least SHARE_STORED.
+
+    ``vector`` is the mode u in K's DOFs, ``diagonal`` K's diagonal (n,);
+    the shares are dimensionless and those of :func:`explain_row`.
+    """
+    share = _shares(vector, diagonal)
+    rows = np.flatnonzero(share >= SHARE_STORED)
+    return RowShares(rows=rows, shares=share[rows], smallest=SHARE_STORED)
+
+
+def with_row_shares(spectrum: Optional[SpectrumResult], diagonal) -> Optional[SpectrumResult]:
+    """``spectrum`` with each mode that has a vector given its :func:`row_shares`, for the report."""
+    if spectrum is None:
+        return None
+    return replace(spectrum, modes=[m if m.vector is None else replace(m, row_shares=row_shares(m.vector, diagonal))
+                                    for m in spectrum.modes])
+
+
+def _check_row(model: Model, row: int) -> None:
+    if not 0 <= row < model.n:
+        raise ValueError(f"row {row} is outside 0..{model.n - 1}")
+
+
+def _explain(model: Model, row: int, pivot: tuple, shares: list[ModeShare], jumps, restraints,
+             row_base: int) -> RowExplanation:
+    """The explanation from the row of K and the pivot and mode figures however obtained."""
     K = sp.csr_array(model.K)
     d = K.diagonal()
     kind = _dof_kind(model)
@@ -90,8 +174,7 @@ def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[Spectrum
     neighbour = float(np.median(np.abs(d[same]))) if same.size else None
     typed = np.abs(d[kind == kind[row]])
     own_jumps = [j for j in (jumps or []) if row in j.rows]
-    kept, digits, least, most, method = _pivot(model, fac, row, d[row])
-    shares = _mode_shares(spectrum, d, row)
+    kept, digits, least, most, method = pivot
     node = int(model.dofs.node[row]) if model.dofs is not None else None
     dof = model.dofs.dof_name(row) if model.dofs is not None else None
     advice = _advice(model, row, restraints or [], shares, own_jumps, most)
@@ -114,13 +197,11 @@ def _pivot(model: Model, fac, row: int, k_ii: float):
     if fac is None:
         return None, None, None, None, "no factorization"
     if fac.singular or fac.shift != 0.0 or not fac.active[row]:
-        return None, None, None, None, ("K is singular: no displacement is defined and a DOF in a free mode "
-                                        "has a zero pivot in some elimination order; restrain the free modes first")
+        return None, None, None, None, SINGULAR
     kept = digits = None
     if fac.pivots is not None:
         kept = float(np.sign(k_ii) * fac.pivots[row])
-        # A pivot a rounding above its diagonal loses no digit, not -1e-16 of one.
-        digits = max(0.0, -math.log10(kept)) if kept > 0 else math.inf
+        digits = _digits_lost(kept)
     e = np.zeros(model.n)
     e[row] = 1.0
     inv_ii = float(fac.solve(e)[row])  # (K^-1)_ii in 1/(K's units)
@@ -131,14 +212,56 @@ def _pivot(model: Model, fac, row: int, k_ii: float):
     return kept, digits, least, most, method
 
 
+def _saved_pivot(saved: "SavedReport", row: int, k_ii: float):
+    """(kept, digits, None, None, method) at the row's pivot in the earlier run's order."""
+    if saved.kept_by_row is None:
+        return None, None, None, None, f"not in the earlier run's report: {saved.no_pivots}"
+    kept = float(saved.kept_by_row[row])
+    if saved.singular or math.isnan(kept):
+        return None, None, None, None, SINGULAR if saved.singular else (
+            "the earlier run did not factor this row (a row without stiffness, or one held because a penalty "
+            "swallowed it)")
+    method = (f"pivot of the earlier run's elimination order ({saved.ordering}), read from its report to 4 "
+              "significant figures; the range of digits any order can lose here needs (K^-1)_ii, one solve "
+              "with a factorization: explain the row from the matrix alone for it")
+    return kept, _digits_lost(kept), None, None, method
+
+
+def _digits_lost(kept: float) -> float:
+    """-log10(kept), inf for a zero or negative pivot; a pivot a rounding above
+    its diagonal loses no digit, not -1e-16 of one."""
+    return max(0.0, -math.log10(kept)) if kept > 0 else math.inf
+
+
+def _shares(vector, d) -> np.ndarray:
+    """(n,) v_i^2 / ||v||^2 of the mode u = ``vector``, v = D^1/2 u (zeros for a zero vector)."""
+    v = np.asarray(vector, dtype=np.float64) * np.sqrt(np.abs(d))
+    total = float(v @ v)
+    return v * v / total if total > 0 else np.zeros_like(v)
+
+
+def _saved_shares(saved: "SavedReport", d, row: int) -> list[ModeShare]:
+    """As :func:`_mode_shares`, from the rows the report kept for each mode."""
+    out = []
+    for mode in saved.modes:
+        if mode.row_shares is not None:
+            at = np.searchsorted(mode.row_shares.rows, row)
+            found = at < mode.row_shares.rows.size and mode.row_shares.rows[at] == row
+            share = float(mode.row_shares.shares[at]) if found else 0.0
+        elif mode.kind == "dof-without-stiffness":
+            share = 1.0 if d[row] == 0 else 0.0
+        else:
+            continue
+        out.append(ModeShare(mode=mode.index, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share))
+    return out
+
+
 def _mode_shares(spectrum: Optional[SpectrumResult], d, row: int) -> list[ModeShare]:
     """The row's share v_i^2 / ||v||^2 of each near-singular mode, v = D^1/2 u."""
     out = []
     for k, mode in enumerate(spectrum.modes if spectrum is not None else []):
         if mode.vector is not None:
-            v = np.asarray(mode.vector, dtype=np.float64) * np.sqrt(np.abs(d))
-            total = float(v @ v)
-            share = float(v[row] ** 2) / total if total > 0 else 0.0
+            share = float(_shares(mode.vector, d)[row])
         elif mode.kind == "dof-without-stiffness":
             share = 1.0 if d[row] == 0 else 0.0  # a row without stiffness is its own mode
         else:

@@ -170,7 +170,7 @@ class _Renumber:
             return None
         return replace(d, worst=[self._entry(e) for e in d.worst],
                        negative_pivots=[self._entry(e) for e in d.negative_pivots],
-                       method=REST + d.method)
+                       kept_by_row=self.vector(d.kept_by_row, fill=np.nan), method=REST + d.method)
 
     def digits(self, dg: Optional[DigitsResult], held: NDArray[np.intp]) -> Optional[DigitsResult]:
         if dg is None or dg.skipped:

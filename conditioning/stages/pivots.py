@@ -70,7 +70,9 @@ def pivot_loss(model: Model, fac: Factorization, *, worst: int = 20) -> PivotLos
         zero or negative). ``negative_pivots`` lists the rows whose pivot is
         negative (K indefinite), by row, at most ``worst``. Rows without any
         stiffness are not factored and not listed; ``method`` says how many
-        there are.
+        there are. ``kept_by_row`` holds ``kept`` of every row in row order
+        (NaN for the rows not factored), for explaining a row later from
+        the saved report.
 
     Notes
     -----
@@ -128,7 +130,8 @@ def pivot_loss(model: Model, fac: Factorization, *, worst: int = 20) -> PivotLos
         PivotEntry(row=int(r), label=model.row_label(int(r)), kept=float(kept[r]), digits=math.inf)
         for r in np.flatnonzero(active & (np.asarray(fac.pivots) < 0))[:worst]
     ]
-    return PivotLoss(worst=entries, max_digits=max_digits, method=method, negative_pivots=negative)
+    return PivotLoss(worst=entries, max_digits=max_digits, method=method, negative_pivots=negative,
+                     kept_by_row=kept)
 
 
 def _kept_shares(model: Model, fac: Factorization):
