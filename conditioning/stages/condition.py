@@ -62,7 +62,7 @@ def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, r
         v0 /= np.linalg.norm(v0)
     if fac.info.negative_pivots == 0:
         # K positive definite: 1/lambda_min is the largest eigenvalue of K^-1.
-        return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0)
+        return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0, check_every=1)
     if v0 is None:
         v0 = rng.standard_normal(n)
     mu = spla.eigsh(op, k=1, which="LM", tol=1e-4, v0=v0, return_eigenvectors=False)

@@ -122,7 +122,7 @@ class Eigenpairs:
 
 
 def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None,
-                       rng=0) -> float:
+                       rng=0, check_every: int = 10) -> float:
     """lambda_max of a symmetric matrix by plain Lanczos, to relative accuracy ``rtol``.
 
     Returns the largest Ritz value theta of the Lanczos tridiagonal T_m, which
@@ -133,7 +133,9 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
     Ritz values, it does not move the extreme one [2]_. Costs m matrix-vector
     products and O(m) vectors of memory, against ARPACK's restarts. The start
     is ``v0``, else a normal random vector drawn from ``rng`` (a seed or a
-    numpy Generator).
+    numpy Generator). The residual bound is checked every ``check_every``
+    steps (an eigendecomposition of T_m each time): 1 when each product with
+    A costs a solve, 10 when it is a cheap sparse product.
 
     References
     ----------
@@ -159,7 +161,7 @@ def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional
         w -= alpha * q
         beta = float(np.linalg.norm(w))
         alphas.append(alpha)
-        if m % 10 == 0 or beta == 0.0 or m == max_steps:
+        if m % check_every == 0 or beta == 0.0 or m == max_steps:
             vals, vecs = la.eigh_tridiagonal(np.array(alphas), np.array(betas))
             theta = float(vals[-1])
             if beta * abs(vecs[-1, -1]) <= rtol * abs(theta) or beta == 0.0:
