@@ -252,7 +252,8 @@ def _key_figures(r: results.Report):
         t.add_row("stiffness jumps", str(len(r.jumps)), f"estimated; worst {_jump_cost(worst)} digits")
     p = r.pivots
     if p is None and "pivots" in r.skipped:
-        t.add_row("digits lost at a pivot", "-", "not measured (see below)")
+        # The reason's first clause: the whole sentence is in the pivots section and the JSON.
+        t.add_row("digits lost at a pivot", "-", f"not measured: {r.skipped['pivots'].split(':')[0]}")
     if p is not None and p.worst:
         if p.negative_pivots:
             t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
