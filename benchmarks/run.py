@@ -518,7 +518,7 @@ def tables(path: Path) -> str:
         err = f" ({p_['predicted_fill'] / actual - 1:+.1%})" if actual else ""
         out.append(f"| {name} | {p_['predicted_fill']:,} | {actual or '-'}{err} | {gib(p_['predicted_bytes'])} | "
                    f"{added} | {p_['stages']['plan']['seconds']:.1f} s | {p_['fits']} |")
-    out += ["", "| model | iterative (LOBPCG + ILU) | near-null | converged | max residual | dd spmv ratio |",
+    out += ["", "| model | iterative (LOBPCG) | near-null | converged | max residual | dd spmv ratio |",
             "|---|---|---|---|---|---|"]
     for name, res in by_model.items():
         it, dd = res.get("iterative", {}), res.get("ddspmv", {})
