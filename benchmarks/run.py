@@ -16,11 +16,17 @@ allows it):
   the diagnosis's factorization reports;
 * ``diagnose``: conditioning.diagnose on the exported files, per stage;
 * ``iterative``: the factorization-free spectrum (models whose predicted
-  factor does not fit, and the free variants at small sizes);
+  factor does not fit, and the free variants at small sizes), preconditioned
+  by multigrid when pyamg (the ``amg`` extra) is installed;
+  ``iterative-ilu``: the same with pyamg hidden (the incomplete-LU fallback);
 * ``ddspmv``: the double-double residual K x against float64 K @ x;
 * ``petsc1``, ``petsc2`` (``--sizes engines``): ``diagnose`` with
   ``engine="petsc"`` under ``mpiexec -n 1`` and ``-n 2`` (run the harness with
   the engine's Python, scripts/setup-petsc-engine.sh; peaks are rank 0's).
+
+``--memory-limit 1G`` sets CONDITIONING_MEMORY_LIMIT for every job and runs
+``diagnose`` even when the factor does not fit (the factorization-free
+diagnosis); without it a model whose factor does not fit skips ``diagnose``.
 
 Results are printed as they come and appended, one JSON object per job, to
 ``--out``. Development runs: ``--sizes small`` (about a minute).
@@ -51,6 +57,8 @@ SIZES = {
     # the sizes the certified-digits goal names: 2D 180k and 3D ~54k rows
     "certify": [("plate", 300, False), ("cube", 26, False)],
     # the PETSc engine beside the scipy engine (issue 13): 180k plate, 51k and 105k cubes
+    # the factorization-free path, multigrid against incomplete LU (issue 16): 26k to 305k rows
+    "amg": [("cube", 20, False), ("cube", 20, True), ("cube", 26, False), ("cube", 35, False), ("cube", 46, False)],
     "engines": [("plate", 300, False), ("cube", 25, False), ("cube", 32, False)],
 }
 #: Jobs that run ``diagnose`` on the PETSc engine, and their number of MPI ranks.
@@ -213,20 +221,27 @@ def job_diagnose(args, paths):
                                    load=paths["load"], progress=progress, engine=args.engine)
     fi = report.factorization
     dg = report.digits
-    return m.result(status=report.status, modes=report.spectrum.count if report.spectrum else None,
+    sp_ = report.spectrum
+    return m.result(status=report.status, modes=sp_.count if sp_ else None,
+                    smallest=[float(v) for v in sp_.smallest[:8]] if sp_ else None,
+                    spectrum_method=sp_.method if sp_ else None,
+                    skipped=dict(report.skipped),
                     ordering=fi.ordering if fi else None, fill=fi.fill if fi else None,
                     timings=report.timings, verdict=report.verdict,
                     digits_methods=sorted({s.method for s in dg.samples}) if dg else None,
                     certification=dg.certification if dg else None)
 
 
-def job_iterative(args, paths):
+def job_iterative(args, paths, *, hide_pyamg=False):
     import numpy as np
 
     from conditioning.engine.scaling import scale_stiffness
     from conditioning.model import Coordinates, DofTable, Model
+    from conditioning.stages import spectrum_iterative as si
     from conditioning.stages.spectrum import iterative_spectrum
 
+    if hide_pyamg:  # the fallback a user without the amg extra gets
+        sys.modules["pyamg"] = None
     m = _Meter()
     m.start("read")
     K, _ = _read_baseline(paths)
@@ -237,14 +252,34 @@ def job_iterative(args, paths):
     model = Model(K.tocsr(), dofs=DofTable(node, dof),
                   coords=Coordinates(np.arange(1, xyz.shape[0] + 1), xyz, 3))
     m.stop("read")
-    m.start("lobpcg")
+    # Time the preconditioner's setup and LOBPCG's iterations apart (the
+    # stage's own functions, wrapped here only to be timed).
+    pre, core, counts = si._preconditioner, si._lobpcg_core, {}
+
+    def timed_pre(*a):
+        t = time.perf_counter()
+        out = pre(*a)
+        counts["preconditioner_seconds"] = time.perf_counter() - t
+        return out
+
+    def counted_core(*a):
+        out = core(*a)
+        counts["iterations"] = counts.get("iterations", 0) + out[2]
+        return out
+
+    si._preconditioner, si._lobpcg_core = timed_pre, counted_core
+    m.start("spectrum")  # preconditioner, LOBPCG and the Lanczos estimate of lambda_max
     res = iterative_spectrum(model, k=8, rng=0)
-    m.stop("lobpcg")
+    m.stop("spectrum")
     S = scale_stiffness(model.K).S
     residuals = np.linalg.norm(S @ res.vectors - res.vectors * res.values, axis=0)
-    return m.result(near_null=res.count, converged=res.converged,
-                    smallest=[float(v) for v in res.values[:4]],
+    return m.result(near_null=res.count, converged=res.converged, smallest=[float(v) for v in res.values[:8]],
+                    preconditioner_seconds=counts.get("preconditioner_seconds"), iterations=counts.get("iterations"),
                     max_residual=float(residuals.max()), method=res.method)
+
+
+def job_iterative_ilu(args, paths):
+    return job_iterative(args, paths, hide_pyamg=True)
 
 
 def job_ddspmv(args, paths):
@@ -312,6 +347,7 @@ def job_certify(args, paths):
 
 JOBS = {"export": job_export, "baseline": job_baseline, "orderings": job_orderings,
         "predict": job_predict, "diagnose": job_diagnose, "iterative": job_iterative,
+        "iterative-ilu": job_iterative_ilu,
         "ddspmv": job_ddspmv, "certify": job_certify}
 
 
@@ -413,10 +449,16 @@ def summarize(name, rows, results) -> list[str]:
     for k, v in results.get("orderings", {}).get("orderings", {}).items():
         lines.append(f"  order {k:14s} fill {v['fill']:>11d}  order {v['order_seconds']:6.2f} s  factor "
                      f"{v['factor_seconds']:7.2f} s  peak {gib(v['peak_bytes'])}")
-    it = results.get("iterative", {})
-    if "seconds" in it:
-        lines.append(f"  iterative  {it['seconds']:8.2f} s  peak {gib(it['peak_bytes'])}  near-null "
-                     f"{it['near_null']}  converged {it['converged']}  max residual {it['max_residual']:.1e}")
+    for job in ("iterative", "iterative-ilu"):
+        it = results.get(job, {})
+        if "seconds" in it:
+            spec, pre = it["stages"]["spectrum"]["seconds"], it.get("preconditioner_seconds") or 0.0
+            lines.append(f"  {job:13s} {it['seconds']:8.2f} s  peak {gib(it['peak_bytes'])}  preconditioner "
+                         f"{pre:.1f} s  then {spec - pre:.1f} s, {it.get('iterations')} LOBPCG iterations"
+                         f"  near-null {it['near_null']}  converged {it['converged']}  max residual "
+                         f"{it['max_residual']:.1e}")
+            lines.append(f"    smallest {', '.join(f'{v:.6g}' for v in it['smallest'])}")
+            lines.append(f"    {it['method']}")
     dd = results.get("ddspmv", {})
     if "ratio" in dd:
         lines.append(f"  dd spmv    {dd['ratio']:.1f}x float64 K@x ({dd['dd_seconds'] * 1e3:.1f} ms vs "
@@ -477,7 +519,7 @@ def tables(path: Path) -> str:
         err = f" ({p_['predicted_fill'] / actual - 1:+.1%})" if actual else ""
         out.append(f"| {name} | {p_['predicted_fill']:,} | {actual or '-'}{err} | {gib(p_['predicted_bytes'])} | "
                    f"{added} | {p_['stages']['plan']['seconds']:.1f} s | {p_['fits']} |")
-    out += ["", "| model | iterative (LOBPCG + ILU) | near-null | converged | max residual | dd spmv ratio |",
+    out += ["", "| model | iterative (LOBPCG) | near-null | converged | max residual | dd spmv ratio |",
             "|---|---|---|---|---|---|"]
     for name, res in by_model.items():
         it, dd = res.get("iterative", {}), res.get("ddspmv", {})
@@ -497,6 +539,8 @@ def main(argv=None) -> int:
     p.add_argument("--timeout", type=float, default=1500.0, help="seconds allowed per child job")
     p.add_argument("--only", default=None, help="comma-separated model names to run (e.g. plate2d-300)")
     p.add_argument("--jobs", default="baseline,predict,diagnose,orderings,iterative,ddspmv")
+    p.add_argument("--memory-limit", default=None,
+                   help="CONDITIONING_MEMORY_LIMIT for every job (e.g. 1G); diagnose then runs the factorization-free path")
     p.add_argument("--tables", default=None, help="print Markdown tables of a results file and exit")
     p.add_argument("--job", help=argparse.SUPPRESS)
     p.add_argument("--engine", default="scipy", help=argparse.SUPPRESS)
@@ -516,7 +560,11 @@ def main(argv=None) -> int:
         print(tables(Path(args.tables)))
         return 0
     out_path = Path(args.out) if args.out else None
+    if args.memory_limit:
+        os.environ["CONDITIONING_MEMORY_LIMIT"] = args.memory_limit
     desc = machine()
+    desc["loadavg"] = Path("/proc/loadavg").read_text().split()[:3]
+    desc["memory_limit"] = args.memory_limit
     print("machine:", json.dumps(desc))
     if out_path:
         with out_path.open("a") as fh:
@@ -541,12 +589,13 @@ def main(argv=None) -> int:
             plan = run_child("predict", spec, directory, paths, args.timeout) if "predict" in wanted else {}
             results["predict"] = plan
             fits = plan.get("fits", True)
-            for job in ("baseline", "diagnose", "certify", "orderings", "iterative", "ddspmv", *PETSC_RANKS):
+            for job in ("baseline", "diagnose", "certify", "orderings", "iterative", "iterative-ilu", "ddspmv",
+                        *PETSC_RANKS):
                 if job not in wanted:
                     continue
                 if job == "orderings" and args.sizes not in ORDERING_SIZES:
                     continue
-                if job == "diagnose" and not fits:
+                if job == "diagnose" and not fits and not args.memory_limit:
                     results[job] = {"skipped": f"predicted factorization {gib(plan.get('predicted_bytes'))} "
                                                f"exceeds the memory limit {gib(plan.get('limit_bytes'))}"}
                     print(f"   {job}: {results[job]['skipped']}", flush=True)
@@ -557,7 +606,7 @@ def main(argv=None) -> int:
                                                f"(time x predicted flops ratio) exceeds the {args.timeout:.0f} s limit"}
                     print(f"   {job}: {results[job]['skipped']}", flush=True)
                     continue
-                if job == "iterative" and fits and not (free or args.sizes in ("tiny", "small")):
+                if job.startswith("iterative") and fits and not (free or args.sizes in ("tiny", "small")):
                     continue
                 results[job] = run_child(job, spec, directory, paths, args.timeout)
                 if "seconds" in results[job] and "predicted_flops" in plan:

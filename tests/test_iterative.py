@@ -1,7 +1,11 @@
 """Factorization-free smallest eigenpairs, checked against LAPACK
-(numpy.linalg.eigvalsh of the dense scaled matrix) on scikit-fem models."""
+(numpy.linalg.eigvalsh of the dense scaled matrix) on scikit-fem models,
+with each preconditioner: smoothed-aggregation multigrid (pyamg, the 'amg'
+extra) and the incomplete-LU fallback used without it."""
 
 from __future__ import annotations
+
+import sys
 
 import numpy as np
 import pytest
@@ -40,34 +44,79 @@ def lapack_smallest(K, k):
     return np.linalg.eigvalsh(S)[:k]
 
 
+MULTIGRID = "smoothed-aggregation multigrid (pyamg"
+ILU = "incomplete LU of S"
+
+
+@pytest.fixture(params=["multigrid", "ilu"])
+def preconditioner(request, monkeypatch):
+    """The words the method names the preconditioner with: multigrid when
+    pyamg is installed (skipped otherwise), the incomplete-LU fallback when
+    the import of pyamg fails (None in sys.modules makes ``import`` raise
+    ImportError)."""
+    if request.param == "multigrid":
+        pytest.importorskip("pyamg", reason="the 'amg' extra (pyamg) gives the multigrid preconditioner")
+        return MULTIGRID
+    monkeypatch.setitem(sys.modules, "pyamg", None)
+    return ILU
+
+
 @pytest.mark.parametrize("dim,n,modes", [(2, 20, 3), (3, 6, 6)])
-def test_rigid_body_count_and_eigenvalues_match_lapack(dim, n, modes):
+def test_rigid_body_count_and_eigenvalues_match_lapack(dim, n, modes, preconditioner):
     """An unsupported body has 3 (2D) or 6 (3D) rigid-body modes (textbook
     fact, /work/shared/REFERENCES.md); LOBPCG finds that many near-zero
-    eigenvalues of S and the next ones as LAPACK does."""
+    eigenvalues of S and the next ones as LAPACK does, with either
+    preconditioner, and the method names the one used."""
     model = free_body(n, dim)
     assert model.n > 600  # the iterative path, not the dense fallback
     res = iterative_spectrum(model, k=modes + 4, rng=0)
     ref = lapack_smallest(model.K, modes + 4)
     assert res.converged
-    assert "LOBPCG" in res.method
+    assert "LOBPCG" in res.method and preconditioner in res.method
+    if preconditioner == ILU:
+        assert "pyamg, the 'amg' extra, is not installed" in res.method
     assert res.count == modes and res.below_split is None  # no inertia to compare with
     assert np.all(np.abs(res.values[:modes]) < 1e-10)
     np.testing.assert_allclose(res.values[modes:modes + 4], ref[modes:], rtol=1e-7)
 
 
-def test_supported_body_has_no_near_null_mode():
-    """Clamp the left edge of the plate: the smallest eigenvalue of S is
-    clearly positive, as LAPACK confirms."""
-    model = free_body(24, 2)
+def clamped_plate(n: int) -> Model:
+    """The free plate of :func:`free_body` with its left edge x = 0 removed (clamped)."""
+    model = free_body(n, 2)
     xyz = model.coords.xyz[model.dofs.node - 1]
     keep = np.flatnonzero(xyz[:, 0] > 0)
-    K = sp.csr_array(model.K[keep][:, keep])
-    clamped = Model(K, dofs=model.dofs.take(keep), coords=model.coords)
+    return Model(sp.csr_array(model.K[keep][:, keep]), dofs=model.dofs.take(keep), coords=model.coords)
+
+
+def test_supported_body_has_no_near_null_mode(preconditioner):
+    """Clamp the left edge of the plate: the smallest eigenvalue of S is
+    clearly positive, as LAPACK confirms, with either preconditioner."""
+    clamped = clamped_plate(24)
     res = iterative_spectrum(clamped, k=4, rng=1)
-    ref = lapack_smallest(K, 4)
-    assert res.count == 0
+    ref = lapack_smallest(clamped.K, 4)
+    assert res.count == 0 and res.converged and preconditioner in res.method
     np.testing.assert_allclose(res.values[:4], ref, rtol=1e-7)
+
+
+def test_multigrid_near_null_space_and_node_blocks():
+    """What the multigrid is given, checked through the eigenvalues LAPACK
+    finds: the clamped plate's rows are whole nodes (2 DOFs each, so node
+    blocks of 2) and its coordinates give 3 rigid-body motions; the free 3D
+    body without coordinates gets the 3 translations only, and LOBPCG still
+    finds its 6 rigid-body modes (textbook count) and the next eigenvalues."""
+    pytest.importorskip("pyamg", reason="the 'amg' extra (pyamg) gives the multigrid preconditioner")
+    clamped = clamped_plate(24)
+    res = iterative_spectrum(clamped, k=4, rng=6)
+    assert "3 rigid-body motions, node blocks of 2" in res.method
+    np.testing.assert_allclose(res.values[:4], lapack_smallest(clamped.K, 4), rtol=1e-7)
+
+    body = free_body(6, 3)
+    bare = Model(body.K, dofs=body.dofs)
+    res = iterative_spectrum(bare, k=10, rng=7)
+    assert "3 translations per DOF type (no coordinates)" in res.method
+    ref = lapack_smallest(body.K, 10)
+    assert res.converged and res.count == 6
+    np.testing.assert_allclose(res.values[6:10], ref[6:], rtol=1e-7)
 
 
 def test_row_without_stiffness_is_a_zero_mode():
