@@ -70,3 +70,13 @@ def test_rejected_file_says_what_it_looks_like(tmp_path, capsys, text, says):
     assert main(["diagnose", str(path), "--quiet"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and says in err[0] and "Traceback" not in err[0]
+
+
+def test_a_huge_index_is_a_one_line_error_not_an_allocation(tmp_path, capsys):
+    """A mangled first line '0 3657822720 0' (found by the fuzz test) would make a
+    3.7e9-order matrix from three entries: refused before anything is allocated."""
+    p = tmp_path / "k.txt"
+    p.write_text("0 3657822720 0\n2 1 -1\n2 2 2\n")
+    assert main(["diagnose", str(p)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and "order 3,657,822,721 from only 3 entries" in err

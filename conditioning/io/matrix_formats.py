@@ -712,6 +712,9 @@ def _read_triplets(name: str):
     base = 0 if low == 0 else 1
     rows, cols = rows - base, cols - base
     n = int(max(rows.max(), cols.max())) + 1
+    if n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * len(lines):
+        raise InputError(name, f"read as a triplet list, its largest index makes the matrix of order {n:,} "
+                               f"from only {len(lines):,} entries: check the indices")
     notes = [f"read as a triplet list (row column value), {n} x {n} from {len(lines)} entries; "
              + ("0-based indices (an index 0 occurs)" if base == 0 else
                 "1-based indices (no index 0 occurs" + (")" if low == 1 else
