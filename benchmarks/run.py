@@ -85,7 +85,7 @@ def _reset_peak() -> bool:
 
 
 class _Meter:
-    """Wall time and peak RSS per stage of one child job."""
+    """Wall time, CPU time (all threads of the process) and peak RSS per stage of one child job."""
 
     def __init__(self):
         self.stages: dict[str, dict] = {}
@@ -93,11 +93,13 @@ class _Meter:
 
     def start(self, name):
         _reset_peak()
-        self.stages[name] = {"t": time.perf_counter(), "rss_start_bytes": _status("VmRSS")}
+        self.stages[name] = {"t": time.perf_counter(), "c": time.process_time(),
+                             "rss_start_bytes": _status("VmRSS")}
 
     def stop(self, name):
         st = self.stages[name]
         st["seconds"] = time.perf_counter() - st.pop("t")
+        st["cpu_seconds"] = time.process_time() - st.pop("c")
         st["peak_bytes"] = _status("VmHWM")
 
     def result(self, **extra):
@@ -310,9 +312,16 @@ def job_ddspmv(args, paths):
             "ratio": t_dd / t_f64, "peak_bytes": _status("VmHWM")}
 
 
+#: Rounds of (shared factorization, proof) in the certify job: the first is
+#: measured stage by stage with peak memory, every round's times are kept, and
+#: the best of the rounds is the figure a shared machine leaves meaningful.
+CERTIFY_ROUNDS = 3
+
+
 def job_certify(args, paths):
     """The verified eigenvalue bound's cost against the shared factorization it
-    reuses the ordering of: both timed in this child, same matrix, same ordering."""
+    reuses the ordering of: both timed in this child, same matrix, same ordering,
+    CERTIFY_ROUNDS times in turn."""
     import numpy as np
 
     from conditioning.engine.scaling import scale_stiffness
@@ -325,24 +334,38 @@ def job_certify(args, paths):
     K = K.tocsr()
     xyz = np.loadtxt(paths["coords"], delimiter=",", skiprows=1, usecols=(1, 2, 3))
     node = np.loadtxt(paths["dofs"], delimiter=",", skiprows=1, usecols=1, dtype=np.int64)
-    m.start("factorize")
-    fac = ScipyEngine().factorize(scale_stiffness(K), coords=xyz[node - 1])
-    m.stop("factorize")
-    # lambda_min(S) estimate: 1 / lambda_max(S^-1) by Lanczos on the factor's solves.
-    import scipy.sparse.linalg as spla
+    rounds = []
+    for r in range(CERTIFY_ROUNDS):
+        fac_stage, verify_stage = ("factorize", "verify") if r == 0 else (f"factorize{r + 1}", f"verify{r + 1}")
+        m.start(fac_stage)
+        fac = ScipyEngine().factorize(scale_stiffness(K), coords=xyz[node - 1])
+        m.stop(fac_stage)
+        if r == 0:
+            # lambda_min(S) estimate: 1 / lambda_max(S^-1) by Lanczos on the factor's solves.
+            import scipy.sparse.linalg as spla
 
-    n = K.shape[0]
-    inv = spla.LinearOperator((n, n), matvec=lambda v: fac.solve_scaled(np.ravel(v)), dtype=np.float64)
-    m.start("estimate")
-    lam = 1.0 / largest_eigenvalue(inv, rtol=1e-3)
-    m.stop("estimate")
-    perm = fac.ordering_permutation()
-    fac.release()
-    m.start("verify")
-    bound = verified_smallest_eigenvalue(K, lam, perm=perm)
-    m.stop("verify")
-    return m.result(verified=bound.verified, reason=bound.reason,
-                    ratio=m.stages["verify"]["seconds"] / m.stages["factorize"]["seconds"])
+            n = K.shape[0]
+            inv = spla.LinearOperator((n, n), matvec=lambda v: fac.solve_scaled(np.ravel(v)), dtype=np.float64)
+            m.start("estimate")
+            lam = 1.0 / largest_eigenvalue(inv, rtol=1e-3)
+            m.stop("estimate")
+            perm = fac.ordering_permutation()
+        fac.release()
+        del fac
+        m.start(verify_stage)
+        bound = verified_smallest_eigenvalue(K, lam, perm=perm)
+        m.stop(verify_stage)
+        rounds.append({f"{what}_{k}": m.stages[stage][k] for what, stage in
+                       (("factorize", fac_stage), ("verify", verify_stage)) for k in ("seconds", "cpu_seconds")})
+    best = {k: min(r[k] for r in rounds) for k in rounds[0]}
+    # CPU time is less disturbed than wall time by other processes on the same
+    # cores (not immune: they share caches and memory bandwidth).
+    return m.result(verified=bound.verified, reason=bound.reason, rounds=rounds,
+                    ratio=m.stages["verify"]["seconds"] / m.stages["factorize"]["seconds"],
+                    cpu_ratio=m.stages["verify"]["cpu_seconds"] / m.stages["factorize"]["cpu_seconds"],
+                    best_ratio=best["verify_seconds"] / best["factorize_seconds"],
+                    best_cpu_ratio=best["verify_cpu_seconds"] / best["factorize_cpu_seconds"],
+                    load_average=os.getloadavg())
 
 
 JOBS = {"export": job_export, "baseline": job_baseline, "orderings": job_orderings,
@@ -465,6 +488,15 @@ def summarize(name, rows, results) -> list[str]:
                      f"{dd['float64_seconds'] * 1e3:.2f} ms; operator setup {dd['dd_prepare_seconds']:.2f} s)")
     elif dd:
         lines.append(f"  dd spmv    {dd.get('skipped') or dd.get('error')}")
+    ce = results.get("certify", {})
+    if "best_ratio" in ce:
+        st = ce["stages"]
+        lines.append(f"  certify    proof / shared factorization {ce['ratio']:.2f}x wall, {ce['cpu_ratio']:.2f}x CPU "
+                     f"(best of {len(ce['rounds'])} rounds: {ce['best_ratio']:.2f}x, {ce['best_cpu_ratio']:.2f}x); peaks "
+                     f"{gib(st['verify']['peak_bytes'])} / {gib(st['factorize']['peak_bytes'])}; load "
+                     f"{ce['load_average'][0]:.2f}; {ce['reason']}")
+    elif ce:
+        lines.append(f"  certify    {ce.get('skipped') or ce.get('error')}")
     return lines
 
 

@@ -277,3 +277,91 @@ def test_round_off_asymmetry_is_bounded_through_the_symmetric_part():
     e = bound.scale
     sigma = np.linalg.svd(A * e[:, None] * e[None, :], compute_uv=False)[-1]
     assert bound.lower <= sigma
+
+
+def _arb(A: np.ndarray):
+    """A dense float64 matrix as a python-flint arb_mat (every entry exact)."""
+    return flint.arb_mat(A.shape[0], A.shape[1], [flint.arb(float(v)) for v in A.ravel()])
+
+
+def _exact_norm(build) -> float:
+    """||M||_2 for the matrix ``build()`` forms from _arb matrices: M formed exactly in
+    python-flint (arb at 2000 bits: every product and sum of these doubles is exact,
+    checked through the balls' radii), its 2-norm by LAPACK (numpy.linalg.norm(., 2),
+    an SVD). Rounding the exact entries to double moves that norm by a relative
+    sqrt(n) u at most, far below the margins checked."""
+    with flint.ctx.workprec(2000):
+        M = build()
+        n, m = M.nrows(), M.ncols()
+        assert all(M[i, j].rad() == 0 for i in range(n) for j in range(m))
+        Mm = np.array([[float(M[i, j].mid()) for j in range(m)] for i in range(n)])
+    return float(np.linalg.norm(Mm, 2))
+
+
+@pytest.mark.skipif(flint is None, reason="python-flint not installed")
+@pytest.mark.parametrize("name,spec", [("bcsstk01", "MMD_AT_PLUS_A"), ("bcsstk02", "NATURAL"),
+                                       ("bcsstk04", "NATURAL"), ("bcsstk04", "MMD_AT_PLUS_A"),
+                                       ("bcsstk05", "MMD_AT_PLUS_A"), ("nos1", "MMD_AT_PLUS_A"),
+                                       ("nos4", "MMD_AT_PLUS_A"), ("LF10", "NATURAL")])
+def test_rounding_bound_contains_the_exact_factorization_error(name, spec):
+    """The proved bound on ||L D L^T - (S - cI)||_2 is never below that norm computed
+    exactly (python-flint, LAPACK; see _exact_norm) for SuperLU's own
+    factors of S - cI, S = E K E of a public reference matrix (PROVENANCE.md) and c half
+    LAPACK's smallest eigenvalue of S. Its first part, the row sums of |L| |D L^T - U|
+    read block by block from L's rows and U's columns, equals the same sums formed
+    from dense numpy arrays, and is never below the exact ||L (D L^T - U)||_2. The cases
+    include factors whose L^T and U differ in pattern (an entry computed as exactly zero
+    on one side only; with this scipy: bcsstk04, bcsstk05 and nos1 under MMD)."""
+    from conditioning.linalg.verified_eigenvalue import (
+        _bound_at_shift,
+        _factor_without_pivoting,
+        _rounding_row_sums,
+        _shifted,
+    )
+
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path(name)))
+    e = power_of_two_scaling(K)
+    S = sp.csr_array(K.multiply(e[:, None]).multiply(e[None, :]))   # exact: powers of two
+    S.sum_duplicates()
+    c = 0.5 * lapack_lambda_min(K, e)
+    lu = _factor_without_pivoting(_shifted(S, c)[0], spec)
+    assert np.array_equal(lu.perm_r, lu.perm_c)
+    q = np.argsort(lu.perm_c)                  # L U = A[q][:, q] (scipy.sparse.linalg.splu's documented Pr A Pc)
+    L, U = lu.L.copy(), lu.U.copy()
+    bound, _ = _bound_at_shift(S, c, spec)     # the same deterministic factorization, inside
+    n = K.shape[0]
+    u = 2.0**-53
+    Ld, Ud = L.toarray(), U.toarray()
+    d = np.diag(Ud).copy()
+    Sq = S.toarray()[q][:, q]
+    exact = _exact_norm(lambda: _arb(Ld) * _arb(np.diag(d)) * _arb(Ld.T) - _arb(Sq) + _arb(c * np.eye(n)))
+    assert exact > 0
+    assert bound >= exact * (1 + 10 * n * u)
+    # The D L^T - U part alone (gamma_k = 0), against dense numpy with the same roundings.
+    F = np.abs(d[:, None] * Ld.T - Ud)
+    dense = float(np.max(np.abs(Ld) @ (F.sum(axis=1) * (1 + 2 * u) + 2 * u * d * np.abs(Ld).sum(axis=0))))
+    part = _rounding_row_sums(L.copy(), U.copy(), d, 0)
+    assert part == pytest.approx(dense, rel=1e-12)
+    exact_LF = _exact_norm(lambda: _arb(Ld) * (_arb(np.diag(d)) * _arb(Ld.T) - _arb(Ud)))
+    assert part >= exact_LF * (1 + 10 * n * u)
+
+
+def test_symmetric_part_only_when_k_is_not_symmetric():
+    """The symmetry test behind the proof, against scipy's own K - K^T: a stored zero
+    without a stored mirror leaves bcsstk05 exactly symmetric (nothing to add to the
+    bound); one entry moved by one ulp does not, and the symmetric part returned is
+    scipy's (K + K^T) / 2 entry by entry."""
+    from conditioning.linalg.verified_eigenvalue import _symmetric_part
+
+    K = sp.csr_array(scipy.io.mmread(reference_matrix_path("bcsstk05")))
+    A = K.toarray()
+    i, j = np.argwhere(A == 0)[0]              # an unstored position (i != j: the diagonal is stored)
+    Z = sp.coo_array((np.r_[K.tocoo().data, 0.0], (np.r_[K.tocoo().row, i], np.r_[K.tocoo().col, j])),
+                     shape=K.shape).tocsr()
+    Z.sum_duplicates()
+    assert Z.nnz == K.nnz + 1 and abs(Z - Z.T).max() == 0
+    assert _symmetric_part(Z) is None
+    A[0, 1] = np.nextafter(A[0, 1], np.inf)
+    P = sp.csr_array(A)
+    H = _symmetric_part(P)
+    assert H is not None and abs(H - (P + P.T) * 0.5).max() == 0

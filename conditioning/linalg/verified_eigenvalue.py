@@ -20,18 +20,25 @@ The difference is bounded without forming B:
     B - (S - cI) = L (D L^T - U) + (L U - (S - cI)),
     |L U - (S - cI)| <= gamma_k |L| |U|                      (Higham [2]_, Thm 9.3),
 
-with gamma_k = k u / (1 - k u), u = 2^-53 and k the most terms any entry of
-L or U sums (the longest row of L, plus one for the division by the pivot):
-the LU error analysis holds for any order of summation, so for SuperLU's
-supernodal, blocked and fused-multiply-add evaluation too. As B - (S - cI)
-is symmetric, its 2-norm is at most its largest absolute row sum, and so at
-most the largest row sum of the entrywise bound
+with gamma_k = k u / (1 - k u), u = 2^-53 and k the longest column of U,
+diagonal included: an entry in column j of L U sums at most that many nonzero
+products, the division by the pivot counted in (the terms with an exactly zero
+factor add nothing and round nothing). The LU error analysis holds for any
+order of summation, so for SuperLU's supernodal, blocked and fused-multiply-add
+evaluation too. As B - (S - cI) is symmetric, its 2-norm is at most its
+largest absolute row sum, and so at most the largest row sum of the entrywise
+bound
 
     G = |L| |D L^T - U|  +  gamma_k |L| |U|  (+ the rounding of S's diagonal minus c),
 
-which two sparse products with a vector give (the row sums of nonnegative
-terms are rounded upward by a factor 1 + 2(m + 4) u, m their most terms).
-The bound depends on the factor's row lengths, not on n.
+which one sparse product with a vector gives once the row sums of
+|D L^T - U| and |U| are known. D L^T - U pairs row j of L with column j of U,
+so L is transposed once (its rows become the columns of L^T) and the
+difference is formed one block of columns at a time, beside U's own columns:
+no copy of U and no full copy of the difference. Every sum of nonnegative
+terms has at most n terms, so the computed G is enlarged by 1 + 4(n + 4) u
+(about 1 + 4e-10 at a million rows); gamma_k, the term that matters, depends
+on the factor's column lengths, not on n.
 
 References
 ----------
@@ -133,9 +140,12 @@ def verified_smallest_eigenvalue(
     """
     K = sp.csr_array(K, dtype=np.float64)
     n = K.shape[0]
-    e = power_of_two_scaling(K)
     if K.shape[0] != K.shape[1] or n == 0:
         raise ValueError(f"K must be square and nonempty, got shape {K.shape}")
+    if not K.has_canonical_format:        # repeated entries summed, rows sorted (a copy)
+        K = K.copy()
+        K.sum_duplicates()
+    e = power_of_two_scaling(K)
     if np.any(e == 0):
         return VerifiedEigenvalueBound(False, None, None, None, e,
                                        "a diagonal entry is not positive: K is not positive definite")
@@ -145,16 +155,22 @@ def verified_smallest_eigenvalue(
     # is rounded once per entry: at most u |H| entrywise, whose largest row sum
     # is taken off the bound.
     symmetric_error = 0.0
-    if (abs(K - K.T)).max() != 0:
-        K = sp.csr_array((K + K.T) * 0.5)
+    H = _symmetric_part(K)
+    if H is not None:
+        K = H
         S_abs_rows = (abs(K) @ e) * e
         symmetric_error = UNIT_ROUNDOFF * float(np.max(S_abs_rows)) * (1 + 4 * UNIT_ROUNDOFF)
+    del H
     if not (math.isfinite(estimate) and estimate > 0):
         return VerifiedEigenvalueBound(False, None, None, None, e,
                                        "no positive estimate of the smallest eigenvalue")
-    S = sp.csr_array(K.multiply(e[:, None]).multiply(e[None, :]))   # exact: powers of two
+    # S = E K E entry by entry: exact, as E holds powers of two.
+    rows = np.repeat(np.arange(n), np.diff(K.indptr))
+    S = sp.csr_array((K.data * e[rows] * e[K.indices], K.indices, K.indptr), shape=(n, n))
+    del rows
     if perm is not None:
         S = sp.csr_array(S[perm][:, perm])
+        S.sum_duplicates()                # sorts the rows the column selection left unsorted
     spec = "NATURAL" if perm is not None else "MMD_AT_PLUS_A"
     c = SHIFT_FRACTION * estimate / 4.0
     reason = ""
@@ -180,64 +196,150 @@ def verified_smallest_eigenvalue(
                                    reason + "; K may not be positive definite")
 
 
+def _symmetric_part(K: sp.csr_array) -> Optional[sp.csr_array]:
+    """None when K equals K^T entry by entry, else H = fl(K + K^T) / 2 (K canonical CSR).
+
+    K's arrays are compared with its transpose's. Same pattern: the values
+    decide, and H is formed on that pattern. Different patterns without a
+    stored zero in K: K is not symmetric (a stored nonzero has no stored
+    mirror). Otherwise H is formed and compared with K: H is symmetric, so H
+    equal to K entry by entry means K is symmetric.
+    """
+    Kt = K.T.tocsr()                      # rows sorted, as K's
+    if np.array_equal(K.indptr, Kt.indptr) and np.array_equal(K.indices, Kt.indices):
+        if np.array_equal(K.data, Kt.data):
+            return None
+        H = sp.csr_array(((K.data + Kt.data) * 0.5, K.indices.copy(), K.indptr.copy()), shape=K.shape)
+        return H                          # rounded once per entry; * 0.5 is exact
+    H = sp.csr_array(K + Kt)              # canonical; rounded once per entry
+    H.data *= 0.5                         # exact
+    if np.all(K.data != 0):
+        return H
+    same = bool(np.max(np.abs((H - K).data), initial=0.0) == 0)
+    return None if same else H
+
+
+#: Entries of U per column block when D L^T - U is formed (memory: a few
+#: arrays of this length at once; project's choice).
+BLOCK_ENTRIES = 2_000_000
+
+
 def _bound_at_shift(S: sp.csr_array, c: float, permc_spec: str):
     """(bound on ||L D L^T - (S - cI)||_2, how) or None when a pivot is not positive.
 
-    Returns (None, reason) when the factorization cannot be analysed (row pivoting).
+    S must be exactly symmetric and in canonical form (rows sorted, no repeated
+    entry), with every diagonal entry stored. Returns (None, reason) when the
+    factorization cannot be analysed (row pivoting).
     """
-    n = S.shape[0]
-    A = sp.csc_array(S - c * sp.eye_array(n, format="csr"))
-    try:
-        lu = spla.splu(A, permc_spec=permc_spec, diag_pivot_thresh=0.0,
-                       options=dict(SymmetricMode=True, Equil=False))
-    except RuntimeError:                      # an exactly zero pivot
+    A, a_diag = _shifted(S, c)
+    lu = _factor_without_pivoting(A, permc_spec)
+    del A
+    if lu is None:                            # an exactly zero pivot
         return None
     # The ordering (and SuperLU's postorder of the elimination tree) is a
     # symmetric permutation P: P A P^T = L U has A's eigenvalues. Row
     # pivoting (perm_r != perm_c) would not.
     if not np.array_equal(lu.perm_r, lu.perm_c):
         return None, "SuperLU pivoted rows: no symmetric LU without pivoting to analyse"
-    # Copies of the factors, then SuperLU's own storage is freed: at most the
-    # two copies and one array of D L^T - U's values live at once.
-    L = lu.L                                   # csc, unit diagonal
-    U = sp.csr_array(lu.U)
+    # scipy copies both factors out of SuperLU at once; SuperLU's own storage
+    # is freed with the object.
+    L, U = lu.L, lu.U                          # csc; L with its unit diagonal
     del lu
     d = U.diagonal()
     if not np.all(d > 0):
         return None
+    k = int(np.diff(U.indptr).max())
+    return _rounding_bound(L, U, d, a_diag), f"SuperLU without pivoting, {k} entries in the longest column of U"
+
+
+def _shifted(S: sp.csr_array, c: float):
+    """(S - cI as CSC, max |S_ii - c|) for an exactly symmetric canonical S storing its diagonal.
+
+    S is symmetric, so its CSR arrays are its CSC arrays; only the diagonal
+    changes, rounded once per entry (fl(S_ii - c)).
+    """
+    n = S.shape[0]
+    rows = np.repeat(np.arange(n), np.diff(S.indptr))
+    diagonal = np.flatnonzero(S.indices == rows)
+    del rows
+    if diagonal.size != n:
+        raise ValueError("S must store every diagonal entry exactly once")
+    data = S.data.copy()
+    data[diagonal] -= c
+    A = sp.csc_array((data, S.indices.copy(), S.indptr.copy()), shape=(n, n))
+    return A, float(np.max(np.abs(data[diagonal])))
+
+
+def _factor_without_pivoting(A: sp.csc_array, permc_spec: str):
+    """SuperLU's LU of A in symmetric mode, no row pivoting; None on an exactly zero pivot."""
+    try:
+        return spla.splu(A, permc_spec=permc_spec, diag_pivot_thresh=0.0,
+                         options=dict(SymmetricMode=True, Equil=False))
+    except RuntimeError:
+        return None
+
+
+def _rounding_bound(L: sp.csc_array, U: sp.csc_array, d: NDArray[np.float64], a_diag: float) -> float:
+    """Proved upper bound on ||L D L^T - (S - cI)||_2 for SuperLU's factors of A = fl(S - cI).
+
+    L (unit lower) and U (upper, pivots d = diag U > 0) in CSC form, as scipy
+    copies them out; consumed (their values are overwritten). ``a_diag`` is
+    max |A_ii|: the diagonal of A was rounded once, |error| <= u |A_ii| (A and
+    the factors are in different row orders, so the two maxima are added).
+    """
+    n = L.shape[0]
     u = UNIT_ROUNDOFF
-    Lt = sp.csr_array(L.T)                     # csr view of L^T (shares L's arrays)
-    Lt.sort_indices()
-    U.sort_indices()
-    row_len_L = np.diff(L.indptr)              # L's column counts = L^T's row counts
-    k = int(np.bincount(L.indices, minlength=n).max()) + 1   # longest row of L, plus the division
+    k = int(np.diff(U.indptr).max())           # longest column of U, diagonal included
+    g = _rounding_row_sums(L, U, d, k)
+    # Every sum of nonnegative terms has at most n terms, every other rounding
+    # is one of a handful per term: enlarged by 1 + 4(n + 4) u.
+    return (g + u * a_diag) * (1.0 + 4 * (n + 4) * u)
+
+
+def _rounding_row_sums(L: sp.csc_array, U: sp.csc_array, d: NDArray[np.float64], k: int) -> float:
+    """The largest row sum of |L| |D L^T - U| + gamma_k |L| |U| (as computed; dimensionless).
+
+    L (unit lower) and U (upper, pivots d > 0) are SuperLU's computed factors
+    in CSC form, consumed: their values are overwritten by their absolute
+    values. Every rounding below is upward-accounted by the caller's factor
+    1 + 4(n + 4) u except those of D L^T - U, bounded here:
+    fl(fl(d_i L_ji) - U_ij) = (d_i L_ji (1 + e1) - U_ij)(1 + e2), |e1|, |e2| <= u, so
+    |d_i L_ji - U_ij| <= |fl(...)| (1 + 2u) + 2u |d_i L_ji|, and |D L^T| 1 = D (|L|^T 1).
+    """
+    n = L.shape[0]
+    u = UNIT_ROUNDOFF
     gamma_k = k * u / (1.0 - k * u)
     ones = np.ones(n)
-    # D L^T row by row (entry-wise products, one rounding each), then F = D L^T - U:
-    # on the same pattern a plain difference of the value arrays.
-    dlt = Lt.data * np.repeat(d, np.diff(Lt.indptr))
-    if np.array_equal(Lt.indptr, U.indptr) and np.array_equal(Lt.indices, U.indices):
-        dlt -= U.data
-        absF = sp.csr_array((np.abs(dlt), Lt.indices, Lt.indptr), shape=(n, n)) @ ones
-        m = int(np.diff(Lt.indptr).max(initial=0))
-    else:
-        F = sp.csr_array((dlt, Lt.indices, Lt.indptr), shape=(n, n)) - U
-        absF = abs(F) @ ones
-        m = int(np.diff(F.indptr).max(initial=0))
-        del F
-    del dlt
-    absU = abs(U) @ ones
-    # |exact D L^T - U| <= |fl(F)| (1 + 2u) + 2u |D L^T|: the product and the
-    # difference are rounded once each; |D L^T| 1 = |d| (|L^T| 1).
-    np.abs(L.data, out=L.data)                 # |L|, in place (L is our copy)
-    h1 = absF * (1 + 2 * u) + 2 * u * np.abs(d) * (L.T @ ones)
-    g = L @ h1 + gamma_k * (L @ absU)
-    m = max(m, k, int(row_len_L.max()), int(np.diff(U.indptr).max())) + 4
-    # The diagonal of S - cI was rounded once: |error| <= u |S_ii - c| (A and
-    # the factors are in different row orders, so the two maxima are added).
-    bound = (float(np.max(g)) + u * float(np.max(np.abs(A.diagonal())))) * (1.0 + 4 * m * u)
-    return bound, f"SuperLU without pivoting, {k - 1} entries in the longest row of L"
-
+    Lr = L.tocsr()                             # rows of L = columns of L^T, each sorted
+    np.abs(L.data, out=L.data)
+    lt1 = L.T @ ones                           # |L|^T 1, the column sums of |L|
+    del L
+    absF = np.zeros(n)                         # row sums of |fl(D L^T - U)|
+    absU = np.zeros(n)                         # row sums of |U|
+    # Column j of D L^T - U is d_i L_ji (row j of L, scaled row by row) minus
+    # column j of U; scipy forms the difference of two CSC blocks with
+    # unsorted rows through a sparse accumulator, without sorting. A position
+    # held by one side only is copied exactly (x - 0, 0 - x); no index repeats
+    # within a column of SuperLU's factors, so no sum is formed before the
+    # difference. Differences that are exactly zero are dropped (they add 0).
+    cuts = np.searchsorted(U.indptr, np.arange(0, U.indptr[-1], BLOCK_ENTRIES), side="right") - 1
+    edges = np.unique(np.concatenate([cuts, [0, n]]))
+    for a, b in zip(edges[:-1], edges[1:]):
+        pa, pb = Lr.indptr[a], Lr.indptr[b]
+        qa, qb = U.indptr[a], U.indptr[b]
+        li = Lr.indices[pa:pb]
+        X = sp.csc_array((Lr.data[pa:pb] * d[li], li, Lr.indptr[a:b + 1] - pa), shape=(n, b - a))
+        Y = sp.csc_array((U.data[qa:qb], U.indices[qa:qb], U.indptr[a:b + 1] - qa), shape=(n, b - a))
+        F = X - Y
+        np.abs(F.data, out=F.data)
+        absF += F @ ones[: b - a]
+        np.abs(Y.data, out=Y.data)             # U's own values (a view): not needed signed again
+        absU += Y @ ones[: b - a]
+        del X, Y, F, li
+    del U
+    np.abs(Lr.data, out=Lr.data)
+    h = absF * (1 + 2 * u) + (2 * u) * d * lt1 + gamma_k * absU
+    return float(np.max(Lr @ h))
 
 
 def certified_errors(
