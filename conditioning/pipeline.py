@@ -251,7 +251,8 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
             fac = run.engine.factorize(scaled, coords=_row_coordinates(model), memory_limit=run.memory_limit)
     except FactorizationTooLarge as exc:
         too_large = exc
-        skipped["factorization"] = (f"the factor would need about {exc.prediction.bytes / 2**30:.1f} GiB "
+        alone = exc.prediction.bytes - exc.prediction.pivot_read_bytes
+        skipped["factorization"] = (f"the factor would need about {alone / 2**30:.1f} GiB "
                                     f"({exc.prediction.method}), more than the {exc.limit / 2**30:.1f} GiB allowed")
         skipped.update(WITHOUT_FACTORIZATION)
     # Independent streams for the stages that draw start vectors, so that the
@@ -316,7 +317,8 @@ def _factorization_free_finding(too_large: FactorizationTooLarge, method: str) -
     pred = too_large.prediction
     return Finding(
         "warning", "analysis.factorization-free",
-        f"The factorization would need about {pred.bytes / 2**30:.1f} GiB ({pred.method}), more than the "
+        f"The factorization would need about {(pred.bytes - pred.pivot_read_bytes) / 2**30:.1f} GiB "
+        f"({pred.method}), more than the "
         f"{too_large.limit / 2**30:.1f} GiB allowed, so the spectrum was computed without one "
         f"({method}). Not available on this path: {'; '.join(WITHOUT_FACTORIZATION.values())}.",
         [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis.")

@@ -66,7 +66,8 @@ class FactorizationTooLarge(MemoryError):
     def __init__(self, prediction: FactorMemoryPrediction, limit: int):
         self.prediction = prediction
         self.limit = int(limit)
-        super().__init__(f"the factorization would need about {prediction.bytes / 2**30:.1f} GiB "
+        super().__init__(f"the factorization would need about "
+                         f"{(prediction.bytes - prediction.pivot_read_bytes) / 2**30:.1f} GiB "
                          f"(limit {limit / 2**30:.1f} GiB)")
 
 
