@@ -303,7 +303,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     if too_large is not None:
         findings.append(_factorization_free_finding(too_large, eig.method))
     if fac is not None and fac.info.pivots_note:
-        findings.append(_pivots_not_read_finding(fac.info.pivots_note))
+        findings.append(_pivots_not_read_finding(fac.info.pivots_note, measured=bool(digits and digits.samples)))
     line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=run.min_digits)
     return Report(
         summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
@@ -324,13 +324,13 @@ def _factorization_free_finding(too_large: FactorizationTooLarge, method: str) -
         [], "Run on a machine with more memory (or raise CONDITIONING_MEMORY_LIMIT) for the full diagnosis.")
 
 
-def _pivots_not_read_finding(note: str) -> Finding:
+def _pivots_not_read_finding(note: str, *, measured: bool) -> Finding:
     return Finding(
         "note", "analysis.pivots-not-read",
         f"The factorization ran, but its pivots were {note}. Not available therefore: the digits lost at "
         "pivots; the inertia count, so that positive definiteness rests on the eigenvalues found nearest "
-        "zero rather than on Sylvester's law; and the verified eigenvalue bound, so the digits are measured, "
-        "not certified.",
+        "zero rather than on Sylvester's law; and the verified eigenvalue bound"
+        + (", so the digits are measured, not certified." if measured else "."),
         [], "Raise CONDITIONING_MEMORY_LIMIT or run on a machine with more memory for these figures.")
 
 
