@@ -46,6 +46,12 @@ def test_model_too_big_for_the_memory_limit_takes_the_factorization_free_path(mo
     assert report.spectrum.count == 6
     assert sorted(max(m.motion, key=m.motion.get) for m in report.spectrum.modes) == \
         ["rx", "ry", "rz", "ux", "uy", "uz"]
+    # The key figures say why the pivots and digits are missing, never as if none were lost.
+    from conditioning.render.terminal import render_text
+    text = render_text(report, width=100)
+    key = text[text.index("Key figures"):text.index("Model")]
+    assert key.count("not measured: no factorization (memory)") == 2
+    assert "no digits lost" not in key
 
 
 def test_supported_model_on_the_factorization_free_path(monkeypatch):

@@ -246,14 +246,13 @@ def _key_figures(r: results.Report):
     sp = r.spectrum
     if sp is not None:
         t.add_row("near-singular modes", _mode_count(sp),
-                  _mode_how(sp) + ("; inertia not counted" if "inertia check" in r.skipped else ""))
+                  _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
     if r.jumps:
         worst = max(r.jumps, key=lambda j: j.digits_cost)
         t.add_row("stiffness jumps", str(len(r.jumps)), f"estimated; worst {_jump_cost(worst)} digits")
     p = r.pivots
     if p is None and "pivots" in r.skipped:
-        # The reason's first clause: the whole sentence is in the pivots section and the JSON.
-        t.add_row("digits lost at a pivot", "-", f"not measured: {r.skipped['pivots'].split(':')[0]}")
+        t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
         if p.negative_pivots:
             t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
@@ -267,7 +266,16 @@ def _key_figures(r: results.Report):
                   f"{_how_digits(worst.method)}; worst of {n} sample{'s' if n != 1 else ''}")
     elif dg is not None and dg.skipped:
         t.add_row("trustworthy digits", "-", "not measured (see below)")
+    elif dg is None and "digits" in r.skipped:
+        t.add_row("trustworthy digits", "-", _not_measured(r, "digits"))
     return t if t.row_count else None
+
+
+def _not_measured(r: results.Report, stage: str) -> str:
+    """Why a stage's figure is missing, short: the whole sentence is in the findings and the JSON."""
+    if "factorization" in r.skipped:
+        return "not measured: no factorization (memory)"
+    return f"not measured: {r.skipped[stage].split(':')[0]}"
 
 
 def _kappa(value: Optional[float], singular: bool) -> str:
