@@ -236,7 +236,7 @@ WITHOUT_FACTORIZATION = {
     "inertia check": "no inertia count: the number of near-singular modes rests on the eigenvalue gap alone, "
                      "not confirmed by Sylvester's law of inertia",
     "digits": "no digits measurement: there is no factorization to solve with",
-    "pivots": "no digits lost at pivots: there are no pivots",
+    "pivots": "no figure of the digits lost at pivots: without a factorization there are no pivots",
 }
 
 
