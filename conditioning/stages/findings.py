@@ -260,6 +260,26 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
                        if restraints_given else "."))
 
 
+#: A rigid group of a mechanism whose largest displacement is below this share
+#: of the mode's largest is said to stand still (the project's choice: the
+#: modes stage names nodes from 1% of the largest node's weight).
+STILL_SHARE = 0.01
+
+
+def _moving_and_still(model: Model, mode: NearSingularMode) -> tuple[list[list[int]], list[list[int]]]:
+    """The mode's rigid groups split into those that move and those that stand
+    still (a group of the mechanism can be held while the rest moves)."""
+    if mode.vector is None or model.dofs is None:
+        return list(mode.groups), []
+    u = np.abs(np.asarray(mode.vector, dtype=np.float64))
+    top = float(np.max(u, initial=0.0)) or 1.0
+    moving, still = [], []
+    for g in mode.groups:
+        amplitude = float(np.max(u[np.isin(model.dofs.node, g)], initial=0.0))
+        (still if amplitude < STILL_SHARE * top else moving).append(g)
+    return moving, still
+
+
 def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingularMode,
                        rows_word: str) -> Finding:
     head = (f"Internal {'near-' if not mode.exact else ''}mechanism{_where(structure, mode.part)}: "
@@ -267,12 +287,15 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
     if mode.description:
         head += f" ({mode.description})"
     if mode.groups:
-        named = "; ".join(f"{{{_list_nodes(g, GROUP_NODES_NAMED)}}}" for g in mode.groups[:GROUPS_NAMED])
-        more = len(mode.groups) - GROUPS_NAMED
-        head += (f"; {len(mode.groups)} groups moving rigidly: {named}"
-                 + (f" and {more} more" if more > 0 else ""))
+        moving, still = _moving_and_still(model, mode)
+        for groups, words in ((moving, "moving rigidly"), (still, "standing still")):
+            if groups:
+                named = "; ".join(f"{{{_list_nodes(g, GROUP_NODES_NAMED)}}}" for g in groups[:GROUPS_NAMED])
+                more = len(groups) - GROUPS_NAMED
+                head += (f"; {len(groups)} group{'s' if len(groups) != 1 else ''} {words}: {named}"
+                         + (f" and {more} more" if more > 0 else ""))
         if mode.meeting:
-            head += f", meeting at {rows_word} {_list_nodes(mode.meeting)}"
+            head += f"; the groups meet at {rows_word} {_list_nodes(mode.meeting)}"
     advice = ("Restrain the member's rotation about its own axis at one end (release torsion at one end "
               "only), or restrain that rotation at one of its nodes." if mode.description.startswith("spin")
               else "Look for a missing brace, a released end (hinge) too many, or a member that "
