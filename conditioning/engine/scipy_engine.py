@@ -223,11 +223,16 @@ def _factor_once(S: sp.csr_array, ordering: Ordering, coords, memory_limit=None)
 def _near_singular_without_pivots(lu, perm, n: int, norm_inf: float) -> bool:
     """The shift policy's test when the pivots were not read: one solve.
 
-    A pivot below n*eps*||S||_inf makes S^-1 b grow by about its inverse in
-    the direction of that pivot's row; a seeded random b (fixed, so the
-    verdict repeats) has a component there. True when
-    ||S^-1 b||_inf > ||b||_inf / (n eps ||S||_inf), the same threshold as the
-    pivot test (the project's substitute for it, not a proof either way).
+    True when ||S^-1 b||_inf > ||b||_inf / (n eps ||S||_inf) for a seeded
+    random b (fixed, so the verdict repeats). A pivot p makes S^-1 b grow by
+    about 1/p along that pivot's row, and b has a component there, so a
+    factor that is singular at working precision (a free mode: p near
+    eps ||S||) is caught by a wide margin. The test is more lenient than the
+    pivot test near its threshold: a pivot a little below n*eps*||S||_inf may
+    pass, and the factor is then kept unshifted; the spectrum stage's gap
+    rule still finds that mode as nearly free, and the digits measured on it
+    say what it costs. The project's substitute for the pivot test, not a
+    proof either way.
     """
     b = np.random.default_rng(20261203).standard_normal(n)
     if perm is None:
