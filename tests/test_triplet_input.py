@@ -80,3 +80,13 @@ def test_a_huge_index_is_a_one_line_error_not_an_allocation(tmp_path, capsys):
     assert main(["diagnose", str(p)]) == 2
     err = capsys.readouterr().err.strip()
     assert "\n" not in err and "order 3,657,822,721 from only 3 entries" in err
+
+
+def test_an_index_beyond_int64_is_a_one_line_error(tmp_path, capsys):
+    """A mangled size line read as a triplet ('99999999999999999999 5 13', found by
+    the fuzz test) overflowed the integer conversion: now a one-line error."""
+    p = tmp_path / "k.mtx"
+    p.write_text("%\n99999999999999999999 5 13\n1 1 2\n1 2 -1\n2 1 -1\n2 2 2\n")
+    assert main(["diagnose", str(p)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and "index is too large" in err

@@ -704,7 +704,11 @@ def _read_triplets(name: str):
                                f"{lines[0][0]} '{' '.join(first)}' reads as a size line (rows, columns, "
                                "entries); add '%%MatrixMarket matrix coordinate real general' above it")
     table = np.array([f for _, f in lines])
-    rows, cols = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
+    try:
+        rows, cols = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
+    except OverflowError:
+        raise InputError(name, "looks like a triplet list, but an index is too large for a matrix "
+                               f"(above {np.iinfo(np.int64).max:,}): check the indices") from None
     vals = np.char.replace(np.char.replace(table[:, 2], "D", "E"), "d", "e").astype(np.float64)
     low = int(min(rows.min(), cols.min()))
     if low < 0:
