@@ -11,6 +11,13 @@ import os
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# CI draws the same examples on every run (a landing must not hang on a new
+# random draw); locally each run draws new ones, to keep finding cases.
+settings.register_profile("ci", derandomize=True, database=None)
+if os.environ.get("CONDITIONING_CI"):
+    settings.load_profile("ci")
 
 REPO = Path(__file__).resolve().parents[1]
 SHARED = Path(os.environ.get("CONDITIONING_SHARED", REPO.parent / "shared"))
