@@ -46,7 +46,8 @@ from conditioning.stages.modes import locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import suggest_restraints
-from conditioning.stages.spectrum import inertia_check, smallest_eigenpairs, spectrum_result, with_inertia
+from conditioning.stages.spectrum import (inertia_check, smallest_eigenpairs, spectrum_result, with_inertia,
+                                          with_low_end_search)
 from conditioning.stages.structure import check_structure
 
 logger = logging.getLogger(__name__)
@@ -257,7 +258,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         skipped.update(WITHOUT_FACTORIZATION)
     # Independent streams for the stages that draw start vectors, so that the
     # random loads (drawn from run.rng itself) do not move when they change.
-    spectrum_rng, condition_rng = _spawn(run.rng, 2)
+    spectrum_rng, condition_rng, low_end_rng = _spawn(run.rng, 3)
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
     with stage("modes"):
@@ -287,13 +288,20 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         if fac.info.pivots_note:
             skipped["inertia check"] = (
                 f"the factorization's pivots were {fac.info.pivots_note}: negative eigenvalues are those "
-                "the eigensolver found near zero, not counted by Sylvester's law of inertia")
+                "the eigensolver found near zero and those a Lanczos search of the low end of S proves, "
+                "not counted by Sylvester's law of inertia")
         elif eig.split_point is not None:
             with stage("inertia check"):
                 spectrum = with_inertia(spectrum, inertia_check(fac, eig))
         # The proof factors the shifted S once more: after the shared factor is
         # released, so that the two never coexist in memory.
         fac.release()
+    if not spectrum.negative_exact:
+        # Without an inertia count a negative eigenvalue far below zero is
+        # outside the eigensolver's window: search the low end by products.
+        with stage("low-end search"):
+            spectrum = with_low_end_search(spectrum, scaled.S, rng=low_end_rng)
+    if fac is not None:
         if digits is not None and digits.samples:
             with stage("certification"):
                 digits = certify_digits(model, digits, condition, perm, structure,
@@ -329,7 +337,8 @@ def _pivots_not_read_finding(note: str, *, measured: bool) -> Finding:
         "note", "analysis.pivots-not-read",
         f"The factorization ran, but its pivots were {note}. Not available therefore: the digits lost at "
         "pivots; the inertia count, so that positive definiteness rests on the eigenvalues found nearest "
-        "zero rather than on Sylvester's law; and the verified eigenvalue bound"
+        "zero and a Lanczos search of the low end of the spectrum rather than on Sylvester's law; and the "
+        "verified eigenvalue bound"
         + (", so the digits are measured, not certified." if measured else "."),
         [], "Raise CONDITIONING_MEMORY_LIMIT or run on a machine with more memory for these figures.")
 

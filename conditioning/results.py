@@ -309,7 +309,8 @@ class SpectrumResult:
     incomplete), None when there was no inertia count (no split, or no
     factorization)."""
     negative_eigenvalues: int
-    """Eigenvalues of K below zero beyond round-off (indefinite stiffness)."""
+    """Eigenvalues of K below zero beyond round-off (indefinite stiffness);
+    at least this many when ``negative_exact`` is False."""
     modes: list[NearSingularMode]
     """The near-singular modes: DOFs without stiffness first, then per part
     its rigid-body modes and mechanisms (``count`` of them)."""
@@ -329,6 +330,14 @@ class SpectrumResult:
     mode_groups: list[ModeGroup] = field(default_factory=list)
     """``modes`` grouped by kind, part and exactness, in the order of their
     first mode: one line each in the terminal and HTML reports."""
+    negative_method: str = ""
+    """How ``negative_eigenvalues`` was obtained, in words (all eigenvalues,
+    the factorization's inertia, the eigenvalues found, a Lanczos search of
+    the low end of the spectrum)."""
+    negative_exact: bool = True
+    """True when ``negative_eigenvalues`` is a count (LAPACK, or Sylvester's
+    law on the factorization's pivots); False when it is a lower bound (only
+    the eigenvalues found, or proved, are counted)."""
 
 
 @dataclass(frozen=True)

@@ -159,3 +159,65 @@ def test_singular_model_found_without_reading_pivots(monkeypatch):
     assert report.factorization.negative_pivots is None and report.factorization.shift < 0
     assert report.condition.singular and report.spectrum.count == 6
     assert "inertia check" in report.skipped
+
+
+def _indefinite_block():
+    """A clamped scikit-fem block (1,800 rows) with one symmetric coupling stronger than the two
+    coupled DOFs' own stiffness: every diagonal stays positive, but K gets one eigenvalue far
+    below zero (its scaled value near -1, where the positive ones start near 2e-3)."""
+    fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")
+    ref = fe.solid_block(nx=14, ny=5, nz=5)
+    clamped = [(int(node), name) for node, x in zip(ref.coords.node, ref.coords.xyz[:, 0])
+               if x == ref.coords.xyz[:, 0].min() for name in ("ux", "uy", "uz")]
+    ref = fe.restrained(ref, clamped)
+    K = sp.lil_array(ref.K)
+    a, b = 100, 700
+    K[a, b] = K[b, a] = 2.0 * math.sqrt(K[a, a] * K[b, b])
+    K = sp.csr_array(K)
+    rng = np.random.default_rng(3)
+    return Model(K, dofs=ref.dofs, coords=ref.coords, load=rng.standard_normal(K.shape[0]))
+
+
+def test_far_negative_eigenvalue_found_on_every_path(monkeypatch):
+    """An indefinite K whose negative eigenvalue is far outside the shift-and-invert window
+    near zero: with the pivots its inertia counts it; without them (factor without the pivot
+    read) and without any factorization, the Lanczos search of the low end proves it, and the
+    report says "at least" and how it was found, never "counted from the pivots".
+    Reference: LAPACK (numpy eigvalsh) for the number of negative eigenvalues."""
+    model = _indefinite_block()
+    w = np.linalg.eigvalsh(model.K.toarray())  # LAPACK syevd
+    assert np.count_nonzero(w < 0) == 1 and np.all(model.K.diagonal() > 0)
+
+    full = conditioning.diagnose(model, measure=False)  # the digits are not in question here
+    assert full.spectrum.negative_eigenvalues == 1 and full.spectrum.negative_exact
+    assert full.status == "errors" and full.verdict.startswith("indefinite")
+
+    monkeypatch.setattr(factorization, "PREDICT_ABOVE", 100)
+    for limit in (_between_factor_and_pivot_read(model), 1 << 12):
+        report = conditioning.diagnose(model, memory_limit=limit, measure=False)
+        sp_ = report.spectrum
+        assert sp_.negative_eigenvalues == 1 and not sp_.negative_exact
+        assert "Lanczos search" in sp_.negative_method and "proved 1" in sp_.negative_method
+        assert report.status == "errors"
+        assert report.verdict.startswith("indefinite: at least 1 negative eigenvalue")
+        indefinite = next(f for f in report.findings if f.code == "stiffness.indefinite")
+        assert "at least 1" in indefinite.message and "pivots' signs" not in indefinite.message
+        assert "low-end search" in report.timings
+
+
+def test_positive_definite_on_the_path_without_pivots_searches_and_says_so(monkeypatch):
+    """Positive definite (the same block without the coupling): the low-end search finds
+    nothing and the count stays 0, with the search said to be no proof (reference: LAPACK
+    eigvalsh, all eigenvalues positive)."""
+    fe = pytest.importorskip("fe_reference", reason="scikit-fem (test-only) is not installed")
+    ref = fe.solid_block(nx=14, ny=5, nz=5)  # above the dense eigensolver's limit
+    clamped = [(int(node), name) for node, x in zip(ref.coords.node, ref.coords.xyz[:, 0])
+               if x == ref.coords.xyz[:, 0].min() for name in ("ux", "uy", "uz")]
+    ref = fe.restrained(ref, clamped)
+    model = Model(ref.K, dofs=ref.dofs, coords=ref.coords)
+    assert np.linalg.eigvalsh(ref.K.toarray())[0] > 0  # LAPACK syevd
+    monkeypatch.setattr(factorization, "PREDICT_ABOVE", 100)
+    report = conditioning.diagnose(model, memory_limit=_between_factor_and_pivot_read(model), measure=False)
+    assert report.spectrum.negative_eigenvalues == 0 and not report.spectrum.negative_exact
+    assert "not a proof" in report.spectrum.negative_method
+    assert report.status != "errors"

@@ -433,8 +433,8 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     if verbose or len(counts) > 2 or sp.negative_eigenvalues or sp.inertia_agrees is False:
         lines += [Text(line, style="red" if "DISAGREES" in line else "") for line in counts]
     if sp.negative_eigenvalues:
-        lines.append(Text(f"{sp.negative_eigenvalues} negative eigenvalue(s) of K: the "
-                          "stiffness is indefinite", style="red"))
+        lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues} negative "
+                          "eigenvalue(s) of K: the stiffness is indefinite", style="red"))
     if verbose:
         lines.append(Text(f"method: {sp.method}", style="dim"))
         lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))

@@ -345,9 +345,11 @@ def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[Pivo
     out = []
     if spectrum.negative_eigenvalues and not (pivots is not None and pivots.negative_pivots):
         # With pivots, the negative-pivot finding says it with a location.
+        at_least = "" if spectrum.negative_exact else "at least "
+        how = spectrum.negative_method or "the pivots' signs, Sylvester's law of inertia"
         out.append(Finding("error", "stiffness.indefinite",
-                           f"K has {spectrum.negative_eigenvalues:,} negative eigenvalue(s) (counted from "
-                           "the pivots' signs, Sylvester's law of inertia).", [],
+                           f"K has {at_least}{spectrum.negative_eigenvalues:,} negative eigenvalue(s), "
+                           f"from {how}.", [],
                            "A linear elastic stiffness is positive semi-definite: look for negative "
                            "springs, stress stiffening under compression or buckling."))
     if spectrum.inertia_agrees is False:
@@ -725,7 +727,8 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
     pivots = [f for f in findings if f.code == "factor.negative-pivot"]
     if negative or pivots or "stiffness.indefinite" in codes:
-        count = f"{negative} negative eigenvalue{'' if negative == 1 else 's'}" if negative else ""
+        at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
+        count = f"{at_least}{negative} negative eigenvalue{'' if negative == 1 else 's'}" if negative else ""
         if pivots:
             nodes = pivots[0].nodes
             at = f"{words[:-1]} {nodes[0]}" if len(nodes) == 1 else f"{words} {_list_nodes(nodes, 4)}"

@@ -45,6 +45,7 @@ from conditioning.stages import spectrum_iterative
 from conditioning.stages.mode_groups import group_modes
 
 from conditioning.linalg.floating_point import EPS
+from conditioning.linalg.negative_eigenvalues import search_negative_eigenvalues
 
 logger = logging.getLogger(__name__)
 
@@ -99,7 +100,14 @@ class Eigenpairs:
         factorization's inertia: what the inertia check at c is compared
         with. None without a split or without a factorization.
     negative : int
-        Eigenvalues of S (hence of K, by Sylvester) below -zero_level.
+        Eigenvalues of S (hence of K, by Sylvester) below -zero_level; a
+        lower bound when ``negative_exact`` is False.
+    negative_method : str
+        How ``negative`` was counted, in words.
+    negative_exact : bool
+        True when ``negative`` is a count (all eigenvalues, or the
+        factorization's inertia); False when only the eigenvalues the solver
+        found were counted.
     method : str
         How the eigenpairs were obtained, in words.
     converged : bool
@@ -119,6 +127,8 @@ class Eigenpairs:
     negative: int
     method: str
     converged: bool = True
+    negative_method: str = ""
+    negative_exact: bool = True
 
 
 def largest_eigenvalue(A, rtol: float = 1e-3, max_steps: int = 600, v0: Optional[NDArray] = None,
@@ -294,10 +304,19 @@ def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, 
     # Shift-and-invert finds eigenvalues near the shift only: true negative
     # ones far below are counted by the factorization's inertia (when its
     # pivots were read; otherwise only those found are counted).
-    known = dense or fac is None or fac.info.negative_pivots is None
-    negative = first if known else int(fac.info.negative_pivots)
+    if dense:
+        negative, exact, how = first, True, "all eigenvalues of S (LAPACK)"
+    elif fac is not None and fac.info.negative_pivots is not None:
+        negative, exact = int(fac.info.negative_pivots), True
+        how = "the factorization's inertia (signs of its pivots, Sylvester's law)"
+    elif fac is not None:
+        negative, exact = first, False
+        how = "the eigenvalues found near zero by shift-and-invert (no inertia: the pivots were not read)"
+    else:
+        negative, exact = first, False
+        how = "the smallest eigenvalues found by LOBPCG (no inertia: no factorization)"
     return Eigenpairs(values, vectors, lam_max, count, first, gap, zero, split_point, expected, negative,
-                      method, converged)
+                      method, converged, negative_method=how, negative_exact=exact)
 
 
 def scaled_spectrum(K: sp.csr_array, fac: Factorization, *, k: Optional[int] = None, rng=0) -> Eigenpairs:
@@ -355,6 +374,8 @@ def spectrum_result(eig: Eigenpairs, modes: list[NearSingularMode], stiff_link_e
         inertia_agrees=None if inertia_count is None or eig.below_split is None
         else inertia_count == eig.below_split,
         negative_eigenvalues=int(eig.negative),
+        negative_method=eig.negative_method,
+        negative_exact=eig.negative_exact,
         modes=modes,
         method=method,
         smallest_vector=_smallest_vector(eig, active),
@@ -362,6 +383,20 @@ def spectrum_result(eig: Eigenpairs, modes: list[NearSingularMode], stiff_link_e
         stiff_link_eigenvalues=list(stiff_link_eigenvalues),
         mode_groups=group_modes(modes),
     )
+
+
+def with_low_end_search(spectrum: SpectrumResult, S: sp.sparray, *, rng=0) -> SpectrumResult:
+    """``spectrum`` with the negative eigenvalues a Lanczos search of S's low end proves.
+
+    For a spectrum whose negative count is only what the eigensolver found
+    (``negative_exact`` False): a negative eigenvalue far below zero is outside
+    a shift-and-invert window. The count becomes the larger of the two (they
+    may be the same eigenvalues) and stays a lower bound; ``negative_method``
+    says what the search showed (:func:`conditioning.linalg.negative_eigenvalues.search_negative_eigenvalues`).
+    """
+    search = search_negative_eigenvalues(S, rng=rng)
+    return replace(spectrum, negative_eigenvalues=max(spectrum.negative_eigenvalues, search.proved),
+                   negative_method=f"{spectrum.negative_method}; {search.how}")
 
 
 def with_inertia(spectrum: SpectrumResult, inertia_count: Optional[int]) -> SpectrumResult:
