@@ -127,9 +127,6 @@ class DDOperator:
     blocks: tuple
     """Per block: (first entry, end entry, rows with entries, their first
     entry within the block, their entry counts)."""
-    entry_rows: NDArray[np.int32]
-    """The row of every stored entry (to spread a per-row value over a
-    block's entries without building it each time)."""
     max_row_entries: int
     """Largest number of stored entries in a row."""
 
@@ -167,8 +164,7 @@ def dd_operator(K: Union[sp.sparray, sp.spmatrix, "DDOperator"]) -> DDOperator:
             c = counts[r0:r1]
             filled = np.flatnonzero(c)
             blocks.append((e0, e1, r0 + filled, K.indptr[r0:r1][filled] - e0, c[filled]))
-    entry_rows = np.repeat(np.arange(K.shape[0], dtype=np.int32), counts)
-    return DDOperator(K, a_hi, a_lo, K_abs, bounds, tuple(blocks), entry_rows, int(counts.max(initial=0)))
+    return DDOperator(K, a_hi, a_lo, K_abs, bounds, tuple(blocks), int(counts.max(initial=0)))
 
 
 def _row_blocks(indptr: NDArray, per_block: int) -> NDArray[np.intp]:
@@ -262,9 +258,8 @@ def dd_residual(
     q2 = np.zeros(op.n)
     rem = np.zeros(op.n) if x_lo is None else op.K @ np.asarray(x_lo, dtype=np.float64)
     work = _Workspace(int(np.max(np.diff(op.K.indptr[op.bounds]), initial=0)))
-    x_split_hi = split(x_hi)[0]                      # split once per x, not once per entry
     for block in op.blocks:
-        _residual_block(op, x_hi, x_split_hi, sigma_row, block, M, q1, q2, rem, work)
+        _residual_block(op, x_hi, sigma_row, block, M, q1, q2, rem, work)
     # Step 4: r = f - Q - Q' - R, the exact parts subtracted by TwoSum.
     h, l1 = two_sum(f, -q1)
     h, l2 = two_sum(h, -q2)
@@ -278,22 +273,20 @@ class _Workspace:
         self.b, self.p, self.e, self.s, self.t, self.u = (np.empty(size) for _ in range(6))
 
 
-def _residual_block(op: DDOperator, x, x_split_hi, sigma_row, block, M: int, q1, q2, rem,
+def _residual_block(op: DDOperator, x, sigma_row, block, M: int, q1, q2, rem,
                     w: _Workspace) -> None:
-    """Steps 1-3 of :func:`dd_residual` for one block of rows; writes q1, q2, adds to rem.
-
-    ``x_split_hi`` is the high half of Dekker's split of x (``split(x)[0]``).
-    """
+    """Steps 1-3 of :func:`dd_residual` for one block of rows; writes q1, q2, adds to rem."""
     e0, e1, rows, starts, counts = block
     m = e1 - e0
     b, p, e, s, t, v = (a[:m] for a in (w.b, w.p, w.e, w.s, w.t, w.u))
     ah, al = op.a_hi[e0:e1], op.a_lo[e0:e1]
-    columns = op.K.indices[e0:e1]
-    np.take(x, columns, out=b)
+    np.take(x, op.K.indices[e0:e1], out=b)
     # Step 1: TwoProduct p + e = K_ij x_j (Dekker), split of K_ij stored.
     np.multiply(op.K.data[e0:e1], b, out=p)
-    np.take(x_split_hi, columns, out=t)              # t = bh, the split of b taken from x's
-    np.subtract(b, t, out=b)                         # b = bl (exact)
+    np.multiply(b, SPLITTER, out=t)                  # split b = bh + bl
+    np.subtract(t, b, out=s)
+    np.subtract(t, s, out=t)                         # t = bh
+    np.subtract(b, t, out=b)                         # b = bl
     np.multiply(ah, t, out=e)
     np.subtract(p, e, out=e)
     np.multiply(al, t, out=s)
@@ -303,7 +296,7 @@ def _residual_block(op: DDOperator, x, x_split_hi, sigma_row, block, M: int, q1,
     np.multiply(al, b, out=s)
     np.subtract(s, e, out=e)                         # e = al*bl - (((p - ah bh) - al bh) - ah bl)
     # Step 2: ExtractVector against sigma_i = 2^M 2^ceil(log2 t_i).
-    np.take(sigma_row, op.entry_rows[e0:e1], out=s)
+    s = np.repeat(sigma_row[rows], counts)
     np.add(s, p, out=v)
     np.subtract(v, s, out=v)                         # q
     np.subtract(p, v, out=p)                         # p' = p - q (exact)
