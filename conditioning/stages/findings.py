@@ -249,10 +249,15 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
                         rows_word: str) -> Finding:
     who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
     nearly = "" if mode.exact else "nearly "
+    part_nodes = model.nodes_of(np.flatnonzero(structure.part_of_row == mode.part - 1))
+    still = sorted(set(part_nodes) - set(mode.nodes))
+    stay = (f"; {rows_word if len(still) > 1 else rows_word[:-1]} {_list_nodes(still)} "
+            f"{'stay' if len(still) > 1 else 'stays'} in place (on the axis the "
+            f"{'model' if structure.parts <= 1 else 'part'} turns about)" if still else "")
     return Finding(
         "error", "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}."
+        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
         f"{_held_text(mode)}",
         mode.nodes,
         "Add supports in the directions that move, or connect the part to the supported "
