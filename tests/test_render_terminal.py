@@ -209,3 +209,23 @@ def test_lanczos_condition_figure_is_an_estimate_not_a_bound():
     shown = float(re.search(r"\d\.\d\de[+-]\d+", line).group())
     assert shown == pytest.approx(lam[-1] / lam[0], rel=0.01)
     assert line.split()[-1] == "estimate"
+
+
+def test_pivot_loss_of_a_singular_model_is_shown_as_a_lower_bound():
+    """K singular (a zero eigenvalue from LAPACK eigh via numpy): the pivots are
+    those of a shifted factorization, whose losses are lower bounds of the true
+    (total) loss; the views say '>=' / 'at least', never a plain or 'at most' figure."""
+    import conditioning
+    from conditioning.render.html import render_html
+    from test_modes_still_nodes import _tower
+
+    model, _ = _tower()
+    w = np.linalg.eigvalsh(model.K.toarray())
+    assert abs(w[0]) < 1e-12 * w[-1]
+    report = conditioning.diagnose(model, samples=1)
+    text = render_text(report, width=100, verbose=True)
+    line = [ln for ln in text.splitlines() if ln.startswith("digits lost at a pivot")][0]
+    assert line.split()[5] == ">=" and "K singular" in line
+    assert "at least" in text and "about " + f"{report.pivots.worst[0].digits:.1f}" not in text
+    html = render_html(report)
+    assert "At most" not in html and "At least" in html

@@ -59,6 +59,14 @@ def how_obtained(method: Optional[str]) -> str:
     return "estimate"
 
 
+def pivots_are_lower_bounds(r: "results.Report") -> bool:
+    """True when the pivots shown are of a shifted factorization (K singular):
+    each loss is then a lower bound of the true one, which is total along the
+    free modes, so a view shows ``>= x`` and never "at most x"."""
+    fac = r.factorization
+    return fac is not None and fac.shift != 0.0
+
+
 def summarise_ids(ids: Iterable[int], limit: int = 6) -> str:
     """``"12, 13, 14 and 1,204 more"`` for a long list of node ids or rows.
 

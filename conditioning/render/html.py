@@ -20,7 +20,7 @@ from typing import Callable, Optional, Union
 from conditioning import results
 from conditioning.render import plots
 from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         mode_count_lines, scaling_sentence, summarise_ids,
+                                         mode_count_lines, pivots_are_lower_bounds, scaling_sentence, summarise_ids,
                                          zero_diagonal_text)
 
 log = logging.getLogger(__name__)
@@ -227,9 +227,12 @@ def _pivots(r: results.Report) -> str:
     if d is None or not d.worst:
         return ""
     negative = {e.row for e in d.negative_pivots}
-    rows = [[e.label, "negative pivot" if e.row in negative else fmt_digits(e.digits), fmt_number(e.kept)]
-            for e in d.worst[:10]]
+    low = pivots_are_lower_bounds(r)
+    rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
+             fmt_number(e.kept)] for e in d.worst[:10]]
     largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
+               else f"At least {d.max_digits:.1f} digits lost at a pivot of the shifted factorization "
+                    "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")
     where = "DOF" if r.summary.nodes is not None else "row"
     return ("<h2>Digits lost at pivots</h2>"

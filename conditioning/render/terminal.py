@@ -24,8 +24,9 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         ids_phrase, mode_count_lines, rows_phrase, scaling_sentence,
-                                         summarise_ids, total_of, unit_word, zero_diagonal_text)
+                                         ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
+                                         scaling_sentence, summarise_ids, total_of, unit_word,
+                                         zero_diagonal_text)
 
 _STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
 _SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
@@ -257,7 +258,11 @@ def _key_figures(r: results.Report):
         if p.negative_pivots:
             t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
         else:
-            t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
+            if pivots_are_lower_bounds(r):
+                t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
+                          f"at {p.worst[0].label}; K singular, shifted")
+            else:
+                t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
     dg = r.digits
     if dg is not None and dg.samples and not dg.skipped:
         worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
@@ -487,11 +492,15 @@ def _pivots(r: results.Report):
     negative = {e.row for e in getattr(d, "negative_pivots", [])}
     if negative:
         g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
+    elif pivots_are_lower_bounds(r):
+        g.add_row("largest", f"at least {d.max_digits:.1f} digits lost at a pivot (K singular: "
+                  "pivots of a shifted factorization; along the free modes all digits are lost)")
     else:
         g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
+    about = "at least" if pivots_are_lower_bounds(r) else "about"
     for e in d.worst[:5]:
         g.add_row(e.label, "negative pivot" if e.row in negative
-                  else f"about {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
+                  else f"{about} {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
     return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
