@@ -171,8 +171,9 @@ class ConditionResult:
     one_norm_method: str
     """How ``one_norm_estimate`` was obtained, or why it was not computed."""
     scaling_gain_digits: Optional[float]
-    """log10(estimate / scaled_estimate): digits of the raw figure that are
-    only units or DOF-type mixing."""
+    """log10(estimate / scaled_estimate): digits of the raw figure that come
+    only from rows of very different size (units, DOF-type mixing, stiff
+    material next to soft), which diagonal scaling removes."""
 
 
 # ------------------------------------------------------------------ modes

@@ -176,11 +176,12 @@ def scaling_sentence(gain_digits: float) -> str:
     ``gain_digits`` is log10(raw / scaled) as the condition stage reports it.
     """
     if gain_digits >= 1.0:
-        return (f"Scaling removes {gain_digits:.1f} digits of the raw figure: units or "
-                "DOF-type mixing (rotations next to translations, mm next to m), mostly "
-                "harmless; the scaled figure is the one that governs the accuracy of the solve.")
+        return (f"Scaling removes {gain_digits:.1f} digits of the raw figure: rows of very "
+                "different size (units or DOF-type mixing: rotations next to translations, mm next "
+                "to m; or stiff material next to soft), mostly harmless; the scaled figure is the "
+                "one that governs the accuracy of the solve.")
     return ("The raw and scaled figures agree within a digit: the conditioning is not an "
-            "effect of units or DOF-type mixing.")
+            "effect of units, DOF-type mixing or materials of different stiffness.")
 
 
 def zero_diagonal_text(st: results.StructureResult, max_ids: int = 8) -> str:

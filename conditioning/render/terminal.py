@@ -242,7 +242,7 @@ def _key_figures(r: results.Report):
         t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
         t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
                   _how(c.scaled_estimate, c.scaled_method)
-                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are units"
+                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
     if sp is not None:

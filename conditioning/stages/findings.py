@@ -42,7 +42,8 @@ CODES = {
     "stiffness.stiff-link-eigenvalue": "small scaled eigenvalues that stiff links explain",
     "spectrum.inertia-mismatch": "the eigenvalue count and the inertia count disagree",
     "condition.ill-conditioned": "the scaled condition number is large",
-    "condition.units-only": "the raw condition number is large only through units or DOF-type mixing",
+    "condition.units-only": "the raw condition number is large only through rows of very different size "
+                            "(units, DOF types, stiff next to soft material)",
     "pivot.digits-lost": "many digits lost at a pivot: a DOF nearly unsupported once the others are eliminated",
     "factor.negative-pivot": "a negative pivot: K is indefinite at that DOF",
     "digits.below-minimum": "fewer trustworthy digits than required",
@@ -426,9 +427,10 @@ def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional
     if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
         out.append(Finding("note", "condition.units-only",
                            f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
-                           f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
-                           "units or DOF-type mixing (rotations next to translations, mm next to m), "
-                           "which a direct solver does not pay.", [], ""))
+                           f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it come only from rows "
+                           "of very different size (units or DOF-type mixing: rotations next to "
+                           "translations, mm next to m; or stiff material next to soft), which a direct "
+                           "solver does not pay.", [], ""))
     return out
 
 
