@@ -229,3 +229,26 @@ def test_pivot_loss_of_a_singular_model_is_shown_as_a_lower_bound():
     assert "at least" in text and "about " + f"{report.pivots.worst[0].digits:.1f}" not in text
     html = render_html(report)
     assert "At most" not in html and "At least" in html
+
+
+def test_an_eigenvalue_at_round_off_is_shown_as_zero_not_as_digits():
+    """The tower's free rotation has a scaled eigenvalue below n eps lambda_max
+    (LAPACK eigh via numpy on D^-1/2 K D^-1/2): its computed digits are round-off
+    that differ between eigensolvers, so the mode table and the finding show 0,
+    not a figure such as 7.89e-20 that another part of the report contradicts."""
+    import re
+    import conditioning
+    from test_modes_still_nodes import _tower
+
+    model, _ = _tower()
+    K = model.K.toarray()
+    s = 1.0 / np.sqrt(np.diag(K))
+    w = np.linalg.eigvalsh(K * s[:, None] * s[None, :])
+    assert abs(w[0]) <= K.shape[0] * np.finfo(float).eps * w[-1] < w[1]
+    report = conditioning.diagnose(model, samples=1)
+    text = render_text(report, width=200)
+    row = [ln for ln in text.splitlines() if ln.startswith("1  rigid-body")][0]
+    assert "0 (round-off)" in row
+    finding = next(f for f in report.findings if f.code == "support.rigid-body-mode")
+    assert "0 at working precision" in finding.message
+    assert not re.search(r"e-\d\d", row + finding.message)

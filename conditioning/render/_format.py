@@ -59,6 +59,22 @@ def how_obtained(method: Optional[str]) -> str:
     return "estimate"
 
 
+def fmt_mode_eigenvalue(value: float, exact: bool) -> str:
+    """A mode's scaled eigenvalue: ``"0 (round-off)"`` when it is zero at
+    working precision (below n eps lambda_max(S), where its computed digits
+    are round-off that differs between eigensolvers and runs), ``"0"`` for a
+    row without stiffness, else the figure.
+
+    Examples
+    --------
+    >>> fmt_mode_eigenvalue(7.9e-20, True), fmt_mode_eigenvalue(1.84e-13, False)
+    ('0 (round-off)', '1.84e-13')
+    """
+    if exact:
+        return "0" if value == 0.0 else "0 (round-off)"
+    return fmt_number(value)
+
+
 def pivots_are_lower_bounds(r: "results.Report") -> bool:
     """True when the pivots shown are of a shifted factorization (K singular):
     each loss is then a lower bound of the true one, which is total along the

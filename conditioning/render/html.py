@@ -19,7 +19,7 @@ from typing import Callable, Optional, Union
 
 from conditioning import results
 from conditioning.render import plots
-from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
+from conditioning.render._format import (fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
                                          mode_count_lines, pivots_are_lower_bounds, scaling_sentence, summarise_ids,
                                          zero_diagonal_text)
 
@@ -190,7 +190,8 @@ def _modes(r: results.Report) -> str:
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
     rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
-             fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+             fmt_mode_eigenvalue(m.eigenvalue, getattr(m, "exact", False)),
+             fmt_mode_eigenvalue(m.relative_eigenvalue, getattr(m, "exact", False)),
              fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-",
              str(m.part), summarise_ids(m.nodes, 12)] for k, m in enumerate(sp.modes, start=1)]
     return ("<h2>Near-singular modes</h2>" + head

@@ -24,7 +24,7 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
+                                         fmt_mode_eigenvalue, ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
                                          scaling_sentence, summarise_ids, total_of, unit_word,
                                          zero_diagonal_text)
 
@@ -455,11 +455,12 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
             if g.count == 1:
                 motion = m.description or (fmt_motion(m.motion) if m.motion else (
                     f"{len(m.groups)} rigid groups" if m.groups else "-"))
-                t.add_row(str(g.modes[0]), kind, fmt_number(m.eigenvalue), motion, str(g.part),
+                t.add_row(str(g.modes[0]), kind, fmt_mode_eigenvalue(m.eigenvalue, g.exact), motion, str(g.part),
                           ids_phrase(m.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
             else:
                 t.add_row(f"{g.modes[0]}-{g.modes[-1]}", f"{g.count:,} x {kind}",
-                          f"<= {fmt_number(g.eigenvalue_max)}", g.motion or "-",
+                          fmt_mode_eigenvalue(g.eigenvalue_max, True) if g.exact else f"<= {fmt_number(g.eigenvalue_max)}",
+                          g.motion or "-",
                           str(g.part) if g.part else "several",
                           ids_phrase(g.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
         lines.append(t)

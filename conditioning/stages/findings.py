@@ -237,6 +237,14 @@ def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[
     return out
 
 
+def _eigenvalue_text(value: float, exact: bool, largest: bool = False) -> str:
+    """The scaled eigenvalue in words: zero at working precision (its computed
+    digits are round-off) or the figure."""
+    if exact:
+        return f"{'largest ' if largest else ''}scaled eigenvalue 0 at working precision (round-off)"
+    return f"{'largest ' if largest else ''}scaled eigenvalue {value:.2e}"
+
+
 def _held_text(mode: NearSingularMode) -> str:
     return "" if mode.exact else (" It is held only by a very small stiffness (for example a "
                                   "soft spring), so K is invertible but badly conditioned.")
@@ -258,7 +266,7 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
     return Finding(
         "error", "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
+        f"{_eigenvalue_text(mode.eigenvalue, mode.exact)}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
         f"{_held_text(mode)}",
         mode.nodes,
         "Add supports in the directions that move, or connect the part to the supported "
@@ -308,7 +316,7 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
                    "only touches the rest at one node.")
     return Finding(
         "error", "support.mechanism",
-        f"{head}; scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
+        f"{head}; {_eigenvalue_text(mode.eigenvalue, mode.exact)}.{_held_text(mode)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
         mode.nodes, advice)
@@ -323,7 +331,7 @@ def _mode_group_finding(structure: StructureResult, group: ModeGroup, rows_word:
     return Finding(
         "error", code,
         f"{group.count:,} {nearly}{what}{_where(structure, group.part)}{motion}; {rows_word}: "
-        f"{_list_nodes(group.nodes)}; largest scaled eigenvalue {group.eigenvalue_max:.2e}.",
+        f"{_list_nodes(group.nodes)}; {_eigenvalue_text(group.eigenvalue_max, group.exact, largest=True)}.",
         group.nodes,
         "Each mode is listed in the JSON report (and --modes-csv). Look for nodes no element "
         "connects in some direction, missing supports or released ends.")
