@@ -309,7 +309,8 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
                 head += (f"; {len(groups)} group{'s' if len(groups) != 1 else ''} {words}: {named}"
                          + (f" and {more} more" if more > 0 else ""))
         if mode.meeting:
-            head += f"; the groups meet at {rows_word} {_list_nodes(mode.meeting)}"
+            word = rows_word if len(mode.meeting) > 1 else rows_word[:-1]
+            head += f"; the groups meet at {word} {_list_nodes(mode.meeting)}"
     advice = ("Restrain the member's rotation about its own axis at one end (release torsion at one end "
               "only), or restrain that rotation at one of its nodes." if mode.description.startswith("spin")
               else "Look for a missing brace, a released end (hinge) too many, or a member that "
