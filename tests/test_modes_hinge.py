@@ -62,3 +62,26 @@ def test_arm_on_a_hinge_is_a_mechanism_meeting_at_the_hinge_node():
     assert "meet at node 4;" in finding.message
     assert report.spectrum.below_split == 1 and report.spectrum.inertia_agrees
     assert report.digits.skipped.startswith("K is singular") and not report.digits.samples
+
+
+def test_its_pivot_loss_is_shown_as_a_lower_bound_without_a_shift():
+    """The hinge model factors without a shift, yet K is singular (LAPACK, above):
+    the pivot figure is a lower bound of a total loss and is shown with '>='."""
+    from conditioning.render.terminal import render_text
+
+    xy = np.array([[0, 0], [0, 1000], [0, 2000], [0, 3000], [1000, 3000], [2000, 3000], [2000, 1800]], float)
+    members = [(0, 1, False), (1, 2, False), (2, 3, False), (3, 4, True), (4, 5, False), (5, 6, False)]
+    n = len(xy)
+    K = np.zeros((3 * n, 3 * n))
+    for a, b, rel in members:
+        idx = np.r_[3 * a:3 * a + 3, 3 * b:3 * b + 3]
+        K[np.ix_(idx, idx)] += _beam(xy[a], xy[b], release_a=rel)
+    keep = np.arange(3, 3 * n)
+    Kr = K[np.ix_(keep, keep)]
+    w = np.linalg.eigvalsh(Kr)                   # LAPACK via numpy: singular
+    assert abs(w[0]) < 1e-12 * w[-1]
+    report = conditioning.diagnose(sp.csr_array(Kr), samples=1)
+    assert report.factorization.shift == 0.0     # the case this test is about
+    line = [ln for ln in render_text(report, width=120).splitlines()
+            if ln.startswith("digits lost at a pivot")][0]
+    assert ">= " in line and "K singular" in line and "shifted" not in line

@@ -76,11 +76,16 @@ def fmt_mode_eigenvalue(value: float, exact: bool) -> str:
 
 
 def pivots_are_lower_bounds(r: "results.Report") -> bool:
-    """True when the pivots shown are of a shifted factorization (K singular):
-    each loss is then a lower bound of the true one, which is total along the
-    free modes, so a view shows ``>= x`` and never "at most x"."""
+    """True when K has free modes (zero at working precision) besides rows
+    without stiffness, which are not factored: the pivots shown (of a shifted
+    factorization, or of one whose round-off kept a tiny pivot) then give
+    lower bounds of the true losses, which are total along the free modes, so
+    a view shows ``>= x`` and never "at most x"."""
     fac = r.factorization
-    return fac is not None and fac.shift != 0.0
+    if fac is not None and fac.shift != 0.0:
+        return True
+    modes = r.spectrum.modes if r.spectrum is not None else []
+    return any(m.exact and m.kind != "dof-without-stiffness" for m in modes)
 
 
 def summarise_ids(ids: Iterable[int], limit: int = 6) -> str:

@@ -260,7 +260,8 @@ def _key_figures(r: results.Report):
         else:
             if pivots_are_lower_bounds(r):
                 t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
-                          f"at {p.worst[0].label}; K singular, shifted")
+                          f"at {p.worst[0].label}; K singular"
+                          + (", shifted" if r.factorization.shift != 0.0 else ""))
             else:
                 t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
     dg = r.digits
@@ -495,7 +496,7 @@ def _pivots(r: results.Report):
         g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
     elif pivots_are_lower_bounds(r):
         g.add_row("largest", f"at least {d.max_digits:.1f} digits lost at a pivot (K singular: "
-                  "pivots of a shifted factorization; along the free modes all digits are lost)")
+                  "along its free modes all digits are lost)")
     else:
         g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
     about = "at least" if pivots_are_lower_bounds(r) else "about"
