@@ -252,3 +252,37 @@ def test_an_eigenvalue_at_round_off_is_shown_as_zero_not_as_digits():
     finding = next(f for f in report.findings if f.code == "support.rigid-body-mode")
     assert "0 at working precision" in finding.message
     assert not re.search(r"e-\d\d", row + finding.message)
+
+
+def test_look_alike_findings_are_one_line_different_ones_are_not():
+    """Invented model: two plane-stress blocks tied by penalty springs, 4 of
+    them 1e6 and 2 of them 1e9 times a block's largest diagonal entry (numpy
+    on the assembled K). Each link is its own finding (the JSON keeps all);
+    the terminal shows one line per ratio, counting and naming the others."""
+    import conditioning
+    from conditioning.demo import assemble
+
+    def block(first, y0):
+        ids = np.arange(first, first + 12).reshape(3, 4)
+        xy = np.array([(i * 10.0, y0 + j * 10.0) for j in range(3) for i in range(4)])
+        quads = np.array([[ids[j, i], ids[j, i + 1], ids[j + 1, i + 1], ids[j + 1, i]]
+                          for j in range(2) for i in range(3)])
+        return assemble.plane_stress_quad(ids.ravel(), xy, quads, E=70000.0, nu=0.3, t=5.0), ids
+
+    a, ida = block(1, 0.0)
+    b, idb = block(13, 20.0)
+    m = assemble.combine(a, b)
+    big = float(a.K.diagonal().max())
+    pairs = [(int(p), int(q)) for p, q in zip(ida[2], idb[0])]     # 4 node pairs on the interface
+    for k, (p, q) in enumerate(pairs):
+        for c in (("ux", "uy") if k < 2 else ("ux",)):
+            m = assemble.spring(m, (p, c), (q, c), (1e6 if c == "ux" else 1e9) * big)
+    m = assemble.apply_restraints(m, [(int(v), c) for v in ida[0] for c in ("ux", "uy")])
+    report = conditioning.diagnose(m.K, samples=1)
+    assert len(report.jumps) == 6
+    text = render_text(report, width=300)
+    lines = [ln for ln in text.splitlines() if "[stiffness.jump]" in ln]
+    ratios = {f"{j.ratio:.1e}" for j in report.jumps}
+    assert len(lines) == len(ratios) < len(report.jumps)
+    shown = sum(1 + int(ln.split("The same at ")[1].split()[0]) if "The same at " in ln else 1 for ln in lines)
+    assert shown == len([f for f in report.findings if f.code == "stiffness.jump"])

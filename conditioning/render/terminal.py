@@ -627,7 +627,7 @@ def _findings(r: results.Report, max_ids: int, verbose: bool):
         return Text("no findings")
     rows = []
     unit = unit_word(r)
-    for f in _by_severity(r.findings):
+    for f, alike in _alike_grouped(_by_severity(r.findings)):
         line = Text()
         line.append(f"{f.severity:<7} ", style=_SEVERITY_STYLE.get(f.severity, ""))
         line.append(f"[{f.code}] ", style="dim")
@@ -635,10 +635,28 @@ def _findings(r: results.Report, max_ids: int, verbose: bool):
         phrase = ids_phrase(f.nodes, unit, total_of(r), max_ids)
         if f.nodes and summarise_ids(f.nodes, max_ids) not in f.message and phrase not in f.message:
             line.append(f" ({phrase})")
+        if alike:
+            others = sorted({v for g in alike for v in g.nodes})
+            line.append(f" The same at {len(alike):,} more place{'s' if len(alike) != 1 else ''} "
+                        f"({ids_phrase(others, unit, total_of(r), max_ids)}; each in the JSON report).")
         rows.append(line)
         if verbose and f.advice:
             rows.append(Text(f"        advice: {f.advice}"))
     return Group(*rows)
+
+
+def _alike_grouped(findings: list[results.Finding]) -> list[tuple[results.Finding, list[results.Finding]]]:
+    """Findings with their look-alikes: same severity and code, and the same
+    message once the finding's own node list is taken out (31 penalty links
+    with one ratio read as one line, not 31); the first one is shown whole."""
+    def key(f: results.Finding):
+        listed = ", ".join(str(v) for v in f.nodes)
+        return f.severity, f.code, f.message.replace(listed, "#") if f.nodes else f.message
+
+    groups: dict = {}
+    for f in findings:
+        groups.setdefault(key(f), []).append(f)
+    return [(g[0], g[1:]) for g in groups.values()]
 
 
 def _by_severity(findings: Iterable[results.Finding]) -> list[results.Finding]:
