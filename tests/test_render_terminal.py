@@ -286,3 +286,20 @@ def test_look_alike_findings_are_one_line_different_ones_are_not():
     assert len(lines) == len(ratios) < len(report.jumps)
     shown = sum(1 + int(ln.split("The same at ")[1].split()[0]) if "The same at " in ln else 1 for ln in lines)
     assert shown == len([f for f in report.findings if f.code == "stiffness.jump"])
+
+
+def test_diagonal_only_rows_are_named_by_node_and_dof_with_a_map():
+    """With a DOF map, the structure line names a diagonal-only row (found here
+    with numpy: one stored entry in its row) by its node and DOF, as it names
+    rows without stiffness, not by a bare row number."""
+    import scipy.sparse as sp
+    import conditioning
+    from conditioning.model import DofTable, Model
+
+    K = np.diag([4.0, 4.0, 4.0, 4.0, 2.0]) + np.diag([-1.0, -1.0, -1.0, 0.0], 1) + np.diag([-1.0, -1.0, -1.0, 0.0], -1)
+    single = [i for i in range(5) if np.count_nonzero(K[i]) == 1]
+    assert single == [4]
+    model = Model(sp.csr_array(K), dofs=DofTable(np.array([1, 1, 2, 2, 3], np.int64),
+                                                   np.array([0, 1, 0, 1, 5], np.int8)))
+    text = " ".join(render_text(conditioning.diagnose(model, samples=1), width=200).split())
+    assert "1 diagonal-only row (node 3 rz)" in text

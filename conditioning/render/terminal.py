@@ -391,7 +391,7 @@ def _structure_line(st: results.StructureResult, max_ids: int,
              + (f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else "")]
     if st.placeholder_rows.size:
         parts.append(f"{_count(st.placeholder_rows.size, 'diagonal-only row')} "
-                     f"({rows_phrase(st.placeholder_rows, max_ids)}), not counted as parts")
+                     f"({_dof_phrase(st.placeholder_rows, max_ids, geometry)}), not counted as parts")
     bad = [(name, rows) for name, rows in (("without stiffness", st.empty_rows),
                                            ("with a negative diagonal", st.negative_diagonal),
                                            ("with a zero diagonal and coupling", st.zero_diagonal))
