@@ -171,8 +171,9 @@ class ConditionResult:
     one_norm_method: str
     """How ``one_norm_estimate`` was obtained, or why it was not computed."""
     scaling_gain_digits: Optional[float]
-    """log10(estimate / scaled_estimate): digits of the raw figure that are
-    only units or DOF-type mixing."""
+    """log10(estimate / scaled_estimate): digits of the raw figure that come
+    only from rows of very different size (units, DOF-type mixing, stiff
+    material next to soft), which diagonal scaling removes."""
 
 
 # ------------------------------------------------------------------ modes
@@ -216,7 +217,9 @@ class NearSingularMode:
     mechanism that turns about one axis, the shares of ``axis`` on the rotation
     (or translation) names. Empty for other mechanisms."""
     nodes: list[int]
-    """Nodes that locate the mode: the part's nodes (rigid body), the nodes
+    """Nodes that locate the mode: the part's nodes that move (rigid body; a
+    node that every free motion of the part leaves in place, on the axis it
+    turns about, is left out), the nodes
     that carry the mechanism (weight sum of v_i^2 over the node's rows of the
     scaled mode v = D^1/2 u at least 1% of the largest node's; the meeting
     nodes are ``meeting``), the node (DOF without stiffness). 1-based rows

@@ -363,3 +363,20 @@ def test_the_command_stays_thin():
     assert "ProgressCallback" not in assigned
     modules = {node.module for node in ast.walk(tree) if isinstance(node, ast.ImportFrom)}
     assert not {m for m in modules if m and m.split(".")[1:2] in (["stages"], ["engine"], ["linalg"])}
+
+
+def test_python_dash_m_runs_the_same_command(tmp_path):
+    """``python -m conditioning`` is the entry point too: its version line and the
+    exit status 2 with a one-line error for a missing file (no traceback)."""
+    import os
+    import subprocess
+    import sys
+    from conditioning import __version__
+
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(sys.path))
+    ok = subprocess.run([sys.executable, "-m", "conditioning", "--version"], capture_output=True,
+                        text=True, env=env)
+    assert ok.returncode == 0 and ok.stdout.strip() == f"conditioning {__version__}"
+    bad = subprocess.run([sys.executable, "-m", "conditioning", "diagnose", str(tmp_path / "none.mtx")],
+                         capture_output=True, text=True, env=env)
+    assert bad.returncode == 2 and len(bad.stderr.strip().splitlines()) == 1

@@ -131,3 +131,33 @@ def test_integer_matrix_is_factored_in_float64():
     assert not fac.singular and fac.shift == 0.0
     row = next(r for r in computed_stats() if r["file"] == "nos1.mtx")
     assert float(row["cond2_computed"]) == pytest.approx(1.99e7, rel=0.01)
+
+
+def test_two_materials_are_named_as_a_cause_the_scaling_removes():
+    """Invented strip of plane-stress quads, one half 1e5 times stiffer (E) than
+    the other, clamped at the stiff end: one unit system and one DOF type, so
+    'units or DOF-type mixing' alone would blame the wrong cause. The scaling
+    gain shown is log10(raw / scaled) of LAPACK eigvalsh (numpy) on K and on
+    D^-1/2 K D^-1/2."""
+    import conditioning
+    from conditioning.demo import assemble
+
+    nx, ny, h = 12, 3, 10.0
+    ids = np.arange((nx + 1) * (ny + 1)).reshape(ny + 1, nx + 1) + 1
+    xy = np.array([(i * h, j * h) for j in range(ny + 1) for i in range(nx + 1)], float)
+    quads = np.array([[ids[j, i], ids[j, i + 1], ids[j + 1, i + 1], ids[j + 1, i]]
+                      for j in range(ny) for i in range(nx)])
+    E = np.where(np.arange(len(quads)) % nx < nx // 2, 2.0e5, 2.0)   # MPa, invented
+    strip = assemble.plane_stress_quad(ids.ravel(), xy, quads, E=E, nu=0.3, t=1.0)
+    strip = assemble.apply_restraints(strip, [(int(n), c) for n in ids[:, 0] for c in ("ux", "uy")])
+    K = strip.K.toarray()
+    s = 1.0 / np.sqrt(np.diag(K))
+    raw = np.linalg.eigvalsh(K)
+    scaled = np.linalg.eigvalsh(K * s[:, None] * s[None, :])
+    gain = np.log10(raw[-1] / raw[0]) - np.log10(scaled[-1] / scaled[0])
+    assert gain > 3   # the truth: the contrast is mostly row scale
+    report = conditioning.diagnose(strip.K, samples=1)
+    assert report.condition.scaling_gain_digits == pytest.approx(gain, abs=0.05)
+    note = next(f for f in report.findings if f.code == "condition.units-only")
+    shown = f"{report.condition.scaling_gain_digits:.1f} digits"
+    assert shown in note.message and "stiff material next to soft" in note.message

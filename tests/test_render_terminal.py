@@ -186,3 +186,120 @@ def test_a_long_last_cell_never_drops_an_earlier_column(width):
     lines = console.export_text().splitlines()
     assert "value" in lines[0] and "5.69e+03" in lines[1]
     assert all(len(line) <= width for line in lines) and lines[2].endswith("…")
+
+
+def test_lanczos_condition_figure_is_an_estimate_not_a_bound():
+    """Above the dense limit the raw 2-norm figure comes from Lanczos runs whose
+    method names their 'residual bound' (a stopping test): the view must tag it
+    'estimate', not 'bound' (a one-sided figure). The value is checked against
+    numpy's LAPACK eigvalsh on an invented 1,300-row spring chain."""
+    import re
+    import scipy.sparse as sp
+    import conditioning
+
+    n = 1300   # above spectrum.DENSE_LIMIT, so the Lanczos path runs
+    k = 10.0 ** np.linspace(0.0, 3.0, n + 1)
+    main = k[:-1] + k[1:]
+    main[-1] = k[-2]
+    K = sp.diags_array([main, -k[1:-1], -k[1:-1]], offsets=[0, 1, -1]).tocsr()
+    report = conditioning.diagnose(K, samples=1)
+    lam = np.linalg.eigvalsh(K.toarray())
+    line = [ln for ln in render_text(report, width=160).splitlines()
+            if ln.startswith("condition number, raw K")][0]
+    shown = float(re.search(r"\d\.\d\de[+-]\d+", line).group())
+    assert shown == pytest.approx(lam[-1] / lam[0], rel=0.01)
+    assert line.split()[-1] == "estimate"
+
+
+def test_pivot_loss_of_a_singular_model_is_shown_as_a_lower_bound():
+    """K singular (a zero eigenvalue from LAPACK eigh via numpy): the pivots are
+    those of a shifted factorization, whose losses are lower bounds of the true
+    (total) loss; the views say '>=' / 'at least', never a plain or 'at most' figure."""
+    import conditioning
+    from conditioning.render.html import render_html
+    from test_modes_still_nodes import _tower
+
+    model, _ = _tower()
+    w = np.linalg.eigvalsh(model.K.toarray())
+    assert abs(w[0]) < 1e-12 * w[-1]
+    report = conditioning.diagnose(model, samples=1)
+    text = render_text(report, width=100, verbose=True)
+    line = [ln for ln in text.splitlines() if ln.startswith("digits lost at a pivot")][0]
+    assert line.split()[5] == ">=" and "K singular" in line
+    assert "at least" in text and "about " + f"{report.pivots.worst[0].digits:.1f}" not in text
+    html = render_html(report)
+    assert "At most" not in html and "At least" in html
+
+
+def test_an_eigenvalue_at_round_off_is_shown_as_zero_not_as_digits():
+    """The tower's free rotation has a scaled eigenvalue below n eps lambda_max
+    (LAPACK eigh via numpy on D^-1/2 K D^-1/2): its computed digits are round-off
+    that differ between eigensolvers, so the mode table and the finding show 0,
+    not a figure such as 7.89e-20 that another part of the report contradicts."""
+    import re
+    import conditioning
+    from test_modes_still_nodes import _tower
+
+    model, _ = _tower()
+    K = model.K.toarray()
+    s = 1.0 / np.sqrt(np.diag(K))
+    w = np.linalg.eigvalsh(K * s[:, None] * s[None, :])
+    assert abs(w[0]) <= K.shape[0] * np.finfo(float).eps * w[-1] < w[1]
+    report = conditioning.diagnose(model, samples=1)
+    text = render_text(report, width=200)
+    row = [ln for ln in text.splitlines() if ln.startswith("1  rigid-body")][0]
+    assert "0 (round-off)" in row
+    finding = next(f for f in report.findings if f.code == "support.rigid-body-mode")
+    assert "0 at working precision" in finding.message
+    assert not re.search(r"e-\d\d", row + finding.message)
+
+
+def test_look_alike_findings_are_one_line_different_ones_are_not():
+    """Invented model: two plane-stress blocks tied by penalty springs, 4 of
+    them 1e6 and 2 of them 1e9 times a block's largest diagonal entry (numpy
+    on the assembled K). Each link is its own finding (the JSON keeps all);
+    the terminal shows one line per ratio, counting and naming the others."""
+    import conditioning
+    from conditioning.demo import assemble
+
+    def block(first, y0):
+        ids = np.arange(first, first + 12).reshape(3, 4)
+        xy = np.array([(i * 10.0, y0 + j * 10.0) for j in range(3) for i in range(4)])
+        quads = np.array([[ids[j, i], ids[j, i + 1], ids[j + 1, i + 1], ids[j + 1, i]]
+                          for j in range(2) for i in range(3)])
+        return assemble.plane_stress_quad(ids.ravel(), xy, quads, E=70000.0, nu=0.3, t=5.0), ids
+
+    a, ida = block(1, 0.0)
+    b, idb = block(13, 20.0)
+    m = assemble.combine(a, b)
+    big = float(a.K.diagonal().max())
+    pairs = [(int(p), int(q)) for p, q in zip(ida[2], idb[0])]     # 4 node pairs on the interface
+    for k, (p, q) in enumerate(pairs):
+        for c in (("ux", "uy") if k < 2 else ("ux",)):
+            m = assemble.spring(m, (p, c), (q, c), (1e6 if c == "ux" else 1e9) * big)
+    m = assemble.apply_restraints(m, [(int(v), c) for v in ida[0] for c in ("ux", "uy")])
+    report = conditioning.diagnose(m.K, samples=1)
+    assert len(report.jumps) == 6
+    text = render_text(report, width=300)
+    lines = [ln for ln in text.splitlines() if "[stiffness.jump]" in ln]
+    ratios = {f"{j.ratio:.1e}" for j in report.jumps}
+    assert len(lines) == len(ratios) < len(report.jumps)
+    shown = sum(1 + int(ln.split("The same at ")[1].split()[0]) if "The same at " in ln else 1 for ln in lines)
+    assert shown == len([f for f in report.findings if f.code == "stiffness.jump"])
+
+
+def test_diagonal_only_rows_are_named_by_node_and_dof_with_a_map():
+    """With a DOF map, the structure line names a diagonal-only row (found here
+    with numpy: one stored entry in its row) by its node and DOF, as it names
+    rows without stiffness, not by a bare row number."""
+    import scipy.sparse as sp
+    import conditioning
+    from conditioning.model import DofTable, Model
+
+    K = np.diag([4.0, 4.0, 4.0, 4.0, 2.0]) + np.diag([-1.0, -1.0, -1.0, 0.0], 1) + np.diag([-1.0, -1.0, -1.0, 0.0], -1)
+    single = [i for i in range(5) if np.count_nonzero(K[i]) == 1]
+    assert single == [4]
+    model = Model(sp.csr_array(K), dofs=DofTable(np.array([1, 1, 2, 2, 3], np.int64),
+                                                   np.array([0, 1, 0, 1, 5], np.int8)))
+    text = " ".join(render_text(conditioning.diagnose(model, samples=1), width=200).split())
+    assert "1 diagonal-only row (node 3 rz)" in text

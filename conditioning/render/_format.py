@@ -45,14 +45,47 @@ def how_obtained(method: Optional[str]) -> str:
     'bound'
     >>> how_obtained("Lanczos (eigsh) for lambda_max, shift-and-invert for lambda_min")
     'estimate'
+    >>> how_obtained("lambda_max by Lanczos (residual bound 1e-3 relative)")
+    'estimate'
     """
     if not method:
         return "estimate"
-    low = method.lower()
+    # "residual bound" is an iterative eigensolver's stopping test, not a
+    # one-sided bound on the figure: a Lanczos figure stays an estimate.
+    low = method.lower().replace("residual bound", "residual tolerance")
     for word, tag in _HOW:
         if word in low:
             return tag
     return "estimate"
+
+
+def fmt_mode_eigenvalue(value: float, exact: bool) -> str:
+    """A mode's scaled eigenvalue: ``"0 (round-off)"`` when it is zero at
+    working precision (below n eps lambda_max(S), where its computed digits
+    are round-off that differs between eigensolvers and runs), ``"0"`` for a
+    row without stiffness, else the figure.
+
+    Examples
+    --------
+    >>> fmt_mode_eigenvalue(7.9e-20, True), fmt_mode_eigenvalue(1.84e-13, False)
+    ('0 (round-off)', '1.84e-13')
+    """
+    if exact:
+        return "0" if value == 0.0 else "0 (round-off)"
+    return fmt_number(value)
+
+
+def pivots_are_lower_bounds(r: "results.Report") -> bool:
+    """True when K has free modes (zero at working precision) besides rows
+    without stiffness, which are not factored: the pivots shown (of a shifted
+    factorization, or of one whose round-off kept a tiny pivot) then give
+    lower bounds of the true losses, which are total along the free modes, so
+    a view shows ``>= x`` and never "at most x"."""
+    fac = r.factorization
+    if fac is not None and fac.shift != 0.0:
+        return True
+    modes = r.spectrum.modes if r.spectrum is not None else []
+    return any(m.exact and m.kind != "dof-without-stiffness" for m in modes)
 
 
 def summarise_ids(ids: Iterable[int], limit: int = 6) -> str:
@@ -164,11 +197,12 @@ def scaling_sentence(gain_digits: float) -> str:
     ``gain_digits`` is log10(raw / scaled) as the condition stage reports it.
     """
     if gain_digits >= 1.0:
-        return (f"Scaling removes {gain_digits:.1f} digits of the raw figure: units or "
-                "DOF-type mixing (rotations next to translations, mm next to m), mostly "
-                "harmless; the scaled figure is the one that governs the accuracy of the solve.")
+        return (f"Scaling removes {gain_digits:.1f} digits of the raw figure: rows of very "
+                "different size (units or DOF-type mixing: rotations next to translations, mm next "
+                "to m; or stiff material next to soft), mostly harmless; the scaled figure is the "
+                "one that governs the accuracy of the solve.")
     return ("The raw and scaled figures agree within a digit: the conditioning is not an "
-            "effect of units or DOF-type mixing.")
+            "effect of units, DOF-type mixing or materials of different stiffness.")
 
 
 def zero_diagonal_text(st: results.StructureResult, max_ids: int = 8) -> str:

@@ -19,8 +19,8 @@ from typing import Callable, Optional, Union
 
 from conditioning import results
 from conditioning.render import plots
-from conditioning.render._format import (fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         mode_count_lines, scaling_sentence, summarise_ids,
+from conditioning.render._format import (fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
+                                         mode_count_lines, pivots_are_lower_bounds, scaling_sentence, summarise_ids,
                                          zero_diagonal_text)
 
 log = logging.getLogger(__name__)
@@ -190,7 +190,8 @@ def _modes(r: results.Report) -> str:
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
     rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
-             fmt_number(m.eigenvalue), fmt_number(m.relative_eigenvalue),
+             fmt_mode_eigenvalue(m.eigenvalue, getattr(m, "exact", False)),
+             fmt_mode_eigenvalue(m.relative_eigenvalue, getattr(m, "exact", False)),
              fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-",
              str(m.part), summarise_ids(m.nodes, 12)] for k, m in enumerate(sp.modes, start=1)]
     return ("<h2>Near-singular modes</h2>" + head
@@ -227,9 +228,12 @@ def _pivots(r: results.Report) -> str:
     if d is None or not d.worst:
         return ""
     negative = {e.row for e in d.negative_pivots}
-    rows = [[e.label, "negative pivot" if e.row in negative else fmt_digits(e.digits), fmt_number(e.kept)]
-            for e in d.worst[:10]]
+    low = pivots_are_lower_bounds(r)
+    rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
+             fmt_number(e.kept)] for e in d.worst[:10]]
     largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
+               else f"At least {d.max_digits:.1f} digits lost at a pivot "
+                    "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")
     where = "DOF" if r.summary.nodes is not None else "row"
     return ("<h2>Digits lost at pivots</h2>"

@@ -24,8 +24,9 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
-                                         ids_phrase, mode_count_lines, rows_phrase, scaling_sentence,
-                                         summarise_ids, total_of, unit_word, zero_diagonal_text)
+                                         fmt_mode_eigenvalue, ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
+                                         scaling_sentence, summarise_ids, total_of, unit_word,
+                                         zero_diagonal_text)
 
 _STATUS_STYLE = {"healthy": "bold green", "warnings": "bold yellow", "errors": "bold red"}
 _SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
@@ -241,7 +242,7 @@ def _key_figures(r: results.Report):
         t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
         t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
                   _how(c.scaled_estimate, c.scaled_method)
-                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are units"
+                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
     if sp is not None:
@@ -257,7 +258,12 @@ def _key_figures(r: results.Report):
         if p.negative_pivots:
             t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
         else:
-            t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
+            if pivots_are_lower_bounds(r):
+                t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
+                          f"at {p.worst[0].label}; K singular"
+                          + (", shifted" if r.factorization.shift != 0.0 else ""))
+            else:
+                t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
     dg = r.digits
     if dg is not None and dg.samples and not dg.skipped:
         worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
@@ -385,7 +391,7 @@ def _structure_line(st: results.StructureResult, max_ids: int,
              + (f" (rows per part: {summarise_ids(sizes, max_ids)})" if st.parts > 1 else "")]
     if st.placeholder_rows.size:
         parts.append(f"{_count(st.placeholder_rows.size, 'diagonal-only row')} "
-                     f"({rows_phrase(st.placeholder_rows, max_ids)}), not counted as parts")
+                     f"({_dof_phrase(st.placeholder_rows, max_ids, geometry)}), not counted as parts")
     bad = [(name, rows) for name, rows in (("without stiffness", st.empty_rows),
                                            ("with a negative diagonal", st.negative_diagonal),
                                            ("with a zero diagonal and coupling", st.zero_diagonal))
@@ -450,11 +456,12 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
             if g.count == 1:
                 motion = m.description or (fmt_motion(m.motion) if m.motion else (
                     f"{len(m.groups)} rigid groups" if m.groups else "-"))
-                t.add_row(str(g.modes[0]), kind, fmt_number(m.eigenvalue), motion, str(g.part),
+                t.add_row(str(g.modes[0]), kind, fmt_mode_eigenvalue(m.eigenvalue, g.exact), motion, str(g.part),
                           ids_phrase(m.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
             else:
                 t.add_row(f"{g.modes[0]}-{g.modes[-1]}", f"{g.count:,} x {kind}",
-                          f"<= {fmt_number(g.eigenvalue_max)}", g.motion or "-",
+                          fmt_mode_eigenvalue(g.eigenvalue_max, True) if g.exact else f"<= {fmt_number(g.eigenvalue_max)}",
+                          g.motion or "-",
                           str(g.part) if g.part else "several",
                           ids_phrase(g.nodes, None, total_of(r), max(max_ids // 2, 1), bare=True))
         lines.append(t)
@@ -487,11 +494,15 @@ def _pivots(r: results.Report):
     negative = {e.row for e in getattr(d, "negative_pivots", [])}
     if negative:
         g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
+    elif pivots_are_lower_bounds(r):
+        g.add_row("largest", f"at least {d.max_digits:.1f} digits lost at a pivot (K singular: "
+                  "along its free modes all digits are lost)")
     else:
         g.add_row("largest", f"{d.max_digits:.1f} digits lost at a pivot")
+    about = "at least" if pivots_are_lower_bounds(r) else "about"
     for e in d.worst[:5]:
         g.add_row(e.label, "negative pivot" if e.row in negative
-                  else f"about {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
+                  else f"{about} {e.digits:.1f} digits lost ({fmt_number(e.kept)} of its stiffness kept)")
     return Group(g, Text(f"method: {d.method}", style="dim"))
 
 
@@ -616,7 +627,7 @@ def _findings(r: results.Report, max_ids: int, verbose: bool):
         return Text("no findings")
     rows = []
     unit = unit_word(r)
-    for f in _by_severity(r.findings):
+    for f, alike in _alike_grouped(_by_severity(r.findings)):
         line = Text()
         line.append(f"{f.severity:<7} ", style=_SEVERITY_STYLE.get(f.severity, ""))
         line.append(f"[{f.code}] ", style="dim")
@@ -624,10 +635,28 @@ def _findings(r: results.Report, max_ids: int, verbose: bool):
         phrase = ids_phrase(f.nodes, unit, total_of(r), max_ids)
         if f.nodes and summarise_ids(f.nodes, max_ids) not in f.message and phrase not in f.message:
             line.append(f" ({phrase})")
+        if alike:
+            others = sorted({v for g in alike for v in g.nodes})
+            line.append(f" The same at {len(alike):,} more place{'s' if len(alike) != 1 else ''} "
+                        f"({ids_phrase(others, unit, total_of(r), max_ids)}; each in the JSON report).")
         rows.append(line)
         if verbose and f.advice:
             rows.append(Text(f"        advice: {f.advice}"))
     return Group(*rows)
+
+
+def _alike_grouped(findings: list[results.Finding]) -> list[tuple[results.Finding, list[results.Finding]]]:
+    """Findings with their look-alikes: same severity and code, and the same
+    message once the finding's own node list is taken out (31 penalty links
+    with one ratio read as one line, not 31); the first one is shown whole."""
+    def key(f: results.Finding):
+        listed = ", ".join(str(v) for v in f.nodes)
+        return f.severity, f.code, f.message.replace(listed, "#") if f.nodes else f.message
+
+    groups: dict = {}
+    for f in findings:
+        groups.setdefault(key(f), []).append(f)
+    return [(g[0], g[1:]) for g in groups.values()]
 
 
 def _by_severity(findings: Iterable[results.Finding]) -> list[results.Finding]:

@@ -287,6 +287,13 @@ def _advice(model: Model, row: int, restraints: list[Restraint], shares: list[Mo
     if most is not None and most >= DIGITS_NAMED and not moving:
         out.append(f"Up to {most:.1f} digits of its stiffness can be lost at its pivot: the rest of the structure "
                    "barely holds this DOF; stiffen or support it, or check the elements that connect it.")
+    little = [s for s in shares if SHARE_STORED <= s.share < SHARE_NAMED]
+    if not out and little:
+        # It does move in a mode, only little in the scaled weighting: the
+        # mode, not this DOF alone, is what to fix.
+        out.append(f"Nothing at this row needs changing by itself: it carries {little[0].share:.1%} of "
+                   f"near-singular mode {little[0].mode}: remove that mode (the diagnosis names supports "
+                   "that do).")
     if not out:
         out.append("Nothing at this row needs changing: the solver's warning is not explained by this DOF.")
     return out

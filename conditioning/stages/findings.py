@@ -42,7 +42,8 @@ CODES = {
     "stiffness.stiff-link-eigenvalue": "small scaled eigenvalues that stiff links explain",
     "spectrum.inertia-mismatch": "the eigenvalue count and the inertia count disagree",
     "condition.ill-conditioned": "the scaled condition number is large",
-    "condition.units-only": "the raw condition number is large only through units or DOF-type mixing",
+    "condition.units-only": "the raw condition number is large only through rows of very different size "
+                            "(units, DOF types, stiff next to soft material)",
     "pivot.digits-lost": "many digits lost at a pivot: a DOF nearly unsupported once the others are eliminated",
     "factor.negative-pivot": "a negative pivot: K is indefinite at that DOF",
     "digits.below-minimum": "fewer trustworthy digits than required",
@@ -236,6 +237,14 @@ def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[
     return out
 
 
+def _eigenvalue_text(value: float, exact: bool, largest: bool = False) -> str:
+    """The scaled eigenvalue in words: zero at working precision (its computed
+    digits are round-off) or the figure."""
+    if exact:
+        return f"{'largest ' if largest else ''}scaled eigenvalue 0 at working precision (round-off)"
+    return f"{'largest ' if largest else ''}scaled eigenvalue {value:.2e}"
+
+
 def _held_text(mode: NearSingularMode) -> str:
     return "" if mode.exact else (" It is held only by a very small stiffness (for example a "
                                   "soft spring), so K is invertible but badly conditioned.")
@@ -249,10 +258,15 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
                         rows_word: str) -> Finding:
     who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
     nearly = "" if mode.exact else "nearly "
+    part_nodes = model.nodes_of(np.flatnonzero(structure.part_of_row == mode.part - 1))
+    still = sorted(set(part_nodes) - set(mode.nodes))
+    stay = (f"; {rows_word if len(still) > 1 else rows_word[:-1]} {_list_nodes(still)} "
+            f"{'stay' if len(still) > 1 else 'stays'} in place (on the axis the "
+            f"{'model' if structure.parts <= 1 else 'part'} turns about)" if still else "")
     return Finding(
         "error", "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
-        f"scaled eigenvalue {mode.eigenvalue:.2e}; it moves {_at(model, rows_word, mode.nodes)}."
+        f"{_eigenvalue_text(mode.eigenvalue, mode.exact)}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
         f"{_held_text(mode)}",
         mode.nodes,
         "Add supports in the directions that move, or connect the part to the supported "
@@ -295,14 +309,15 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
                 head += (f"; {len(groups)} group{'s' if len(groups) != 1 else ''} {words}: {named}"
                          + (f" and {more} more" if more > 0 else ""))
         if mode.meeting:
-            head += f"; the groups meet at {rows_word} {_list_nodes(mode.meeting)}"
+            word = rows_word if len(mode.meeting) > 1 else rows_word[:-1]
+            head += f"; the groups meet at {word} {_list_nodes(mode.meeting)}"
     advice = ("Restrain the member's rotation about its own axis at one end (release torsion at one end "
               "only), or restrain that rotation at one of its nodes." if mode.description.startswith("spin")
               else "Look for a missing brace, a released end (hinge) too many, or a member that "
                    "only touches the rest at one node.")
     return Finding(
         "error", "support.mechanism",
-        f"{head}; scaled eigenvalue {mode.eigenvalue:.2e}.{_held_text(mode)}"
+        f"{head}; {_eigenvalue_text(mode.eigenvalue, mode.exact)}.{_held_text(mode)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
         mode.nodes, advice)
@@ -317,7 +332,7 @@ def _mode_group_finding(structure: StructureResult, group: ModeGroup, rows_word:
     return Finding(
         "error", code,
         f"{group.count:,} {nearly}{what}{_where(structure, group.part)}{motion}; {rows_word}: "
-        f"{_list_nodes(group.nodes)}; largest scaled eigenvalue {group.eigenvalue_max:.2e}.",
+        f"{_list_nodes(group.nodes)}; {_eigenvalue_text(group.eigenvalue_max, group.exact, largest=True)}.",
         group.nodes,
         "Each mode is listed in the JSON report (and --modes-csv). Look for nodes no element "
         "connects in some direction, missing supports or released ends.")
@@ -423,9 +438,10 @@ def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional
     if condition.scaling_gain_digits is not None and condition.scaling_gain_digits >= 3:
         out.append(Finding("note", "condition.units-only",
                            f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
-                           f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it are only "
-                           "units or DOF-type mixing (rotations next to translations, mm next to m), "
-                           "which a direct solver does not pay.", [], ""))
+                           f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it come only from rows "
+                           "of very different size (units or DOF-type mixing: rotations next to "
+                           "translations, mm next to m; or stiff material next to soft), which a direct "
+                           "solver does not pay.", [], ""))
     return out
 
 

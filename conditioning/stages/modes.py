@@ -94,6 +94,12 @@ MECHANISM_MIN = 1e-3
 MECHANISM_NODES_SHOWN = 10
 #: A node moves when its displacement exceeds this share of the largest.
 MOVING_MIN = 1e-6
+#: A node of a part stays in place in all its free motions (it lies on the
+#: axis, or at the point, they turn about) when its rows of the part's scaled
+#: null basis have at most this share of the largest node's norm (project's
+#: choice: such nodes measure 1e-13..1e-10 in dense and Lanczos bases of an
+#: invented tower turning about one leg, the moving ones 0.5 or more).
+STILL_NODE = 1e-6
 #: A node's neighbourhood moves rigidly, and two neighbouring fits agree, to
 #: within this share of the largest displacement (project's choice).
 RIGID_FIT_TOL = 1e-3
@@ -325,7 +331,8 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
     """Rigid-body modes of one part, then (step 3) its mechanisms in their sparsest basis."""
     rb = part_rigid_motions(ctx.model, rows)
     modes, columns, rigid_vecs = [], [], []
-    node_list = ctx.model.nodes_of(rows)
+    still = _still_nodes(ctx.model, rows, B, ctx.d)
+    node_list = [v for v in ctx.model.nodes_of(rows) if v not in still]
     for c in _rigid_in_null_space(rb, B):
         u_part = rb.basis @ c
         u = _on_all_rows(ctx.model.n, rows, u_part)
@@ -342,6 +349,19 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
         modes.append(mode)
         columns.append(u)
     return modes, columns
+
+
+def _still_nodes(model: Model, rows, B: NDArray, d: NDArray) -> set[int]:
+    """Nodes of a part (1-based rows without a map) that every direction of
+    the part's null space ``B`` (K's DOFs) leaves in place: a node on the axis
+    of a free rotation of a truss, or at the point it turns about. The norm of
+    a node's rows is taken in the scaled coordinates v = D^1/2 u, comparable
+    across DOF types; a node with rotation DOFs on the axis still turns."""
+    v = np.sqrt(np.where(d[rows] > 0, d[rows], 1.0))[:, None] * B
+    ids = model.dofs.node[rows] if model.dofs is not None else np.asarray(rows) + 1
+    uniq, inv = np.unique(ids, return_inverse=True)
+    norm = np.sqrt(np.bincount(inv, weights=np.sum(v**2, axis=1)))
+    return {int(x) for x in uniq[norm <= STILL_NODE * norm.max()]}
 
 
 def _rigid_in_null_space(rb: RigidBasis, B: NDArray) -> list[NDArray]:

@@ -298,7 +298,12 @@ def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, 
         lo = max(values[first + count - 1], zero)
         hi = values[first + count]
         split_point = float(np.sqrt(lo * hi))
-        if fac is not None and fac.info.negative_pivots is not None:
+        if dense and fac is not None:
+            # Every eigenvalue is known: count them. (Adding the factorization's
+            # negative pivots to the computed values above its shift miscounts
+            # a zero eigenvalue whose round-off sign differs from its pivot's.)
+            expected = int(np.count_nonzero(values < split_point))
+        elif fac is not None and fac.info.negative_pivots is not None:
             expected = int(fac.info.negative_pivots
                            + np.count_nonzero((values >= fac.shift) & (values < split_point)))
     # Shift-and-invert finds eigenvalues near the shift only: true negative
