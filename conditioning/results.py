@@ -17,6 +17,11 @@ from numpy.typing import NDArray
 #: (``DofTable.dof`` and :attr:`ModelGeometry.row_dof` index into it).
 DOF_NAMES: tuple[str, ...] = ("ux", "uy", "uz", "rx", "ry", "rz")
 
+#: Version of the report's JSON layout (written by the JSON renderer, checked
+#: by the reader of saved reports); bump the number when a key changes meaning
+#: or disappears (adding keys keeps the version).
+REPORT_SCHEMA = "conditioning-report/2"
+
 Severity = Literal["error", "warning", "note"]
 ModeKind = Literal["rigid-body", "mechanism", "dof-without-stiffness"]
 

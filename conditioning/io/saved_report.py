@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 
 from conditioning.errors import InputError
 from conditioning.model import DOF_NAMES, Model, matrix_fingerprint
-from conditioning.render.json_report import SCHEMA
+from conditioning.results import REPORT_SCHEMA as SCHEMA
 from conditioning.results import Restraint, RowShares, StiffnessJump
 
 _NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
@@ -79,7 +79,7 @@ def read_saved_report(path: Union[str, Path], model: Model) -> SavedReport:
     ----------
     path : str or Path
         A file written by ``conditioning diagnose --json`` (schema
-        :data:`conditioning.render.json_report.SCHEMA`).
+        :data:`conditioning.results.REPORT_SCHEMA`).
     model : Model
         The model read again: its K (rows, stored entries, fingerprint) and
         DOF map must be those the report was made of.

@@ -33,9 +33,8 @@ import numpy as np
 
 from conditioning import results
 
-#: Version of the JSON layout; bump the number when a key changes meaning or
-#: disappears (adding keys keeps the version).
-SCHEMA = "conditioning-report/2"
+#: Version of the JSON layout (:data:`conditioning.results.REPORT_SCHEMA`).
+SCHEMA = results.REPORT_SCHEMA
 COMPARE_SCHEMA = "conditioning-compare/1"
 
 #: Fields that are not serialised (large, or only meaningful with the model).
