@@ -132,6 +132,8 @@ def _lanczos_smallest(S: sp.csr_array, rng: np.random.Generator):
                           v0=rng.standard_normal(n))
     except spla.ArpackNoConvergence as exc:  # keep the pairs that converged
         w, V = exc.eigenvalues, exc.eigenvectors
+    except spla.ArpackError:  # ARPACK gave up otherwise: nothing found, nothing claimed
+        w, V = np.zeros(0), np.zeros((n, 0))
     return np.asarray(w, dtype=np.float64), np.asarray(V, dtype=np.float64).reshape(n, -1), count[0]
 
 
