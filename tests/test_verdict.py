@@ -234,3 +234,27 @@ def test_penalty_supports_are_not_blamed_when_digits_fall_short():
     assert sorted(v for f in grounded for v in f.nodes) == [1, 2]
     assert all(f.severity == "note" and "loses no digits" in f.message for f in grounded)
     assert not any(f.code == "stiffness.jump" for f in report.findings)
+
+
+def test_single_bar_free_directions_are_not_blamed_on_drilling():
+    """One invented 2D bar element (E A / L = 84000 N/mm, direction (0.6, 0.8)),
+    unsupported. Truth: LAPACK eigh of its 4 x 4 K has a null space of dimension
+    3, holding the translation of each node across the bar, (0.8, -0.6). The
+    tool reports those as DOFs without stiffness; the advice must name bars,
+    not shell drilling rotations (which have nothing to do with a bar)."""
+    from conditioning.model import Coordinates, DofTable
+    from conditioning.pipeline import diagnose
+
+    c, s, k = 0.6, 0.8, 84000.0
+    e = np.array([c, s, -c, -s])
+    K = k * np.outer(e, e)
+    w, V = np.linalg.eigh(K)
+    null = V[:, np.abs(w) < 1e-10 * w.max()]
+    assert null.shape[1] == 3                                                  # LAPACK eigh
+    across = np.array([0.8, -0.6, 0.0, 0.0])
+    assert np.linalg.norm(null @ (null.T @ across) - across) < 1e-12           # in the null space
+    dofs = DofTable(node=np.array([7, 7, 9, 9]), dof=np.array([0, 1, 0, 1]))
+    coords = Coordinates(node=np.array([7, 9]), xyz=np.array([[0.0, 0.0, 0.0], [1200.0, 1600.0, 0.0]]), dim=2)
+    report = diagnose(sp.csr_array(K), dofs=dofs, coords=coords, measure=False)
+    (f,) = [f for f in report.findings if f.code == "support.dof-without-stiffness"]
+    assert "bars" in f.advice and "drilling" not in f.advice

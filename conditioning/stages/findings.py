@@ -349,10 +349,22 @@ def _node_dof_finding(structure: StructureResult, group: ModeGroup, modes: list[
         "error", "support.dof-without-stiffness",
         f"{len(modes):,} direction(s) at single {rows_word}{_where(structure, group.part)} have no stiffness "
         f"though no row is empty: {motion}. {rows_word.capitalize()}: {_list_nodes(nodes)}.",
-        nodes,
-        "Each is a DOF without stiffness along its axis, not a mechanism: typically the rotation about "
-        "the normal of shell elements without drilling stiffness on an inclined wall. Restrain it at each "
-        "node (the suggested restraints), or use elements with drilling stiffness.")
+        nodes, _node_dof_advice(modes))
+
+
+def _node_dof_advice(modes: list[NearSingularMode]) -> str:
+    """The usual cause named by what the free directions are: rotations (drilling) or translations (bars)."""
+    turns = any(m.description.startswith("rotation") for m in modes)
+    moves = any(m.description.startswith("translation") for m in modes)
+    causes = []
+    if turns or not moves:
+        causes.append("a rotation about the normal of shell elements without drilling stiffness on an "
+                      "inclined wall (use elements with drilling stiffness)")
+    if moves:
+        causes.append("a translation across a node held only by bars (truss members) along one line, "
+                      "which give no stiffness across it (add a member or support across that line)")
+    return ("Each is a DOF without stiffness along its axis, not a mechanism: typically "
+            + "; or ".join(causes) + ". Restrain it at each node (the suggested restraints) or remove the cause.")
 
 
 def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:
