@@ -383,11 +383,14 @@ class StiffnessJump:
     ratio: float
     """Stiffness ratio (stiff / typical of the same dof type), dimensionless."""
     digits_cost: float
-    """About log10(ratio): digits of the solution it can cost."""
+    """About log10(ratio) for a coupling: digits of the solution it can cost;
+    0 for a diagonal outlier, which diagonal scaling removes (it raises only
+    the raw condition number; a direct solve does not pay it)."""
     advice_value: Optional[float]
     """A suggested stiffness for the link that stays effective with fewer
     digits lost, in K's units; None when the stiffness is already within the
-    usual penalty range."""
+    usual penalty range, and for a diagonal outlier (a smaller spring to
+    ground would cost no fewer digits, only make the support softer)."""
     reasoning: str
     """Why it costs digits and what to do, in plain words (with the part
     when the model has several)."""

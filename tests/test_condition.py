@@ -161,3 +161,42 @@ def test_two_materials_are_named_as_a_cause_the_scaling_removes():
     note = next(f for f in report.findings if f.code == "condition.units-only")
     shown = f"{report.condition.scaling_gain_digits:.1f} digits"
     assert shown in note.message and "stiff material next to soft" in note.message
+
+
+
+def _portal_with_penalty_bases(factor: float) -> sp.csr_array:
+    """Invented steel portal (mm, N): columns 4000 high, beam 6000 long, each
+    member in 2 elements; both bases held by diagonal penalties ``factor``
+    times the largest diagonal (the way exporters keep restrained rows in K)."""
+    from conditioning.demo import assemble
+
+    xy = np.array([[0, 0], [6000, 0], [0, 4000], [6000, 4000], [0, 2000], [6000, 2000], [3000, 4000]], float)
+    members = np.array([[1, 5], [5, 3], [2, 6], [6, 4], [3, 7], [7, 4]])
+    frame = assemble.frame2d(np.arange(1, 8), xy, members, E=210e3, A=5000.0, I=6e7)
+    big = factor * float(frame.K.diagonal().max())
+    for node in (1, 2):
+        for dof in ("ux", "uy", "rz"):
+            frame = assemble.ground_spring(frame, (node, dof), big)
+    return frame.K
+
+
+@pytest.mark.parametrize("factor", [1e13, 1e15])
+def test_raw_condition_with_penalty_supports_is_resolved(factor):
+    """The smallest eigenvalue of the penalty-supported portal (about 3e2) lies far
+    below LAPACK's absolute resolution n eps ||K|| of the dense eigenvalues (1e10
+    and more): the eigenvalue nearest zero that eigvalsh returns is round-off (it
+    gave 2.4e20 for the 69-row frame of the same kind instead of 5.7e21). The raw
+    condition number must still be right, and say how it was obtained.
+    Truth: mpmath.eigsy at 80 digits on the same matrix."""
+    import mpmath
+
+    K = _portal_with_penalty_bases(factor)
+    with mpmath.workdps(80):
+        ev = mpmath.eigsy(mpmath.matrix(K.toarray().tolist()), eigvals_only=True)
+        lo, hi = min(ev), max(ev)
+        truth = float(hi / lo)
+    _, _, cond = _stages(K)
+    assert not cond.singular
+    assert cond.lambda_min == pytest.approx(float(lo), rel=1e-6)       # mpmath eigsy, 80 digits
+    assert cond.estimate == pytest.approx(truth, rel=1e-6)             # mpmath eigsy, 80 digits
+    assert "K^-1" in cond.estimate_method

@@ -209,13 +209,38 @@ def test_penalty_link_in_frame_found_between_its_nodes():
 
 def test_spring_to_ground_is_a_diagonal_outlier():
     """A support given as a spring of 1e12 x EA/L to ground at one node: a
-    diagonal outlier at that node, not a coupling."""
+    diagonal outlier at that node, not a coupling; it costs no digits (see the
+    next test for the LAPACK check) and no smaller value is advised."""
     model = portal_frame_mm()
     P = 1e12 * 210000.0 * 5380.0 / 750.0
     grounded = with_spring(model, [3 * 5], None, P)
     jumps = find_stiffness_jumps(grounded)
     assert [(j.kind, j.nodes, j.rows) for j in jumps] == [("diagonal-outlier", [6], [15])]
-    assert jumps[0].digits_cost > 10
+    assert jumps[0].digits_cost == 0.0 and jumps[0].advice_value is None
+
+
+@pytest.mark.parametrize("factor", [1e12, 1e15])
+def test_penalty_supports_cost_no_digits(factor):
+    """Every DOF of the frame's base nodes held by a diagonal penalty `factor`
+    times the largest diagonal (invented; how exporters keep restrained rows):
+    one diagonal outlier per base node, each with digits_cost 0 and no smaller
+    stiffness advised. Truth: numpy.linalg.cond (LAPACK SVD) of the scaled
+    matrix with the penalties equals, to 1e-6 in digits, that of the frame
+    with those rows removed (the exactly held frame), while the raw ratio is
+    1e12 and more."""
+    model = portal_frame_mm(bays=2, storeys=2, parts=2)
+    base = np.flatnonzero(model.coords.xyz[:, 1] == 0.0)
+    rows = np.sort(np.concatenate([3 * base, 3 * base + 1, 3 * base + 2]))
+    P = factor * float(model.K.diagonal().max())
+    held = with_spring(model, rows, None, P)
+    jumps = find_stiffness_jumps(held)
+    assert sorted(j.nodes[0] for j in jumps) == sorted(int(b) + 1 for b in base)
+    assert all(j.kind == "diagonal-outlier" and j.ratio >= factor for j in jumps)
+    keep = np.setdiff1d(np.arange(model.n), rows)
+    removed = model.K.toarray()[np.ix_(keep, keep)]
+    cost = math.log10(np.linalg.cond(scaled_dense(held.K)) / np.linalg.cond(scaled_dense(sp.csr_array(removed))))
+    assert abs(cost) < 1e-6                                   # LAPACK: the penalties cost nothing
+    assert all(j.digits_cost == 0.0 and j.advice_value is None for j in jumps)
 
 
 def test_limit_keeps_the_largest():

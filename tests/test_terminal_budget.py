@@ -78,7 +78,7 @@ def test_table_rows_never_wrap(reports, width):
                     break
                 first = row.split()[0]
                 ok = (first in samples or first.isdigit() or first in ("coupling", "diagonal-outlier")
-                      or row.startswith(("condition number", "near-singular modes", "stiffness jumps",
+                      or row.startswith(("condition number", "near-singular modes", "stiffness jumps", "springs to ground",
                                          "digits lost at a pivot", "negative pivots", "trustworthy digits")))
                 assert ok, f"{name} at {width}: wrapped table row {row!r}"
             assert all(len(ln) <= width for ln in lines)

@@ -197,3 +197,64 @@ def test_bcsstk14_per_row_digits_are_not_flat():
     assert np.all(sample.solution[structure.placeholder_rows] == 0.0)
     assert sample.trustworthy_digits < 15.0
     assert float(np.min(sample.per_dof_digits)) < float(np.max(sample.per_dof_digits)) - 1.0
+
+
+def test_penalty_supports_are_not_blamed_when_digits_fall_short():
+    """An invented steel portal (mm, N; 2 elements a member) whose bases are held
+    by diagonal penalties 1e13 times the largest diagonal, diagnosed with
+    --min-digits 15: the measured digits (about 13) fall short, but the cause is
+    the frame's own scaled conditioning, not the penalties. Truth: LAPACK
+    (numpy.linalg.cond) gives the same scaled condition number, to 1e-6 in
+    digits, for the frame with the base rows removed. The verdict must not
+    name a stiffness jump, and the penalties are said to cost no digits."""
+    from conditioning.demo import assemble
+    from conditioning.pipeline import diagnose
+
+    xy = np.array([[0, 0], [6000, 0], [0, 4000], [6000, 4000], [0, 2000], [6000, 2000], [3000, 4000]], float)
+    members = np.array([[1, 5], [5, 3], [2, 6], [6, 4], [3, 7], [7, 4]])
+    frame = assemble.frame2d(np.arange(1, 8), xy, members, E=210e3, A=5000.0, I=6e7)
+    big = 1e13 * float(frame.K.diagonal().max())
+    held = frame
+    for node in (1, 2):
+        for dof in ("ux", "uy", "rz"):
+            held = assemble.ground_spring(held, (node, dof), big)
+    base = np.flatnonzero(np.isin(frame.dofs.node, [1, 2]))
+    keep = np.setdiff1d(np.arange(frame.n), base)
+
+    def scaled_cond(A):
+        s = 1.0 / np.sqrt(np.diag(A))
+        return np.linalg.cond(s[:, None] * A * s)
+    removed = frame.K.toarray()[np.ix_(keep, keep)]
+    assert abs(math.log10(scaled_cond(held.K.toarray()) / scaled_cond(removed))) < 1e-6   # LAPACK
+    report = diagnose(held.K, dofs=held.dofs, min_digits=15, seed=0)
+    worst = min(s.trustworthy_digits for s in report.digits.samples)
+    assert worst < 15 and report.status == "errors"
+    assert report.verdict.startswith("fewer digits than required"), report.verdict
+    grounded = [f for f in report.findings if f.code == "stiffness.spring-to-ground"]
+    assert sorted(v for f in grounded for v in f.nodes) == [1, 2]
+    assert all(f.severity == "note" and "loses no digits" in f.message for f in grounded)
+    assert not any(f.code == "stiffness.jump" for f in report.findings)
+
+
+def test_single_bar_free_directions_are_not_blamed_on_drilling():
+    """One invented 2D bar element (E A / L = 84000 N/mm, direction (0.6, 0.8)),
+    unsupported. Truth: LAPACK eigh of its 4 x 4 K has a null space of dimension
+    3, holding the translation of each node across the bar, (0.8, -0.6). The
+    tool reports those as DOFs without stiffness; the advice must name bars,
+    not shell drilling rotations (which have nothing to do with a bar)."""
+    from conditioning.model import Coordinates, DofTable
+    from conditioning.pipeline import diagnose
+
+    c, s, k = 0.6, 0.8, 84000.0
+    e = np.array([c, s, -c, -s])
+    K = k * np.outer(e, e)
+    w, V = np.linalg.eigh(K)
+    null = V[:, np.abs(w) < 1e-10 * w.max()]
+    assert null.shape[1] == 3                                                  # LAPACK eigh
+    across = np.array([0.8, -0.6, 0.0, 0.0])
+    assert np.linalg.norm(null @ (null.T @ across) - across) < 1e-12           # in the null space
+    dofs = DofTable(node=np.array([7, 7, 9, 9]), dof=np.array([0, 1, 0, 1]))
+    coords = Coordinates(node=np.array([7, 9]), xyz=np.array([[0.0, 0.0, 0.0], [1200.0, 1600.0, 0.0]]), dim=2)
+    report = diagnose(sp.csr_array(K), dofs=dofs, coords=coords, measure=False)
+    (f,) = [f for f in report.findings if f.code == "support.dof-without-stiffness"]
+    assert "bars" in f.advice and "drilling" not in f.advice

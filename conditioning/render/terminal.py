@@ -231,6 +231,8 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
 
 
 def _jump_cost(j: results.StiffnessJump) -> str:
+    if j.kind == "diagonal-outlier":
+        return "none (scaled)"  # a spring to ground raises only the raw figure
     return "all" if j.swallowed else f"up to {j.digits_cost:.1f}"
 
 
@@ -248,9 +250,13 @@ def _key_figures(r: results.Report):
     if sp is not None:
         t.add_row("near-singular modes", _mode_count(sp),
                   _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
-    if r.jumps:
-        worst = max(r.jumps, key=lambda j: j.digits_cost)
-        t.add_row("stiffness jumps", str(len(r.jumps)), f"estimated; worst {_jump_cost(worst)} digits")
+    links = [j for j in r.jumps if j.kind != "diagonal-outlier"]
+    if links:
+        worst = max(links, key=lambda j: j.digits_cost)
+        t.add_row("stiffness jumps", str(len(links)), f"estimated; worst {_jump_cost(worst)} digits")
+    if len(links) < len(r.jumps):
+        t.add_row("springs to ground", str(len(r.jumps) - len(links)),
+                  "cost no digits (scaling removes them)")
     p = r.pivots
     if p is None and "pivots" in r.skipped:
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
@@ -477,7 +483,7 @@ def _jumps(r: results.Report, max_ids: int):
     t = _table("kind", unit_word(r) + "s", "ratio", "digits cost", "suggested", right=(2, 3, 4))
     for j in r.jumps[:max_ids]:
         t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio, 2),
-                  "all" if j.swallowed else f"up to {j.digits_cost:.1f}", fmt_number(j.advice_value))
+                  _jump_cost(j), fmt_number(j.advice_value))
     parts = [t]
     if len(r.jumps) > max_ids:
         parts.append(Text(f"and {len(r.jumps) - max_ids:,} more (all in the JSON report)"))
@@ -764,8 +770,10 @@ def explanation_view(e: results.RowExplanation) -> Group:
         t.add_row(c.label, fmt_number(c.value), f"{c.strength:.3f}")
     lines.append(t if e.couplings else Text("Coupled to no other row."))
     for j in e.jumps:
-        lines.append(Text(f"Stiffness jump ({j.kind}, ratio {fmt_number(j.ratio)}, about "
-                          f"{fmt_digits(j.digits_cost)} digits): nodes {', '.join(map(str, j.nodes))}."))
+        cost = ("no digits for a direct solve" if j.kind == "diagonal-outlier"
+                else f"about {fmt_digits(j.digits_cost)} digits")
+        lines.append(Text(f"Stiffness jump ({j.kind}, ratio {fmt_number(j.ratio)}, {cost}): "
+                          f"nodes {', '.join(map(str, j.nodes))}."))
     if e.most_digits is not None:
         here = (f"{fmt_digits(e.pivot_digits)} digits of K_ii lost at its pivot in this tool's order"
                 if e.pivot_digits is not None else "its pivot in this tool's order is not available")

@@ -36,6 +36,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from conditioning.engine.base import Factorization
+from conditioning.linalg.floating_point import EPS
 from conditioning.linalg.onenormest import one_norm_estimate
 from conditioning.results import ConditionResult
 from conditioning.stages.spectrum import DENSE_LIMIT, Eigenpairs, largest_eigenvalue
@@ -43,16 +44,37 @@ from conditioning.stages.spectrum import DENSE_LIMIT, Eigenpairs, largest_eigenv
 logger = logging.getLogger(__name__)
 
 
-def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, rng) -> float:
-    """Eigenvalue of K nearest zero, by Lanczos on K^-1 = D^-1/2 S^-1 D^-1/2 (K nonsingular).
+#: LAPACK's symmetric eigenvalues carry an absolute error of about n eps ||K||_2
+#: (Demmel 1997, section 5.2; from memory). The dense eigenvalue nearest zero
+#: is taken only when it exceeds DENSE_TRUST times that bound, so that the bound
+#: is at most 1% of it; below, it is round-off (a penalty of 1e13 beside
+#: ordinary stiffnesses of 1e11 leaves lambda_min ~ 3e2 under an error of
+#: ~3e10) and lambda_min comes from K^-1 through the factor's solves instead.
+DENSE_TRUST = 100.0
 
-    The Lanczos start is the smallest eigenvector of S mapped to K's DOFs,
-    usually close to K's own, so that few solves are needed.
+
+def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, rng) -> tuple[float, str]:
+    """(eigenvalue of K nearest zero, in K's units; how it was obtained), K nonsingular.
+
+    Dense LAPACK below DENSE_LIMIT rows when its absolute accuracy resolves
+    that eigenvalue; otherwise by the extreme eigenvalue of K^-1 =
+    D^-1/2 S^-1 D^-1/2 through the shared factorization: dense (K^-1 from n
+    solves) below DENSE_LIMIT rows, Lanczos above. The Lanczos start is the
+    smallest eigenvector of S mapped to K's DOFs, usually close to K's own,
+    so that few solves are needed.
     """
     n = K.shape[0]
     if n <= DENSE_LIMIT:
         w = np.linalg.eigvalsh(K.toarray())
-        return float(w[np.argmin(np.abs(w))])
+        lam = float(w[np.argmin(np.abs(w))])
+        if abs(lam) > DENSE_TRUST * n * EPS * float(np.max(np.abs(w))):
+            return lam, "dense eigensolver (LAPACK)"
+        inv = fac.solve(np.eye(n))
+        mu = np.linalg.eigvalsh(0.5 * (inv + inv.T))
+        how = ("1 / the largest eigenvalue of K^-1 (dense, from the factor's solves; LAPACK's own "
+               "eigenvalue of K nearest zero is below its resolution n eps ||K||)")
+        return 1.0 / float(mu[np.argmax(np.abs(mu))]), how
+    how = "Lanczos on K^-1 through the shared factorization (residual bound 1e-4 relative)"
     op = spla.LinearOperator((n, n), matvec=fac.solve, dtype=np.float64)
     v0 = None
     if spectrum.vectors.shape[1] > spectrum.first:
@@ -62,11 +84,11 @@ def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, r
         v0 /= np.linalg.norm(v0)
     if fac.info.negative_pivots == 0:
         # K positive definite: 1/lambda_min is the largest eigenvalue of K^-1.
-        return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0, check_every=1)
+        return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0, check_every=1), how
     if v0 is None:
         v0 = rng.standard_normal(n)
     mu = spla.eigsh(op, k=1, which="LM", tol=1e-4, v0=v0, return_eigenvectors=False)
-    return 1.0 / float(mu[0])
+    return 1.0 / float(mu[0]), how
 
 
 def _one_norm_condition(K: sp.csr_array, fac: Factorization, rng) -> float:
@@ -144,10 +166,8 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method=f"not computed: {no_factorization}", scaling_gain_digits=None,
         )
-    lam_min = _lambda_min_raw(K, fac, spectrum, rng)
+    lam_min, how_min = _lambda_min_raw(K, fac, spectrum, rng)
     kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
-    how_min = ("dense eigensolver (LAPACK)" if dense else
-               "Lanczos on K^-1 through the shared factorization (residual bound 1e-4 relative)")
     k1 = _one_norm_condition(K, fac, rng)
     gain = math.log10(kappa / s_kappa) if math.isfinite(kappa) and math.isfinite(s_kappa) and s_kappa > 0 else None
     return ConditionResult(

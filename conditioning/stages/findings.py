@@ -38,6 +38,8 @@ CODES = {
     "support.dof-without-stiffness": "a direction at a node that nothing resists, though no row is empty",
     "stiffness.indefinite": "negative eigenvalues: the stiffness is not positive semi-definite",
     "stiffness.jump": "a stiffness jump that costs digits",
+    "stiffness.spring-to-ground": "a support or spring to ground given by a large number (raises the raw "
+                                  "condition number only; a direct solve loses no digits to it)",
     "stiffness.penalty-swallowed": "a penalty so stiff that K no longer holds the structural stiffness of the DOFs it links",
     "stiffness.stiff-link-eigenvalue": "small scaled eigenvalues that stiff links explain",
     "spectrum.inertia-mismatch": "the eigenvalue count and the inertia count disagree",
@@ -139,7 +141,7 @@ def build_findings(
         + _spectrum_findings(spectrum, pivots)
         + _stiff_link_findings(stiff_link_eigenvalues, jumps)
         + _jump_findings(model, jumps, digits, min_digits, rows_word)
-        + _condition_findings(condition, spectrum, jumps, pivots, digits)
+        + _condition_findings(condition, spectrum, jumps, pivots, digits, rows_word)
         + _pivot_findings(model, pivots, spectrum)
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(digits, min_digits)
@@ -347,10 +349,22 @@ def _node_dof_finding(structure: StructureResult, group: ModeGroup, modes: list[
         "error", "support.dof-without-stiffness",
         f"{len(modes):,} direction(s) at single {rows_word}{_where(structure, group.part)} have no stiffness "
         f"though no row is empty: {motion}. {rows_word.capitalize()}: {_list_nodes(nodes)}.",
-        nodes,
-        "Each is a DOF without stiffness along its axis, not a mechanism: typically the rotation about "
-        "the normal of shell elements without drilling stiffness on an inclined wall. Restrain it at each "
-        "node (the suggested restraints), or use elements with drilling stiffness.")
+        nodes, _node_dof_advice(modes))
+
+
+def _node_dof_advice(modes: list[NearSingularMode]) -> str:
+    """The usual cause named by what the free directions are: rotations (drilling) or translations (bars)."""
+    turns = any(m.description.startswith("rotation") for m in modes)
+    moves = any(m.description.startswith("translation") for m in modes)
+    causes = []
+    if turns or not moves:
+        causes.append("a rotation about the normal of shell elements without drilling stiffness on an "
+                      "inclined wall (use elements with drilling stiffness)")
+    if moves:
+        causes.append("a translation across a node held only by bars (truss members) along one line, "
+                      "which give no stiffness across it (add a member or support across that line)")
+    return ("Each is a DOF without stiffness along its axis, not a mechanism: typically "
+            + "; or ".join(causes) + ". Restrain it at each node (the suggested restraints) or remove the cause.")
 
 
 def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:
@@ -401,6 +415,13 @@ def _jump_findings(model: Model, jumps: list[StiffnessJump], digits: Optional[Di
 
 def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float], min_digits: float,
                   rows_word: str) -> Finding:
+    if j.kind == "diagonal-outlier":
+        # Not a cause of lost digits (jumps.py): said as what it is, never blamed.
+        return Finding("note", "stiffness.spring-to-ground",
+                       f"Spring to ground at {_at(model, rows_word, j.nodes)}, {j.ratio:.1e} times the typical "
+                       "diagonal of its DOF type (a support given by a large number): it raises the raw "
+                       "condition number by about that ratio, which diagonal scaling removes; a direct "
+                       "solve loses no digits to it.", j.nodes, j.reasoning)
     # A stiff spring to ground is absorbed by diagonal scaling; a stiff
     # link between DOFs is not. Once digits are measured (the worst-case
     # load excites the weakest mode), the measurement decides.
@@ -422,7 +443,7 @@ def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float
 
 def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional[SpectrumResult],
                         jumps: list[StiffnessJump], pivots: Optional[PivotLoss],
-                        digits: Optional[DigitsResult]) -> list[Finding]:
+                        digits: Optional[DigitsResult], rows_word: str = "nodes") -> list[Finding]:
     """condition.ill-conditioned and condition.units-only (K nonsingular only)."""
     if condition is None or condition.singular:
         return []
@@ -440,8 +461,8 @@ def _condition_findings(condition: Optional[ConditionResult], spectrum: Optional
                            f"The raw condition number {condition.estimate:.2e} falls to {sk:.2e} after "
                            f"diagonal scaling: {condition.scaling_gain_digits:.1f} digits of it come only from rows "
                            "of very different size (units or DOF-type mixing: rotations next to "
-                           "translations, mm next to m; or stiff material next to soft), which a direct "
-                           "solver does not pay.", [], ""))
+                           "translations, mm next to m; or stiff material next to soft"
+                           + _grounded_clause(jumps, rows_word) + "), which a direct solver does not pay.", [], ""))
     return out
 
 
@@ -570,13 +591,21 @@ def own_samples(digits: Optional[DigitsResult]) -> list:
     return [s for s in digits.samples if not s.audited]
 
 
+def _grounded_clause(jumps: list[StiffnessJump], rows_word: str) -> str:
+    """'; here also ... springs to ground' when diagonal outliers explain part of the raw figure."""
+    grounded = sorted({v for j in jumps if j.kind == "diagonal-outlier" for v in j.nodes})
+    if not grounded:
+        return ""
+    return f"; here also the springs to ground given by large numbers at {rows_word} {_list_nodes(grounded)}"
+
+
 def _where_to_look(spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],
                    pivots: Optional[PivotLoss]) -> str:
     """Advice that points only at sections of the report that hold something."""
     shown = []
     if spectrum is not None and spectrum.modes:
         shown.append("near-singular modes")
-    if jumps:
+    if any(j.kind != "diagonal-outlier" for j in jumps):  # springs to ground cost no digits
         shown.append("stiffness jumps")
     if pivots is not None and pivots.worst and pivots.max_digits >= PIVOT_LOSS_DIGITS:
         shown.append("digits lost at pivots")
@@ -769,10 +798,11 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     ill = sk is not None and sk > ILL_CONDITIONED
     below = worst is not None and worst < min_digits
     troubled = ill or below
-    stiff_evidence = any(c.startswith("stiffness.") and c != "stiffness.indefinite"
-                         for c in {f.code for f in findings})
-    if (troubled and stiff_evidence) or any(c.startswith("stiffness.") and c != "stiffness.indefinite"
-                                            for c in codes):
+    def blames(c: str) -> bool:
+        return c.startswith("stiffness.") and c not in ("stiffness.indefinite", "stiffness.spring-to-ground")
+
+    stiff_evidence = any(blames(c) for c in {f.code for f in findings})
+    if (troubled and stiff_evidence) or any(blames(c) for c in codes):
         return f"stiffness jump: stiff links next to soft parts cost digits{tail}", status
     if ill or (below and sk is None):
         return f"ill-conditioned{': ' + figure if figure else ''}", status
