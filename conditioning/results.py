@@ -226,7 +226,9 @@ class NearSingularMode:
     node that every free motion of the part leaves in place, on the axis it
     turns about, is left out), the nodes
     that carry the mechanism (weight sum of v_i^2 over the node's rows of the
-    scaled mode v = D^1/2 u at least 1% of the largest node's; the meeting
+    scaled mode v = D^1/2 u at least 1% of the largest node's) or move (in
+    length units, translation or rotation times the part's size, at least 1%
+    of the most moving node's, when coordinates are given; the meeting
     nodes are ``meeting``), the node (DOF without stiffness). 1-based rows
     without a DOF map."""
     part: int

@@ -423,12 +423,16 @@ def _mechanism_mode(ctx: _Context, p: int, rows, u_part, R) -> tuple[NearSingula
     v = np.sqrt(np.where(ctx.d[rows] > 0, ctx.d[rows], 1.0)) * u_part  # scaled: comparable across DOF types
     carrying = _carrying_rows(model, rows, v)
     axis, description = _common_rotation_axis(model, rows[carrying], u_part[carrying], v, rows)
+    # The nodes named are those that carry the mode or that move: a scaled
+    # weight favours stiff DOFs (a beam's axial ux), so a column of a sway
+    # mechanism, moving as much in length units, could otherwise go unnamed.
+    located = carrying | _moving_rows(model, rows, u_part)
     groups, meeting = [], []
     if axis is None and model.coords is not None and model.dofs is not None:
         groups, meeting = _mechanism_groups(model, rows, u_part)
     lam = _rayleigh_scaled(model.K, u, ctx.d)
     motion = {} if axis is None else _axis_shares(axis, ROTATIONS)
-    mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", motion, model.nodes_of(rows[carrying]), p + 1,
+    mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", motion, model.nodes_of(rows[located]), p + 1,
                             share if model.coords is not None else float("nan"),
                             groups, u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero,
                             axis=axis, meeting=meeting, description=description)
@@ -444,6 +448,25 @@ def _carrying_rows(model: Model, rows, v) -> NDArray[np.bool_]:
     _, inv = np.unique(model.dofs.node[rows], return_inverse=True)
     w = np.bincount(inv, weights=v**2)
     return (w >= CARRIES_MIN * w.max())[inv]
+
+
+def _moving_rows(model: Model, rows, u) -> NDArray[np.bool_]:
+    """Rows of the nodes that move at least CARRIES_MIN of the most moving
+    node, in length units: a node's translation, or its rotation times the
+    part's size (the displacement that rotation makes across the part). All
+    False without a DOF map or coordinates (no length to compare with)."""
+    if model.dofs is None or model.coords is None:
+        return np.zeros(rows.size, dtype=bool)
+    node, dof = model.dofs.node[rows], model.dofs.dof[rows]
+    X = model.coords.lookup(np.unique(node))
+    size = float(np.ptp(X, axis=0).max()) if X.shape[0] > 1 else 0.0
+    length = np.where(np.isin(dof, ROTATIONS), size, 1.0) * u
+    uniq, inv = np.unique(node, return_inverse=True)
+    motion = np.sqrt(np.bincount(inv, weights=length**2, minlength=uniq.size))
+    top = float(motion.max(initial=0.0))
+    if top == 0.0:
+        return np.zeros(rows.size, dtype=bool)
+    return (motion >= CARRIES_MIN * top)[inv]
 
 
 def _common_rotation_axis(model: Model, rows, u_rows, v, part_rows):
