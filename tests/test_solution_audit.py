@@ -166,3 +166,28 @@ def test_audit_on_a_singular_K_reports_the_free_mode_component():
     assert report.digits.audit.load_free_mode_share == pytest.approx(1.0, rel=1e-9)
     finding = next(c for c in report.findings if c.code == "solution.free-mode-component")
     assert "no static equilibrium" in finding.message
+
+
+@pytest.mark.skipif(flint is None, reason="python-flint (test extra) not installed")
+def test_key_figures_keep_the_supplied_solution_apart():
+    """A wrong supplied vector (scaled by 1.01: about 2 digits, python-flint) must not become the
+    key figure of the tool's own solves (their worst keeps > 10 digits); it has its own row, and
+    the audit's method is said once, not nested."""
+    from conditioning.render.terminal import render_text
+
+    K, dofs = portal_truss()
+    f = np.zeros(K.shape[0])
+    f[dofs.dof == 1] = -10.0
+    x = np.linalg.solve(K.toarray(), f) * 1.01
+    report = conditioning.diagnose(Model(K, dofs=dofs, load=f, solution=x))
+    own = min(s.trustworthy_digits for s in report.digits.samples if not s.audited)
+    supplied = next(s for s in report.digits.samples if s.audited)
+    assert own > 10 and supplied.trustworthy_digits <= certified_digits(K.toarray(), f, x) + 1e-9
+    text = render_text(report, width=80)
+    key = text[text.index("Key figures"):text.index("Model")]
+    digits_row = next(line for line in key.splitlines() if line.startswith("trustworthy digits"))
+    assert f"{own:.1f}" in digits_row
+    supplied_row = next(line for line in key.splitlines() if line.startswith("supplied solution"))
+    assert f"{supplied.trustworthy_digits:.1f}" in supplied_row and "1 of 1 not fitting K" in supplied_row
+    assert "measured (certified" not in text and "measured (measured" not in text
+    assert report.digits.audit.method == supplied.method

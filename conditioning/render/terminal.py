@@ -272,10 +272,20 @@ def _key_figures(r: results.Report):
                 t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
     dg = r.digits
     if dg is not None and dg.samples and not dg.skipped:
-        worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
-        n = len(dg.samples)
+        # The tool's own solves and a supplied solution are different questions:
+        # a vector that does not fit K must not pass for the conditioning's toll.
+        own = [s for s in dg.samples if not s.audited] or dg.samples
+        worst = min(own, key=lambda s: s.trustworthy_digits)
+        n = len(own)
         t.add_row("trustworthy digits", _digits_shown(worst),
                   f"{_how_digits(worst.method)}; worst of {n} sample{'s' if n != 1 else ''}")
+        supplied = [s for s in dg.samples if s.audited]
+        if supplied and len(supplied) < len(dg.samples):
+            bad = min(supplied, key=lambda s: s.trustworthy_digits)
+            misfits = sum(1 for a in dg.audits if not a.fits)
+            t.add_row("supplied solution", _digits_shown(bad),
+                      f"{_how_digits(bad.method)}; "
+                      + (f"{misfits} of {len(supplied)} not fitting K" if misfits else f"worst of {len(supplied)}"))
     elif dg is not None and dg.skipped:
         t.add_row("trustworthy digits", "-", "not measured (see below)")
     elif dg is None and "digits" in r.skipped:

@@ -248,7 +248,7 @@ def _audit(solution: DigitsSample, own: DigitsSample, case: Optional[str] = None
         fits=bool(eta <= FIT_FACTOR * max(allowed, U)),
         digits_written=digits_written(solution.solution),
         free_mode_share=None, load_free_mode_share=None,
-        trustworthy_digits=solution.trustworthy_digits, method=f"measured ({solution.method})", case=case)
+        trustworthy_digits=solution.trustworthy_digits, method=solution.method, case=case)
 
 
 def audit_singular_solutions(model: Model, spectrum: Optional[SpectrumResult], structure) -> list[SolutionAudit]:
@@ -547,7 +547,7 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
         solution = by_name.get(_solution_name(audit.case))
         if solution is not None:
             audit = replace(audit, trustworthy_digits=solution.trustworthy_digits,
-                            method=f"measured ({solution.method})")
+                            method=solution.method)
         audits.append(audit)
     audits = _worst_first(audits)
     return replace(digits, samples=samples, audit=audits[0] if audits else None, audits=audits,
