@@ -85,10 +85,15 @@ def check_mode_counts(report, text: str, K=None) -> None:
     # The head count is the mode table's length.
     m = re.search(r"(\d+) near-singular modes?\b", flat)
     assert m and int(m.group(1)) == len(sp_.modes) == sp_.count, m and m.group(0)
-    empty = sum(1 for mode in sp_.modes if mode.kind == "dof-without-stiffness")
-    assert empty == len(report.structure.empty_rows)  # each empty row is its own mode
+    # Each empty row is its own mode, outside S (no description); a direction without
+    # stiffness at a single node is an eigenvalue of S (described by its axis).
+    empty = sum(1 for mode in sp_.modes if mode.kind == "dof-without-stiffness" and not mode.description)
+    assert empty == len(report.structure.empty_rows)
     m = re.search(r"(\d+) of them DOF\(s\) without stiffness", flat)
     assert (int(m.group(1)) if m else 0) == empty
+    at_nodes = sum(1 for mode in sp_.modes if mode.kind == "dof-without-stiffness" and mode.description)
+    m = re.search(r"(\d+|a) of them (?:a )?directions? without stiffness at single nodes", flat)
+    assert (0 if not m else 1 if m.group(1) == "a" else int(m.group(1))) == at_nodes
     # The eigenvalues below the split, broken down: the parts add up.
     m = re.search(r"(\d+) eigenvalue\(s\) of S below a gap of [^:]+: ([^.]*?)(?= inertia| method:)", flat)
     if m:
@@ -281,6 +286,27 @@ def test_empty_row_and_stored_zero():
     report = diagnose(A)
     check_all(report, A)
     assert "1, all in the DOFs without stiffness" in _flat(render_text(report, verbose=True))
+
+
+def test_single_bar_directions_without_stiffness_are_eigenvalues_of_S():
+    """One 2D bar (4 DOFs): its null space has dimension 3 (LAPACK eigvalsh via numpy),
+    shown as the two nodes' directions across the bar plus the translation along it. The
+    node directions are eigenvalues of S, not rows left out of it: the counts must add up
+    with nothing "not classified"."""
+    from conditioning.model import Coordinates, DofTable, Model
+
+    c, s_ = 0.6, 0.8                              # the bar's direction
+    k = 30000.0 * np.outer([c, s_, -c, -s_], [c, s_, -c, -s_])
+    A = sp.csr_array(k)
+    assert np.count_nonzero(np.abs(np.linalg.eigvalsh(k)) < 1e-9 * 30000.0) == 3
+    model = Model(A, dofs=DofTable(np.array([7, 7, 9, 9]), np.array([0, 1, 0, 1], np.int8)),
+                  coords=Coordinates(np.array([7, 9]), np.array([[0.0, 0, 0], [1200, 1600, 0]]), 2))
+    report = diagnose(model, measure=False)
+    assert report.spectrum.count == 3
+    text = _flat(render_text(report, verbose=True))
+    assert "not classified" not in text
+    assert "2 of them directions without stiffness at single nodes" in text
+    check_all(report, A)
 
 
 def test_ill_conditioned_without_modes_or_jumps_advice():

@@ -223,11 +223,17 @@ def mode_count_lines(sp: results.SpectrumResult, jumps_shown: bool) -> list[str]
     """The mode count, what lies below the split and the inertia cross-check,
     worded so that each count says what it counts (a stiff-link eigenvalue is
     below the split but is no mode; a DOF without stiffness is a mode outside S)."""
-    empty = sum(1 for m in sp.modes if m.kind == "dof-without-stiffness")
+    # A row without stiffness is left out of S (its mode has no description);
+    # a direction without stiffness at a single node is an eigenvalue of S.
+    empty = sum(1 for m in sp.modes if m.kind == "dof-without-stiffness" and not m.description)
+    at_nodes = sum(1 for m in sp.modes if m.kind == "dof-without-stiffness" and m.description)
     head = f"{sp.count} near-singular mode{'s' if sp.count != 1 else ''}"
     if empty:
         head += (f", {empty} of them DOF(s) without stiffness (each a mode of its own, "
                  "outside the eigenvalues of S)")
+    if at_nodes:
+        head += (f", {at_nodes} of them {'a direction' if at_nodes == 1 else 'directions'} without "
+                 "stiffness at single nodes")
     lines = [head]
     links = len(sp.stiff_link_eigenvalues)
     below = sp.below_split
