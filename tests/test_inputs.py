@@ -146,7 +146,7 @@ BAD_CONTEXT = {
     "dofs_node_not_integer": ("node,dof\n1,ux\n1,uy\nA,ux\n2,uy\n", "dofs", "line 4: node 'A' is not an integer"),
     "dofs_header": ("node,component\n1,ux\n", "dofs", "lacks a 'dof' column"),
     "dofs_empty": ("", "dofs", "file is empty"),
-    "coords_missing": ("node,x,y\n1,0,0\n", "coords", "coordinates missing for 1 nodes of the DOF map (first: 2)"),
+    "coords_missing": ("node,x,y\n1,0,0\n", "coords", "coordinates missing for 1 node of the DOF map (first: 2)"),
     "coords_non_numeric": ("node,x,y\n1,0,0\n2,one,0\n", "coords", "line 3: x 'one' is not a number"),
     "coords_duplicate": ("1,0,0\n2,1,0\n1,5,5\n", "coords", "lines 1 and 3 both give coordinates of node 1"),
     "coords_width": ("1,0\n2,1\n", "coords", "expected node,x,y or node,x,y,z"),

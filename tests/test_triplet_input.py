@@ -61,6 +61,8 @@ def test_diagnosis_of_a_triplet_file_equals_the_matrix_market_one(tmp_path):
     ("3 3 2\n1 1 2.0\n2 2 3.0\n", "Matrix Market file without its banner"),
     ("0 0 1\n-1 0 2\n", "an index is negative"),
     ("1 1 2.0\n2 2 x\n", "line 2: '2 2 x' is not 'row column value'"),
+    # a header, then the first entry mistyped: the line is named, not the header
+    ("row col value\n1 1 x\n2 2 3.0\n3 3 1.0\n", "line 2: '1 1 x' is not 'row column value'"),
 ])
 def test_rejected_file_says_what_it_looks_like(tmp_path, capsys, text, says):
     path = tmp_path / "k.txt"

@@ -231,7 +231,8 @@ def _dof_map(dofs, dofs_per_node, n: int, matrix_source: str, notes: list[str]) 
     _require_unique_pairs(source, node, dof, lines)
     table = DofTable(node=node, dof=dof)
     names = ", ".join(DOF_NAMES[d] for d in table.dof_types)
-    notes.append(f"DOF map from {source}: {n} rows on {table.nodes.size} nodes ({names})")
+    notes.append(f"DOF map from {source}: {n} row{'s' if n != 1 else ''} on {table.nodes.size} "
+                 f"node{'s' if table.nodes.size != 1 else ''} ({names})")
     return table
 
 
@@ -438,7 +439,7 @@ def _coordinates(coords, table: Optional[DofTable], notes: list[str]) -> Optiona
     missing = np.setdiff1d(table.nodes, positions.node)
     if missing.size:
         first = ", ".join(str(int(v)) for v in missing[:_FIRST_SHOWN])
-        raise InputError(source, f"coordinates missing for {missing.size} nodes of the DOF map (first: {first})")
+        raise InputError(source, f"coordinates missing for {missing.size} node{'s' if missing.size != 1 else ''} of the DOF map (first: {first})")
     notes.append(f"coordinates from {source}: {node.size} nodes, {dim}D")
     return positions
 

@@ -672,14 +672,19 @@ def _is_header(fields: list[str]) -> bool:
 
 
 def _looks_like_triplets(head: bytes) -> bool:
-    """True when the first data lines (a header aside) are ``i j value``."""
+    """True when at least half the first data lines (a header aside) are ``i j value``.
+
+    Most, not all: a list with one mistyped line is still a list, and its
+    reader then names that line.
+    """
     if b"\0" in head:
         return False
     lines = _data_lines(head.decode("utf-8", errors="replace"))[:21]
     if lines and _is_header(lines[0][1]):
         lines = lines[1:]
     lines = lines[:-1] if len(lines) > 1 else lines   # the sniffed block may cut the last line
-    return bool(lines) and all(_is_entry(f) for _, f in lines)
+    entries = sum(_is_entry(f) for _, f in lines)
+    return entries > 0 and 2 * entries >= len(lines)
 
 
 def _read_triplets(name: str):
@@ -691,10 +696,11 @@ def _read_triplets(name: str):
     lines = _data_lines(text)
     if lines and _is_header(lines[0][1]):
         lines = lines[1:]
-    for k, fields in lines:
+    for i, (k, fields) in enumerate(lines):
         if not _is_entry(fields):
             raise InputError(name, f"line {k}: {' '.join(fields)!r} is not 'row column value' "
-                                   "(two integer indices and a number), as the lines before it are")
+                                   "(two integer indices and a number)"
+                                   + (", as the lines before it are" if i else ", as the lines after it are"))
     if not lines:
         raise InputError(name, "holds a header but no entries")
     first = lines[0][1]

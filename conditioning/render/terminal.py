@@ -334,7 +334,8 @@ def _model(r: results.Report, max_ids: int, verbose: bool):
     s, st = r.summary, r.structure
     # "(2D; ux, uy, rz)", "(ux, uy, rz)" without coordinates, "(2D)" without DOF names
     inside = "; ".join(x for x in ((f"{s.dim}D" if s.dim else ""), ", ".join(s.dof_types)) if x)
-    where = (f"{s.rows:,} rows on {s.nodes:,} nodes" + (f" ({inside})" if inside else "")
+    rows = f"{s.rows:,} row{'s' if s.rows != 1 else ''}"
+    where = (f"{rows} on {s.nodes:,} node{'s' if s.nodes != 1 else ''}" + (f" ({inside})" if inside else "")
              if s.nodes is not None else f"{s.rows:,} rows, no DOF map (reported by row; --dofs or "
                                           "--dofs-per-node give node numbers)")
     given = [name for name, on in (("load", s.has_load), ("solution", s.has_solution)) if on]
