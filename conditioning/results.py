@@ -255,8 +255,10 @@ class NearSingularMode:
     empty when no two groups meet."""
     description: str = ""
     """The motion in words, e.g. ``"rotation about the axis (0.00, -0.89,
-    0.45)"`` or ``"spin of a member about its own axis"``; empty when
-    ``kind`` and ``motion`` say it all."""
+    0.45)"``, ``"spin of a member about its own axis"``, or for a rigid-body
+    mode that turns about a point away from the centroid (whose ``motion``
+    shares then mix translation and rotation) ``"rotation rz about node 7"``;
+    empty when ``kind`` and ``motion`` say it all."""
     row_shares: Optional[RowShares] = None
     """The rows that carry the mode and their shares of it, for ``conditioning
     explain`` from a saved report; None when the mode has no ``vector`` (or

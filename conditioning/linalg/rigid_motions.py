@@ -162,4 +162,44 @@ def _stack(cols: list, p: int) -> NDArray[np.float64]:
     return np.column_stack(cols) if cols else np.zeros((p, 0))
 
 
-__all__ = ["RigidBasis", "rigid_motions"]
+def rotation_pivot(t: ArrayLike, theta: ArrayLike, center: ArrayLike, *,
+                   axial_tol: Optional[float] = None) -> Optional[NDArray[np.float64]]:
+    """The point of the rotation axis nearest ``center`` for u(x) = t + theta x (x - center).
+
+    Parameters
+    ----------
+    t : (3,) float
+        Translation of ``center`` (model length unit).
+    theta : (3,) float
+        Rotation vector (radians).
+    center : (3,) float
+    axial_tol : float, optional
+        When given, None is returned unless the motion turns about a fixed
+        line: its translation along the axis (the pitch of the screw, Chasles'
+        theorem) at most ``axial_tol`` times |t|. Without it, the nearest
+        point of the axis is returned for any motion that turns.
+
+    Returns
+    -------
+    (3,) float or None
+        p = center + theta x t / |theta|^2 (model length unit): the motion is a
+        rotation about the line through p along theta (plus that axial
+        translation). None when theta = 0.
+
+    Examples
+    --------
+    Turning about the origin, seen from the point (2, 0, 0): t = (0, 2, 0), theta = (0, 0, 1).
+
+    >>> rotation_pivot([0, 2, 0], [0, 0, 1], [2, 0, 0]).tolist()
+    [0.0, 0.0, 0.0]
+    """
+    t, theta, center = (np.asarray(a, dtype=np.float64).reshape(3) for a in (t, theta, center))
+    q = float(theta @ theta)
+    if q == 0.0:
+        return None
+    if axial_tol is not None and abs(float(t @ theta)) / np.sqrt(q) > axial_tol * float(np.linalg.norm(t)):
+        return None
+    return center + np.cross(theta, t) / q
+
+
+__all__ = ["RigidBasis", "rigid_motions", "rotation_pivot"]

@@ -192,7 +192,7 @@ def _modes(r: results.Report) -> str:
     rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
              fmt_mode_eigenvalue(m.eigenvalue, getattr(m, "exact", False)),
              fmt_mode_eigenvalue(m.relative_eigenvalue, getattr(m, "exact", False)),
-             fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-",
+             m.description or (fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-"),
              str(m.part), summarise_ids(m.nodes, 12)] for k, m in enumerate(sp.modes, start=1)]
     return ("<h2>Near-singular modes</h2>" + head
             + _table(["#", "kind", "eigenvalue", "relative", "motion", "part", "nodes"], rows,

@@ -267,7 +267,7 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
             f"{'model' if structure.parts <= 1 else 'part'} turns about)" if still else "")
     return Finding(
         "error", "support.rigid-body-mode",
-        f"{who} can {nearly}move as a rigid body ({_motion_text(mode)}); "
+        f"{who} can {nearly}move as a rigid body ({mode.description or _motion_text(mode)}); "
         f"{_eigenvalue_text(mode.eigenvalue, mode.exact)}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
         f"{_held_text(mode)}",
         mode.nodes,

@@ -39,7 +39,7 @@ from scipy.sparse import csgraph
 
 from conditioning.linalg.local_null import group_null_directions, sparsest_basis
 from conditioning.linalg.orthonormal import orthonormal_basis
-from conditioning.linalg.rigid_motions import RigidBasis, rigid_motions
+from conditioning.linalg.rigid_motions import RigidBasis, rigid_motions, rotation_pivot
 from conditioning.model import DOF_NAMES, ROTATIONS, TRANSLATIONS, Model
 from conditioning.results import NearSingularMode, StructureResult
 from conditioning.stages.spectrum import MODE_THRESHOLD, Eigenpairs
@@ -103,6 +103,13 @@ STILL_NODE = 1e-6
 #: A node's neighbourhood moves rigidly, and two neighbouring fits agree, to
 #: within this share of the largest displacement (project's choice).
 RIGID_FIT_TOL = 1e-3
+#: A rotation axis passes through a node when it is this close to it,
+#: relative to the part's extent (the project's choice).
+AXIS_AT_NODE = 1e-6
+#: A rigid-body mode is named as a rotation about a point when its rotation
+#: moves the part's farthest node by more than this share of its translation,
+#: and its translation along the axis is at most this share (project's choice).
+TURNING_MIN = 1e-3
 #: A node carries a mechanism when its weight (sum of the scaled mode's
 #: squares over its rows) is at least this share of the largest node's
 #: (project's choice; the truth in tests is LAPACK's node weights).
@@ -339,8 +346,11 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
         share = c**2 / np.sum(c**2)
         motion = {name: float(v) for name, v in zip(rb.motions, share) if v > MOTION_SHARE_MIN}
         lam = _rayleigh_scaled(ctx.model.K, u, ctx.d)
+        mixed = any(k in motion for k in ("rx", "ry", "rz")) and any(k in motion for k in ("ux", "uy", "uz"))
+        description = _turning_text(ctx.model, rows, u_part) if mixed else ""
         modes.append(NearSingularMode(lam, lam / ctx.lambda_max, "rigid-body", motion, node_list, p + 1,
-                                      1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero))
+                                      1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero,
+                                      description=description))
         columns.append(u)
         rigid_vecs.append(u_part)
     sq = np.sqrt(np.where(ctx.d[rows] > 0, ctx.d[rows], 1.0))
@@ -349,6 +359,54 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
         modes.append(mode)
         columns.append(u)
     return modes, columns
+
+
+def pivot_words(model: Model, xyz: NDArray, pivot: NDArray, planar: bool) -> str:
+    """Where a rotation turns, in words: ``"node 7"`` when a node of the
+    coordinates (also one held out of K, whose support the part turns about)
+    lies at ``pivot`` to within AXIS_AT_NODE of the part's extent (``xyz``: its
+    rows' positions), else the point's coordinates rounded to the part's
+    scale; ``"an axis through ..."`` in 3D."""
+    span = max(float(np.ptp(xyz, axis=0).max()), np.finfo(float).tiny)
+    dist = np.linalg.norm(model.coords.xyz - pivot, axis=1)
+    if dist.min() <= AXIS_AT_NODE * span:
+        about = f"node {int(model.coords.node[int(np.argmin(dist))])}"
+    else:
+        about = "(" + ", ".join(_coordinate(v, span) for v in pivot[: (2 if planar else 3)]) + ")"
+    return about if planar else "an axis through " + about
+
+
+def _coordinate(v: float, span: float) -> str:
+    """A coordinate rounded to the model's scale (3 figures of its span): "6040", "0", never "-3.4e-15"."""
+    decimals = max(2 - int(np.floor(np.log10(span))), 0)
+    return f"{round(float(v), decimals) + 0.0:.{decimals}f}"  # + 0.0 turns -0.0 into 0.0
+
+
+def _turning_text(model: Model, rows, u_part) -> str:
+    """``"rotation rz about node 7"`` when the rigid motion ``u_part`` of the part
+    turns about a fixed point (2D) or line (3D) away from the part's centroid,
+    where its shares about the centroid would read as a mix of translation and
+    rotation; "" otherwise (a translation, a screw motion, no coordinates)."""
+    xyz = model.positions_of(rows)
+    if xyz is None:
+        return ""
+    c = xyz.mean(axis=0)
+    rb = rigid_motions(model.dofs.dof[rows], xyz, model.dofs.node[rows], center=c, lever=1.0)
+    coef, *_ = np.linalg.lstsq(rb.basis, u_part, rcond=None)
+    t, theta = np.zeros(3), np.zeros(3)
+    for name, v in zip(rb.motions, coef):
+        k = DOF_NAMES.index(name)
+        (t if k < 3 else theta)[k % 3] = v
+    radius = float(np.max(np.linalg.norm(xyz - c, axis=1)))
+    if np.linalg.norm(theta) * radius <= TURNING_MIN * np.linalg.norm(t):
+        return ""                                    # a translation
+    pivot = rotation_pivot(t, theta, c, axial_tol=TURNING_MIN)
+    if pivot is None:
+        return ""                                    # turns and slides along its axis
+    # In-plane (turning about a point) only for a plane model without uz, rx, ry.
+    planar = model.coords.dim == 2 and not np.isin(model.dofs.dof, (2, 3, 4)).any()
+    name = DOF_NAMES[3 + int(np.argmax(np.abs(theta)))]
+    return f"rotation {name} about {pivot_words(model, xyz, pivot, planar)}"
 
 
 def _still_nodes(model: Model, rows, B: NDArray, d: NDArray) -> set[int]:

@@ -26,9 +26,10 @@ from numpy.typing import NDArray
 
 from conditioning.linalg.floating_point import EPS
 from conditioning.linalg.orthonormal import orthonormal_basis
-from conditioning.linalg.rigid_motions import rigid_motions
+from conditioning.linalg.rigid_motions import rigid_motions, rotation_pivot
 from conditioning.model import DOF_NAMES, ROTATIONS, Model
 from conditioning.results import Restraint
+from conditioning.stages.modes import pivot_words
 from conditioning.stages.structure import check_structure
 
 logger = logging.getLogger(__name__)
@@ -47,9 +48,6 @@ MOTION_TOL = 1e-4
 #: A motion is a translation when its rotation moves the part's farthest node
 #: by at most this share of the translation (the project's choice).
 TRANSLATION_DOMINATES = 0.1
-#: A rotation axis passes through a node when it is this close to it,
-#: relative to the part's extent (the project's choice).
-AXIS_AT_NODE = 1e-6
 
 
 @dataclass(frozen=True)
@@ -271,17 +269,8 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     """u = t + theta x (x - c): name the main axis, the point the motion turns
     about (where the other restraints hold) and the lever arm of this one."""
     name = DOF_NAMES[3 + int(np.argmax(np.abs(theta)))]
-    c = geometry.centroid[geometry.part[row]]
-    pivot = c + np.cross(theta, t) / float(theta @ theta)  # point of the rotation axis nearest c
-    dist = np.linalg.norm(geometry.xyz[rows] - pivot, axis=1)
-    near = rows[int(np.argmin(dist))]
-    span = max(float(np.ptp(geometry.xyz[rows], axis=0).max()), np.finfo(float).tiny)
-    if dist.min() <= AXIS_AT_NODE * span:
-        about = f"node {int(model.dofs.node[near])}"
-    else:
-        about = "(" + ", ".join(_coordinate(v, span) for v in pivot[: (2 if geometry.planar else 3)]) + ")"
-    if not geometry.planar:
-        about = "an axis through " + about
+    pivot = rotation_pivot(t, theta, geometry.centroid[geometry.part[row]])  # the axis' point nearest c
+    about = pivot_words(model, geometry.xyz[rows], pivot, geometry.planar)
     dof = int(model.dofs.dof[row])
     if dof >= 3:
         return f"restrain {where}: stops the rotation {name} of {part} about {about} directly"
@@ -290,12 +279,6 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     lever = float(abs(np.cross(geometry.xyz[row] - pivot, e) @ (theta / np.linalg.norm(theta))))
     return (f"restrain {where}: stops the rotation {name} of {part} about {about}, "
             f"with a lever arm of {lever:.3g} (model length units)")
-
-
-def _coordinate(v: float, span: float) -> str:
-    """A coordinate rounded to the model's scale (3 figures of its span): "6040", "0", never "-3.4e-15"."""
-    decimals = max(2 - int(np.floor(np.log10(span))), 0)
-    return f"{round(float(v), decimals) + 0.0:.{decimals}f}"  # + 0.0 turns -0.0 into 0.0
 
 
 def _motion_without_coords(model: Model, motion, rows) -> str:
