@@ -73,3 +73,19 @@ def test_a_pure_translation_gets_no_turning_words():
     report = conditioning.diagnose(model, measure=False)
     (mode,) = report.spectrum.modes
     assert mode.description == "" and mode.motion == {"ux": 1.0}
+
+
+def test_restraint_advice_names_a_node_of_the_part_that_turns():
+    """The bracket's loose pad (demo, invented) has nodes at the same positions as plate nodes
+    (coordinates alone show the coincident pairs): a rotation of the pad about one of its
+    corners is named by the pad's own node, never by the plate node at the same place."""
+    from conditioning.demo.scenarios import scenarios
+
+    case = scenarios()["bracket_loose_pad"]
+    report = conditioning.diagnose(case.model, measure=False)
+    pad = set(report.spectrum.modes[0].nodes)         # the part that moves (the pad)
+    turning = [r for r in report.restraints if "rotation" in r.reason]
+    assert turning
+    for r in turning:
+        node = int(r.reason.split(" about node ")[1].split(",")[0])
+        assert node in pad, r.reason

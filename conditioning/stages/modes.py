@@ -361,17 +361,21 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
     return modes, columns
 
 
-def pivot_words(model: Model, xyz: NDArray, pivot: NDArray, planar: bool) -> str:
-    """Where a rotation turns, in words: ``"node 7"`` when a node of the
-    coordinates (also one held out of K, whose support the part turns about)
-    lies at ``pivot`` to within AXIS_AT_NODE of the part's extent (``xyz``: its
-    rows' positions), else the point's coordinates rounded to the part's
-    scale; ``"an axis through ..."`` in 3D."""
+def pivot_words(model: Model, rows, pivot: NDArray, planar: bool) -> str:
+    """Where a rotation of the part made of ``rows`` turns, in words: ``"node 7"``
+    when a node lies at ``pivot`` to within AXIS_AT_NODE of the part's extent
+    (a node of the part first; else any node of the coordinates, such as a
+    support held out of K), else the point's coordinates rounded to the
+    part's scale; ``"an axis through ..."`` in 3D."""
+    xyz = model.positions_of(rows)
     span = max(float(np.ptp(xyz, axis=0).max()), np.finfo(float).tiny)
-    dist = np.linalg.norm(model.coords.xyz - pivot, axis=1)
-    if dist.min() <= AXIS_AT_NODE * span:
-        about = f"node {int(model.coords.node[int(np.argmin(dist))])}"
-    else:
+    about = ""
+    for node, where in ((model.dofs.node[rows], xyz), (model.coords.node, model.coords.xyz)):
+        dist = np.linalg.norm(where - pivot, axis=1)
+        if dist.min() <= AXIS_AT_NODE * span:
+            about = f"node {int(node[int(np.argmin(dist))])}"
+            break
+    if not about:
         about = "(" + ", ".join(_coordinate(v, span) for v in pivot[: (2 if planar else 3)]) + ")"
     return about if planar else "an axis through " + about
 
@@ -406,7 +410,7 @@ def _turning_text(model: Model, rows, u_part) -> str:
     # In-plane (turning about a point) only for a plane model without uz, rx, ry.
     planar = model.coords.dim == 2 and not np.isin(model.dofs.dof, (2, 3, 4)).any()
     name = DOF_NAMES[3 + int(np.argmax(np.abs(theta)))]
-    return f"rotation {name} about {pivot_words(model, xyz, pivot, planar)}"
+    return f"rotation {name} about {pivot_words(model, rows, pivot, planar)}"
 
 
 def _still_nodes(model: Model, rows, B: NDArray, d: NDArray) -> set[int]:

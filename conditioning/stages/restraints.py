@@ -270,7 +270,7 @@ def _rotation_text(model, geometry, row, where, part, t, theta, rows) -> str:
     about (where the other restraints hold) and the lever arm of this one."""
     name = DOF_NAMES[3 + int(np.argmax(np.abs(theta)))]
     pivot = rotation_pivot(t, theta, geometry.centroid[geometry.part[row]])  # the axis' point nearest c
-    about = pivot_words(model, geometry.xyz[rows], pivot, geometry.planar)
+    about = pivot_words(model, rows, pivot, geometry.planar)
     dof = int(model.dofs.dof[row])
     if dof >= 3:
         return f"restrain {where}: stops the rotation {name} of {part} about {about} directly"
