@@ -832,6 +832,9 @@ class ModeShare:
     """v_i^2 / ||v||_2^2 for the scaled mode v = D^1/2 u (dimensionless, 0..1):
     the row's share of the mode's motion, weighted as the modes stage weighs
     nodes."""
+    exact: bool = False
+    """True when the eigenvalue is zero at working precision (its digits are
+    round-off), as :attr:`NearSingularMode.exact`."""
 
 
 @dataclass(frozen=True)

@@ -136,6 +136,15 @@ def test_share_of_a_free_mode_against_lapack(tmp_path):
         assert share.share == pytest.approx(V[row, 0] ** 2, rel=STORED + 1e-6)  # + eigenvector error
         assert e.pivot_kept is None and e.pivot_method == explain(model, row)[1].pivot_method
         assert e.advice[0].startswith(("Restrain", "The row moves"))
+        # The free chain's eigenvalue is zero at working precision (LAPACK: below n eps
+        # lambda_max): shown as such from the report and from the matrix, never as noise digits.
+        assert share.exact and explain(model, row)[1].mode_shares[0].exact
+    from conditioning.render.terminal import explanation_view
+    from rich.console import Console
+    console = Console(width=100, record=True, color_system=None, file=__import__("io").StringIO())
+    console.print(explanation_view(explain_from_report(model, 0, path)))
+    import re
+    assert re.search(r"eigenvalue 0( \(round-off\))?\)", console.export_text())
 
 
 def test_rows_held_by_a_swallowing_penalty(tmp_path):

@@ -8,6 +8,8 @@ null vector of the dense K from LAPACK eigh via numpy."""
 
 from __future__ import annotations
 
+import io
+
 import numpy as np
 import scipy.sparse as sp
 
@@ -58,3 +60,23 @@ def test_sway_mechanism_names_every_node_that_moves():
     assert moving <= set(mode.nodes)
     finding = next(f for f in report.findings if f.code == "support.mechanism")
     assert "it moves all 11 nodes" in finding.message
+
+
+def test_explained_row_shows_the_round_off_eigenvalue_as_zero():
+    """The portal's mechanism eigenvalue is round-off (LAPACK: below n eps lambda_max); explaining
+    a row must say so rather than print its noise digits, as the mode table does."""
+    from rich.console import Console
+
+    from conditioning.pipeline import explain
+    from conditioning.render.terminal import explanation_view
+
+    model = _pinned_portal()
+    w = np.linalg.eigvalsh(model.K.toarray())  # LAPACK syevd
+    assert abs(w[0]) < model.n * np.finfo(float).eps * w[-1]
+    _, e = explain(model, 0)
+    (share,) = e.mode_shares
+    assert share.exact
+    console = Console(width=100, record=True, color_system=None, file=io.StringIO())
+    console.print(explanation_view(e))
+    text = console.export_text()
+    assert "(mechanism, eigenvalue 0 (round-off))" in text or "(mechanism, eigenvalue 0)" in text

@@ -46,6 +46,8 @@ class SavedMode:
     row_shares: Optional[RowShares]
     """Rows carrying the mode and their shares (4 significant figures); None
     when the earlier run kept no vector of the mode."""
+    exact: bool = False
+    """True when the earlier run found the eigenvalue zero at working precision."""
 
 
 @dataclass(frozen=True)
@@ -187,7 +189,7 @@ def _mode(m: dict, n: int) -> SavedMode:
         if shares.shares.shape != rows.shape:
             raise ValueError(f"mode {m['index']}: row_shares.rows and row_shares.shares differ in length")
     return SavedMode(index=int(m["index"]), kind=str(m["kind"]), eigenvalue=_number(m, "eigenvalue"),
-                     row_shares=shares)
+                     row_shares=shares, exact=bool(m.get("exact", False)))
 
 
 def _rebuild(cls, d: dict):

@@ -798,7 +798,8 @@ def explanation_view(e: results.RowExplanation) -> Group:
     else:
         lines.append(Text(f"Pivot: {e.pivot_method}.", style="yellow"))
     for s in e.mode_shares:
-        lines.append(Text(f"Near-singular mode {s.mode} ({s.kind}, eigenvalue {fmt_number(s.eigenvalue)}): "
+        lines.append(Text(f"Near-singular mode {s.mode} ({s.kind}, eigenvalue "
+                          f"{fmt_mode_eigenvalue(s.eigenvalue, s.exact)}): "
                           f"{100 * s.share:.1f}% of its motion is at this row."))
     lines.extend(Text(f"What would help: {a}", style="bold") for a in e.advice)
     return Group(*lines)

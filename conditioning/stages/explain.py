@@ -252,7 +252,8 @@ def _saved_shares(saved: "SavedReport", d, row: int) -> list[ModeShare]:
             share = 1.0 if d[row] == 0 else 0.0
         else:
             continue
-        out.append(ModeShare(mode=mode.index, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share))
+        out.append(ModeShare(mode=mode.index, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share,
+                             exact=mode.exact))
     return out
 
 
@@ -266,7 +267,8 @@ def _mode_shares(spectrum: Optional[SpectrumResult], d, row: int) -> list[ModeSh
             share = 1.0 if d[row] == 0 else 0.0  # a row without stiffness is its own mode
         else:
             continue
-        out.append(ModeShare(mode=k + 1, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share))
+        out.append(ModeShare(mode=k + 1, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share,
+                             exact=bool(getattr(mode, "exact", False))))
     return out
 
 
