@@ -53,18 +53,9 @@ def test_arm_on_a_hinge_is_a_mechanism_meeting_at_the_hinge_node():
     node; K is singular, so no digits are measured and the inertia count agrees
     with the eigenvalues (this small K factors without a tiny pivot, so only the
     spectrum shows the singularity)."""
-    xy = np.array([[0, 0], [0, 1000], [0, 2000], [0, 3000], [1000, 3000], [2000, 3000], [2000, 1800]], float)
-    members = [(0, 1, False), (1, 2, False), (2, 3, False), (3, 4, True), (4, 5, False), (5, 6, False)]
-    n = len(xy)
-    K = np.zeros((3 * n, 3 * n))
-    for a, b, rel in members:
-        idx = np.r_[3 * a:3 * a + 3, 3 * b:3 * b + 3]
-        K[np.ix_(idx, idx)] += _beam(xy[a], xy[b], release_a=rel)
-    keep = np.arange(3, 3 * n)                   # node 1 clamped
-    Kr = K[np.ix_(keep, keep)]
-    node = keep // 3 + 1
-    model = Model(sp.csr_array(Kr), dofs=DofTable(node.astype(np.int64), np.array([0, 1, 5], np.int8)[keep % 3]),
-                  coords=Coordinates(np.arange(1, n + 1, dtype=np.int64), np.c_[xy, np.zeros(n)], 2))
+    model = _hinged_arm()
+    Kr = model.K.toarray()
+    node = model.dofs.node
     w, V = np.linalg.eigh(Kr)                    # LAPACK eigh via numpy: the truth
     assert abs(w[0]) < 1e-12 * w[-1] < w[1]
     u = np.abs(V[:, 0])
@@ -85,15 +76,7 @@ def test_its_pivot_loss_is_shown_as_a_lower_bound_without_a_shift():
     the pivot figure is a lower bound of a total loss and is shown with '>='."""
     from conditioning.render.terminal import render_text
 
-    xy = np.array([[0, 0], [0, 1000], [0, 2000], [0, 3000], [1000, 3000], [2000, 3000], [2000, 1800]], float)
-    members = [(0, 1, False), (1, 2, False), (2, 3, False), (3, 4, True), (4, 5, False), (5, 6, False)]
-    n = len(xy)
-    K = np.zeros((3 * n, 3 * n))
-    for a, b, rel in members:
-        idx = np.r_[3 * a:3 * a + 3, 3 * b:3 * b + 3]
-        K[np.ix_(idx, idx)] += _beam(xy[a], xy[b], release_a=rel)
-    keep = np.arange(3, 3 * n)
-    Kr = K[np.ix_(keep, keep)]
+    Kr = _hinged_arm().K.toarray()
     w = np.linalg.eigvalsh(Kr)                   # LAPACK via numpy: singular
     assert abs(w[0]) < 1e-12 * w[-1]
     report = conditioning.diagnose(sp.csr_array(Kr), samples=1)

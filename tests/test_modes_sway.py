@@ -80,3 +80,14 @@ def test_explained_row_shows_the_round_off_eigenvalue_as_zero():
     console.print(explanation_view(e))
     text = console.export_text()
     assert "(mechanism, eigenvalue 0 (round-off))" in text or "(mechanism, eigenvalue 0)" in text
+
+
+def test_what_to_do_points_at_where_the_groups_meet():
+    """Every node moves, so the action names the released ends where the rigid groups meet
+    (the beam's ends, nodes 3 and 4, by construction) rather than only 'all 11 nodes'."""
+    from conditioning.render.terminal import render_text
+
+    report = conditioning.diagnose(_pinned_portal(), measure=False)
+    assert report.spectrum.modes[0].meeting == [3, 4]
+    text = " ".join(render_text(report, width=80).split())
+    assert "move as a mechanism; its rigid groups meet at nodes 3, 4: look there" in text

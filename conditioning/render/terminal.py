@@ -217,7 +217,11 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
                     f"{fmt_number(jump.advice_value)} (now {fmt_number(jump.ratio, 2)} times the "
                     f"typical stiffness; it can cost {_jump_cost(jump)} digits).")
     if f.code == "support.mechanism":
-        return (f"{_where(r, f.nodes, max_ids).capitalize()} move as a mechanism: look there for a "
+        mode = next((m for m in (r.spectrum.modes if r.spectrum is not None else [])
+                     if m.kind == "mechanism" and list(m.nodes) == list(f.nodes)), None)
+        meet = (f"; its rigid groups meet at {_where(r, mode.meeting, max_ids)}: look there"
+                if mode is not None and mode.meeting else ": look there")
+        return (f"{_where(r, f.nodes, max_ids).capitalize()} move as a mechanism{meet} for a "
                 "missing brace, a hinge too many, or a member attached at one node only.")
     if f.code == "pivot.digits-lost":
         if (r.spectrum is not None and r.spectrum.modes) or r.jumps:

@@ -413,6 +413,15 @@ def _turning_text(model: Model, rows, u_part) -> str:
     return f"rotation {name} about {pivot_words(model, rows, pivot, planar)}"
 
 
+def _node_sums(model: Model, rows, squares: NDArray) -> tuple[NDArray, NDArray, NDArray]:
+    """(node ids, sum of ``squares`` over each node's rows, each row's node
+    index): the per-node weight the mode rules compare (each row its own node,
+    numbered row + 1, without a DOF map)."""
+    ids = model.dofs.node[rows] if model.dofs is not None else np.asarray(rows) + 1
+    uniq, inv = np.unique(ids, return_inverse=True)
+    return uniq, np.bincount(inv, weights=squares, minlength=uniq.size), inv
+
+
 def _still_nodes(model: Model, rows, B: NDArray, d: NDArray) -> set[int]:
     """Nodes of a part (1-based rows without a map) that every direction of
     the part's null space ``B`` (K's DOFs) leaves in place: a node on the axis
@@ -420,9 +429,8 @@ def _still_nodes(model: Model, rows, B: NDArray, d: NDArray) -> set[int]:
     a node's rows is taken in the scaled coordinates v = D^1/2 u, comparable
     across DOF types; a node with rotation DOFs on the axis still turns."""
     v = np.sqrt(np.where(d[rows] > 0, d[rows], 1.0))[:, None] * B
-    ids = model.dofs.node[rows] if model.dofs is not None else np.asarray(rows) + 1
-    uniq, inv = np.unique(ids, return_inverse=True)
-    norm = np.sqrt(np.bincount(inv, weights=np.sum(v**2, axis=1)))
+    uniq, squares, _ = _node_sums(model, rows, np.sum(v**2, axis=1))
+    norm = np.sqrt(squares)
     return {int(x) for x in uniq[norm <= STILL_NODE * norm.max()]}
 
 
@@ -504,11 +512,7 @@ def _mechanism_mode(ctx: _Context, p: int, rows, u_part, R) -> tuple[NearSingula
 def _carrying_rows(model: Model, rows, v) -> NDArray[np.bool_]:
     """Rows of the nodes whose weight sum(v_i^2 over the node's rows) is at
     least CARRIES_MIN of the largest node's (each row alone without a map)."""
-    if model.dofs is None:
-        w = v**2
-        return w >= CARRIES_MIN * w.max()
-    _, inv = np.unique(model.dofs.node[rows], return_inverse=True)
-    w = np.bincount(inv, weights=v**2)
+    _, w, inv = _node_sums(model, rows, v**2)
     return (w >= CARRIES_MIN * w.max())[inv]
 
 
@@ -523,8 +527,8 @@ def _moving_rows(model: Model, rows, u) -> NDArray[np.bool_]:
     X = model.coords.lookup(np.unique(node))
     size = float(np.ptp(X, axis=0).max()) if X.shape[0] > 1 else 0.0
     length = np.where(np.isin(dof, ROTATIONS), size, 1.0) * u
-    uniq, inv = np.unique(node, return_inverse=True)
-    motion = np.sqrt(np.bincount(inv, weights=length**2, minlength=uniq.size))
+    _, squares, inv = _node_sums(model, rows, length**2)
+    motion = np.sqrt(squares)
     top = float(motion.max(initial=0.0))
     if top == 0.0:
         return np.zeros(rows.size, dtype=bool)
