@@ -30,6 +30,7 @@ import numpy as np
 from conditioning.engine import engine_named
 from conditioning.engine.base import Engine, FactorizationTooLarge
 from conditioning.engine.memory import memory_limit as default_memory_limit
+from conditioning.engine.memory import refactorization_bytes
 from conditioning.engine.scaling import scale_stiffness
 from conditioning.errors import InputError
 from conditioning.io.load import load_model
@@ -42,13 +43,14 @@ from conditioning.stages.digits import certify_digits, measure_digits
 from conditioning.stages.explain import explain_row, explain_saved_row, with_row_shares
 from conditioning.stages.findings import build_findings, verdict
 from conditioning.stages.jumps import find_stiffness_jumps
-from conditioning.stages.modes import locate_modes
+from conditioning.stages.modes import ZERO_ROOM, locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import suggest_restraints
 from conditioning.stages.spectrum import (inertia_check, smallest_eigenpairs, spectrum_result, with_inertia,
                                           with_low_end_search)
 from conditioning.stages.structure import check_structure
+from conditioning.stages.support_proof import PROVED, claims_zero, decide_support
 
 logger = logging.getLogger(__name__)
 
@@ -261,16 +263,25 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     spectrum_rng, condition_rng, low_end_rng = _spawn(run.rng, 3)
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
+    support, proof, levels = _decide_support(model, structure, scaled, eig, fac, run, skipped)
+    if proof is not None and fac is not None and (fac.singular or fac.shift != 0.0):
+        # Proved positive definite: the shifted factor (the pivot test's worst-case
+        # level) is replaced by S's own, so that the digits are measured.
+        fac.release()
+        with stage("factorization"):
+            fac = run.engine.factorize(scaled, shift=0.0, coords=_row_coordinates(model),
+                                       memory_limit=run.memory_limit)
     with stage("modes"):
-        located = locate_modes(model, structure, scaled.scale, scaled.active, eig)
+        located = locate_modes(model, structure, scaled.scale, scaled.active, eig, **levels)
     with stage("condition"):
         # A DOF without stiffness or a free mode (other than such a DOF) makes K singular.
         free = sum(1 for m in located.modes if m.exact and m.kind != "dof-without-stiffness")
         condition = condition_numbers(K, fac, eig, free_modes=free, empty_rows=int(structure.empty_rows.size),
                                       no_factorization=skipped.get("factorization", ""), rng=condition_rng)
-    spectrum = spectrum_result(eig, located.modes, located.stiff_link_eigenvalues, scaled.active)
+    spectrum = replace(spectrum_result(eig, located.modes, located.stiff_link_eigenvalues, scaled.active),
+                       support=support)
     with stage("restraints"):
-        restraints = _restraints(model, structure, located)
+        restraints = _restraints(model, structure, located, proved=proof is not None)
     pivots = digits = None
     if fac is not None:
         if pivots_unavailable(fac):  # an engine without pivots (MUMPS through PETSc)
@@ -305,7 +316,8 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         if digits is not None and digits.samples:
             with stage("certification"):
                 digits = certify_digits(model, digits, condition, perm, structure,
-                                        factor_entries=fac.info.fill, memory_limit=run.memory_limit)
+                                        factor_entries=fac.info.fill, memory_limit=run.memory_limit,
+                                        verified=proof)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:
@@ -343,15 +355,49 @@ def _pivots_not_read_finding(note: str, *, measured: bool) -> Finding:
         [], "Raise CONDITIONING_MEMORY_LIMIT or run on a machine with more memory for these figures.")
 
 
-def _restraints(model: Model, structure, located) -> list[Restraint]:
-    """A DOF without stiffness is restrained by itself; the rest by the restraints stage."""
+def _restraints(model: Model, structure, located, *, proved: bool = False) -> list[Restraint]:
+    """A DOF without stiffness is restrained by itself; the rest by the restraints stage.
+
+    None for modes when K is proved positive definite (no support is missing);
+    when no mode is zero at working precision but some are not decided, each
+    restraint says it holds only if the mode is free.
+    """
     out = [Restraint(node=model.nodes_of([r])[0],
                      dof=model.dofs.dof_name(r) if model.dofs is not None else "-",
                      row=int(r), reason="the DOF has no stiffness of its own")
            for r in structure.empty_rows]
-    if located.basis.shape[1]:
-        out += suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+    if located.basis.shape[1] and not proved:
+        found = suggest_restraints(model, located.basis, part_of_row=structure.part_of_row)
+        modes = [m for m in located.modes if m.kind != "dof-without-stiffness"]
+        if modes and not any(m.exact for m in modes) and any(m.undecided for m in modes):
+            found = [replace(r, reason="only if the mode is free (not decided: see the support proof): "
+                                       + r.reason) for r in found]
+        out += found
     return out
+
+
+def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skipped: dict):
+    """(SupportDecision or None, proof or None, the modes stage's levels) for the spectrum's near-zero modes."""
+    if fac is None or structure.empty_rows.size or not claims_zero(eig):
+        return None, None, {}
+    try:
+        perm = fac.ordering_permutation()
+    except (NotImplementedError, AttributeError):
+        perm = None
+    need = refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2
+    why = ""
+    if need > run.memory_limit:
+        why = (f"the proof's factorization beside the shared one would need about {need / 2**30:.1f} GiB, "
+               f"more than the {run.memory_limit / 2**30:.1f} GiB allowed")
+    elif perm is None:
+        why = "the engine shares no fill-reducing ordering for the proof's factorization"
+    with run.stage("support proof"):
+        decision, proof = decide_support(model.K, scaled.S, scaled.scale[scaled.active], eig, perm=perm,
+                                         flops=float(fac.info.flops), not_attempted=why)
+    if decision.outcome == PROVED:
+        return decision, proof, {"zero": -1.0, "undecided": -1.0}
+    zero = decision.resolution + max(decision.error_bounds, default=0.0)
+    return decision, None, {"zero": zero, "undecided": max(zero, ZERO_ROOM * eig.zero_level)}
 
 
 def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,

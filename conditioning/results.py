@@ -241,9 +241,17 @@ class NearSingularMode:
     vector: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """The mode in K's DOFs (u = D^-1/2 v, unit max-norm); not serialised."""
     exact: bool = True
-    """True when the eigenvalue is zero at working precision (|lambda| <=
-    n*eps*lambda_max(S)): K is singular. False for a nearly free mode that
-    some small stiffness (a soft spring) still holds."""
+    """True when the eigenvalue is zero at working precision: within the
+    resolution of the stored K (Weyl's inequality, ``SupportDecision.resolution``)
+    plus the eigensolver's error bound of zero, and no proof that K is
+    positive definite: K is singular. False for a nearly free mode that some
+    small stiffness (a soft spring) still holds, or one ``undecided``."""
+    undecided: bool = False
+    """True when the eigenvalue lies above that resolution (the stored K
+    resolves it) but no proof of positive definiteness succeeded and it is
+    below n eps lambda_max(S), the worst-case error of a float64
+    factorization: not decided whether the mode is free (see
+    ``SpectrumResult.support``)."""
     axis: Optional[tuple[float, float, float]] = None
     """Unit direction (global x, y, z; dimensionless) of the motion when it
     has one: the axis a DOF without stiffness turns about (or moves along)
@@ -296,6 +304,42 @@ class ModeGroup:
 
 
 @dataclass(frozen=True)
+class SupportDecision:
+    """Whether the smallest scaled eigenvalues the spectrum put near zero are zero
+    or a real stiffness, decided by proof where one could be given
+    (:mod:`conditioning.stages.support_proof`)."""
+
+    outcome: str
+    """``proved supported`` (lambda_min(S) is proved above what storing K in
+    float64 can move an eigenvalue: no mode is free), ``zero at working
+    precision`` (every eigenvalue concerned is within that resolution plus the
+    eigensolver's error bound of zero: K cannot be told from a singular
+    matrix), ``not decided`` (some eigenvalue lies above the resolution but no
+    proof of positive definiteness succeeded), or ``mixed`` (some modes zero,
+    others not decided)."""
+    resolution: float
+    """u * max row sum of |S| (dimensionless, S's scale; u = 2^-53): by
+    Weyl's inequality no eigenvalue of S moves by more than this when each
+    entry of K is rounded to float64 (|dK_ij| <= u |K_ij|)."""
+    eigenvalues: list[float] = field(default_factory=list)
+    """The scaled eigenvalues decided on, ascending (dimensionless)."""
+    error_bounds: list[float] = field(default_factory=list)
+    """Per eigenvalue, the eigensolver's error bound: the residual norm
+    ||S v - lambda v|| of the computed eigenpair (unit v), enlarged by its own
+    rounding; an eigenvalue of S lies within it."""
+    lower_bound: Optional[float] = None
+    """The proved lower bound on lambda_min of the power-of-two scaled E K E
+    (dimensionless); None when nothing was proved."""
+    lower_bound_scaled: Optional[float] = None
+    """That bound carried to S = D^-1/2 K D^-1/2 (divided by the largest
+    ratio of the two scalings' squares): lambda_min(S) >= it; None without a
+    proof."""
+    method: str = ""
+    """How the outcome was reached, in words: the proof that succeeded, or why
+    each attempt failed, and the resolution argument."""
+
+
+@dataclass(frozen=True)
 class SpectrumResult:
     """Smallest eigenvalues of S and the split into near-singular modes: the
     spectrum stage's public result, however its eigenpairs were obtained
@@ -342,6 +386,9 @@ class SpectrumResult:
     mode_groups: list[ModeGroup] = field(default_factory=list)
     """``modes`` grouped by kind, part and exactness, in the order of their
     first mode: one line each in the terminal and HTML reports."""
+    support: Optional[SupportDecision] = None
+    """Whether the modes put near zero are free or held by a small stiffness,
+    decided by proof (None when the spectrum put no eigenvalue near zero)."""
     negative_method: str = ""
     """How ``negative_eigenvalues`` was obtained, in words (all eigenvalues,
     the factorization's inertia, the eigenvalues found, a Lanczos search of

@@ -118,6 +118,7 @@ def verified_smallest_eigenvalue(
     estimate: float,
     *,
     perm: Optional[NDArray[np.intp]] = None,
+    shift: Optional[float] = None,
 ) -> VerifiedEigenvalueBound:
     """Prove lambda_min(E K E) >= lower > 0 from one shifted LU without pivoting.
 
@@ -131,6 +132,10 @@ def verified_smallest_eigenvalue(
     perm : (n,) int array, optional
         Fill-reducing ordering to reuse (applied symmetrically); SuperLU's
         MMD on A^T + A otherwise.
+    shift : float, optional
+        The one shift c to try (E K E's scale), e.g. just below a Rayleigh
+        quotient of E K E; by default SHIFT_FRACTION * estimate / 4 and
+        SHIFT_RETRIES lower ones.
 
     Returns
     -------
@@ -172,9 +177,9 @@ def verified_smallest_eigenvalue(
         S = sp.csr_array(S[perm][:, perm])
         S.sum_duplicates()                # sorts the rows the column selection left unsorted
     spec = "NATURAL" if perm is not None else "MMD_AT_PLUS_A"
-    c = SHIFT_FRACTION * estimate / 4.0
+    c = SHIFT_FRACTION * estimate / 4.0 if shift is None else float(shift)
     reason = ""
-    for _ in range(SHIFT_RETRIES + 1):
+    for _ in range(SHIFT_RETRIES + 1 if shift is None else 1):
         outcome = _bound_at_shift(S, c, spec)
         if outcome is None:
             reason = f"a pivot of S - cI was not positive at c = {c:.2e}: lambda_min(S) may be below it"
@@ -192,7 +197,7 @@ def verified_smallest_eigenvalue(
         return VerifiedEigenvalueBound(False, None, c, g, e,
                                        f"the rounding bound {g:.2e} exceeds the shift {c:.2e}: the "
                                        "conditioning is beyond what this bound proves")
-    return VerifiedEigenvalueBound(False, None, c * SHIFT_RETRY, None, e,
+    return VerifiedEigenvalueBound(False, None, c * SHIFT_RETRY if shift is None else c, None, e,
                                    reason + "; K may not be positive definite")
 
 

@@ -502,7 +502,8 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
 
 def certify_digits(model: Model, digits: DigitsResult, condition: Optional[ConditionResult],
                    perm: Optional[NDArray[np.intp]], structure=None, *, factor_entries: Optional[int] = None,
-                   memory_limit: Optional[int] = None) -> DigitsResult:
+                   memory_limit: Optional[int] = None,
+                   verified: Optional[VerifiedEigenvalueBound] = None) -> DigitsResult:
     """Prove the measured figures with the verified eigenvalue bound.
 
     Run after the shared factorization is released: the proof's own
@@ -519,11 +520,14 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
     DigitsResult
         ``digits`` with those samples certified (method
         ``certified (verified eigenvalue bound)``) when the bound was proved,
-        and ``certification`` saying what was proved or why not.
+        and ``certification`` saying what was proved or why not. A bound
+        already ``verified`` (the support proof's) is reused, not paid twice.
     """
     if not digits.samples:
         return digits
     K = sp.csr_array(model.K)
+    if verified is not None and verified.verified:
+        return _certify_with(model, digits, K, verified, structure, f"{verified.reason} (the support proof's)")
     if factor_entries is not None and memory_limit is not None:
         need = refactorization_bytes(factor_entries, K.nnz)
         if need > memory_limit:
@@ -533,6 +537,12 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
     verified, reason = _verify(K, perm, condition)
     if verified is None or not verified.verified:
         return replace(digits, certification=reason)
+    return _certify_with(model, digits, K, verified, structure, reason)
+
+
+def _certify_with(model: Model, digits: DigitsResult, K, verified: VerifiedEigenvalueBound, structure,
+                  reason: str) -> DigitsResult:
+    """``digits`` with every sample not certified by ball arithmetic re-derived from ``verified``."""
     placeholders = _placeholder_rows(structure)
     rows = np.ones(model.n, dtype=bool)
     rows[placeholders] = False

@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import logging
 from dataclasses import dataclass
+from typing import Optional
 
 import numpy as np
 import scipy.linalg as la
@@ -163,6 +164,14 @@ class _Context:
     """lambda_max(S)."""
     zero: float
     """Eigenvalues at most this in magnitude are exact zeros."""
+    undecided: float = -1.0
+    """Eigenvalues above ``zero`` and at most this in magnitude are not decided."""
+
+    def exact(self, lam: float) -> bool:
+        return abs(lam) <= self.zero
+
+    def not_decided(self, lam: float) -> bool:
+        return self.zero < abs(lam) <= self.undecided
 
 
 def typical_stiffness(model: Model) -> NDArray[np.float64]:
@@ -186,7 +195,8 @@ def part_rigid_motions(model: Model, rows: NDArray[np.intp], **options) -> Rigid
 
 
 def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.float64],
-                 active: NDArray[np.bool_], spectrum: Eigenpairs) -> LocatedModes:
+                 active: NDArray[np.bool_], spectrum: Eigenpairs, *, zero: Optional[float] = None,
+                 undecided: float = -1.0) -> LocatedModes:
     """Classify and locate the near-singular modes.
 
     Parameters
@@ -198,6 +208,12 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
     active : (n,) bool
         Rows the spectrum was computed on.
     spectrum : Eigenpairs
+    zero, undecided : float, optional
+        Scaled eigenvalues at most ``zero`` in magnitude are zero at working
+        precision (``NearSingularMode.exact``), those above it and at most
+        ``undecided`` not decided (:mod:`conditioning.stages.support_proof`
+        gives both); by default ``zero`` is ZERO_ROOM n eps lambda_max(S), the
+        worst-case rule, and nothing is undecided.
 
     Returns
     -------
@@ -206,7 +222,8 @@ def locate_modes(model: Model, structure: StructureResult, scale: NDArray[np.flo
         mechanisms; eigenvalues are those of S (dimensionless).
     """
     # Zero at working precision, with a little room for the Rayleigh quotient's own error.
-    ctx = _Context(model, np.abs(model.K.diagonal()), spectrum.lambda_max, ZERO_ROOM * spectrum.zero_level)
+    ctx = _Context(model, np.abs(model.K.diagonal()), spectrum.lambda_max,
+                   ZERO_ROOM * spectrum.zero_level if zero is None else zero, undecided)
     modes = _modes_without_stiffness(model, structure)
     W = _near_null_vectors(model.n, scale, active, spectrum)
     if W.shape[1] == 0:
@@ -316,7 +333,7 @@ def _node_mode(ctx: _Context, structure: StructureResult, u: NDArray, keep_vecto
     lam = _rayleigh_scaled(model.K, u, ctx.d)
     return NearSingularMode(lam, lam / ctx.lambda_max, "dof-without-stiffness", motion, model.nodes_of(rows),
                             int(structure.part_of_row[rows[0]]) + 1, float("nan"), [],
-                            u / np.max(np.abs(u)) if keep_vector else None, exact=abs(lam) <= ctx.zero,
+                            u / np.max(np.abs(u)) if keep_vector else None, exact=ctx.exact(lam), undecided=ctx.not_decided(lam),
                             axis=axis, description=description)
 
 
@@ -349,7 +366,7 @@ def _part_modes(ctx: _Context, p: int, rows, B) -> tuple[list[NearSingularMode],
         mixed = any(k in motion for k in ("rx", "ry", "rz")) and any(k in motion for k in ("ux", "uy", "uz"))
         description = _turning_text(ctx.model, rows, u_part) if mixed else ""
         modes.append(NearSingularMode(lam, lam / ctx.lambda_max, "rigid-body", motion, node_list, p + 1,
-                                      1.0, [], u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero,
+                                      1.0, [], u / np.max(np.abs(u)), exact=ctx.exact(lam), undecided=ctx.not_decided(lam),
                                       description=description))
         columns.append(u)
         rigid_vecs.append(u_part)
@@ -504,7 +521,7 @@ def _mechanism_mode(ctx: _Context, p: int, rows, u_part, R) -> tuple[NearSingula
     motion = {} if axis is None else _axis_shares(axis, ROTATIONS)
     mode = NearSingularMode(lam, lam / ctx.lambda_max, "mechanism", motion, model.nodes_of(rows[located]), p + 1,
                             share if model.coords is not None else float("nan"),
-                            groups, u / np.max(np.abs(u)), exact=abs(lam) <= ctx.zero,
+                            groups, u / np.max(np.abs(u)), exact=ctx.exact(lam), undecided=ctx.not_decided(lam),
                             axis=axis, meeting=meeting, description=description)
     return mode, u
 
