@@ -229,13 +229,14 @@ def _mode_findings(model: Model, structure: StructureResult, spectrum: Optional[
             if local:
                 out.append(_node_dof_finding(structure, group, local, rows_word))
         elif group.count > MODES_LISTED:
-            out.append(_mode_group_finding(structure, group, rows_word))
+            out.append(_mode_group_finding(structure, group, rows_word, modes[0], spectrum.support))
         else:
             for mode in modes:
                 if mode.kind == "rigid-body":
-                    out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word))
+                    out.append(_rigid_body_finding(model, structure, mode, bool(restraints), rows_word,
+                                                   spectrum.support))
                 else:
-                    out.append(_mechanism_finding(model, structure, mode, rows_word))
+                    out.append(_mechanism_finding(model, structure, mode, rows_word, spectrum.support))
     return out
 
 
@@ -247,9 +248,31 @@ def _eigenvalue_text(value: float, exact: bool, largest: bool = False) -> str:
     return f"{'largest ' if largest else ''}scaled eigenvalue {value:.2e}"
 
 
-def _held_text(mode: NearSingularMode) -> str:
-    return "" if mode.exact else (" It is held only by a very small stiffness (for example a "
-                                  "soft spring), so K is invertible but badly conditioned.")
+def _held_text(mode: NearSingularMode, support=None) -> str:
+    if mode.exact:
+        return ""
+    if mode.undecided:
+        res = f" {support.resolution:.1e}" if support is not None else ""
+        return (f" Not decided whether it is free: the eigenvalue is above the resolution{res} of the stored "
+                "K but no proof that K is positive definite succeeded. If it is free, K is singular and the "
+                "suggested restraint removes it; if it is held, the eigenvalue is a real but weak stiffness, "
+                "no support is missing and the digits measured say what it costs.")
+    if support is not None and support.outcome == "proved supported":
+        return (" It is held only by a small stiffness: K is proved positive definite "
+                f"(lambda_min(S) >= {support.lower_bound_scaled:.2e}), so no support is missing, but it is "
+                "badly conditioned.")
+    return (" It is held only by a very small stiffness (for example a "
+            "soft spring), so K is invertible but badly conditioned.")
+
+
+def _mode_advice(mode: NearSingularMode, support, default: str) -> str:
+    """The advice of a mode finding: none for a support proved, conditional when not decided."""
+    if mode.undecided:
+        return "If the mode is free: " + default[0].lower() + default[1:]
+    if not mode.exact and support is not None and support.outcome == "proved supported":
+        return ("No support is missing: check that the part is meant to be this flexible in that motion "
+                "(a slender member, a soft spring, a very thin region), or stiffen it.")
+    return default
 
 
 def _where(structure: StructureResult, part: int) -> str:
@@ -257,7 +280,7 @@ def _where(structure: StructureResult, part: int) -> str:
 
 
 def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSingularMode, restraints_given: bool,
-                        rows_word: str) -> Finding:
+                        rows_word: str, support=None) -> Finding:
     who = "The model" if structure.parts <= 1 else f"Part {mode.part}"
     nearly = "" if mode.exact else "nearly "
     part_nodes = model.nodes_of(np.flatnonzero(structure.part_of_row == mode.part - 1))
@@ -266,14 +289,14 @@ def _rigid_body_finding(model: Model, structure: StructureResult, mode: NearSing
             f"{'stay' if len(still) > 1 else 'stays'} in place (on the axis the "
             f"{'model' if structure.parts <= 1 else 'part'} turns about)" if still else "")
     return Finding(
-        "error", "support.rigid-body-mode",
+        _mode_severity(mode, support), "support.rigid-body-mode",
         f"{who} can {nearly}move as a rigid body ({mode.description or _motion_text(mode)}); "
         f"{_eigenvalue_text(mode.eigenvalue, mode.exact)}; it moves {_at(model, rows_word, mode.nodes)}{stay}."
-        f"{_held_text(mode)}",
+        f"{_held_text(mode, support)}",
         mode.nodes,
-        "Add supports in the directions that move, or connect the part to the supported "
-        "structure" + ("; the report's suggested restraints are one minimal choice."
-                       if restraints_given else "."))
+        _mode_advice(mode, support, "Add supports in the directions that move, or connect the part to the supported "
+                     "structure" + ("; the report's suggested restraints are one minimal choice."
+                                    if restraints_given else ".")))
 
 
 #: A rigid group of a mechanism whose largest displacement is below this share
@@ -296,8 +319,15 @@ def _moving_and_still(model: Model, mode: NearSingularMode) -> tuple[list[list[i
     return moving, still
 
 
+def _mode_severity(mode: NearSingularMode, support) -> str:
+    """error, except a warning for a mode not decided or proved held (no support is missing)."""
+    if mode.undecided or (not mode.exact and support is not None and support.outcome == "proved supported"):
+        return "warning"
+    return "error"
+
+
 def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingularMode,
-                       rows_word: str) -> Finding:
+                       rows_word: str, support=None) -> Finding:
     head = (f"Internal {'near-' if not mode.exact else ''}mechanism{_where(structure, mode.part)}: "
             f"it moves {_at(model, rows_word, mode.nodes)}")
     if mode.description:
@@ -318,26 +348,28 @@ def _mechanism_finding(model: Model, structure: StructureResult, mode: NearSingu
               else "Look for a missing brace, a released end (hinge) too many, or a member that "
                    "only touches the rest at one node.")
     return Finding(
-        "error", "support.mechanism",
-        f"{head}; {_eigenvalue_text(mode.eigenvalue, mode.exact)}.{_held_text(mode)}"
+        _mode_severity(mode, support), "support.mechanism",
+        f"{head}; {_eigenvalue_text(mode.eigenvalue, mode.exact)}.{_held_text(mode, support)}"
         + ("" if model.coords is not None else
            " Without coordinates a rotation of a part cannot be told from a mechanism."),
-        mode.nodes, advice)
+        mode.nodes, _mode_advice(mode, support, advice))
 
 
-def _mode_group_finding(structure: StructureResult, group: ModeGroup, rows_word: str) -> Finding:
+def _mode_group_finding(structure: StructureResult, group: ModeGroup, rows_word: str,
+                        first: Optional[NearSingularMode] = None, support=None) -> Finding:
     """One finding for many rigid-body modes or mechanisms of one part."""
     what = "rigid-body modes" if group.kind == "rigid-body" else "internal mechanisms"
     code = "support.rigid-body-mode" if group.kind == "rigid-body" else "support.mechanism"
     nearly = "" if group.exact else "nearly free "
     motion = f" ({group.motion})" if group.motion else ""
+    advice = ("Each mode is listed in the JSON report (and --modes-csv). Look for nodes no element "
+              "connects in some direction, missing supports or released ends.")
     return Finding(
-        "error", code,
+        "error" if first is None else _mode_severity(first, support), code,
         f"{group.count:,} {nearly}{what}{_where(structure, group.part)}{motion}; {rows_word}: "
-        f"{_list_nodes(group.nodes)}; {_eigenvalue_text(group.eigenvalue_max, group.exact, largest=True)}.",
-        group.nodes,
-        "Each mode is listed in the JSON report (and --modes-csv). Look for nodes no element "
-        "connects in some direction, missing supports or released ends.")
+        f"{_list_nodes(group.nodes)}; {_eigenvalue_text(group.eigenvalue_max, group.exact, largest=True)}."
+        + ("" if first is None else _held_text(first, support)),
+        group.nodes, advice if first is None else _mode_advice(first, support, advice))
 
 
 def _node_dof_finding(structure: StructureResult, group: ModeGroup, modes: list[NearSingularMode],
@@ -564,7 +596,7 @@ ILL_CONDITIONED = 1e8
 #: input first (every later figure rests on it), then what makes K unusable,
 #: then the supplied solution, then what costs digits.
 CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not fit",
-          "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
+          "not decided", "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
           "healthy", "no defect found")
 
 
@@ -792,6 +824,14 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         return (f"supplied solution does not fit: its backward error {audit.backward_error:.1e} is far "
                 f"above the {audit.allowed_backward_error:.1e} of the tool's own solve; it keeps "
                 f"{_significant(audit.trustworthy_digits)}{own_figure}"), status
+    undecided = [m for m in near if m.undecided]
+    if undecided:
+        support = spectrum.support
+        res = f", resolution of the stored K {support.resolution:.1e}" if support is not None else ""
+        low = min(abs(m.eigenvalue) for m in undecided)
+        return (f"not decided: {len(undecided)} mode{'' if len(undecided) == 1 else 's'} "
+                f"({kinds(undecided)}) free or held by a small stiffness (scaled eigenvalue {low:.1e}{res}; "
+                f"no proof of positive definiteness){tail}"), status
     if near:
         return f"near-singular: {len(near)} nearly free mode{'' if len(near) == 1 else 's'} ({kinds(near)}){tail}", status
     sk = condition.scaled_estimate if condition is not None and not condition.singular else None
