@@ -200,3 +200,23 @@ def test_raw_condition_with_penalty_supports_is_resolved(factor):
     assert cond.lambda_min == pytest.approx(float(lo), rel=1e-6)       # mpmath eigsy, 80 digits
     assert cond.estimate == pytest.approx(truth, rel=1e-6)             # mpmath eigsy, 80 digits
     assert "K^-1" in cond.estimate_method
+
+
+def test_lambda_min_not_the_smallest_is_caught_by_inertia_and_recomputed():
+    """A lambda_min that is K's second eigenvalue (LAPACK eigvalsh gives both) fails the
+    Sylvester count of K - (1 - delta) lambda I and is recomputed to the smallest."""
+    from conditioning.stages.condition import confirmed_lambda_min
+    import scipy.sparse.linalg as spla
+
+    rng = np.random.default_rng(3)
+    n = 1300
+    springs = rng.uniform(1.0, 100.0, n + 1)
+    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    w = np.linalg.eigvalsh(K.toarray())
+    fac = factorize(K)
+    op = spla.LinearOperator((n, n), matvec=fac.solve, dtype=np.float64)
+    lam, how = confirmed_lambda_min(K, fac, float(w[1]), op, "test", rng)
+    assert lam == pytest.approx(w[0], rel=1e-6)
+    assert "recomputed" in how
+    lam, how = confirmed_lambda_min(K, fac, float(w[0]), op, "test", rng)
+    assert lam == w[0] and "confirmed" in how

@@ -84,11 +84,73 @@ def _lambda_min_raw(K: sp.csr_array, fac: Factorization, spectrum: Eigenpairs, r
         v0 /= np.linalg.norm(v0)
     if fac.info.negative_pivots == 0:
         # K positive definite: 1/lambda_min is the largest eigenvalue of K^-1.
-        return 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0, check_every=1), how
+        lam = 1.0 / largest_eigenvalue(op, rtol=1e-4, v0=v0, check_every=1)
+        return confirmed_lambda_min(K, fac, lam, op, how, rng)
     if v0 is None:
         v0 = rng.standard_normal(n)
     mu = spla.eigsh(op, k=1, which="LM", tol=1e-4, v0=v0, return_eigenvectors=False)
     return 1.0 / float(mu[0]), how
+
+
+#: lambda_min is confirmed when K - (1 - INERTIA_MARGIN) lambda_min I has no
+#: negative pivot (Sylvester's law); the margin is ten times the Lanczos run's
+#: relative residual tolerance 1e-4 (project's choice).
+INERTIA_MARGIN = 1e-3
+#: Recomputations of lambda_min after a failed confirmation (project's choice).
+CONFIRM_RETRIES = 2
+
+
+def count_below_raw(K: sp.csr_array, c: float, perm) -> Optional[int]:
+    """Eigenvalues of K below c from the pivots' signs of K - cI (Sylvester), in the ordering ``perm``.
+
+    None when SuperLU pivoted rows (the count would not be an inertia) or
+    the shifted matrix was exactly singular.
+    """
+    n = K.shape[0]
+    A = sp.csr_array(K - c * sp.eye_array(n, format="csr"))
+    if perm is not None:
+        A = A[perm][:, perm]
+    try:
+        lu = spla.splu(sp.csc_array(A), permc_spec="NATURAL" if perm is not None else "MMD_AT_PLUS_A",
+                       diag_pivot_thresh=0.0, options=dict(SymmetricMode=True))
+    except RuntimeError:
+        return None
+    if not np.array_equal(lu.perm_r, lu.perm_c):
+        return None
+    return int(np.count_nonzero(lu.U.diagonal() < 0))
+
+
+def confirmed_lambda_min(K: sp.csr_array, fac: Factorization, lam: float, op, how: str,
+                         rng) -> tuple[float, str]:
+    """(lambda_min, how) with lam confirmed by an inertia count, recomputed when the count fails.
+
+    A Lanczos run on K^-1 that starts almost orthogonal to K's smallest
+    eigenvector converges to the next one with a residual that passes its
+    test; K - (1 - INERTIA_MARGIN) lam I then has a negative pivot. The
+    recomputation takes that many more eigenvalues of K^-1 (ARPACK, random
+    start) and keeps the largest.
+    """
+    try:
+        perm = fac.ordering_permutation()
+    except (AttributeError, NotImplementedError):
+        perm = None
+    if fac.info.pivots_note:  # memory is tight: no second factorization
+        return lam, how + "; not confirmed by an inertia count (no memory for a second factorization)"
+    rng = np.random.default_rng(rng)
+    n = K.shape[0]
+    for attempt in range(CONFIRM_RETRIES + 1):
+        below = count_below_raw(K, (1 - INERTIA_MARGIN) * lam, perm)
+        if below is None:
+            return lam, how + "; the inertia count could not be read (row pivoting)"
+        if below == 0:
+            note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
+            return lam, (how + f"; {note} by an inertia count (no eigenvalue of K below "
+                         f"(1 - {INERTIA_MARGIN:g}) lambda_min, Sylvester's law)")
+        logger.warning("lambda_min %.6g not the smallest: %d eigenvalue(s) of K below it; recomputing", lam, below)
+        k = min(n - 1, below + 1)
+        mu = spla.eigsh(op, k=k, which="LA", tol=1e-8, v0=rng.standard_normal(n), return_eigenvectors=False)
+        lam = 1.0 / float(np.max(mu))
+    return lam, how + "; NOT confirmed by the inertia count after recomputing"
 
 
 def _one_norm_condition(K: sp.csr_array, fac: Factorization, rng) -> float:
