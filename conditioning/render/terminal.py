@@ -219,6 +219,11 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
     if f.code == "support.mechanism":
         mode = next((m for m in (r.spectrum.modes if r.spectrum is not None else [])
                      if m.kind == "mechanism" and list(m.nodes) == list(f.nodes)), None)
+        support = r.spectrum.support if r.spectrum is not None else None
+        if mode is not None and not mode.exact and (mode.undecided or (
+                support is not None and support.outcome == "proved supported")):
+            # Held by a proved stiffness, or not decided: the finding's own advice.
+            return f"{_where(r, f.nodes, max_ids).capitalize()}: {f.advice[:1].lower()}{f.advice[1:]}"
         meet = (f"; its rigid groups meet at {_where(r, mode.meeting, max_ids)}: look there"
                 if mode is not None and mode.meeting else ": look there")
         return (f"{_where(r, f.nodes, max_ids).capitalize()} move as a mechanism{meet} for a "
@@ -462,6 +467,15 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     if sp.negative_eigenvalues:
         lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues} negative "
                           "eigenvalue(s) of K: the stiffness is indefinite", style="red"))
+    support = getattr(sp, "support", None)
+    if support is not None:
+        figure = (f"lambda_min(S) >= {support.lower_bound_scaled:.2e} proved"
+                  if support.lower_bound_scaled is not None else
+                  f"smallest scaled eigenvalue {min(support.eigenvalues, key=abs, default=0.0):.2e}")
+        lines.append(Text(f"Supports: {support.outcome} ({figure}; resolution of the stored K "
+                          f"{support.resolution:.1e})"))
+        if verbose:
+            lines.append(Text(f"proof: {support.method}", style="dim"))
     if verbose:
         lines.append(Text(f"method: {sp.method}", style="dim"))
         lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))
@@ -473,7 +487,8 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
         # One row per group of modes (kind, part): hundreds of modes of one kind fit on one line.
         for g in groups[:MAX_MODE_ROWS]:
             m = sp.modes[g.modes[0] - 1]
-            kind = g.kind if g.exact else f"{g.kind} (nearly free)"
+            kind = g.kind if g.exact else f"{g.kind} (not decided)" if all(
+                r.spectrum.modes[i - 1].undecided for i in g.modes) else f"{g.kind} (nearly free)"
             if g.count == 1:
                 motion = m.description or (fmt_motion(m.motion) if m.motion else (
                     f"{len(m.groups)} rigid groups" if m.groups else "-"))
