@@ -220,3 +220,28 @@ def test_lambda_min_not_the_smallest_is_caught_by_inertia_and_recomputed():
     assert "recomputed" in how
     lam, how = confirmed_lambda_min(K, fac, float(w[0]), op, "test", rng)
     assert lam == w[0] and "confirmed" in how
+
+
+def test_scaled_lambda_min_missed_is_caught_by_inertia_and_recomputed():
+    """Eigenpairs that miss S's smallest eigenvalue (LAPACK eigvalsh is the truth) fail
+    the Sylvester count of S - (1 - delta) lambda I and are computed again."""
+    from dataclasses import replace as dc_replace
+
+    from conditioning.engine.scaling import scale_stiffness
+    from conditioning.stages.spectrum import confirm_smallest, smallest_eigenpairs
+
+    rng = np.random.default_rng(4)
+    n = 1300
+    springs = rng.uniform(1.0, 100.0, n + 1)
+    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    s = 1 / np.sqrt(K.diagonal())
+    w = np.linalg.eigvalsh(K.toarray() * s[:, None] * s[None, :])
+    scaled = scale_stiffness(K)
+    fac = factorize(K)
+    eig = smallest_eigenpairs(scaled, fac, rng=0)
+    assert eig.values[0] == pytest.approx(w[0], rel=1e-8)
+    missed = dc_replace(eig, values=eig.values[1:], vectors=eig.vectors[:, 1:])
+    fixed = confirm_smallest(missed, scaled, fac, rng=1)
+    assert fixed.values[0] == pytest.approx(w[0], rel=1e-8)
+    assert "recomputed 1 time(s) until confirmed" in fixed.method
+    assert "confirmed by an inertia count" in confirm_smallest(eig, scaled, fac).method

@@ -336,6 +336,50 @@ def iterative_spectrum(model: Model, *, k: int = spectrum_iterative.DEFAULT_K, t
     return smallest_eigenpairs(scale_stiffness(model.K), None, model=model, k=k, rng=rng, tol=tol, maxiter=maxiter)
 
 
+#: lambda_min(S) is confirmed when S - (1 - SMALLEST_MARGIN) lambda_min I has
+#: no more negative pivots than S has negative eigenvalues (Sylvester's law);
+#: the margin is far above the shift-and-invert run's tolerance 1e-10
+#: (project's choice).
+SMALLEST_MARGIN = 1e-3
+#: Recomputations with more eigenpairs after a failed confirmation (project's choice).
+SMALLEST_RETRIES = 2
+
+
+def confirm_smallest(eig: Eigenpairs, scaled: ScaledStiffness, fac: Factorization, *, rng=0) -> Eigenpairs:
+    """``eig`` with its smallest nonnegative eigenvalue confirmed by an inertia count, recomputed when it fails.
+
+    Shift-and-invert Lanczos can return the second-smallest eigenvalue with
+    a residual that passes its test when its start has almost no component
+    along the smallest eigenvector. Sylvester's law of inertia counts the
+    eigenvalues of S below c = (1 - SMALLEST_MARGIN) lambda_min from the
+    pivots of S - cI (one more factorization, in the shared ordering): more
+    than the negative ones means eigenvalues were missed, and the smallest
+    eigenpairs are computed again with that many more. Only for the
+    shift-and-invert path with the factorization's inertia; the dense path
+    has every eigenvalue. The outcome is added to ``method``.
+    """
+    j = eig.first
+    if (eig.values.size <= j or fac.info.negative_pivots is None or not eig.negative_exact
+            or fac.shift != 0.0 or scaled.S.shape[0] <= DENSE_LIMIT):
+        return eig
+    rng = np.random.default_rng(rng)
+    for attempt in range(SMALLEST_RETRIES + 1):
+        lam = float(eig.values[eig.first])
+        if lam <= eig.zero_level:
+            return eig  # zero at working precision: the mode count is the inertia check's
+        below = fac.count_below((1 - SMALLEST_MARGIN) * lam)
+        if below is None:
+            return replace(eig, method=eig.method + "; lambda_min not confirmed (the inertia count could not be read)")
+        missed = below - eig.negative
+        if missed <= 0:
+            note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
+            return replace(eig, method=eig.method + f"; lambda_min {note} by an inertia count (no eigenvalue of S "
+                                                    f"below (1 - {SMALLEST_MARGIN:g}) lambda_min, Sylvester's law)")
+        logger.warning("%d eigenvalue(s) of S below the smallest found (%.6g): recomputing", missed, lam)
+        eig = smallest_eigenpairs(scaled, fac, k=min(scaled.S.shape[0] - 2, eig.values.size + missed + 2), rng=rng)
+    return replace(eig, method=eig.method + "; lambda_min NOT confirmed by the inertia count after recomputing")
+
+
 def inertia_check(fac: Factorization, eig: Eigenpairs) -> Optional[int]:
     """Sylvester's cross-check of the mode count: eigenvalues of S below the split point.
 
