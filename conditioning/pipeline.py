@@ -47,8 +47,8 @@ from conditioning.stages.modes import ZERO_ROOM, locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import suggest_restraints
-from conditioning.stages.spectrum import (confirm_smallest, inertia_check, smallest_eigenpairs, spectrum_result,
-                                          with_inertia, with_low_end_search)
+from conditioning.stages.spectrum import (confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
+                                          spectrum_result, with_inertia, with_low_end_search)
 from conditioning.stages.structure import check_structure
 from conditioning.stages.support_proof import PROVED, claims_zero, decide_support
 
@@ -266,7 +266,8 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     if fac is not None and not fac.info.pivots_note and (
             refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2 <= run.memory_limit):
         with stage("smallest eigenvalue check"):
-            eig = confirm_smallest(eig, scaled, fac, rng=spectrum_rng)
+            eig = confirm_largest(confirm_smallest(eig, scaled, fac, rng=spectrum_rng), scaled, fac,
+                                  rng=spectrum_rng)
     support, proof, levels = _decide_support(model, structure, scaled, eig, fac, run, skipped)
     if proof is not None and fac is not None and (fac.singular or fac.shift != 0.0):
         # Proved positive definite: the shifted factor (the pivot test's worst-case

@@ -245,3 +245,27 @@ def test_scaled_lambda_min_missed_is_caught_by_inertia_and_recomputed():
     assert fixed.values[0] == pytest.approx(w[0], rel=1e-8)
     assert "recomputed 1 time(s) until confirmed" in fixed.method
     assert "confirmed by an inertia count" in confirm_smallest(eig, scaled, fac).method
+
+
+def test_scaled_lambda_max_short_of_the_largest_is_caught_by_inertia():
+    """A lambda_max that is S's second-largest eigenvalue (LAPACK eigvalsh is the truth)
+    leaves S - (1 + delta) lambda I with a positive pivot; it is recomputed to the largest."""
+    from dataclasses import replace as dc_replace
+
+    from conditioning.engine.scaling import scale_stiffness
+    from conditioning.stages.spectrum import confirm_largest, smallest_eigenpairs
+
+    rng = np.random.default_rng(5)
+    n = 1300
+    springs = rng.uniform(1.0, 100.0, n + 1)
+    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    s = 1 / np.sqrt(K.diagonal())
+    w = np.linalg.eigvalsh(K.toarray() * s[:, None] * s[None, :])
+    scaled = scale_stiffness(K)
+    fac = factorize(K)
+    eig = smallest_eigenpairs(scaled, fac, rng=0)
+    short = dc_replace(eig, lambda_max=0.95 * float(w[-1]))
+    fixed = confirm_largest(short, scaled, fac, rng=1)
+    assert fixed.lambda_max == pytest.approx(w[-1], rel=1e-8)
+    assert "recomputed" in fixed.method
+    assert "lambda_max confirmed" in confirm_largest(eig, scaled, fac).method

@@ -153,6 +153,31 @@ def confirmed_lambda_min(K: sp.csr_array, fac: Factorization, lam: float, op, ho
     return lam, how + "; NOT confirmed by the inertia count after recomputing"
 
 
+def confirmed_lambda_max(K: sp.csr_array, fac: Factorization, lam: float, how: str, rng) -> tuple[float, str]:
+    """(lambda_max of K, how) confirmed by an inertia count: K - (1 + INERTIA_MARGIN) lam I has no
+    positive pivot (negative definite, so its elimination is stable); else recomputed by ARPACK
+    (largest algebraic, random start) and the larger kept."""
+    try:
+        perm = fac.ordering_permutation()
+    except (AttributeError, NotImplementedError):
+        perm = None
+    if fac.info.pivots_note:
+        return lam, how + "; not confirmed by an inertia count (no memory for a second factorization)"
+    rng = np.random.default_rng(rng)
+    n = K.shape[0]
+    for attempt in range(CONFIRM_RETRIES + 1):
+        below = count_below_raw(K, (1 + INERTIA_MARGIN) * lam, perm)
+        if below is None:
+            return lam, how + "; the inertia count could not be read (row pivoting)"
+        if below >= n:
+            note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
+            return lam, how + f"; {note} by an inertia count (no eigenvalue of K above (1 + {INERTIA_MARGIN:g}) lambda_max)"
+        top = spla.eigsh(K, k=min(n - 1, 4), which="LA", tol=1e-8, v0=rng.standard_normal(n),
+                         return_eigenvectors=False)
+        lam = max(lam, float(np.max(top)))
+    return lam, how + "; NOT confirmed by the inertia count after recomputing"
+
+
 def _one_norm_condition(K: sp.csr_array, fac: Factorization, rng) -> float:
     """Hager-Higham lower bound on ||K||_1 ||K^-1||_1 (K symmetric)."""
     n = K.shape[0]
@@ -228,6 +253,8 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method=f"not computed: {no_factorization}", scaling_gain_digits=None,
         )
+    if not dense:
+        lam_max, how_max = confirmed_lambda_max(K, fac, lam_max, how_max, rng)
     lam_min, how_min = _lambda_min_raw(K, fac, spectrum, rng)
     kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
     k1 = _one_norm_condition(K, fac, rng)

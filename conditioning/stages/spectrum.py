@@ -380,6 +380,40 @@ def confirm_smallest(eig: Eigenpairs, scaled: ScaledStiffness, fac: Factorizatio
     return replace(eig, method=eig.method + "; lambda_min NOT confirmed by the inertia count after recomputing")
 
 
+def confirm_largest(eig: Eigenpairs, scaled: ScaledStiffness, fac: Factorization, *, rng=0) -> Eigenpairs:
+    """``eig`` with lambda_max(S) confirmed by an inertia count, recomputed when it fails.
+
+    Lanczos stops when its largest Ritz value has a small residual, which
+    shows that some eigenvalue is near it, not that it is the largest. With
+    c = (1 + SMALLEST_MARGIN) lambda_max, S - cI is negative definite when no
+    eigenvalue lies above c, so all its pivots are negative (Sylvester's law;
+    the elimination of a definite matrix is stable without pivoting): that
+    bounds the gap to lambda_max by the margin. Otherwise lambda_max is
+    recomputed by ARPACK (eigsh, largest algebraic, random start) and the
+    larger kept. Only above the dense limit (LAPACK has every eigenvalue).
+    """
+    na = scaled.S.shape[0]
+    if na <= DENSE_LIMIT or fac.info.negative_pivots is None or not eig.lambda_max > 0:
+        return eig
+    rng = np.random.default_rng(rng)
+    lam = eig.lambda_max
+    for attempt in range(SMALLEST_RETRIES + 1):
+        below = fac.count_below((1 + SMALLEST_MARGIN) * lam)
+        if below is None:
+            return replace(eig, lambda_max=lam, method=eig.method + "; lambda_max not confirmed (no inertia count)")
+        if below >= na:
+            note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
+            return replace(eig, lambda_max=lam, method=eig.method + f"; lambda_max {note} by an inertia count "
+                                                                    f"(no eigenvalue of S above (1 + "
+                                                                    f"{SMALLEST_MARGIN:g}) lambda_max)")
+        logger.warning("%d eigenvalue(s) of S above lambda_max %.6g: recomputing", na - below, lam)
+        top = spla.eigsh(scaled.S, k=min(na - 1, 4), which="LA", tol=1e-8,
+                         v0=rng.standard_normal(na), return_eigenvectors=False)
+        lam = max(lam, float(np.max(top)))
+        eig = replace(eig, lambda_max=lam, zero_level=na * EPS * lam)
+    return replace(eig, lambda_max=lam, method=eig.method + "; lambda_max NOT confirmed after recomputing")
+
+
 def inertia_check(fac: Factorization, eig: Eigenpairs) -> Optional[int]:
     """Sylvester's cross-check of the mode count: eigenvalues of S below the split point.
 
