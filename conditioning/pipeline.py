@@ -50,7 +50,7 @@ from conditioning.stages.restraints import suggest_restraints
 from conditioning.stages.spectrum import (confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
                                           spectrum_result, with_inertia, with_low_end_search)
 from conditioning.stages.structure import check_structure
-from conditioning.stages.support_proof import PROVED, claims_zero, decide_support
+from conditioning.stages.support_proof import PROVED, UNDECIDED, claims_zero, decide_support
 
 logger = logging.getLogger(__name__)
 
@@ -269,13 +269,17 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
             eig = confirm_largest(confirm_smallest(eig, scaled, fac, rng=spectrum_rng), scaled, fac,
                                   rng=spectrum_rng)
     support, proof, levels = _decide_support(model, structure, scaled, eig, fac, run, skipped)
-    if proof is not None and fac is not None and (fac.singular or fac.shift != 0.0):
-        # Proved positive definite: the shifted factor (the pivot test's worst-case
-        # level) is replaced by S's own, so that the digits are measured.
+    if support is not None and support.outcome in (PROVED, UNDECIDED) and (fac.singular or fac.shift != 0.0):
+        # Proved positive definite, or resolved by the stored K: the shifted factor
+        # (the pivot test's worst-case level) is replaced by S's own, so that the
+        # digits are measured.
         fac.release()
         with stage("factorization"):
-            fac = run.engine.factorize(scaled, shift=0.0, coords=_row_coordinates(model),
-                                       memory_limit=run.memory_limit)
+            try:
+                fac = run.engine.factorize(scaled, shift=0.0, coords=_row_coordinates(model),
+                                           memory_limit=run.memory_limit)
+            except RuntimeError:  # exactly singular after all: the shift policy's factor again
+                fac = run.engine.factorize(scaled, coords=_row_coordinates(model), memory_limit=run.memory_limit)
     with stage("modes"):
         located = locate_modes(model, structure, scaled.scale, scaled.active, eig, **levels)
     with stage("condition"):

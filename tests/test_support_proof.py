@@ -178,3 +178,24 @@ def test_free_truss_is_still_singular():
     xyz = np.array([[0.0, 0.0, 0.0], [1000.0, 0.0, 0.0], [500.0, 800.0, 0.0]])
     report = diagnose(Model(a.K, dofs=a.dofs, coords=Coordinates(np.array([1, 2, 3]), xyz, 2)), measure=False)
     assert report.verdict.startswith("singular: 3 free modes"), report.verdict
+
+
+def test_cantilever_without_a_proof_is_not_decided(monkeypatch):
+    """3,000 beam elements: lambda_min(S) about 10 eps lambda_max (ARPACK), far above the
+    stored K's resolution u max row sum |S|, but with the 192-bit proof switched off the
+    float64 bound cannot prove it: not decided, no confident support advice, digits measured."""
+    import conditioning.stages.support_proof as sp_mod
+
+    monkeypatch.setattr(sp_mod, "LDL_MAX_FLOPS", 0.0)
+    model = clamped_cantilever(3000, length=30000.0)
+    report = diagnose(model, seed=3)
+    assert report.verdict.startswith("not decided"), report.verdict
+    support = report.spectrum.support
+    assert support.outcome == "not decided"
+    assert min(support.eigenvalues) > support.resolution + max(support.error_bounds)
+    assert not report.condition.singular
+    assert all(r.reason.startswith("only if the mode is free") for r in report.restraints)
+    for f in report.findings:
+        if f.code.startswith("support."):
+            assert f.severity == "warning" and f.advice.startswith("If the mode is free"), f
+    assert own_samples(report.digits), report.digits.skipped
