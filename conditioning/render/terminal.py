@@ -177,13 +177,19 @@ def _actions(r: results.Report, max_ids: int):
     """The changes to the model the findings call for, in the engineer's words."""
     lines: list[Text] = []
     restraints = r.restraints
+    conditional = "only if the mode is free (not decided: see the support proof): "
     if restraints:
-        lines.append(Text(f"Add {'this support' if len(restraints) == 1 else 'these supports'} "
-                          "(one minimal choice; each must exist in the real structure):"))
+        if all(res.reason.startswith(conditional) for res in restraints):
+            lines.append(Text("Not decided whether a support is missing; if the modes are free, "
+                              f"{'this support' if len(restraints) == 1 else 'these supports'} would "
+                              "remove them (one minimal choice):"))
+        else:
+            lines.append(Text(f"Add {'this support' if len(restraints) == 1 else 'these supports'} "
+                              "(one minimal choice; each must exist in the real structure):"))
         for res in restraints[:max_ids]:
             dof = f" {res.dof}" if res.dof and res.dof != "-" else ""
             line = Text(f"  {unit_word(r)} {res.node}{dof}", style="bold")
-            line.append(f"  {res.reason}")
+            line.append(f"  {res.reason.removeprefix(conditional)}")
             lines.append(line)
         if len(restraints) > max_ids:
             lines.append(Text(f"  and {len(restraints) - max_ids:,} more (all in the JSON report)"))

@@ -100,14 +100,31 @@ INERTIA_MARGIN = 1e-3
 CONFIRM_RETRIES = 2
 
 
-def count_below_raw(K: sp.csr_array, c: float, perm) -> Optional[int]:
-    """Eigenvalues of K below c from the pivots' signs of K - cI (Sylvester), in the ordering ``perm``.
+#: A count of K's eigenvalues below c is trusted when the shift, in the scaled
+#: matrix S - c D^-1, moves some eigenvalue by more than this many times
+#: n eps lambda_max(S), the worst-case error of the float64 elimination that
+#: counts them (the project's choice; below it the count is not read).
+TRUST_ROOM = 1.0
 
-    None when SuperLU pivoted rows (the count would not be an inertia) or
-    the shifted matrix was exactly singular.
+
+def count_below_raw(K: sp.csr_array, c: float, perm) -> Optional[int]:
+    """Eigenvalues of K below c from the pivots' signs of D^-1/2 (K - cI) D^-1/2 = S - c D^-1 (Sylvester),
+    factored in the ordering ``perm``.
+
+    None when SuperLU pivoted rows (the count would not be an inertia), the
+    shifted matrix was exactly singular, or the shift is below what a float64
+    elimination resolves (``TRUST_ROOM``).
     """
     n = K.shape[0]
-    A = sp.csr_array(K - c * sp.eye_array(n, format="csr"))
+    d = np.abs(K.diagonal())
+    if np.any(d == 0):
+        return None
+    s = 1.0 / np.sqrt(d)
+    S = sp.csr_array(sp.diags(s) @ K @ sp.diags(s))
+    lam_s = float(abs(S).sum(axis=1).max())
+    if abs(c) * float(np.max(1.0 / d)) <= TRUST_ROOM * n * EPS * lam_s:
+        return None
+    A = sp.csr_array(S - sp.diags(c / d))
     if perm is not None:
         A = A[perm][:, perm]
     try:
@@ -141,7 +158,8 @@ def confirmed_lambda_min(K: sp.csr_array, fac: Factorization, lam: float, op, ho
     for attempt in range(CONFIRM_RETRIES + 1):
         below = count_below_raw(K, (1 - INERTIA_MARGIN) * lam, perm)
         if below is None:
-            return lam, how + "; the inertia count could not be read (row pivoting)"
+            return lam, how + ("; not confirmed by an inertia count (the shift is below what a float64 "
+                               "elimination resolves, or SuperLU pivoted rows)")
         if below == 0:
             note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
             return lam, (how + f"; {note} by an inertia count (no eigenvalue of K below "
@@ -168,7 +186,8 @@ def confirmed_lambda_max(K: sp.csr_array, fac: Factorization, lam: float, how: s
     for attempt in range(CONFIRM_RETRIES + 1):
         below = count_below_raw(K, (1 + INERTIA_MARGIN) * lam, perm)
         if below is None:
-            return lam, how + "; the inertia count could not be read (row pivoting)"
+            return lam, how + ("; not confirmed by an inertia count (the shift is below what a float64 "
+                               "elimination resolves, or SuperLU pivoted rows)")
         if below >= n:
             note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
             return lam, how + f"; {note} by an inertia count (no eigenvalue of K above (1 + {INERTIA_MARGIN:g}) lambda_max)"

@@ -828,9 +828,10 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if undecided:
         support = spectrum.support
         res = f", resolution of the stored K {support.resolution:.1e}" if support is not None else ""
-        low = min(abs(m.eigenvalue) for m in undecided)
+        low = (min(abs(v) for v in support.eigenvalues) if support is not None and support.eigenvalues
+               else min(abs(m.eigenvalue) for m in undecided))
         return (f"not decided: {len(undecided)} mode{'' if len(undecided) == 1 else 's'} "
-                f"({kinds(undecided)}) free or held by a small stiffness (scaled eigenvalue {low:.1e}{res}; "
+                f"({kinds(undecided)}) free or held by a small stiffness (smallest scaled eigenvalue {low:.1e}{res}; "
                 f"no proof of positive definiteness){tail}"), status
     if near:
         return f"near-singular: {len(near)} nearly free mode{'' if len(near) == 1 else 's'} ({kinds(near)}){tail}", status
