@@ -50,7 +50,7 @@ from conditioning.stages.restraints import suggest_restraints
 from conditioning.stages.spectrum import (confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
                                           spectrum_result, with_inertia, with_low_end_search)
 from conditioning.stages.structure import check_structure
-from conditioning.stages.support_proof import PROVED, UNDECIDED, claims_zero, decide_support
+from conditioning.stages.support_proof import PROVED, RESOLUTION_ROOM, UNDECIDED, claims_zero, decide_support
 
 logger = logging.getLogger(__name__)
 
@@ -405,7 +405,7 @@ def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skippe
                                          flops=float(fac.info.flops), not_attempted=why)
     if decision.outcome == PROVED:
         return decision, proof, {"zero": -1.0, "undecided": -1.0}
-    zero = decision.resolution + max(decision.error_bounds, default=0.0)
+    zero = RESOLUTION_ROOM * decision.resolution + max(decision.error_bounds, default=0.0)
     return decision, None, {"zero": zero, "undecided": max(zero, ZERO_ROOM * eig.zero_level)}
 
 

@@ -312,8 +312,8 @@ class SupportDecision:
     outcome: str
     """``proved supported`` (lambda_min(S) is proved above what storing K in
     float64 can move an eigenvalue: no mode is free), ``zero at working
-    precision`` (every eigenvalue concerned is within that resolution plus the
-    eigensolver's error bound of zero: K cannot be told from a singular
+    precision`` (every eigenvalue concerned is within RESOLUTION_ROOM times that
+    resolution plus the eigensolver's error bound of zero: K cannot be told from a singular
     matrix), ``not decided`` (some eigenvalue lies above the resolution but no
     proof of positive definiteness succeeded), or ``mixed`` (some modes zero,
     others not decided)."""
