@@ -554,6 +554,10 @@ class DigitsSample:
     audited: bool = False
     """True for a supplied solution (``--solution``) measured for its audit,
     False for the tool's own float64 solve."""
+    solve: str = ""
+    """Whose solve the figure describes, in words: the tool's float64 direct
+    solve (solver, pivoting, ordering), a pivoted LU of the same K, or the
+    supplied solution; empty in reports built without the digits stage."""
 
 
 @dataclass(frozen=True)
@@ -575,9 +579,12 @@ class SolutionAudit:
     """eta of the tool's own float64 solve of the same K and f: what this K
     allows; None when K is singular (no own solve)."""
     fits: bool
-    """False when ``backward_error`` exceeds FIT_FACTOR (100) times
-    max(``allowed_backward_error``, u): the vector does not solve K x = f to
-    working precision."""
+    """True when the vector solves K x = f to working precision
+    (``backward_error`` at most FIT_FACTOR (100) times
+    max(``allowed_backward_error``, u)) or to the precision it was written in
+    (``fits_as_written``); False: it does not solve this K and f at any
+    written precision (another load case, another DOF order, a solver that
+    did not converge)."""
     digits_written: Optional[int]
     """Significant decimal digits the supplied values carry: the most any of
     up to 2,000 sampled entries needs to be reproduced exactly; None when
@@ -598,6 +605,35 @@ class SolutionAudit:
     case: Optional[str] = None
     """The load case this solution column answers (its name); None for a
     single load."""
+    written_as: Optional[Literal["float32", "decimal"]] = None
+    """The precision the supplied values were written in, read from the values
+    themselves: ``float32`` (every entry a single-precision number, or its
+    shortest or 9-figure decimal form), ``decimal`` (``digits_written``
+    significant figures); None at full float64 precision."""
+    written_digits: Optional[float] = None
+    """Decimal digits that precision carries: ``digits_written`` for
+    ``decimal``, log10(2^24) = 7.2 for ``float32``; None with ``written_as``."""
+    written_backward_error: Optional[float] = None
+    """The largest backward error rounding an exact solution to that precision
+    can cause: || |K| e ||_inf / (||K||_inf ||x_s||_inf + ||f||_inf), with e_i
+    the rounding bound of entry i (0.5 10^(1-p) |x_i|, and half a unit of the
+    smallest last written decimal place; 2^-24 |x_i| for float32 values, 2^-23
+    for their printed forms); None with ``written_as``."""
+    fits_as_written: bool = False
+    """True when ``backward_error`` is at most WRITTEN_FIT_FACTOR (16) times
+    ``written_backward_error`` plus the own solve's: the vector solves K x = f
+    to the precision it was written in (``fits`` is then True too)."""
+
+    @property
+    def written_text(self) -> Optional[str]:
+        """``"single precision: about 7 digits"``, ``"written with 6 significant
+        figures"``, or None at full float64 precision."""
+        if self.written_as == "float32":
+            return f"single precision: about {int(self.written_digits or 7)} digits"
+        if self.written_as == "decimal" and self.written_digits is not None:
+            p = int(self.written_digits)
+            return f"written with {p} significant figure{'' if p == 1 else 's'}"
+        return None
 
 
 @dataclass(frozen=True)

@@ -93,11 +93,11 @@ def verdict_line(report: results.Report) -> Text:
 
 # ----------------------------------------------------------------- sections
 def below_minimum_message(report: results.Report) -> Optional[str]:
-    """The ``digits.below-minimum`` finding's message, shown under the verdict; None without one."""
-    for finding in report.findings:
-        if finding.code == "digits.below-minimum":
-            return finding.message
-    return None
+    """The ``digits.below-minimum`` and ``digits.node-below-minimum`` findings' messages, shown
+    under the verdict (one a line); None without either."""
+    lines = [f.message for f in report.findings
+             if f.code in ("digits.below-minimum", "digits.node-below-minimum")]
+    return "\n".join(lines) if lines else None
 
 
 def command_view(report: results.Report, *, quiet: bool = False, verbose: bool = False):
@@ -202,7 +202,7 @@ def _actions(r: results.Report, max_ids: int):
 
 
 #: Findings whose action is another finding's (they point at the cause, not at a change).
-_COVERED = {"digits.below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
+_COVERED = {"digits.below-minimum", "digits.node-below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
             "spectrum.inertia-mismatch", "digits.refinement-not-converged"}
 #: Findings the suggested supports answer.
 _COVERED_BY_RESTRAINTS = {"support.rigid-body-mode"}
@@ -281,8 +281,10 @@ def _key_figures(r: results.Report):
         own = [s for s in dg.samples if not s.audited] or dg.samples
         worst = min(own, key=lambda s: s.trustworthy_digits)
         n = len(own)
-        t.add_row("trustworthy digits", _digits_shown(worst),
-                  f"{_how_digits(worst.method)}; worst of {n} sample{'s' if n != 1 else ''}")
+        invented = sum(1 for s in own if _invented(s))
+        over = (f"load + {invented} invented" if invented and n > invented else
+                f"{n} invented" if invented else f"{n} load case{'s' if n != 1 else ''}")
+        t.add_row("trustworthy digits", _digits_shown(worst), f"{_how_digits(worst.method)}; worst of {over}")
         supplied = [s for s in dg.samples if s.audited]
         if supplied and len(supplied) < len(dg.samples):
             bad = min(supplied, key=lambda s: s.trustworthy_digits)
@@ -547,10 +549,28 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
                     else "withdrawn"]
         t.add_row(*row)
     lines = [t]
-    worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
+    own = [s for s in dg.samples if not s.audited]
+    invented = [s for s in own if _invented(s)]
+    # The engineer's load cases first: their nodes are the ones that matter;
+    # an invented load's only when no load was given.
+    cases = [s for s in own if not _invented(s)]
+    worst = min(cases or dg.samples, key=lambda s: s.trustworthy_digits)
     if worst.worst_nodes:
-        lines.append(Text(f"Worst {unit_word(r)}s of sample '{worst.sample}' (digits of the worst "
+        whose = f"of the load '{worst.sample}'" if cases else f"of the invented load '{worst.sample}'"
+        lines.append(Text(f"Worst {unit_word(r)}s {whose} (digits of the worst "
                           f"component against its own size): {_worst_nodes(worst, max_ids)}"))
+    if invented:
+        names = sorted({"random-k" if s.sample.startswith("random-") else s.sample for s in invented})
+        lines.append(Text(
+            "Invented loads, to show what another load could lose: "
+            + "; ".join(("random-k: random forces on every DOF" if n == "random-k" else
+                         "worst-case: along the weakest mode of the scaled K") for n in names)
+            + f". The key figure is the worst of all {len(own)}, relative to the largest displacement.",
+            style="dim"))
+    if own:
+        lines.append(Text(f"Whose solve: {own[0].solve or _OWN_SOLVE}"
+                          + ("; 'solution': the supplied vector as read." if len(own) < len(dg.samples) else "."),
+                          style="dim"))
     if any(getattr(s, "at_ceiling", False) for s in dg.samples):
         lines.append(Text(">= : the error is below what the reference can resolve; the true "
                           "figure is at least this.", style="dim"))
@@ -566,6 +586,15 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
     for audit in (dg.audits or [dg.audit]):
         lines.extend(_audit_lines(audit))
     return Group(*lines)
+
+
+#: The solve a digits figure describes when the sample does not say.
+_OWN_SOLVE = "the tool's float64 direct solve (SuperLU, symmetric mode, its own ordering)"
+
+
+def _invented(s: results.DigitsSample) -> bool:
+    """A load the tool invented (``random-k``, ``worst-case``), not the engineer's."""
+    return not s.audited and (s.sample.startswith("random-") or s.sample == "worst-case")
 
 
 def _worst_nodes(s: results.DigitsSample, max_ids: int) -> str:
