@@ -558,6 +558,12 @@ class DigitsSample:
     """Whose solve the figure describes, in words: the tool's float64 direct
     solve (solver, pivoting, ordering), a pivoted LU of the same K, or the
     supplied solution; empty in reports built without the digits stage."""
+    solver_kind: Literal["symmetric", "pivoted"] = "symmetric"
+    """The kind of solver: ``symmetric`` (the tool's own solve, pivots on the
+    diagonal in its fill-reducing order; also a supplied solution's sample)
+    or ``pivoted`` (LU with partial pivoting of the same K, measured when K
+    is indefinite or the symmetric elimination let round-off grow; the
+    sample's name ends in ``(pivoted LU)``)."""
 
 
 @dataclass(frozen=True)
@@ -668,6 +674,14 @@ class DigitsResult:
     audits: list["SolutionAudit"] = field(default_factory=list)
     """One audit per load case of a supplied solution (its ``case`` names
     it), worst first; ``audit`` is the first. Empty without a solution."""
+    headline_solve: Literal["symmetric", "pivoted"] = "symmetric"
+    """Which solver kind the key figure and the verdict describe: the one a
+    direct solver of this K would typically use (``pivoted`` when K is
+    indefinite or the symmetric elimination let round-off grow and the
+    pivoted LU was measured; else ``symmetric``)."""
+    headline_reason: str = ""
+    """Why the pivoted LU was measured and is the key figure, or why it was
+    not factored; empty when the kind of solver does not matter."""
 
 
 # --------------------------------------------------------------- findings

@@ -278,13 +278,20 @@ def _key_figures(r: results.Report):
     if dg is not None and dg.samples and not dg.skipped:
         # The tool's own solves and a supplied solution are different questions:
         # a vector that does not fit K must not pass for the conditioning's toll.
-        own = [s for s in dg.samples if not s.audited] or dg.samples
+        own = [s for s in dg.samples if not s.audited and s.solver_kind == dg.headline_solve] or dg.samples
         worst = min(own, key=lambda s: s.trustworthy_digits)
         n = len(own)
         invented = sum(1 for s in own if _invented(s))
         over = (f"load + {invented} invented" if invented and n > invented else
                 f"{n} invented" if invented else f"{n} load case{'s' if n != 1 else ''}")
-        t.add_row("trustworthy digits", _digits_shown(worst), f"{_how_digits(worst.method)}; worst of {over}")
+        t.add_row("trustworthy digits", _digits_shown(worst),
+                  f"pivoted LU; {_how_digits(worst.method)}; worst of {n}" if dg.headline_solve == "pivoted"
+                  else f"{_how_digits(worst.method)}; worst of {over}")
+        if dg.headline_solve == "pivoted":
+            sym = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
+            if sym:
+                low = min(sym, key=lambda s: s.trustworthy_digits)
+                t.add_row("  symmetric solve", _digits_shown(low), f"{_how_digits(low.method)}; no pivoting")
         supplied = [s for s in dg.samples if s.audited]
         if supplied and len(supplied) < len(dg.samples):
             bad = min(supplied, key=lambda s: s.trustworthy_digits)
@@ -549,7 +556,7 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
                     else "withdrawn"]
         t.add_row(*row)
     lines = [t]
-    own = [s for s in dg.samples if not s.audited]
+    own = [s for s in dg.samples if not s.audited and s.solver_kind == dg.headline_solve]
     invented = [s for s in own if _invented(s)]
     # The engineer's load cases first: their nodes are the ones that matter;
     # an invented load's only when no load was given.
@@ -567,10 +574,18 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
                          "worst-case: along the weakest mode of the scaled K") for n in names)
             + f". The key figure is the worst of all {len(own)}, relative to the largest displacement.",
             style="dim"))
-    if own:
-        lines.append(Text(f"Whose solve: {own[0].solve or _OWN_SOLVE}"
-                          + ("; 'solution': the supplied vector as read." if len(own) < len(dg.samples) else "."),
-                          style="dim"))
+    symmetric = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
+    pivoted = [s for s in dg.samples if not s.audited and s.solver_kind == "pivoted"]
+    supplied = "; 'solution': the supplied vector as read" if any(s.audited for s in dg.samples) else ""
+    ordering = r.factorization.ordering if r.factorization is not None else "its own"
+    own_solve = f"the tool's float64 solve (SuperLU, pivots on the diagonal, {ordering} ordering)"
+    if pivoted:
+        lines.append(Text(f"Whose solve: {own_solve}; '(pivoted LU)': LU with partial pivoting of the same "
+                          f"scaled K, as a direct solver of an indefinite K pivots: the key figure is "
+                          f"its{supplied}.", style="dim"))
+    elif symmetric:
+        lines.append(Text(f"Whose solve: {own_solve}{supplied}."
+                          + (f" {dg.headline_reason}." if dg.headline_reason else ""), style="dim"))
     if any(getattr(s, "at_ceiling", False) for s in dg.samples):
         lines.append(Text(">= : the error is below what the reference can resolve; the true "
                           "figure is at least this.", style="dim"))
@@ -594,7 +609,7 @@ _OWN_SOLVE = "the tool's float64 direct solve (SuperLU, symmetric mode, its own 
 
 def _invented(s: results.DigitsSample) -> bool:
     """A load the tool invented (``random-k``, ``worst-case``), not the engineer's."""
-    return not s.audited and (s.sample.startswith("random-") or s.sample == "worst-case")
+    return not s.audited and (s.sample.startswith("random-") or s.sample.startswith("worst-case"))
 
 
 def _worst_nodes(s: results.DigitsSample, max_ids: int) -> str:

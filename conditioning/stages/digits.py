@@ -163,6 +163,14 @@ def measure_digits(
                 solve=own_solve)
         for j, name in enumerate(names)
     ]
+    headline, why_pivoted = SYMMETRIC, ""
+    if _needs_pivoted(fac, spectrum, out):
+        Xp, why_pivoted = pivoted_solve(K, fac.scale, F)
+        if Xp is not None:
+            headline = PIVOTED
+            out += [replace(_sample(model, op, f"{name} {PIVOTED_SUFFIX}", F[:, j], Xp[:, j], refs[j], confirmation,
+                                    j, why_not, measured), solve=PIVOTED_SOLVE, solver_kind=PIVOTED)
+                    for j, name in enumerate(names)]
     audits = []
     if model.solution is not None and not cases:
         logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
@@ -177,8 +185,60 @@ def measure_digits(
     out = _cases_first(out, len(cases))
     audits = _worst_first(audits)
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
-                        summary=_summary(out, predicted_raw, predicted_scaled, flops),
-                        audit=audits[0] if audits else None, audits=audits)
+                        summary=_summary([x for x in out if x.solver_kind == headline], predicted_raw,
+                                         predicted_scaled, flops),
+                        audit=audits[0] if audits else None, audits=audits,
+                        headline_solve=headline, headline_reason=why_pivoted)
+
+
+#: ``solver_kind`` of the tool's own symmetric solve, and of the pivoted LU.
+SYMMETRIC, PIVOTED = "symmetric", "pivoted"
+#: Appended to a sample's name for its pivoted-LU solve.
+PIVOTED_SUFFIX = "(pivoted LU)"
+#: Whose solve a pivoted-LU sample describes.
+PIVOTED_SOLVE = ("a stable pivoted solve: LU with partial pivoting (SuperLU, threshold 1.0, COLAMD ordering) "
+                 "of the same diagonally scaled K, as a direct solver of an indefinite K pivots")
+#: A symmetric solve whose backward error exceeds this multiple of u has let
+#: round-off grow in elimination (pivot growth): a backward-stable solve stays
+#: within a small multiple of u (Higham, Accuracy and Stability, ch. 9-10;
+#: from memory). The project's choice.
+GROWTH_BACKWARD = 1e3
+#: Above this many rows no pivoted LU is factored (its fill is not predicted;
+#: the project's choice, a few seconds on the benchmark models).
+PIVOTED_MAX_N = 60_000
+
+
+def _needs_pivoted(fac, spectrum, samples: list[DigitsSample]) -> bool:
+    """True when the kind of solver matters: K is indefinite (negative pivots or eigenvalues),
+    or the symmetric solve's backward error shows pivot growth."""
+    negative = bool(fac.info.negative_pivots) or bool(spectrum is not None and spectrum.negative_eigenvalues)
+    growth = any(s.backward_error is not None and s.backward_error > GROWTH_BACKWARD * U for s in samples)
+    return negative or growth
+
+
+def pivoted_solve(K, scale, F) -> tuple[Optional[NDArray[np.float64]], str]:
+    """K^-1 F by LU with partial pivoting of S = diag(s) K diag(s), and why it was run or not.
+
+    Returns
+    -------
+    X : (n, k) float64 or None
+        None when the model is above :data:`PIVOTED_MAX_N` rows or the LU failed.
+    reason : str
+    """
+    n = K.shape[0]
+    if n > PIVOTED_MAX_N:
+        return None, (f"no pivoted LU: {n:,} rows is above the {PIVOTED_MAX_N:,} for which one is factored; "
+                      "the symmetric solve's figures stand")
+    S = sp.csc_array(K.multiply(scale[:, None]).multiply(scale[None, :]))
+    try:
+        lu = spla.splu(S, permc_spec="COLAMD", diag_pivot_thresh=1.0)
+        X = scale[:, None] * lu.solve(scale[:, None] * F)
+    except (RuntimeError, MemoryError) as exc:
+        return None, f"no pivoted LU: {exc}"
+    if not np.all(np.isfinite(X)):
+        return None, "no pivoted LU: its solve was not finite"
+    return X, ("K is indefinite or its symmetric elimination let round-off grow, so a direct solver of "
+               "it pivots: the key figure is the pivoted LU's")
 
 
 #: Whose solve an audited sample describes.
@@ -685,7 +745,8 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
     audits = _worst_first(audits)
     return replace(digits, samples=samples, audit=audits[0] if audits else None, audits=audits,
                    certification=reason,
-                   summary=_summary(samples, digits.predicted_raw, digits.predicted_scaled,
+                   summary=_summary([x for x in samples if x.solver_kind == digits.headline_solve],
+                                    digits.predicted_raw, digits.predicted_scaled,
                                     digits.factorization_flops))
 
 
@@ -885,7 +946,7 @@ def _summary(samples: list[DigitsSample], pr, ps, flops: float) -> str:
         return "No load sample could be measured."
     worst = min(own, key=lambda s: s.trustworthy_digits)
     t = worst.trustworthy_digits
-    head = (f"The float64 solution keeps at least {t:.1f} trustworthy digits, normwise (relative to the "
+    head = (f"The float64 solution ({'pivoted LU' if worst.solver_kind == PIVOTED else 'symmetric solve'}) keeps at least {t:.1f} trustworthy digits, normwise (relative to the "
             f"largest displacement; worst sample '{worst.sample}')")
     ops = (f"; the factorization's {flops:.1e} operations do not set this figure, "
            "the conditioning does")

@@ -521,7 +521,7 @@ def load_case_samples(model: Model, digits: Optional[DigitsResult]) -> list:
         return []
     names = {"load"} if np.ndim(model.load) == 1 else set(model.load_names or
                                                            (f"load-{k + 1}" for k in range(np.shape(model.load)[1])))
-    return [s for s in own_samples(digits) if s.sample in names]
+    return [s for s in own_samples(digits) if s.sample.removesuffix(" (pivoted LU)") in names]
 
 
 def node_digits(model: Model, sample) -> list[tuple[int, float]]:
@@ -582,7 +582,7 @@ def _digits_findings(model: Model, digits: Optional[DigitsResult], min_digits: f
             what = f"the supplied solution '{worst.sample}'" + (
                 f" ({a.written_text})" if a is not None and a.written_text else "")
         elif worst not in cases:
-            what += (" (an invented load: " + ("a random load on every DOF" if worst.sample.startswith("random-")
+            what += (" (an invented load: " + ("random forces on every DOF" if worst.sample.startswith("random-")
                                                else "a load along the weakest mode of the scaled K") + ")")
         out.append(Finding("error", "digits.below-minimum",
                            f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for {what} "
@@ -688,7 +688,7 @@ def status_of(findings: Sequence[Finding]) -> str:
 def samples_phrase(own: Sequence) -> str:
     """``"the load and 4 invented loads"``, ``"3 load cases and 4 invented loads"``, ``"4 invented loads"``:
     what a worst-of figure is the worst over (``own`` the tool's own samples)."""
-    invented = sum(1 for s in own if s.sample.startswith("random-") or s.sample == "worst-case")
+    invented = sum(1 for s in own if s.sample.startswith("random-") or s.sample.startswith("worst-case"))
     cases = len(own) - invented
     head = "the load" if cases == 1 else f"{cases} load cases" if cases else ""
     tail = f"{invented} invented load{'' if invented == 1 else 's'}" if invented else ""
@@ -701,10 +701,12 @@ def words_of(findings: Sequence[Finding]) -> str:
 
 
 def own_samples(digits: Optional[DigitsResult]) -> list:
-    """The samples of the tool's own solves (a supplied solution is audited apart)."""
+    """The samples of the tool's own solves of the kind the key figure describes
+    (:attr:`DigitsResult.headline_solve`; a supplied solution is audited apart)."""
     if digits is None:
         return []
-    return [s for s in digits.samples if not s.audited]
+    kind = getattr(digits, "headline_solve", "symmetric")
+    return [s for s in digits.samples if not s.audited and getattr(s, "solver_kind", "symmetric") == kind]
 
 
 def _grounded_clause(jumps: list[StiffnessJump], rows_word: str) -> str:
@@ -867,6 +869,12 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if worst is not None:
         how = "certified" if all(s.method.startswith("certified") for s in own) else "measured"
         figure = f"trustworthy to {_significant(worst)} ({how}; worst of {samples_phrase(own)})"
+        if digits.headline_solve == "pivoted":
+            symmetric = [s for s in digits.samples if not s.audited and s.solver_kind == "symmetric"]
+            sym_worst = min((s.trustworthy_digits for s in symmetric), default=None)
+            figure += (" with a pivoted LU, as a direct solver of this K pivots"
+                       + (f"; a symmetric solve without pivoting keeps {_significant(sym_worst)}"
+                          if sym_worst is not None else ""))
     elif condition is not None and condition.scaled_estimate and not condition.singular:
         figure = (f"about {_significant(16 - math.log10(condition.scaled_estimate))} "
                   "(estimated from the scaled condition number, not measured)")
