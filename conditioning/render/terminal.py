@@ -282,7 +282,7 @@ def _key_figures(r: results.Report):
         worst = min(own, key=lambda s: s.trustworthy_digits)
         n = len(own)
         invented = sum(1 for s in own if _invented(s))
-        over = (f"load + {invented} invented" if invented and n > invented else
+        over = (f"{n} ({invented} invented)" if invented and n > invented else
                 f"{n} invented" if invented else f"{n} load case{'s' if n != 1 else ''}")
         t.add_row("trustworthy digits", _digits_shown(worst),
                   f"pivoted LU; {_how_digits(worst.method)}; worst of {n}" if dg.headline_solve == "pivoted"
