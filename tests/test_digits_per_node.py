@@ -88,5 +88,5 @@ def test_cli_exit_3_and_terminal_shows_the_loads_worst_nodes(capsys):
     load = next(s for s in report.digits.samples if s.sample == "load")
     assert f"Worst nodes of the load 'load'" in text and f"{load.worst_nodes[0].node} (" in text
     assert "random-k: random forces on every DOF" in text and "worst of all 5" in text
-    assert "Whose solve: the tool's float64 direct solve (SuperLU" in text
+    assert "Whose solve: the tool's float64 solve (SuperLU, pivots on the diagonal" in text
     assert "worst of the load and 4 invented loads" in report.verdict
