@@ -639,11 +639,17 @@ def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
                      f"{fmt_number(audit.free_mode_share)} of it, so it keeps {fmt_digits(audit.trustworthy_digits)} "
                      f"digits (bound); backward error {fmt_number(audit.backward_error)}.")]
     fit = "fits" if audit.fits else "does NOT fit"
-    text = (f"{who} {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
-            f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; "
-            f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
-    if audit.digits_written is not None:
-        text += f" Its values were written with {audit.digits_written} significant figures."
+    as_written = audit.fits and audit.fits_as_written and audit.written_text is not None
+    if as_written:
+        fit = f"fits K and f at the precision it was written in ({audit.written_text})"
+    else:
+        fit += " K and f"
+    text = (f"{who} {fit}: backward error {fmt_number(audit.backward_error)} against "
+            + (f"{fmt_number(audit.written_backward_error)} that rounding to it allows; " if as_written else
+               f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; ")
+            + f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
+    if audit.written_text is not None and not as_written:
+        text += f" Its values: {audit.written_text}."
     return [Text(text, style=None if audit.fits else "bold red")]
 
 

@@ -111,11 +111,16 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
         ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U**2)
         precision = ""
         if audit.written_text is not None and audit.written_backward_error is not None:
-            precision = (f" Its values are {audit.written_text.replace('written with ', '')}, but rounding an exact "
-                         f"solution to that precision allows a backward error of at most "
-                         f"{audit.written_backward_error:.1e}, and this one is "
-                         f"{audit.backward_error / max(audit.written_backward_error, U**2):.0f} times that: "
-                         "the precision it was written in does not explain it.")
+            times = audit.backward_error / max(audit.written_backward_error, U**2)
+            values = ("in single precision (about 7 digits)" if audit.written_as == "float32"
+                      else audit.written_text)
+            precision = (f" Its values are {values}, but rounding an exact solution to that precision allows a "
+                         f"backward error of at most {audit.written_backward_error:.1e}, and this one is "
+                         f"{times:.0f}" if times < 1e4 else
+                         f" Its values are {values}, but rounding an exact solution to that precision allows a "
+                         f"backward error of at most {audit.written_backward_error:.1e}, and this one is "
+                         f"{times:.0e}")
+            precision += " times that: the precision it was written in does not explain it."
         out.append(Finding(
             "error", "solution.does-not-fit",
             f"The supplied solution{of_case} does not solve this K and f at any written precision: its backward "
