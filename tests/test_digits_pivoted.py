@@ -72,6 +72,9 @@ def test_indefinite_K_measures_both_solves_against_mpmath():
     key = text[text.index("Key figures"):text.index("Model")]
     assert f"{worst_piv:.1f}" in key and "pivoted LU" in key and f"{worst_sym:.1f}" in key
     assert "'(pivoted LU)': LU with partial pivoting" in " ".join(text.split())
+    from conditioning.render.html import render_html
+    html = render_html(report)
+    assert "Whose solve (random-1, random-2, worst-case)" in html and "partial pivoting" in html
 
 
 def test_positive_definite_K_measures_only_the_symmetric_solve():
