@@ -164,7 +164,10 @@ def measure_digits(
         for j, name in enumerate(names)
     ]
     headline, why_pivoted = SYMMETRIC, ""
-    if _needs_pivoted(fac, spectrum, out):
+    if _needs_pivoted(fac, spectrum, out) and int(getattr(fac.info, "fill", 0)) > PIVOTED_MAX_FILL:
+        why_pivoted = (f"no pivoted LU: the symmetric factor already holds {fac.info.fill:,} entries, above the "
+                       f"{PIVOTED_MAX_FILL:,} for which one is factored; the symmetric solve's figures stand")
+    elif _needs_pivoted(fac, spectrum, out):
         Xp, why_pivoted = pivoted_solve(K, fac.scale, F)
         if Xp is not None:
             headline = PIVOTED
@@ -206,6 +209,10 @@ GROWTH_BACKWARD = 1e3
 #: Above this many rows no pivoted LU is factored (its fill is not predicted;
 #: the project's choice, a few seconds on the benchmark models).
 PIVOTED_MAX_N = 60_000
+#: Nor when the symmetric factor holds more than this many entries (a pivoted
+#: LU's fill is usually a small multiple of it; the project's choice: about
+#: 1 GB for the LU at three times this fill).
+PIVOTED_MAX_FILL = 30_000_000
 
 
 def _needs_pivoted(fac, spectrum, samples: list[DigitsSample]) -> bool:

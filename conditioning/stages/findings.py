@@ -607,7 +607,7 @@ def _digits_findings(model: Model, digits: Optional[DigitsResult], min_digits: f
             word = rows_word[:-1] if len(low) == 1 else rows_word
             out.append(Finding(
                 "error", "digits.node-below-minimum",
-                f"For the load '{s.sample}', {len(low):,} {word} keep{'s' if len(low) == 1 else ''} fewer than "
+                f"For {'the load' if s.sample == 'load' else 'load case'} '{s.sample}', {len(low):,} {word} keep{'s' if len(low) == 1 else ''} fewer than "
                 f"{min_digits:g} trustworthy digits: {_node_list(low)} (each {rows_word[:-1]}'s worst component "
                 f"against its own size; "
                 f"{s.method if s.method.startswith('certified') else 'measured, ' + s.method}), although the "
@@ -888,10 +888,13 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     audit = digits.audit if digits is not None else None
     # What the figure leaves out: nodes of the engineer's load below the
     # minimum, and a supplied solution that fits at a lower precision.
-    low_nodes = sorted({v for f in findings if f.code == "digits.node-below-minimum" for v in f.nodes})
+    node_findings = [f for f in findings if f.code == "digits.node-below-minimum"]
+    low_nodes = sorted({v for f in node_findings for v in f.nodes})
     if figure and low_nodes:
+        case = node_findings[0].message.split("'")[1] if len(node_findings) == 1 else ""
+        of = "of the load" if case == "load" else f"of load case '{case}'" if case else "of the load cases"
         figure += (f", but {words_of(findings)[:-1] if len(low_nodes) == 1 else words_of(findings)} "
-                   f"{_list_nodes(low_nodes, 4)} of the load keep{'s' if len(low_nodes) == 1 else ''} fewer than "
+                   f"{_list_nodes(low_nodes, 4)} {of} keep{'s' if len(low_nodes) == 1 else ''} fewer than "
                    f"{min_digits:g}")
     supplied_low = False
     if audit is not None and audit.fits and audit.free_mode_share is None and (
