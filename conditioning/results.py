@@ -558,12 +558,15 @@ class DigitsSample:
     """Whose solve the figure describes, in words: the tool's float64 direct
     solve (solver, pivoting, ordering), a pivoted LU of the same K, or the
     supplied solution; empty in reports built without the digits stage."""
-    solver_kind: Literal["symmetric", "pivoted"] = "symmetric"
+    solver_kind: Literal["symmetric", "pivoted", "exported"] = "symmetric"
     """The kind of solver: ``symmetric`` (the tool's own solve, pivots on the
     diagonal in its fill-reducing order; also a supplied solution's sample)
     or ``pivoted`` (LU with partial pivoting of the same K, measured when K
     is indefinite or the symmetric elimination let round-off grow; the
-    sample's name ends in ``(pivoted LU)``)."""
+    sample's name ends in ``(pivoted LU)``) or ``exported`` (when a penalty
+    swallowed the structure: a float64 LU with partial pivoting of the
+    exported K as stored, name ending in ``(exported K)``; the other samples
+    are then of the model with the swallowed DOFs held)."""
 
 
 @dataclass(frozen=True)
@@ -674,11 +677,20 @@ class DigitsResult:
     audits: list["SolutionAudit"] = field(default_factory=list)
     """One audit per load case of a supplied solution (its ``case`` names
     it), worst first; ``audit`` is the first. Empty without a solution."""
-    headline_solve: Literal["symmetric", "pivoted"] = "symmetric"
+    headline_solve: Literal["symmetric", "pivoted", "exported"] = "symmetric"
     """Which solver kind the key figure and the verdict describe: the one a
     direct solver of this K would typically use (``pivoted`` when K is
     indefinite or the symmetric elimination let round-off grow and the
-    pivoted LU was measured; else ``symmetric``)."""
+    pivoted LU was measured; ``exported`` when a penalty swallowed the
+    structure and the exported K itself was measured, the held-DOF samples
+    then being a prediction of the model after the suggested change; else
+    ``symmetric``)."""
+    exported_condition_at_least: Optional[float] = None
+    """When a penalty swallowed the structure: a proved lower bound on the
+    2-norm condition number of the exported K, max|K_ii| ||x||_2 / ||f||_2
+    (||K||_2 >= max|K_ii|, ||K^-1||_2 >= ||K^-1 f||_2 / ||f||_2) from the
+    certified solution of each measured load; None otherwise or when no
+    reference solve ran."""
     headline_reason: str = ""
     """Why the pivoted LU was measured and is the key figure, or why it was
     not factored; empty when the kind of solver does not matter."""

@@ -244,10 +244,15 @@ def _jump_cost(j: results.StiffnessJump) -> str:
 def _key_figures(r: results.Report):
     t = _table("figure", "value", "how obtained", right=(1,))
     c = r.condition
+    # When the exported K itself was measured (a penalty swallowed the structure),
+    # the condition figures are of the held-DOF model: a prediction after the change.
+    after = r.digits is not None and r.digits.headline_solve == "exported"
     if c is not None:
-        t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
-        t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
-                  _how(c.scaled_estimate, c.scaled_method)
+        t.add_row("condition, raw, after" if after else "condition number, raw K", _kappa(c.estimate, c.singular),
+                  ("prediction; " if after else "") + _how(c.estimate, c.estimate_method))
+        t.add_row("condition, scaled, after" if after else "condition number, scaled",
+                  _kappa(c.scaled_estimate, c.singular),
+                  ("prediction; " if after else "") + _how(c.scaled_estimate, c.scaled_method)
                   + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
@@ -284,9 +289,21 @@ def _key_figures(r: results.Report):
         invented = sum(1 for s in own if _invented(s))
         over = (f"{n} ({invented} invented)" if invented and n > invented else
                 f"{n} invented" if invented else f"{n} load case{'s' if n != 1 else ''}")
-        t.add_row("trustworthy digits", _digits_shown(worst),
-                  f"pivoted LU; {_how_digits(worst.method)}; worst of {n}" if dg.headline_solve == "pivoted"
-                  else f"{_how_digits(worst.method)}; worst of {over}")
+        if dg.headline_solve == "exported":
+            kappa = dg.exported_condition_at_least
+            if kappa is not None:
+                t.add_row("condition, exported K", f">= {fmt_number(kappa)}",
+                          "bound; beyond float64 (1/eps 4.5e+15)" if kappa * 2.0**-52 >= 1.0 else "bound")
+            t.add_row("trustworthy digits", _digits_shown(worst),
+                      f"exported K; {_how_digits(worst.method)}; worst of {n}")
+            held = [s for s in dg.samples if not s.audited and s.solver_kind != "exported"]
+            if held:
+                best = min(held, key=lambda s: s.trustworthy_digits)
+                t.add_row("  after the change", _digits_shown(best), "prediction: swallowed DOFs held")
+        else:
+            t.add_row("trustworthy digits", _digits_shown(worst),
+                      f"pivoted LU; {_how_digits(worst.method)}; worst of {n}" if dg.headline_solve == "pivoted"
+                      else f"{_how_digits(worst.method)}; worst of {over}")
         if dg.headline_solve == "pivoted":
             sym = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
             if sym:
@@ -557,7 +574,7 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
         t.add_row(*row)
     lines = [t]
     own = [s for s in dg.samples if not s.audited and s.solver_kind == dg.headline_solve]
-    invented = [s for s in own if _invented(s)]
+    invented = [s for s in dg.samples if _invented(s) and s.solver_kind != "pivoted"]
     # The engineer's load cases first: their nodes are the ones that matter;
     # an invented load's only when no load was given.
     cases = [s for s in own if not _invented(s)]
@@ -572,14 +589,21 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
             "Invented loads, to show what another load could lose: "
             + "; ".join(("random-k: random forces on every DOF" if n == "random-k" else
                          "worst-case: along the weakest mode of the scaled K") for n in names)
-            + f". The key figure is the worst of all {len(own)}, relative to the largest displacement.",
+            + (f". The key figure is the worst of all {len(own)}, relative to the largest displacement."
+               if dg.headline_solve != "exported" else "."),
             style="dim"))
     symmetric = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
     pivoted = [s for s in dg.samples if not s.audited and s.solver_kind == "pivoted"]
     supplied = "; 'solution': the supplied vector as read" if any(s.audited for s in dg.samples) else ""
     ordering = r.factorization.ordering if r.factorization is not None else "its own"
     own_solve = f"the tool's float64 solve (SuperLU, pivots on the diagonal, {ordering} ordering)"
-    if pivoted:
+    exported = [s for s in dg.samples if s.solver_kind == "exported"]
+    if exported:
+        lines.append(Text("Whose solve: '(exported K)': a float64 LU with partial pivoting of the exported K as "
+                          "stored (what any float64 solver of it gets), the key figure; the others: "
+                          f"{own_solve} of the model with the swallowed DOFs held, a prediction after the "
+                          f"suggested change{supplied}.", style="dim"))
+    elif pivoted:
         lines.append(Text(f"Whose solve: {own_solve}; '(pivoted LU)': LU with partial pivoting of the same "
                           f"scaled K, as a direct solver of an indefinite K pivots: the key figure is "
                           f"its{supplied}.", style="dim"))

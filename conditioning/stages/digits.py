@@ -215,6 +215,111 @@ PIVOTED_MAX_N = 60_000
 PIVOTED_MAX_FILL = 30_000_000
 
 
+#: Appended to a sample's name for the float64 solve of the exported K.
+EXPORTED_SUFFIX = "(exported K)"
+#: Whose solve an exported-K sample describes.
+EXPORTED_SOLVE = ("a float64 LU with partial pivoting (SuperLU, threshold 1.0, COLAMD ordering, diagonally "
+                  "scaled) of the exported K as stored, penalty included: what a float64 direct solver of it gets")
+#: The condition estimate passed to the reference solve of an exported K that a
+#: penalty swallowed: it chooses the working precision (K is singular at
+#: float64 precision along the link; the ball arithmetic then proves how many
+#: bits were enough). The project's choice: 1e40, beyond the 1e20-1e30
+#: penalties seen in exports.
+EXPORTED_KAPPA = 1e40
+
+
+def measure_exported_digits(model: Model, structure=None, rng: Optional[np.random.Generator] = None
+                            ) -> tuple[list[DigitsSample], Optional[float], str]:
+    """Digits of a float64 solve of the exported K itself, for the engineer's load(s).
+
+    Run when a penalty has swallowed the structure (the rest of the report is
+    then of the model with the linked DOFs held): the matrix the engineer
+    solves is the exported one, singular at float64 precision along the link.
+    Each load (the engineer's cases, else one seeded random load) is solved by
+    :func:`pivoted_solve` on the stored K and measured against an
+    arbitrary-precision re-solve of the stored K (python-flint's ball
+    arithmetic when installed, certified), per DOF and normwise as every
+    other sample.
+
+    Returns
+    -------
+    samples : list of DigitsSample
+        ``solver_kind`` ``exported``, names ending in ``(exported K)``; empty
+        when no reference solve could run (above its size limit).
+    condition_at_least : float or None
+        A proved lower bound on kappa_2 of the exported K (see
+        :attr:`DigitsResult.exported_condition_at_least`).
+    reason : str
+        What was measured, or why nothing was.
+    """
+    K = sp.csr_array(model.K)
+    n = K.shape[0]
+    names, cols = [], []
+    if model.load is not None:
+        L = np.asarray(model.load, dtype=np.float64).reshape(n, -1)
+        labels = (["load"] if np.ndim(model.load) == 1 else
+                  list(model.load_names or (f"load-{k + 1}" for k in range(L.shape[1]))))
+        for k, label in enumerate(labels):
+            if np.any(L[:, k]):
+                names.append(label)
+                cols.append(L[:, k])
+    if not cols:
+        rng = np.random.default_rng(0) if rng is None else rng
+        names.append("random-1")
+        f = rng.standard_normal(n)
+        placeholders = _placeholder_rows(structure)
+        f[placeholders] = 0.0
+        cols.append(f)
+    F = np.column_stack(cols)
+    method = choose_reference_method(n)
+    if method is None:
+        return [], None, (f"the exported K was not measured: n = {n:,} is above the arbitrary-precision re-solve's "
+                          f"limits ({FLINT_MAX_N:,} with python-flint, {MPMATH_MAX_N:,} with mpmath)")
+    diag = np.abs(K.diagonal())
+    scale = np.where(diag > 0, 1.0 / np.sqrt(np.where(diag > 0, diag, 1.0)), 1.0)
+    X, why = pivoted_solve(K, scale, F)
+    if X is None:
+        return [], None, f"the exported K was not measured: {why}"
+    try:
+        ref = reference_solve(K, F, method=method, kappa=EXPORTED_KAPPA)
+    except ValueError as exc:
+        return [], None, f"the exported K was not measured: its arbitrary-precision re-solve failed ({exc})"
+    op = dd_operator(K)
+    out, bounds = [], []
+    for j, name in enumerate(names):
+        x, f = X[:, j], F[:, j]
+        x_hi, x_lo = ref.x_hi[:, j], ref.x_lo[:, j]
+        if ref.radius is not None:
+            rad = _up(ref.radius[:, j], 1) + 2 * U**2 * np.abs(x_hi)
+            how = CERTIFIED_BALL if ref.method == "certified" else ref.method
+        else:
+            rad = np.full(n, 10.0 ** -_digits_of(ref.engine) * EXPORTED_KAPPA * float(np.max(np.abs(x_hi))))
+            how = ref.method
+        scale_x = float(np.max(np.abs(x_hi)))
+        err_vec = np.abs((x - x_hi) - x_lo)
+        err_up = _up(err_vec, 3) + rad
+        scale_lo = scale_x - float(np.max(rad))
+        upper = _up(float(np.max(err_up)) / scale_lo, 2) if scale_lo > 0 else math.inf
+        trust = _digits(upper)
+        resolution = float(np.max(rad)) / scale_x if scale_x > 0 else math.inf
+        per_dof = _per_dof_digits(model, err_up, x_hi, resolution)
+        r_hi, r_lo = dd_residual(op, x, None, f)
+        norm_lo = float(np.linalg.norm(x_hi)) - float(np.linalg.norm(rad))
+        if norm_lo > 0:
+            bounds.append(float(np.max(diag)) * norm_lo / float(np.linalg.norm(f)) * (1 - 8 * U))
+        out.append(DigitsSample(
+            sample=f"{name} {EXPORTED_SUFFIX}", trustworthy_digits=trust, digits_lost=FLOAT64_DIGITS - trust,
+            method=how, converged=True,
+            stop_reason=f"measured against {ref.engine}, a re-solve of the stored K",
+            history=[], worst_nodes=_worst_nodes(model, per_dof), normwise_bound=resolution,
+            componentwise_bound=None, bound_trusted=ref.radius is not None, confirmation=ref.engine,
+            per_dof_digits=per_dof, forward_error=float(np.max(err_vec)) / scale_x if scale_x > 0 else math.inf,
+            resolution=resolution, at_ceiling=False, backward_error=_backward_error(op, x, f, r_hi + r_lo),
+            solution=x, load_vector=f, reference_hi=x_hi, reference_lo=x_lo,
+            solve=EXPORTED_SOLVE, solver_kind="exported"))
+    return out, (max(bounds) if bounds else None), "measured: " + EXPORTED_SOLVE
+
+
 def _needs_pivoted(fac, spectrum, samples: list[DigitsSample]) -> bool:
     """True when the kind of solver matters: K is indefinite (negative pivots or eigenvalues),
     or the symmetric solve's backward error shows pivot growth."""

@@ -526,7 +526,8 @@ def load_case_samples(model: Model, digits: Optional[DigitsResult]) -> list:
         return []
     names = {"load"} if np.ndim(model.load) == 1 else set(model.load_names or
                                                            (f"load-{k + 1}" for k in range(np.shape(model.load)[1])))
-    return [s for s in own_samples(digits) if s.sample.removesuffix(" (pivoted LU)") in names]
+    return [s for s in own_samples(digits)
+            if s.sample.removesuffix(" (pivoted LU)").removesuffix(" (exported K)") in names]
 
 
 def node_digits(model: Model, sample) -> list[tuple[int, float]]:
@@ -928,6 +929,18 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
             head = count or "negative eigenvalues"
         return f"indefinite: {head}; K is not the stiffness of a stable structure{tail}", status
     swallowed = [f for f in findings if f.code == "stiffness.penalty-swallowed"]
+    if swallowed and digits is not None and digits.headline_solve == "exported" and worst is not None:
+        nodes = sorted({v for f in swallowed for v in f.nodes})
+        held = [s for s in digits.samples if not s.audited and s.solver_kind != "exported"]
+        kind = "pivoted" if any(s.solver_kind == "pivoted" for s in held) else "symmetric"
+        predicted = min((s.trustworthy_digits for s in held if s.solver_kind == kind), default=None)
+        kappa = digits.exported_condition_at_least
+        beyond = (f"; its condition number is beyond float64: at least {kappa:.1e}" if kappa is not None
+                  and kappa * U >= 1.0 else f"; its condition number is at least {kappa:.1e}" if kappa else "")
+        after = (f"; after the suggested change, about {_significant(predicted)} (prediction: the model with "
+                 "those DOFs held)" if predicted is not None else "")
+        return (f"stiffness jump: a penalty swallowed the structure at {words} {_list_nodes(nodes)}: a float64 "
+                f"solve of the exported K keeps {_significant(worst)} ({how}){beyond}{after}"), status
     if swallowed:
         nodes = sorted({v for f in swallowed for v in f.nodes})
         rest = f"; elsewhere {figure}" if figure else ""
