@@ -601,6 +601,19 @@ class DigitsSample:
     audited: bool = False
     """True for a supplied solution (``--solution``) measured for its audit,
     False for the tool's own float64 solve."""
+    solve: str = ""
+    """Whose solve the figure describes, in words: the tool's float64 direct
+    solve (solver, pivoting, ordering), a pivoted LU of the same K, or the
+    supplied solution; empty in reports built without the digits stage."""
+    solver_kind: Literal["symmetric", "pivoted", "exported"] = "symmetric"
+    """The kind of solver: ``symmetric`` (the tool's own solve, pivots on the
+    diagonal in its fill-reducing order; also a supplied solution's sample)
+    or ``pivoted`` (LU with partial pivoting of the same K, measured when K
+    is indefinite or the symmetric elimination let round-off grow; the
+    sample's name ends in ``(pivoted LU)``) or ``exported`` (when a penalty
+    swallowed the structure: a float64 LU with partial pivoting of the
+    exported K as stored, name ending in ``(exported K)``; the other samples
+    are then of the model with the swallowed DOFs held)."""
 
 
 @dataclass(frozen=True)
@@ -622,9 +635,12 @@ class SolutionAudit:
     """eta of the tool's own float64 solve of the same K and f: what this K
     allows; None when K is singular (no own solve)."""
     fits: bool
-    """False when ``backward_error`` exceeds FIT_FACTOR (100) times
-    max(``allowed_backward_error``, u): the vector does not solve K x = f to
-    working precision."""
+    """True when the vector solves K x = f to working precision
+    (``backward_error`` at most FIT_FACTOR (100) times
+    max(``allowed_backward_error``, u)) or to the precision it was written in
+    (``fits_as_written``); False: it does not solve this K and f at any
+    written precision (another load case, another DOF order, a solver that
+    did not converge)."""
     digits_written: Optional[int]
     """Significant decimal digits the supplied values carry: the most any of
     up to 2,000 sampled entries needs to be reproduced exactly; None when
@@ -645,6 +661,35 @@ class SolutionAudit:
     case: Optional[str] = None
     """The load case this solution column answers (its name); None for a
     single load."""
+    written_as: Optional[Literal["float32", "decimal"]] = None
+    """The precision the supplied values were written in, read from the values
+    themselves: ``float32`` (every entry a single-precision number, or its
+    shortest or 9-figure decimal form), ``decimal`` (``digits_written``
+    significant figures); None at full float64 precision."""
+    written_digits: Optional[float] = None
+    """Decimal digits that precision carries: ``digits_written`` for
+    ``decimal``, log10(2^24) = 7.2 for ``float32``; None with ``written_as``."""
+    written_backward_error: Optional[float] = None
+    """The largest backward error rounding an exact solution to that precision
+    can cause: || |K| e ||_inf / (||K||_inf ||x_s||_inf + ||f||_inf), with e_i
+    the rounding bound of entry i (0.5 10^(1-p) |x_i|, and half a unit of the
+    smallest last written decimal place; 2^-24 |x_i| for float32 values, 2^-23
+    for their printed forms); None with ``written_as``."""
+    fits_as_written: bool = False
+    """True when ``backward_error`` is at most WRITTEN_FIT_FACTOR (16) times
+    ``written_backward_error`` plus the own solve's: the vector solves K x = f
+    to the precision it was written in (``fits`` is then True too)."""
+
+    @property
+    def written_text(self) -> Optional[str]:
+        """``"single precision: about 7 digits"``, ``"written with 6 significant
+        figures"``, or None at full float64 precision."""
+        if self.written_as == "float32":
+            return f"single precision: about {int(self.written_digits or 7)} digits"
+        if self.written_as == "decimal" and self.written_digits is not None:
+            p = int(self.written_digits)
+            return f"written with {p} significant figure{'' if p == 1 else 's'}"
+        return None
 
 
 @dataclass(frozen=True)
@@ -679,6 +724,23 @@ class DigitsResult:
     audits: list["SolutionAudit"] = field(default_factory=list)
     """One audit per load case of a supplied solution (its ``case`` names
     it), worst first; ``audit`` is the first. Empty without a solution."""
+    headline_solve: Literal["symmetric", "pivoted", "exported"] = "symmetric"
+    """Which solver kind the key figure and the verdict describe: the one a
+    direct solver of this K would typically use (``pivoted`` when K is
+    indefinite or the symmetric elimination let round-off grow and the
+    pivoted LU was measured; ``exported`` when a penalty swallowed the
+    structure and the exported K itself was measured, the held-DOF samples
+    then being a prediction of the model after the suggested change; else
+    ``symmetric``)."""
+    exported_condition_at_least: Optional[float] = None
+    """When a penalty swallowed the structure: a proved lower bound on the
+    2-norm condition number of the exported K, max|K_ii| ||x||_2 / ||f||_2
+    (||K||_2 >= max|K_ii|, ||K^-1||_2 >= ||K^-1 f||_2 / ||f||_2) from the
+    certified solution of each measured load; None otherwise or when no
+    reference solve ran."""
+    headline_reason: str = ""
+    """Why the pivoted LU was measured and is the key figure, or why it was
+    not factored; empty when the kind of solver does not matter."""
 
 
 # --------------------------------------------------------------- findings

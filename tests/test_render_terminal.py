@@ -57,8 +57,8 @@ def test_digits_show_method_and_withdrawn_bound():
     assert "9.0" in load and "refinement, measured" in load
     worst = [ln for ln in text.splitlines() if ln.startswith("worst-case")][0]
     assert "withdrawn" in worst
-    # The worst nodes of the worst sample, on one line.
-    assert "Worst nodes of sample 'worst-case'" in text
+    # The worst nodes of the engineer's load (not of an invented sample), on one line.
+    assert "Worst nodes of the load 'load'" in text and "Worst nodes of sample 'worst-case'" not in text
 
 
 def test_long_node_lists_are_summarised():

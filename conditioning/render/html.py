@@ -262,9 +262,20 @@ def _digits(r: results.Report) -> str:
             f"scaled {fmt_digits(dg.predicted_scaled)} digits. ")
     # the summary usually states the prediction already: once is enough
     pred = f"<p>{'' if '16 - log10' in dg.summary else rule}{_e(dg.summary)}</p>"
+    # Whose solve each figure describes, and what the invented loads are.
+    solves: dict[str, list[str]] = {}
+    for s in dg.samples:
+        if getattr(s, "solve", ""):
+            solves.setdefault(s.solve, []).append(s.sample)
+    whose = "".join(f"<p>Whose solve ({_e(', '.join(names))}): {_e(solve)}.</p>" for solve, names in solves.items())
+    invented = any(s.sample.startswith("random-") or s.sample.startswith("worst-case") for s in dg.samples)
+    if invented:
+        whose += ("<p>random-k: invented loads, random forces on every DOF; worst-case: an invented load along "
+                  "the weakest mode of the scaled K. They show what another load could lose; the key figure is "
+                  "the worst over the load and these, relative to the largest displacement.</p>")
     return ("<h2>Digits of the displacements</h2>"
             + _table(["sample", "trustworthy digits", "digits lost", "method", "converged",
-                      "reference error bound", "worst nodes (digits)"], rows, {1, 2}) + pred)
+                      "reference error bound", "worst nodes (digits)"], rows, {1, 2}) + whose + pred)
 
 
 def _figures(r: results.Report) -> str:

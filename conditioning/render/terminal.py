@@ -93,11 +93,11 @@ def verdict_line(report: results.Report) -> Text:
 
 # ----------------------------------------------------------------- sections
 def below_minimum_message(report: results.Report) -> Optional[str]:
-    """The ``digits.below-minimum`` finding's message, shown under the verdict; None without one."""
-    for finding in report.findings:
-        if finding.code == "digits.below-minimum":
-            return finding.message
-    return None
+    """The ``digits.below-minimum`` and ``digits.node-below-minimum`` findings' messages, shown
+    under the verdict (one a line); None without either."""
+    lines = [f.message for f in report.findings
+             if f.code in ("digits.below-minimum", "digits.node-below-minimum")]
+    return "\n".join(lines) if lines else None
 
 
 def command_view(report: results.Report, *, quiet: bool = False, verbose: bool = False):
@@ -208,7 +208,7 @@ def _actions(r: results.Report, max_ids: int):
 
 
 #: Findings whose action is another finding's (they point at the cause, not at a change).
-_COVERED = {"digits.below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
+_COVERED = {"digits.below-minimum", "digits.node-below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
             "spectrum.inertia-mismatch", "digits.refinement-not-converged"}
 #: Findings the suggested supports answer.
 _COVERED_BY_RESTRAINTS = {"support.rigid-body-mode"}
@@ -255,10 +255,15 @@ def _jump_cost(j: results.StiffnessJump) -> str:
 def _key_figures(r: results.Report):
     t = _table("figure", "value", "how obtained", right=(1,))
     c = r.condition
+    # When the exported K itself was measured (a penalty swallowed the structure),
+    # the condition figures are of the held-DOF model: a prediction after the change.
+    after = r.digits is not None and r.digits.headline_solve == "exported"
     if c is not None:
-        t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
-        t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
-                  _how(c.scaled_estimate, c.scaled_method)
+        t.add_row("condition, raw, after" if after else "condition number, raw K", _kappa(c.estimate, c.singular),
+                  ("prediction; " if after else "") + _how(c.estimate, c.estimate_method))
+        t.add_row("condition, scaled, after" if after else "condition number, scaled",
+                  _kappa(c.scaled_estimate, c.singular),
+                  ("prediction; " if after else "") + _how(c.scaled_estimate, c.scaled_method)
                   + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
@@ -289,11 +294,32 @@ def _key_figures(r: results.Report):
     if dg is not None and dg.samples and not dg.skipped:
         # The tool's own solves and a supplied solution are different questions:
         # a vector that does not fit K must not pass for the conditioning's toll.
-        own = [s for s in dg.samples if not s.audited] or dg.samples
+        own = [s for s in dg.samples if not s.audited and s.solver_kind == dg.headline_solve] or dg.samples
         worst = min(own, key=lambda s: s.trustworthy_digits)
         n = len(own)
-        t.add_row("trustworthy digits", _digits_shown(worst),
-                  f"{_how_digits(worst.method)}; worst of {n} sample{'s' if n != 1 else ''}")
+        invented = sum(1 for s in own if _invented(s))
+        over = (f"{n} ({invented} invented)" if invented and n > invented else
+                f"{n} invented" if invented else f"{n} load case{'s' if n != 1 else ''}")
+        if dg.headline_solve == "exported":
+            kappa = dg.exported_condition_at_least
+            if kappa is not None:
+                t.add_row("condition, exported K", f">= {fmt_number(kappa)}",
+                          "bound; beyond float64 (1/eps 4.5e+15)" if kappa * 2.0**-52 >= 1.0 else "bound")
+            t.add_row("trustworthy digits", _digits_shown(worst),
+                      f"exported K; {_how_digits(worst.method)}; worst of {n}")
+            held = [s for s in dg.samples if not s.audited and s.solver_kind != "exported"]
+            if held:
+                best = min(held, key=lambda s: s.trustworthy_digits)
+                t.add_row("  after the change", _digits_shown(best), "prediction: swallowed DOFs held")
+        else:
+            t.add_row("trustworthy digits", _digits_shown(worst),
+                      f"pivoted LU; {_how_digits(worst.method)}; worst of {n}" if dg.headline_solve == "pivoted"
+                      else f"{_how_digits(worst.method)}; worst of {over}")
+        if dg.headline_solve == "pivoted":
+            sym = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
+            if sym:
+                low = min(sym, key=lambda s: s.trustworthy_digits)
+                t.add_row("  symmetric solve", _digits_shown(low), f"{_how_digits(low.method)}; no pivoting")
         supplied = [s for s in dg.samples if s.audited]
         if supplied and len(supplied) < len(dg.samples):
             bad = min(supplied, key=lambda s: s.trustworthy_digits)
@@ -568,10 +594,43 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
                     else "withdrawn"]
         t.add_row(*row)
     lines = [t]
-    worst = min(dg.samples, key=lambda s: s.trustworthy_digits)
+    own = [s for s in dg.samples if not s.audited and s.solver_kind == dg.headline_solve]
+    invented = [s for s in dg.samples if _invented(s) and s.solver_kind != "pivoted"]
+    # The engineer's load cases first: their nodes are the ones that matter;
+    # an invented load's only when no load was given.
+    cases = [s for s in own if not _invented(s)]
+    worst = min(cases or dg.samples, key=lambda s: s.trustworthy_digits)
     if worst.worst_nodes:
-        lines.append(Text(f"Worst {unit_word(r)}s of sample '{worst.sample}' (digits of the worst "
+        whose = f"of the load '{worst.sample}'" if cases else f"of the invented load '{worst.sample}'"
+        lines.append(Text(f"Worst {unit_word(r)}s {whose} (digits of the worst "
                           f"component against its own size): {_worst_nodes(worst, max_ids)}"))
+    if invented:
+        names = sorted({"random-k" if s.sample.startswith("random-") else s.sample for s in invented})
+        lines.append(Text(
+            "Invented loads, to show what another load could lose: "
+            + "; ".join(("random-k: random forces on every DOF" if n == "random-k" else
+                         "worst-case: along the weakest mode of the scaled K") for n in names)
+            + (f". The key figure is the worst of all {len(own)}, relative to the largest displacement."
+               if dg.headline_solve != "exported" else "."),
+            style="dim"))
+    symmetric = [s for s in dg.samples if not s.audited and s.solver_kind == "symmetric"]
+    pivoted = [s for s in dg.samples if not s.audited and s.solver_kind == "pivoted"]
+    supplied = "; 'solution': the supplied vector as read" if any(s.audited for s in dg.samples) else ""
+    ordering = r.factorization.ordering if r.factorization is not None else "its own"
+    own_solve = f"the tool's float64 solve (SuperLU, pivots on the diagonal, {ordering} ordering)"
+    exported = [s for s in dg.samples if s.solver_kind == "exported"]
+    if exported:
+        lines.append(Text("Whose solve: '(exported K)': a float64 LU with partial pivoting of the exported K as "
+                          "stored (what any float64 solver of it gets), the key figure; the others: "
+                          f"{own_solve} of the model with the swallowed DOFs held, a prediction after the "
+                          f"suggested change{supplied}.", style="dim"))
+    elif pivoted:
+        lines.append(Text(f"Whose solve: {own_solve}; '(pivoted LU)': LU with partial pivoting of the same "
+                          f"scaled K, as a direct solver of an indefinite K pivots: the key figure is "
+                          f"its{supplied}.", style="dim"))
+    elif symmetric:
+        lines.append(Text(f"Whose solve: {own_solve}{supplied}."
+                          + (f" {dg.headline_reason}." if dg.headline_reason else ""), style="dim"))
     if any(getattr(s, "at_ceiling", False) for s in dg.samples):
         lines.append(Text(">= : the error is below what the reference can resolve; the true "
                           "figure is at least this.", style="dim"))
@@ -587,6 +646,15 @@ def _digits(r: results.Report, max_ids: int, verbose: bool):
     for audit in (dg.audits or [dg.audit]):
         lines.extend(_audit_lines(audit))
     return Group(*lines)
+
+
+#: The solve a digits figure describes when the sample does not say.
+_OWN_SOLVE = "the tool's float64 direct solve (SuperLU, symmetric mode, its own ordering)"
+
+
+def _invented(s: results.DigitsSample) -> bool:
+    """A load the tool invented (``random-k``, ``worst-case``), not the engineer's."""
+    return not s.audited and (s.sample.startswith("random-") or s.sample.startswith("worst-case"))
 
 
 def _worst_nodes(s: results.DigitsSample, max_ids: int) -> str:
@@ -616,11 +684,17 @@ def _audit_lines(audit: Optional[results.SolutionAudit]) -> list[Text]:
                      f"{fmt_number(audit.free_mode_share)} of it, so it keeps {fmt_digits(audit.trustworthy_digits)} "
                      f"digits (bound); backward error {fmt_number(audit.backward_error)}.")]
     fit = "fits" if audit.fits else "does NOT fit"
-    text = (f"{who} {fit} K and f: backward error {fmt_number(audit.backward_error)} against "
-            f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; "
-            f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
-    if audit.digits_written is not None:
-        text += f" Its values were written with {audit.digits_written} significant figures."
+    as_written = audit.fits and audit.fits_as_written and audit.written_text is not None
+    if as_written:
+        fit = f"fits K and f at the precision it was written in ({audit.written_text})"
+    else:
+        fit += " K and f"
+    text = (f"{who} {fit}: backward error {fmt_number(audit.backward_error)} against "
+            + (f"{fmt_number(audit.written_backward_error)} that rounding to it allows; " if as_written else
+               f"{fmt_number(audit.allowed_backward_error)} for the tool's own solve; ")
+            + f"{fmt_digits(audit.trustworthy_digits)} trustworthy digits ({audit.method}).")
+    if audit.written_text is not None and not as_written:
+        text += f" Its values: {audit.written_text}."
     return [Text(text, style=None if audit.fits else "bold red")]
 
 

@@ -157,10 +157,23 @@ def measure_digits(
     if placeholders.size:
         measured = np.ones(model.n, dtype=bool)
         measured[placeholders] = False
+    own_solve = solve_description(fac)
     out = [
-        _sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured)
+        replace(_sample(model, op, name, F[:, j], X[:, j], refs[j], confirmation, j, why_not, measured),
+                solve=own_solve)
         for j, name in enumerate(names)
     ]
+    headline, why_pivoted = SYMMETRIC, ""
+    if _needs_pivoted(fac, spectrum, out) and int(getattr(fac.info, "fill", 0)) > PIVOTED_MAX_FILL:
+        why_pivoted = (f"no pivoted LU: the symmetric factor already holds {fac.info.fill:,} entries, above the "
+                       f"{PIVOTED_MAX_FILL:,} for which one is factored; the symmetric solve's figures stand")
+    elif _needs_pivoted(fac, spectrum, out):
+        Xp, why_pivoted = pivoted_solve(K, fac.scale, F)
+        if Xp is not None:
+            headline = PIVOTED
+            out += [replace(_sample(model, op, f"{name} {PIVOTED_SUFFIX}", F[:, j], Xp[:, j], refs[j], confirmation,
+                                    j, why_not, measured), solve=PIVOTED_SOLVE, solver_kind=PIVOTED)
+                    for j, name in enumerate(names)]
     audits = []
     if model.solution is not None and not cases:
         logger.warning("a solution to audit was given without a nonzero load: the audit needs f to form f - K x")
@@ -169,14 +182,190 @@ def measure_digits(
         for j, (case, column) in enumerate(cases):
             name = _solution_name(case)
             solution = replace(_sample(model, op, name, F[:, j], U_s[:, column], refs[j], confirmation, j,
-                                       why_not, measured), audited=True)
+                                       why_not, measured), audited=True, solve=SUPPLIED_SOLVE)
             out.append(solution)
-            audits.append(_audit(solution, out[j], case))
+            audits.append(_audit(op, solution, out[j], case))
     out = _cases_first(out, len(cases))
     audits = _worst_first(audits)
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
-                        summary=_summary(out, predicted_raw, predicted_scaled, flops),
-                        audit=audits[0] if audits else None, audits=audits)
+                        summary=_summary([x for x in out if x.solver_kind == headline], predicted_raw,
+                                         predicted_scaled, flops),
+                        audit=audits[0] if audits else None, audits=audits,
+                        headline_solve=headline, headline_reason=why_pivoted)
+
+
+#: ``solver_kind`` of the tool's own symmetric solve, and of the pivoted LU.
+SYMMETRIC, PIVOTED = "symmetric", "pivoted"
+#: Appended to a sample's name for its pivoted-LU solve.
+PIVOTED_SUFFIX = "(pivoted LU)"
+#: Whose solve a pivoted-LU sample describes.
+PIVOTED_SOLVE = ("a stable pivoted solve: LU with partial pivoting (SuperLU, threshold 1.0, COLAMD ordering) "
+                 "of the same diagonally scaled K, as a direct solver of an indefinite K pivots")
+#: A symmetric solve whose backward error exceeds this multiple of u has let
+#: round-off grow in elimination (pivot growth): a backward-stable solve stays
+#: within a small multiple of u (Higham, Accuracy and Stability, ch. 9-10;
+#: from memory). The project's choice.
+GROWTH_BACKWARD = 1e3
+#: Above this many rows no pivoted LU is factored (its fill is not predicted;
+#: the project's choice, a few seconds on the benchmark models).
+PIVOTED_MAX_N = 60_000
+#: Nor when the symmetric factor holds more than this many entries (a pivoted
+#: LU's fill is usually a small multiple of it; the project's choice: about
+#: 1 GB for the LU at three times this fill).
+PIVOTED_MAX_FILL = 30_000_000
+
+
+#: Appended to a sample's name for the float64 solve of the exported K.
+EXPORTED_SUFFIX = "(exported K)"
+#: Whose solve an exported-K sample describes.
+EXPORTED_SOLVE = ("a float64 LU with partial pivoting (SuperLU, threshold 1.0, COLAMD ordering, diagonally "
+                  "scaled) of the exported K as stored, penalty included: what a float64 direct solver of it gets")
+#: The condition estimate passed to the reference solve of an exported K that a
+#: penalty swallowed: it chooses the working precision (K is singular at
+#: float64 precision along the link; the ball arithmetic then proves how many
+#: bits were enough). The project's choice: 1e40, beyond the 1e20-1e30
+#: penalties seen in exports.
+EXPORTED_KAPPA = 1e40
+
+
+def measure_exported_digits(model: Model, structure=None, rng: Optional[np.random.Generator] = None
+                            ) -> tuple[list[DigitsSample], Optional[float], str]:
+    """Digits of a float64 solve of the exported K itself, for the engineer's load(s).
+
+    Run when a penalty has swallowed the structure (the rest of the report is
+    then of the model with the linked DOFs held): the matrix the engineer
+    solves is the exported one, singular at float64 precision along the link.
+    Each load (the engineer's cases, else one seeded random load) is solved by
+    :func:`pivoted_solve` on the stored K and measured against an
+    arbitrary-precision re-solve of the stored K (python-flint's ball
+    arithmetic when installed, certified), per DOF and normwise as every
+    other sample.
+
+    Returns
+    -------
+    samples : list of DigitsSample
+        ``solver_kind`` ``exported``, names ending in ``(exported K)``; empty
+        when no reference solve could run (above its size limit).
+    condition_at_least : float or None
+        A proved lower bound on kappa_2 of the exported K (see
+        :attr:`DigitsResult.exported_condition_at_least`).
+    reason : str
+        What was measured, or why nothing was.
+    """
+    K = sp.csr_array(model.K)
+    n = K.shape[0]
+    names, cols = [], []
+    if model.load is not None:
+        L = np.asarray(model.load, dtype=np.float64).reshape(n, -1)
+        labels = (["load"] if np.ndim(model.load) == 1 else
+                  list(model.load_names or (f"load-{k + 1}" for k in range(L.shape[1]))))
+        for k, label in enumerate(labels):
+            if np.any(L[:, k]):
+                names.append(label)
+                cols.append(L[:, k])
+    if not cols:
+        rng = np.random.default_rng(0) if rng is None else rng
+        names.append("random-1")
+        f = rng.standard_normal(n)
+        placeholders = _placeholder_rows(structure)
+        f[placeholders] = 0.0
+        cols.append(f)
+    F = np.column_stack(cols)
+    method = choose_reference_method(n)
+    if method is None:
+        return [], None, (f"the exported K was not measured: n = {n:,} is above the arbitrary-precision re-solve's "
+                          f"limits ({FLINT_MAX_N:,} with python-flint, {MPMATH_MAX_N:,} with mpmath)")
+    diag = np.abs(K.diagonal())
+    scale = np.where(diag > 0, 1.0 / np.sqrt(np.where(diag > 0, diag, 1.0)), 1.0)
+    X, why = pivoted_solve(K, scale, F)
+    if X is None:
+        return [], None, f"the exported K was not measured: {why}"
+    try:
+        ref = reference_solve(K, F, method=method, kappa=EXPORTED_KAPPA)
+    except ValueError as exc:
+        return [], None, f"the exported K was not measured: its arbitrary-precision re-solve failed ({exc})"
+    op = dd_operator(K)
+    out, bounds = [], []
+    for j, name in enumerate(names):
+        x, f = X[:, j], F[:, j]
+        x_hi, x_lo = ref.x_hi[:, j], ref.x_lo[:, j]
+        if ref.radius is not None:
+            rad = _up(ref.radius[:, j], 1) + 2 * U**2 * np.abs(x_hi)
+            how = CERTIFIED_BALL if ref.method == "certified" else ref.method
+        else:
+            rad = np.full(n, 10.0 ** -_digits_of(ref.engine) * EXPORTED_KAPPA * float(np.max(np.abs(x_hi))))
+            how = ref.method
+        scale_x = float(np.max(np.abs(x_hi)))
+        err_vec = np.abs((x - x_hi) - x_lo)
+        err_up = _up(err_vec, 3) + rad
+        scale_lo = scale_x - float(np.max(rad))
+        upper = _up(float(np.max(err_up)) / scale_lo, 2) if scale_lo > 0 else math.inf
+        trust = _digits(upper)
+        resolution = float(np.max(rad)) / scale_x if scale_x > 0 else math.inf
+        per_dof = _per_dof_digits(model, err_up, x_hi, resolution)
+        r_hi, r_lo = dd_residual(op, x, None, f)
+        norm_lo = float(np.linalg.norm(x_hi)) - float(np.linalg.norm(rad))
+        if norm_lo > 0:
+            bounds.append(float(np.max(diag)) * norm_lo / float(np.linalg.norm(f)) * (1 - 8 * U))
+        out.append(DigitsSample(
+            sample=f"{name} {EXPORTED_SUFFIX}", trustworthy_digits=trust, digits_lost=FLOAT64_DIGITS - trust,
+            method=how, converged=True,
+            stop_reason=f"measured against {ref.engine}, a re-solve of the stored K",
+            history=[], worst_nodes=_worst_nodes(model, per_dof), normwise_bound=resolution,
+            componentwise_bound=None, bound_trusted=ref.radius is not None, confirmation=ref.engine,
+            per_dof_digits=per_dof, forward_error=float(np.max(err_vec)) / scale_x if scale_x > 0 else math.inf,
+            resolution=resolution, at_ceiling=False, backward_error=_backward_error(op, x, f, r_hi + r_lo),
+            solution=x, load_vector=f, reference_hi=x_hi, reference_lo=x_lo,
+            solve=EXPORTED_SOLVE, solver_kind="exported"))
+    return out, (max(bounds) if bounds else None), "measured: " + EXPORTED_SOLVE
+
+
+def _needs_pivoted(fac, spectrum, samples: list[DigitsSample]) -> bool:
+    """True when the kind of solver matters: K is indefinite (negative pivots or eigenvalues),
+    or the symmetric solve's backward error shows pivot growth."""
+    negative = bool(fac.info.negative_pivots) or bool(spectrum is not None and spectrum.negative_eigenvalues)
+    growth = any(s.backward_error is not None and s.backward_error > GROWTH_BACKWARD * U for s in samples)
+    return negative or growth
+
+
+def pivoted_solve(K, scale, F) -> tuple[Optional[NDArray[np.float64]], str]:
+    """K^-1 F by LU with partial pivoting of S = diag(s) K diag(s), and why it was run or not.
+
+    Returns
+    -------
+    X : (n, k) float64 or None
+        None when the model is above :data:`PIVOTED_MAX_N` rows or the LU failed.
+    reason : str
+    """
+    n = K.shape[0]
+    if n > PIVOTED_MAX_N:
+        return None, (f"no pivoted LU: {n:,} rows is above the {PIVOTED_MAX_N:,} for which one is factored; "
+                      "the symmetric solve's figures stand")
+    S = sp.csc_array(K.multiply(scale[:, None]).multiply(scale[None, :]))
+    try:
+        lu = spla.splu(S, permc_spec="COLAMD", diag_pivot_thresh=1.0)
+        X = scale[:, None] * lu.solve(scale[:, None] * F)
+    except (RuntimeError, MemoryError) as exc:
+        return None, f"no pivoted LU: {exc}"
+    if not np.all(np.isfinite(X)):
+        return None, "no pivoted LU: its solve was not finite"
+    return X, ("K is indefinite or its symmetric elimination let round-off grow, so a direct solver of "
+               "it pivots: the key figure is the pivoted LU's")
+
+
+#: Whose solve an audited sample describes.
+SUPPLIED_SOLVE = "the supplied solution, as read from its file"
+
+
+def solve_description(fac) -> str:
+    """The tool's own solve in words: solver, pivoting, ordering (what its digits describe)."""
+    info = getattr(fac, "info", None)
+    ordering = getattr(info, "ordering", None)
+    where = f"{ordering} ordering" if ordering else "its own ordering"
+    if "petsc" in type(fac).__module__:
+        return f"the tool's float64 direct solve (MUMPS LDL^T, {where}, diagonally scaled)"
+    return (f"the tool's float64 direct solve (SuperLU in symmetric mode: pivots on the diagonal, "
+            f"{where}, diagonally scaled)")
 
 
 def _solution_name(case: Optional[str]) -> str:
@@ -240,15 +429,128 @@ def _placeholder_rows(structure) -> NDArray[np.intp]:
 FIT_FACTOR = 100.0
 
 
-def _audit(solution: DigitsSample, own: DigitsSample, case: Optional[str] = None) -> SolutionAudit:
-    """Compare the supplied solution's backward error with the tool's own solve's (same load case)."""
+#: A supplied solution fits at the precision it was written in when its
+#: backward error is at most this multiple of the largest one rounding an
+#: exact solution to that precision causes (plus the own solve's). Rounding
+#: alone stays below 1 times the bound (it is a rigorous bound); the margin is
+#: for a solve done in that precision, whose residual is a few times larger.
+#: The project's choice, tuned on: float32 sparse LU solves (scipy, with and
+#: without pivoting) of 18 public matrices (bcsstk01-22, nos1, nos3, plat362,
+#: LF10, bcsstm07) reached at most 10.1 (bcsstk14); 6-figure solutions of the
+#: footbridge's other load cases reached 119 and 2,700, a permuted one 1e7.
+WRITTEN_FIT_FACTOR = 16.0
+#: Unit round-off of IEEE 754 binary32 (single precision).
+U32 = 2.0 ** -24
+
+
+@dataclass(frozen=True)
+class WrittenPrecision:
+    """The precision a vector was written in, read from its values."""
+
+    kind: str
+    """``float32`` or ``decimal``."""
+    digits: float
+    """Significant decimal digits of that precision (p, or log10(2^24))."""
+    rounding: NDArray[np.float64]
+    """(n,) bound on |x_written,i - x_i| for the x that was rounded (units of x)."""
+
+
+def written_precision(values: NDArray[np.float64], sample: int = 2000) -> Optional[WrittenPrecision]:
+    """The precision the values were written in, and the rounding bound of each entry.
+
+    * ``float32``: every entry is a single-precision number (rounding of the
+      written value: at most 2^-24 relative, IEEE 754 round to nearest), or
+      each of up to ``sample`` sampled entries is the shortest or the
+      9-figure decimal form of one (at most 2^-23: the rounding to float32
+      and that of its printing, half a float32 unit each);
+    * ``decimal``: :func:`digits_written` p significant figures:
+      |e_i| <= max(0.5 10^(1-p) |x_i|, 0.5 10^l), l the smallest last written
+      decimal place among the sampled entries (a fixed-point format writes
+      every entry to that place);
+    * None: full float64 precision.
+
+    When the values are integers or short decimals that are also float32
+    numbers, the decimal reading (fewer digits, a larger rounding) wins only
+    below 8 figures: 8 or 9 figures that are float32 forms read as float32.
+    """
+    v = np.asarray(values, dtype=np.float64).ravel()
+    finite = np.isfinite(v)
+    if not finite.all():
+        return None
+    ax = np.abs(v)
+    p = digits_written(v, sample)
+    with np.errstate(over="ignore", invalid="ignore"):
+        as32 = v.astype(np.float32).astype(np.float64)
+    exact32 = bool(np.all(as32 == v)) and bool(np.any(v != 0))
+    if p is None:
+        if exact32:
+            return WrittenPrecision("float32", -math.log10(U32), _up(U32 * ax, 1))
+        return None
+    if p in (8, 9) and _printed_float32(v, sample):
+        return WrittenPrecision("float32", -math.log10(U32), _up(2.0 * U32 * ax, 1))
+    last = _smallest_last_place(v, sample)
+    rounding = np.maximum(0.5 * 10.0 ** (1 - p) * ax, 0.5 * 10.0 ** last if last is not None else 0.0)
+    return WrittenPrecision("decimal", float(p), _up(rounding, 2))
+
+
+def _sampled(v: NDArray[np.float64], sample: int) -> list[float]:
+    """Up to ``sample`` nonzero finite entries, evenly spaced (the same as :func:`digits_written`)."""
+    v = v[np.isfinite(v) & (v != 0)]
+    if v.size > sample:
+        v = v[np.linspace(0, v.size - 1, sample).astype(np.intp)]
+    return v.tolist()
+
+
+def _printed_float32(v: NDArray[np.float64], sample: int) -> bool:
+    """True when each sampled entry is a float32 number printed shortest or with 9 figures."""
+    values = _sampled(v, sample)
+    for value in values:
+        if not abs(value) < 3.4e38:
+            return False
+        f32 = np.float32(value)
+        forms = (float(f32), float(np.format_float_scientific(f32, unique=True)), float(f"{float(f32):.8e}"))
+        if value not in forms:
+            return False
+    return bool(values)
+
+
+def _smallest_last_place(v: NDArray[np.float64], sample: int) -> Optional[int]:
+    """The smallest decimal exponent of a last written digit among the sampled entries."""
+    places = []
+    for value in _sampled(v, sample):
+        for d in range(1, 18):
+            text = f"{value:.{d - 1}e}"
+            if float(text) == value:
+                places.append(int(text.split("e")[1]) - (d - 1))
+                break
+    return min(places) if places else None
+
+
+def _written_fit(op, x, f, eta: float, allowed: float):
+    """(precision, its backward-error bound, fits as written) of a supplied solution."""
+    wp = written_precision(x)
+    if wp is None:
+        return None, None, False
+    norm_K = float(np.max(abs(op.K) @ np.ones(op.n)))
+    denom = norm_K * float(np.max(np.abs(x))) + float(np.max(np.abs(f)))
+    bound = _up(float(np.max(abs(op.K) @ wp.rounding)), 4) / denom if denom > 0 else math.inf
+    return wp, bound, bool(eta <= WRITTEN_FIT_FACTOR * (bound + allowed))
+
+
+def _audit(op, solution: DigitsSample, own: DigitsSample, case: Optional[str] = None) -> SolutionAudit:
+    """Compare the supplied solution's backward error with the tool's own solve's (same load
+    case), and with what rounding to the precision it was written in allows."""
     eta, allowed = float(solution.backward_error), float(own.backward_error)
+    working = bool(eta <= FIT_FACTOR * max(allowed, U))
+    wp, bound, as_written = _written_fit(op, solution.solution, solution.load_vector, eta, max(allowed, U))
     return SolutionAudit(
         backward_error=eta, allowed_backward_error=allowed,
-        fits=bool(eta <= FIT_FACTOR * max(allowed, U)),
+        fits=working or as_written,
         digits_written=digits_written(solution.solution),
         free_mode_share=None, load_free_mode_share=None,
-        trustworthy_digits=solution.trustworthy_digits, method=solution.method, case=case)
+        trustworthy_digits=solution.trustworthy_digits, method=solution.method, case=case,
+        written_as=None if wp is None else wp.kind, written_digits=None if wp is None else wp.digits,
+        written_backward_error=bound, fits_as_written=as_written)
 
 
 def audit_singular_solutions(model: Model, spectrum: Optional[SpectrumResult], structure) -> list[SolutionAudit]:
@@ -302,9 +604,12 @@ def audit_singular_solution(model: Model, spectrum: Optional[SpectrumResult], st
         f_max = float(np.max(np.abs(f)))
         load_share = float(np.max(np.abs(Q @ (Q.T @ f)))) / f_max if f_max > 0 else None
     trust = _digits(share) if share is not None else 0.0
+    wp, bound, as_written = _written_fit(op, x, f, eta, U)
     return SolutionAudit(
+        written_as=None if wp is None else wp.kind, written_digits=None if wp is None else wp.digits,
+        written_backward_error=bound, fits_as_written=as_written,
         backward_error=eta, allowed_backward_error=None,
-        fits=bool(eta <= FIT_FACTOR * U), digits_written=digits_written(x),
+        fits=bool(eta <= FIT_FACTOR * U) or as_written, digits_written=digits_written(x),
         free_mode_share=share, load_free_mode_share=load_share, trustworthy_digits=trust,
         method="bound: K is singular, so the solution's component along the free modes is arbitrary; "
                "digits = -log10 of that component's share of the solution", case=case)
@@ -562,7 +867,8 @@ def _certify_with(model: Model, digits: DigitsResult, K, verified: VerifiedEigen
     audits = _worst_first(audits)
     return replace(digits, samples=samples, audit=audits[0] if audits else None, audits=audits,
                    certification=reason,
-                   summary=_summary(samples, digits.predicted_raw, digits.predicted_scaled,
+                   summary=_summary([x for x in samples if x.solver_kind == digits.headline_solve],
+                                    digits.predicted_raw, digits.predicted_scaled,
                                     digits.factorization_flops))
 
 
@@ -762,7 +1068,7 @@ def _summary(samples: list[DigitsSample], pr, ps, flops: float) -> str:
         return "No load sample could be measured."
     worst = min(own, key=lambda s: s.trustworthy_digits)
     t = worst.trustworthy_digits
-    head = (f"The float64 solution keeps at least {t:.1f} trustworthy digits, normwise (relative to the "
+    head = (f"The float64 solution ({'pivoted LU' if worst.solver_kind == PIVOTED else 'symmetric solve'}) keeps at least {t:.1f} trustworthy digits, normwise (relative to the "
             f"largest displacement; worst sample '{worst.sample}')")
     ops = (f"; the factorization's {flops:.1e} operations do not set this figure, "
            "the conditioning does")

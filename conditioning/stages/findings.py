@@ -19,6 +19,7 @@ from conditioning.results import (
     OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
 from conditioning.stages.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
+from conditioning.stages.digits import WRITTEN_FIT_FACTOR
 
 #: Digits of float64, log10(2^53).
 FLOAT64_DIGITS = -math.log10(U)
@@ -54,6 +55,9 @@ CODES = {
     "analysis.pivots-not-read": "the factor fitted in memory but reading its pivots would not; figures that need them were skipped",
     "solution.does-not-fit": "the supplied solution does not solve this K and f to working precision",
     "solution.free-mode-component": "K is singular: the supplied solution's component along the free modes is arbitrary",
+    "solution.lower-precision": "the supplied solution solves K and f to the lower precision it was written in "
+                                "(single precision, or a few significant figures), and keeps the digits measured",
+    "digits.node-below-minimum": "a node of the engineer's load keeps fewer trustworthy digits than required",
 }
 
 
@@ -105,16 +109,46 @@ def _solution_findings(audit: SolutionAudit, rows_word: str) -> list[Finding]:
                 "no displacement of this model is defined."))
     elif not audit.fits:
         ratio = audit.backward_error / max(audit.allowed_backward_error or 0.0, U**2)
+        precision = ""
+        if audit.written_text is not None and audit.written_backward_error is not None:
+            times = audit.backward_error / max(audit.written_backward_error, U**2)
+            values = ("in single precision (about 7 digits)" if audit.written_as == "float32"
+                      else audit.written_text)
+            precision = (f" Its values are {values}, but rounding an exact solution to that precision allows a "
+                         f"backward error of at most {audit.written_backward_error:.1e}, and this one is "
+                         f"{times:.0f}" if times < 1e4 else
+                         f" Its values are {values}, but rounding an exact solution to that precision allows a "
+                         f"backward error of at most {audit.written_backward_error:.1e}, and this one is "
+                         f"{times:.0e}")
+            precision += " times that: the precision it was written in does not explain it."
         out.append(Finding(
             "error", "solution.does-not-fit",
-            f"The supplied solution{of_case} does not solve this K and f: its backward error {audit.backward_error:.1e} "
-            f"is {ratio:.0e} times that of the tool's own float64 solve "
+            f"The supplied solution{of_case} does not solve this K and f at any written precision: its backward "
+            f"error {audit.backward_error:.1e} is {ratio:.0e} times that of the tool's own float64 solve "
             f"({audit.allowed_backward_error:.1e}). It keeps {audit.trustworthy_digits:.1f} trustworthy digits, "
-            f"and the cause is the vector, not the conditioning of K.{written}",
+            f"and the cause is the vector, not the conditioning of K.{precision}",
             [], "Check that the displacements belong to this load case and this export (same DOF order, "
-                "same restraints), were written with at least 15 significant figures, and come from a "
-                "solver that converged (an iterative solver stopped early leaves a residual)."))
+                "same restraints) and come from a solver that converged (an iterative solver stopped "
+                "early leaves a residual)."))
+    elif audit.fits_as_written and audit.written_text is not None:
+        out.append(Finding(
+            "note", "solution.lower-precision",
+            f"The supplied solution{of_case} has a lower precision than float64 ({audit.written_text}; "
+            f"{_precision_phrase(audit)}): its backward error {audit.backward_error:.1e} is within "
+            f"{WRITTEN_FIT_FACTOR:g} times the {audit.written_backward_error:.1e} that rounding an exact solution "
+            f"to that precision allows, so it solves this K and f at the precision it was written in. It keeps "
+            f"{audit.trustworthy_digits:.1f} trustworthy digits ({audit.method}).",
+            [], "Nothing to fix if that many digits are enough; for more, write the displacements with 17 "
+                "significant figures (full float64)."))
     return out
+
+
+def _precision_phrase(audit: SolutionAudit) -> str:
+    """``"at most 2^-24 relative per entry"``: the rounding the written precision implies."""
+    if audit.written_as == "float32":
+        return "rounded to float32: at most 2^-24 of each entry, 2^-23 once printed"
+    p = int(audit.written_digits or 0)
+    return f"rounded to {p} figures: at most 0.5e-{max(p - 1, 0)} of each entry"
 
 
 def build_findings(
@@ -144,7 +178,7 @@ def build_findings(
         + _condition_findings(condition, spectrum, jumps, pivots, digits, rows_word)
         + _pivot_findings(model, pivots, spectrum)
         + (_solution_findings(audit, rows_word) if audit is not None else [])
-        + _digits_findings(digits, min_digits)
+        + _digits_findings(model, digits, min_digits, rows_word)
     )
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
@@ -517,8 +551,48 @@ def _pivot_findings(model: Model, pivots: Optional[PivotLoss],
     return out
 
 
-def _digits_findings(digits: Optional[DigitsResult], min_digits: float) -> list[Finding]:
-    """digits.below-minimum and digits.refinement-not-converged."""
+def load_case_samples(model: Model, digits: Optional[DigitsResult]) -> list:
+    """The samples of the tool's own solves of the engineer's load case(s), fewest digits first
+    (the invented ``random-k`` and ``worst-case`` loads left out)."""
+    if digits is None or model.load is None:
+        return []
+    names = {"load"} if np.ndim(model.load) == 1 else set(model.load_names or
+                                                           (f"load-{k + 1}" for k in range(np.shape(model.load)[1])))
+    return [s for s in own_samples(digits)
+            if s.sample.removesuffix(" (pivoted LU)").removesuffix(" (exported K)") in names]
+
+
+def node_digits(model: Model, sample) -> list[tuple[int, float]]:
+    """(node, digits of its worst component) of every node, fewest first, from ``per_dof_digits``
+    (rows are nodes 1..n without a DOF map); the worst nodes kept on the sample without them."""
+    if sample.per_dof_digits is None:
+        return [(w.node, w.digits) for w in sample.worst_nodes]
+    per = np.asarray(sample.per_dof_digits, dtype=np.float64)
+    nodes = np.asarray(model.dofs.node) if model.dofs is not None else np.arange(1, per.size + 1)
+    ids, inverse = np.unique(nodes, return_inverse=True)
+    worst = np.full(ids.size, np.inf)
+    np.minimum.at(worst, inverse, per)
+    order = np.lexsort((ids, worst))
+    return [(int(ids[k]), float(worst[k])) for k in order]
+
+
+def _node_list(pairs: list[tuple[int, float]], limit: int = 6) -> str:
+    """``"118 (3.0), 101 (3.2) and 4 more"``."""
+    head = ", ".join(f"{node} ({d:.1f})" for node, d in pairs[:limit])
+    return head if len(pairs) <= limit else f"{head} and {len(pairs) - limit:,} more"
+
+
+def _digits_findings(model: Model, digits: Optional[DigitsResult], min_digits: float,
+                     rows_word: str = "nodes") -> list[Finding]:
+    """digits.below-minimum, digits.node-below-minimum and digits.refinement-not-converged.
+
+    The normwise figure judged is the worst of the engineer's load cases when
+    one is below ``min_digits``, else the worst of all samples (invented loads
+    and a supplied solution that fits included). Per node, only the
+    engineer's load cases are judged: a node of theirs below ``min_digits``
+    is an error even when the normwise figure (relative to the largest
+    displacement) is above it.
+    """
     if digits is None or not digits.samples:
         return []
     out = []
@@ -526,22 +600,55 @@ def _digits_findings(digits: Optional[DigitsResult], min_digits: float) -> list[
     # A supplied solution that does not fit is the solution's fault, not
     # K's: it has its own finding.
 
-    def fits(sample) -> bool:
+    def audit_of(sample):
         match = [a for a in digits.audits if sample.sample == ("solution" if a.case is None
                                                                else f"solution ({a.case})")]
-        a = match[0] if match else audit
+        return match[0] if match else audit
+
+    def fits(sample) -> bool:
+        a = audit_of(sample)
         return a is None or a.fits
 
+    cases = load_case_samples(model, digits)
     judged = own_samples(digits) + [s for s in digits.samples if s.audited and fits(s)]
-    worst = min(judged, key=lambda s: s.trustworthy_digits)
+    below_cases = [s for s in cases if s.trustworthy_digits < min_digits]
+    worst = below_cases[0] if below_cases else min(judged, key=lambda s: s.trustworthy_digits)
     if worst.trustworthy_digits < min_digits:
+        what = f"sample '{worst.sample}'"
+        if worst.audited:
+            a = audit_of(worst)
+            what = f"the supplied solution '{worst.sample}'" + (
+                f" ({a.written_text})" if a is not None and a.written_text else "")
+        elif worst not in cases:
+            what += (" (an invented load: " + ("random forces on every DOF" if worst.sample.startswith("random-")
+                                               else "a load along the weakest mode of the scaled K") + ")")
         out.append(Finding("error", "digits.below-minimum",
-                           f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for sample "
-                           f"'{worst.sample}' (required: {min_digits:g}; "
+                           f"Only {max(worst.trustworthy_digits, 0):.1f} trustworthy digits for {what} "
+                           f"(required: {min_digits:g}; "
                            f"{worst.method if worst.method.startswith('certified') else 'measured, ' + worst.method}).",
                            [w.node for w in worst.worst_nodes],
                            "Remove the cause of the ill-conditioning (modes, stiffness jumps) rather "
-                           "than trusting more digits than were measured."))
+                           "than trusting more digits than were measured."
+                           if not worst.audited else
+                           "Write the displacements with more significant figures (17 for full float64), "
+                           "or solve in double precision."))
+    for s in cases:
+        if s in below_cases or not s.converged:
+            continue  # the normwise finding (or the unconverged reference) says it already
+        low = [(node, d) for node, d in node_digits(model, s) if d < min_digits]
+        if low:
+            word = rows_word[:-1] if len(low) == 1 else rows_word
+            out.append(Finding(
+                "error", "digits.node-below-minimum",
+                f"For {'the load' if s.sample == 'load' else 'load case'} '{s.sample}', {len(low):,} {word} keep{'s' if len(low) == 1 else ''} fewer than "
+                f"{min_digits:g} trustworthy digits: {_node_list(low)} (each {rows_word[:-1]}'s worst component "
+                f"against its own size; "
+                f"{s.method if s.method.startswith('certified') else 'measured, ' + s.method}), although the "
+                f"load keeps {s.trustworthy_digits:.1f} digits relative to its largest displacement.",
+                [node for node, _ in low],
+                "The displacements of these nodes are small beside the largest ones and lose more digits; "
+                "remove the cause of the ill-conditioning (see the stiffness jumps and pivots), or do not "
+                "rely on their figures beyond the digits shown."))
     for s in digits.samples:
         if not s.converged:
             out.append(Finding("warning", "digits.refinement-not-converged",
@@ -616,11 +723,28 @@ def status_of(findings: Sequence[Finding]) -> str:
     return "errors" if "error" in severities else "warnings" if "warning" in severities else "healthy"
 
 
+def samples_phrase(own: Sequence) -> str:
+    """``"the load and 4 invented loads"``, ``"3 load cases and 4 invented loads"``, ``"4 invented loads"``:
+    what a worst-of figure is the worst over (``own`` the tool's own samples)."""
+    invented = sum(1 for s in own if s.sample.startswith("random-") or s.sample.startswith("worst-case"))
+    cases = len(own) - invented
+    head = "the load" if cases == 1 else f"{cases} load cases" if cases else ""
+    tail = f"{invented} invented load{'' if invented == 1 else 's'}" if invented else ""
+    return " and ".join(t for t in (head, tail) if t) or "no load"
+
+
+def words_of(findings: Sequence[Finding]) -> str:
+    """``"rows"`` without a DOF map, else ``"nodes"``."""
+    return "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
+
+
 def own_samples(digits: Optional[DigitsResult]) -> list:
-    """The samples of the tool's own solves (a supplied solution is audited apart)."""
+    """The samples of the tool's own solves of the kind the key figure describes
+    (:attr:`DigitsResult.headline_solve`; a supplied solution is audited apart)."""
     if digits is None:
         return []
-    return [s for s in digits.samples if not s.audited]
+    kind = getattr(digits, "headline_solve", "symmetric")
+    return [s for s in digits.samples if not s.audited and getattr(s, "solver_kind", "symmetric") == kind]
 
 
 def _grounded_clause(jumps: list[StiffnessJump], rows_word: str) -> str:
@@ -782,14 +906,37 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     worst = min((s.trustworthy_digits for s in own), default=None)
     if worst is not None:
         how = "certified" if all(s.method.startswith("certified") for s in own) else "measured"
-        figure = f"trustworthy to {_significant(worst)} ({how})"
+        figure = f"trustworthy to {_significant(worst)} ({how}; worst of {samples_phrase(own)})"
+        if digits.headline_solve == "pivoted":
+            symmetric = [s for s in digits.samples if not s.audited and s.solver_kind == "symmetric"]
+            sym_worst = min((s.trustworthy_digits for s in symmetric), default=None)
+            figure += (" with a pivoted LU, as a direct solver of this K pivots"
+                       + (f"; a symmetric solve without pivoting keeps {_significant(sym_worst)}"
+                          if sym_worst is not None else ""))
     elif condition is not None and condition.scaled_estimate and not condition.singular:
         figure = (f"about {_significant(16 - math.log10(condition.scaled_estimate))} "
                   "(estimated from the scaled condition number, not measured)")
     else:
         figure = ""
-    tail = f"; {figure}" if figure else ""
     audit = digits.audit if digits is not None else None
+    # What the figure leaves out: nodes of the engineer's load below the
+    # minimum, and a supplied solution that fits at a lower precision.
+    node_findings = [f for f in findings if f.code == "digits.node-below-minimum"]
+    low_nodes = sorted({v for f in node_findings for v in f.nodes})
+    if figure and low_nodes:
+        case = node_findings[0].message.split("'")[1] if len(node_findings) == 1 else ""
+        of = "of the load" if case == "load" else f"of load case '{case}'" if case else "of the load cases"
+        figure += (f", but {words_of(findings)[:-1] if len(low_nodes) == 1 else words_of(findings)} "
+                   f"{_list_nodes(low_nodes, 4)} {of} keep{'s' if len(low_nodes) == 1 else ''} fewer than "
+                   f"{min_digits:g}")
+    supplied_low = False
+    if audit is not None and audit.fits and audit.free_mode_share is None and (
+            audit.written_text is not None or audit.trustworthy_digits < min_digits):
+        supplied_low = audit.trustworthy_digits < min_digits
+        figure = ("the tool's own solve is " + figure + "; " if figure else "") + (
+            f"the supplied solution{' (' + audit.written_text + ')' if audit.written_text else ''} keeps "
+            f"{_significant(audit.trustworthy_digits)}")
+    tail = f"; {figure}" if figure else ""
 
     input_codes = sorted(c for c in codes if c.startswith("input."))
     if input_codes:
@@ -814,6 +961,18 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
             head = count or "negative eigenvalues"
         return f"indefinite: {head}; K is not the stiffness of a stable structure{tail}", status
     swallowed = [f for f in findings if f.code == "stiffness.penalty-swallowed"]
+    if swallowed and digits is not None and digits.headline_solve == "exported" and worst is not None:
+        nodes = sorted({v for f in swallowed for v in f.nodes})
+        held = [s for s in digits.samples if not s.audited and s.solver_kind != "exported"]
+        kind = "pivoted" if any(s.solver_kind == "pivoted" for s in held) else "symmetric"
+        predicted = min((s.trustworthy_digits for s in held if s.solver_kind == kind), default=None)
+        kappa = digits.exported_condition_at_least
+        beyond = (f"; its condition number is beyond float64: at least {kappa:.1e}" if kappa is not None
+                  and kappa * U >= 1.0 else f"; its condition number is at least {kappa:.1e}" if kappa else "")
+        after = (f"; after the suggested change, about {_significant(predicted)} (prediction: the model with "
+                 "those DOFs held)" if predicted is not None else "")
+        return (f"stiffness jump: a penalty swallowed the structure at {words} {_list_nodes(nodes)}: a float64 "
+                f"solve of the exported K keeps {_significant(worst)} ({how}){beyond}{after}"), status
     if swallowed:
         nodes = sorted({v for f in swallowed for v in f.nodes})
         rest = f"; elsewhere {figure}" if figure else ""
@@ -837,7 +996,7 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         return f"near-singular: {len(near)} nearly free mode{'' if len(near) == 1 else 's'} ({kinds(near)}){tail}", status
     sk = condition.scaled_estimate if condition is not None and not condition.singular else None
     ill = sk is not None and sk > ILL_CONDITIONED
-    below = worst is not None and worst < min_digits
+    below = (worst is not None and worst < min_digits) or bool(low_nodes) or supplied_low
     troubled = ill or below
     def blames(c: str) -> bool:
         return c.startswith("stiffness.") and c not in ("stiffness.indefinite", "stiffness.spring-to-ground")

@@ -36,6 +36,7 @@ import scipy.sparse as sp
 from numpy.typing import NDArray
 
 from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.digits import measure_exported_digits
 from conditioning.stages.geometry import model_geometry
 from conditioning.model import Model
 from conditioning.results import (
@@ -117,6 +118,7 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
                             one_norm_method=REST + condition.one_norm_method)
     pivots = back.pivots(rest.pivots)
     digits = back.digits(rest.digits, swallowed_rows(jumps))
+    digits = with_exported_digits(model, structure, digits, rest.seed)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=min_digits)
     findings += [f for f in rest.findings if f.code == "stiffness.stiff-link-eigenvalue"]
@@ -128,6 +130,36 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
         skipped=rest.skipped,
         geometry=model_geometry(model),
     )
+
+
+#: How the figures of the model with the swallowed DOFs held are labelled once
+#: the exported K itself was measured.
+PREDICTION = "prediction after the suggested change (the model with the swallowed DOFs held): "
+
+
+def with_exported_digits(model: Model, structure: StructureResult, digits: Optional[DigitsResult],
+                         seed: Optional[int]) -> Optional[DigitsResult]:
+    """The digits of the exported K first, the held-DOF model's as a labelled prediction.
+
+    The matrix the engineer solves is the exported one: its float64 solve is
+    measured for the engineer's load(s) (:func:`measure_exported_digits`) and
+    becomes the key figure (``headline_solve`` ``exported``); the held-DOF
+    samples stay, their ``solve`` saying they predict the model after the
+    suggested change (the penalty lowered). Unchanged when the exported K
+    could not be measured (above the re-solve's size), with why in
+    ``headline_reason``.
+    """
+    if digits is None or digits.skipped:
+        return digits
+    rng = np.random.default_rng(seed)
+    exported, kappa, why = measure_exported_digits(model, structure, rng=rng)
+    if not exported:
+        return replace(digits, headline_reason=why)
+    held = [replace(s, solve=PREDICTION + (s.solve or "the tool's float64 solve")) for s in digits.samples]
+    return replace(digits, samples=exported + held, headline_solve="exported", exported_condition_at_least=kappa,
+                   headline_reason=("a penalty swallowed the structure, so the key figure is a float64 solve of the "
+                                    "exported K as stored; the other samples predict the model after the suggested "
+                                    "change"))
 
 
 class _Renumber:
