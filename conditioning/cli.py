@@ -6,13 +6,20 @@ shows it; no numerics and no rule of the diagnosis here. Exit status: 0 healthy;
 1 warnings only (usable with the stated digits); 2 unusable input or bad options;
 3 errors found (singular, a free mode, or fewer trustworthy digits than
 ``--min-digits``); 4 internal error (a bug; ``-v`` shows the traceback);
-130 interrupted (Ctrl-C); 141 standard output closed early (``| head``).
+130 interrupted (Ctrl-C); 141 standard output closed early (``| head``); 143 terminated
+(SIGTERM, handled as Ctrl-C is: one line, no partial output file).
+
+Every output is checked against every input and every other output before any
+work (:mod:`conditioning.io.outputs`), and written to a temporary file renamed
+into place only when complete; everything printed goes through one sanitising
+step (:mod:`conditioning.render.safe_text`).
 """
 
 from __future__ import annotations
 
 import logging
 import os
+import signal
 import sys
 from contextlib import contextmanager, suppress
 from pathlib import Path
@@ -26,6 +33,23 @@ if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
     from conditioning.pipeline import ProgressCallback
 
 EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = 0, 1, 2, 3, 4, 130, 141
+#: 128 + SIGTERM (15), the shell's convention for a run ended by that signal.
+EXIT_TERMINATED = 128 + signal.SIGTERM
+
+
+class Terminated(BaseException):
+    """Raised by the SIGTERM handler; a BaseException so that no ``except Exception`` swallows it."""
+
+
+def _on_sigterm(signum, frame):  # noqa: ARG001 - signal API
+    raise Terminated()
+
+
+def _console(**kwargs):
+    """The console every command prints through: no markup, control characters escaped."""
+    from conditioning.render.safe_text import SafeConsole
+
+    return SafeConsole(**kwargs)
 
 
 def exit_status(report: results.Report) -> int:
@@ -40,11 +64,10 @@ def _progress(enabled: bool) -> Iterator[Optional[ProgressCallback]]:
     if not enabled:
         yield None
         return
-    from rich.console import Console
     from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
     bars = Progress(SpinnerColumn(), TextColumn("{task.description:<16}"), BarColumn(),
-                    TimeElapsedColumn(), console=Console(stderr=True), transient=True)
+                    TimeElapsedColumn(), console=_console(stderr=True), transient=True)
     tasks: dict[str, int] = {}
 
     def progress(stage: str, fraction: Optional[float] = None) -> None:
@@ -81,24 +104,34 @@ def _diagnosed(path: str, args, progress) -> results.Report:
 
 
 def _write(report: results.Report, *, json=None, html=None, modes_vtk=None, modes_csv=None) -> None:
-    """Every file output the command line asked for, each a view of the report."""
+    """Every file output the command line asked for, each a view of the report, each
+    written to a temporary file beside its target and renamed into place when complete."""
     from conditioning.render import html as html_view, json_report, modes_export
 
     for path, write in ((json, json_report.write_json), (html, html_view.write_html),
                         (modes_vtk, modes_export.write_modes_vtu), (modes_csv, modes_export.write_modes_csv)):
         if path:
-            write(report, path)
+            _write_one(write, report, path)
+
+
+def _write_one(write, data, path) -> None:
+    """``write(data, path)`` atomically (``-``: standard output, as the writer does it)."""
+    from conditioning.io.outputs import atomic_output
+
+    if str(path) == "-":
+        write(data, "-")
+        return
+    with atomic_output(str(path)) as tmp:
+        write(data, tmp)
 
 
 def _run_diagnose(args) -> int:
-    from rich.console import Console
-
     from conditioning.render.html import missing_figures_note
     from conditioning.render.terminal import command_view
 
     with _progress(not args.quiet and sys.stderr.isatty()) as progress:
         report = _diagnosed(args.matrix, args, progress)
-    Console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet, verbose=args.verbose > 0))
+    _console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet, verbose=args.verbose > 0))
     _write(report, json=args.json, html=args.html, modes_vtk=args.modes_vtk, modes_csv=args.modes_csv)
     if args.html and missing_figures_note():
         print(f"conditioning: note: {missing_figures_note()}", file=sys.stderr)
@@ -107,12 +140,10 @@ def _run_diagnose(args) -> int:
 
 def _run_demo(args) -> int:
     """Every bundled demo model, diagnosed and shown; 0 once all ran (several are broken on purpose)."""
-    from rich.console import Console
-
     from conditioning.demo.scenarios import scenarios
     from conditioning.render.terminal import demo_case_view, demo_summary
 
-    console, rows = Console(), []
+    console, rows = _console(), []
     for folder in filter(None, (args.json, args.html)):
         Path(folder).mkdir(parents=True, exist_ok=True)
     for name, case in scenarios().items():
@@ -128,8 +159,6 @@ def _run_demo(args) -> int:
 
 
 def _run_compare(args) -> int:
-    from rich.console import Console
-
     from conditioning.compare import compare_reports
     from conditioning.render.json_report import write_comparison_json
     from conditioning.render.terminal import ComparisonView, verdict_line
@@ -137,24 +166,25 @@ def _run_compare(args) -> int:
     with _progress(not args.quiet and sys.stderr.isatty()) as progress:
         before, after = (_diagnosed(path, args, progress) for path in (args.before, args.after))
     comparison = compare_reports(before, after)
-    Console(stderr=args.json == "-").print(verdict_line(after) if args.quiet else ComparisonView(comparison))
+    _console(stderr=args.json == "-").print(verdict_line(after) if args.quiet else ComparisonView(comparison))
     if args.json:
-        write_comparison_json(comparison, args.json)
+        _write_one(write_comparison_json, comparison, args.json)
     return exit_status(after)
 
 
 def _run_explain(args) -> int:  # what is at one row, in the numbering it was asked in
-    from rich.console import Console
     from conditioning.pipeline import explain, explain_from_report
     from conditioning.render.terminal import explanation_view
     model, row, base = _load(args.matrix, args, None), args.row - args.row_base, args.row_base
-    Console().print(explanation_view(explain_from_report(model, row, args.from_report, row_base=base) if args.from_report
+    _console().print(explanation_view(explain_from_report(model, row, args.from_report, row_base=base) if args.from_report
                                      else explain(model, row, row_base=base, seed=args.seed, engine=args.engine)[1]))
     return EXIT_HEALTHY
 
 
 def _fail(message: str, status: int = EXIT_INPUT) -> int:
-    print(f"conditioning: error: {' '.join(str(message).split())}", file=sys.stderr)
+    from conditioning.render.safe_text import shown_line
+
+    print(f"conditioning: error: {shown_line(' '.join(str(message).split()))}", file=sys.stderr)
     return status
 
 
@@ -165,6 +195,7 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     models' own statuses (listed in its closing table).
     """
     verbose = 0
+    previous = _handle_sigterm()
     try:
         args = parse(argv)
         configure_logging(verbose := args.verbose, quiet=args.quiet)
@@ -188,11 +219,26 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     except KeyboardInterrupt:
         print("conditioning: interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except Terminated:
+        print("conditioning: terminated (SIGTERM); no output file was left half-written", file=sys.stderr)
+        return EXIT_TERMINATED
     except Exception as exc:  # a bug: one line, the traceback only with -v
         if verbose:
             logging.getLogger(__name__).exception("internal error")
         return _fail(f"internal error ({type(exc).__name__}: {exc}); please report it, "
                      "run with -v for the traceback", EXIT_INTERNAL)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _handle_sigterm():
+    """SIGTERM raises :class:`Terminated` for the length of the run; returns the handler it replaced
+    (None when not in the main thread, where Python cannot set a handler)."""
+    try:
+        return signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:
+        return None
 
 
 if __name__ == "__main__":  # pragma: no cover
