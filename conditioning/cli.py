@@ -7,19 +7,13 @@ shows it; no numerics and no rule of the diagnosis here. Exit status: 0 healthy;
 3 errors found (singular, a free mode, or fewer trustworthy digits than
 ``--min-digits``); 4 internal error (a bug; ``-v`` shows the traceback);
 130 interrupted (Ctrl-C); 141 standard output closed early (``| head``); 143 terminated
-(SIGTERM, handled as Ctrl-C is: one line, no partial output file).
-
-Every output is checked against every input and every other output before any
-work (:mod:`conditioning.io.outputs`), and written to a temporary file renamed
-into place only when complete; everything printed goes through one sanitising
-step (:mod:`conditioning.render.safe_text`).
+(SIGTERM). Outputs: :mod:`conditioning.io.outputs`; printing: :mod:`conditioning.render.safe_text`.
 """
 
 from __future__ import annotations
 
 import logging
 import os
-import signal
 import sys
 from contextlib import contextmanager, suppress
 from pathlib import Path
@@ -28,28 +22,14 @@ from typing import TYPE_CHECKING, Iterator, Optional, Sequence
 from conditioning import results
 from conditioning.command_line import UsageError, configure_logging, parse, written_by_rank_zero
 from conditioning.errors import ConditioningError
+from conditioning.io.outputs import write_atomically as _write_one
+from conditioning.render.safe_text import safe_console as _console, shown_line
+from conditioning.signals import EXIT_TERMINATED, Terminated, terminate_on_sigterm
 
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
     from conditioning.pipeline import ProgressCallback
 
 EXIT_HEALTHY, EXIT_WARNINGS, EXIT_INPUT, EXIT_ERRORS, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_BROKEN_PIPE = 0, 1, 2, 3, 4, 130, 141
-#: 128 + SIGTERM (15), the shell's convention for a run ended by that signal.
-EXIT_TERMINATED = 128 + signal.SIGTERM
-
-
-class Terminated(BaseException):
-    """Raised by the SIGTERM handler; a BaseException so that no ``except Exception`` swallows it."""
-
-
-def _on_sigterm(signum, frame):  # noqa: ARG001 - signal API
-    raise Terminated()
-
-
-def _console(**kwargs):
-    """The console every command prints through: no markup, control characters escaped."""
-    from conditioning.render.safe_text import SafeConsole
-
-    return SafeConsole(**kwargs)
 
 
 def exit_status(report: results.Report) -> int:
@@ -114,17 +94,6 @@ def _write(report: results.Report, *, json=None, html=None, modes_vtk=None, mode
             _write_one(write, report, path)
 
 
-def _write_one(write, data, path) -> None:
-    """``write(data, path)`` atomically (``-``: standard output, as the writer does it)."""
-    from conditioning.io.outputs import atomic_output
-
-    if str(path) == "-":
-        write(data, "-")
-        return
-    with atomic_output(str(path)) as tmp:
-        write(data, tmp)
-
-
 def _run_diagnose(args) -> int:
     from conditioning.render.html import missing_figures_note
     from conditioning.render.terminal import command_view
@@ -182,8 +151,6 @@ def _run_explain(args) -> int:  # what is at one row, in the numbering it was as
 
 
 def _fail(message: str, status: int = EXIT_INPUT) -> int:
-    from conditioning.render.safe_text import shown_line
-
     print(f"conditioning: error: {shown_line(' '.join(str(message).split()))}", file=sys.stderr)
     return status
 
@@ -195,11 +162,10 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     models' own statuses (listed in its closing table).
     """
     verbose = 0
-    previous = _handle_sigterm()
     try:
         args = parse(argv)
         configure_logging(verbose := args.verbose, quiet=args.quiet)
-        with written_by_rank_zero(args):
+        with terminate_on_sigterm(), written_by_rank_zero(args):
             return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare,
                     "explain": _run_explain}[args.command](args)
     except SystemExit as exc:  # --help, --version
@@ -227,18 +193,6 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
             logging.getLogger(__name__).exception("internal error")
         return _fail(f"internal error ({type(exc).__name__}: {exc}); please report it, "
                      "run with -v for the traceback", EXIT_INTERNAL)
-    finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
-
-
-def _handle_sigterm():
-    """SIGTERM raises :class:`Terminated` for the length of the run; returns the handler it replaced
-    (None when not in the main thread, where Python cannot set a handler)."""
-    try:
-        return signal.signal(signal.SIGTERM, _on_sigterm)
-    except ValueError:
-        return None
 
 
 if __name__ == "__main__":  # pragma: no cover

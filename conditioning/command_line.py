@@ -138,11 +138,20 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _ShownFormatter(logging.Formatter):
+    """Log records as written, but with control characters shown escaped (names in them are the user's)."""
+
+    def format(self, record: logging.LogRecord) -> str:
+        from conditioning.render.safe_text import shown
+
+        return shown(super().format(record))
+
+
 def configure_logging(verbose: int, quiet: bool = False) -> None:
     """-v: INFO, -vv: DEBUG; default WARNING; --quiet: ERROR only."""
     level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
     handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+    handler.setFormatter(_ShownFormatter("%(levelname)s %(name)s: %(message)s"))
     root = logging.getLogger("conditioning")
     root.handlers[:] = [handler]
     root.setLevel(logging.ERROR if quiet and verbose <= 0 else level)

@@ -486,11 +486,14 @@ def _read_all_bytes(name: str) -> bytes:
 
 #: Bytes read at a time from an input file.
 _READ_BLOCK = 1 << 22
-#: Memory the text readers may take per byte of (decompressed) text: the triplet reader
-#: measured here holds under 30 bytes per byte of text at its peak (1 million entries,
-#: 20.8 MB of text), the CSV readers of the DOF map and coordinates about as much; the
-#: project's choice bounds both at 40.
+#: Memory the CSV readers (DOF map, coordinates, restraints, load columns) may take per byte
+#: of (decompressed) text: they hold every line as Python strings, measured here at about
+#: 35 bytes per byte of text (1 million lines, 20.8 MB); the project's choice: 40.
 TEXT_BYTES_PER_BYTE = 40
+#: The same for the triplet reader, which turns each block of lines into arrays before
+#: reading the next: measured 9.2 bytes per byte of text at its peak, assembly included
+#: (1 million entries, 20.8 MB); the project's choice: 12.
+TRIPLET_BYTES_PER_BYTE = 12
 #: Memory reading one Matrix Market coordinate entry takes at its peak, in bytes: measured
 #: about 50 for 1 million entries of a general 1000 x 1000 matrix (scipy's arrays, the
 #: assembly into CSR); a symmetric file mirrors every entry, so twice that is allowed.
@@ -505,9 +508,10 @@ def read_memory_limit() -> int:
     return memory_limit()
 
 
-def text_read_cap() -> int:
-    """Largest (decompressed) text file read: the memory limit over :data:`TEXT_BYTES_PER_BYTE`."""
-    return max(read_memory_limit() // TEXT_BYTES_PER_BYTE, 1 << 20)
+def text_read_cap(bytes_per_byte: int = TEXT_BYTES_PER_BYTE) -> int:
+    """Largest (decompressed) text file read: the memory limit over ``bytes_per_byte``
+    (at least 1 MiB)."""
+    return max(read_memory_limit() // bytes_per_byte, 1 << 20)
 
 
 def require_memory_for_entries(name: str, entries: int) -> None:
@@ -530,7 +534,7 @@ def _too_large(name: str, cap: int) -> InputError:
 def _text_chunks(name: str):
     """``(number of the first line, text)`` of successive blocks of whole lines of a text file
     (decompressed), UTF-8; refused once beyond :func:`text_read_cap` or when not UTF-8."""
-    cap, total, line_no, offset, carry = text_read_cap(), 0, 1, 0, b""
+    cap, total, line_no, offset, carry = text_read_cap(TRIPLET_BYTES_PER_BYTE), 0, 1, 0, b""
     with _open_binary(name) as fh:
         while True:
             try:

@@ -166,3 +166,12 @@ def _write_error(path: str, exc: OSError, earlier: bool) -> OutputError:
     why = exc.strerror or (errno.errorcode.get(exc.errno or 0) if exc.errno else None) or str(exc)
     kept = "the earlier file at this path is unchanged" if earlier else "nothing was written"
     return OutputError(path, f"cannot be written ({why}); {kept}")
+
+
+def write_atomically(write, data, path) -> None:
+    """``write(data, path)`` through :func:`atomic_output`; ``"-"`` (standard output) as the writer does it."""
+    if str(path) == "-":
+        write(data, "-")
+        return
+    with atomic_output(str(path)) as tmp:
+        write(data, tmp)

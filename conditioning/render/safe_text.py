@@ -60,3 +60,8 @@ class SafeConsole(Console):
                 yield segment
             else:
                 yield Segment(shown(segment.text), segment.style, segment.control)
+
+
+def safe_console(**kwargs) -> SafeConsole:
+    """The console every command prints through (:class:`SafeConsole`)."""
+    return SafeConsole(**kwargs)
