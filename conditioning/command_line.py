@@ -138,6 +138,21 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _OncePerMessage(logging.Filter):
+    """Each distinct message is shown once per run (the same warning from every sample is one line)."""
+
+    def __init__(self):
+        super().__init__()
+        self._seen: set[tuple[str, int, str]] = set()
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        key = (record.name, record.levelno, record.getMessage())
+        if key in self._seen:
+            return False
+        self._seen.add(key)
+        return True
+
+
 class _ShownFormatter(logging.Formatter):
     """Log records as written, but with control characters shown escaped (names in them are the user's)."""
 
@@ -152,9 +167,17 @@ def configure_logging(verbose: int, quiet: bool = False) -> None:
     level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(_ShownFormatter("%(levelname)s %(name)s: %(message)s"))
+    handler.addFilter(_OncePerMessage())
     root = logging.getLogger("conditioning")
     root.handlers[:] = [handler]
     root.setLevel(logging.ERROR if quiet and verbose <= 0 else level)
+    # numpy's floating-point RuntimeWarnings (an overflow met on extreme but valid input) are the
+    # stages' business: their figures say what could not be computed. -vv shows the warnings, once each.
+    logging.captureWarnings(True)
+    py_warnings = logging.getLogger("py.warnings")
+    py_warnings.handlers[:] = [handler]
+    py_warnings.propagate = False
+    py_warnings.setLevel(logging.WARNING if verbose >= 2 else logging.CRITICAL)
 
 
 def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:

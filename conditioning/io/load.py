@@ -133,6 +133,7 @@ def load_model(
             require_regular_file(str(value))
     K, source, notes = _reading(matrix, lambda: _read_stiffness(matrix))
     _require_some_stiffness(K, source, "")
+    _note_extreme_entries(K, notes)
     K, one_triangle = mirror_one_triangle_export(K, notes)
     n = int(K.shape[0])
     table = _reading(dofs, lambda: _dof_map(dofs, dofs_per_node, n, source, notes))
@@ -172,6 +173,15 @@ def _reading(value, read):
         where = str(value) if _is_path(value) else ARRAY_SOURCE
         raise InputError(where, "too large to read in the memory available (raise CONDITIONING_MEMORY_LIMIT "
                                 "only if the machine has the memory)") from None
+
+
+def _note_extreme_entries(K: sp.csr_array, notes: list[str]) -> None:
+    """A note when K holds subnormal entries (magnitude below the smallest normal float64)."""
+    tiny = int(np.count_nonzero(np.abs(K.data) < np.finfo(np.float64).tiny))
+    if tiny:
+        notes.append(f"{tiny} entr{'y is' if tiny == 1 else 'ies are'} subnormal (magnitude below "
+                     f"{np.finfo(np.float64).tiny:.1e}): they carry fewer than 53 significant bits, and "
+                     "displacements for loads of ordinary size overflow float64; rescale the export's units")
 
 
 def _require_some_stiffness(K: sp.csr_array, source: str, when: str) -> None:
