@@ -6,7 +6,8 @@ shows it; no numerics and no rule of the diagnosis here. Exit status: 0 healthy;
 1 warnings only (usable with the stated digits); 2 unusable input or bad options;
 3 errors found (singular, a free mode, or fewer trustworthy digits than
 ``--min-digits``); 4 internal error (a bug; ``-v`` shows the traceback);
-130 interrupted (Ctrl-C); 141 standard output closed early (``| head``).
+130 interrupted (Ctrl-C); 141 standard output closed early (``| head``); 143 terminated
+(SIGTERM). Outputs: :mod:`conditioning.io.outputs`; printing: :mod:`conditioning.render.safe_text`.
 """
 
 from __future__ import annotations
@@ -21,6 +22,9 @@ from typing import TYPE_CHECKING, Iterator, Optional, Sequence
 from conditioning import results
 from conditioning.command_line import UsageError, configure_logging, parse, written_by_rank_zero
 from conditioning.errors import ConditioningError
+from conditioning.io.outputs import write_atomically as _write_one
+from conditioning.render.safe_text import safe_console as _console, shown_line
+from conditioning.signals import EXIT_TERMINATED, Terminated, terminate_on_sigterm
 
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
     from conditioning.pipeline import ProgressCallback
@@ -40,11 +44,10 @@ def _progress(enabled: bool) -> Iterator[Optional[ProgressCallback]]:
     if not enabled:
         yield None
         return
-    from rich.console import Console
     from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
     bars = Progress(SpinnerColumn(), TextColumn("{task.description:<16}"), BarColumn(),
-                    TimeElapsedColumn(), console=Console(stderr=True), transient=True)
+                    TimeElapsedColumn(), console=_console(stderr=True), transient=True)
     tasks: dict[str, int] = {}
 
     def progress(stage: str, fraction: Optional[float] = None) -> None:
@@ -81,24 +84,23 @@ def _diagnosed(path: str, args, progress) -> results.Report:
 
 
 def _write(report: results.Report, *, json=None, html=None, modes_vtk=None, modes_csv=None) -> None:
-    """Every file output the command line asked for, each a view of the report."""
+    """Every file output the command line asked for, each a view of the report, each
+    written to a temporary file beside its target and renamed into place when complete."""
     from conditioning.render import html as html_view, json_report, modes_export
 
     for path, write in ((json, json_report.write_json), (html, html_view.write_html),
                         (modes_vtk, modes_export.write_modes_vtu), (modes_csv, modes_export.write_modes_csv)):
         if path:
-            write(report, path)
+            _write_one(write, report, path)
 
 
 def _run_diagnose(args) -> int:
-    from rich.console import Console
-
     from conditioning.render.html import missing_figures_note
     from conditioning.render.terminal import command_view
 
     with _progress(not args.quiet and sys.stderr.isatty()) as progress:
         report = _diagnosed(args.matrix, args, progress)
-    Console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet, verbose=args.verbose > 0))
+    _console(stderr=args.json == "-").print(command_view(report, quiet=args.quiet, verbose=args.verbose > 0))
     _write(report, json=args.json, html=args.html, modes_vtk=args.modes_vtk, modes_csv=args.modes_csv)
     if args.html and missing_figures_note():
         print(f"conditioning: note: {missing_figures_note()}", file=sys.stderr)
@@ -107,12 +109,10 @@ def _run_diagnose(args) -> int:
 
 def _run_demo(args) -> int:
     """Every bundled demo model, diagnosed and shown; 0 once all ran (several are broken on purpose)."""
-    from rich.console import Console
-
     from conditioning.demo.scenarios import scenarios
     from conditioning.render.terminal import demo_case_view, demo_summary
 
-    console, rows = Console(), []
+    console, rows = _console(), []
     for folder in filter(None, (args.json, args.html)):
         Path(folder).mkdir(parents=True, exist_ok=True)
     for name, case in scenarios().items():
@@ -128,8 +128,6 @@ def _run_demo(args) -> int:
 
 
 def _run_compare(args) -> int:
-    from rich.console import Console
-
     from conditioning.compare import compare_reports
     from conditioning.render.json_report import write_comparison_json
     from conditioning.render.terminal import ComparisonView, verdict_line
@@ -137,24 +135,23 @@ def _run_compare(args) -> int:
     with _progress(not args.quiet and sys.stderr.isatty()) as progress:
         before, after = (_diagnosed(path, args, progress) for path in (args.before, args.after))
     comparison = compare_reports(before, after)
-    Console(stderr=args.json == "-").print(verdict_line(after) if args.quiet else ComparisonView(comparison))
+    _console(stderr=args.json == "-").print(verdict_line(after) if args.quiet else ComparisonView(comparison))
     if args.json:
-        write_comparison_json(comparison, args.json)
+        _write_one(write_comparison_json, comparison, args.json)
     return exit_status(after)
 
 
 def _run_explain(args) -> int:  # what is at one row, in the numbering it was asked in
-    from rich.console import Console
     from conditioning.pipeline import explain, explain_from_report
     from conditioning.render.terminal import explanation_view
     model, row, base = _load(args.matrix, args, None), args.row - args.row_base, args.row_base
-    Console().print(explanation_view(explain_from_report(model, row, args.from_report, row_base=base) if args.from_report
+    _console().print(explanation_view(explain_from_report(model, row, args.from_report, row_base=base) if args.from_report
                                      else explain(model, row, row_base=base, seed=args.seed, engine=args.engine)[1]))
     return EXIT_HEALTHY
 
 
 def _fail(message: str, status: int = EXIT_INPUT) -> int:
-    print(f"conditioning: error: {' '.join(str(message).split())}", file=sys.stderr)
+    print(f"conditioning: error: {shown_line(' '.join(str(message).split()))}", file=sys.stderr)
     return status
 
 
@@ -168,7 +165,7 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     try:
         args = parse(argv)
         configure_logging(verbose := args.verbose, quiet=args.quiet)
-        with written_by_rank_zero(args):
+        with terminate_on_sigterm(), written_by_rank_zero(args):
             return {"diagnose": _run_diagnose, "demo": _run_demo, "compare": _run_compare,
                     "explain": _run_explain}[args.command](args)
     except SystemExit as exc:  # --help, --version
@@ -188,6 +185,9 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     except KeyboardInterrupt:
         print("conditioning: interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except Terminated:
+        print("conditioning: terminated (SIGTERM); no output file was left half-written", file=sys.stderr)
+        return EXIT_TERMINATED
     except Exception as exc:  # a bug: one line, the traceback only with -v
         if verbose:
             logging.getLogger(__name__).exception("internal error")

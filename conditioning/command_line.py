@@ -20,6 +20,23 @@ from typing import Iterator, Optional, Sequence
 
 #: Engines of ``--engine`` (conditioning.engine.ENGINES, named here so that --help imports no numerics).
 ENGINES = ("scipy", "petsc")
+#: Most random load samples ``--samples`` takes (the project's choice: each sample is one more
+#: column of the multi-column solve and of the extended-precision re-solves; 100 columns of a
+#: 300,000-row model already take 240 MB a copy).
+MAX_SAMPLES = 100
+#: Largest ``--seed`` (numpy's generators take any non-negative integer; the project bounds it
+#: to 63 bits so that the seed is exact in the JSON report for any reader).
+MAX_SEED = 2**63 - 1
+#: Largest ``--min-digits`` (the project's choice: binary64 carries about 16 decimal digits, a
+#: requirement above 17 can never be met; a little room is left above that).
+MAX_MIN_DIGITS = 20.0
+#: Options naming input files (attribute, as the user wrote it): never written over by an output.
+INPUT_OPTIONS = (("matrix", "MATRIX"), ("before", "BEFORE"), ("after", "AFTER"), ("dofs", "--dofs"),
+                 ("coords", "--coords"), ("load", "--load"), ("solution", "--solution"), ("fix", "--fix"),
+                 ("elements", "--elements"), ("from_report", "--from-report"))
+#: Options naming output files.
+OUTPUT_OPTIONS = (("json", "--json"), ("html", "--html"), ("modes_vtk", "--modes-vtk"),
+                  ("modes_csv", "--modes-csv"))
 
 
 class UsageError(Exception):
@@ -51,11 +68,12 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
                    help="CSV 'node,dof' of restrained DOFs to remove before the diagnosis")
     r = p.add_argument_group("diagnosis")
     r.add_argument("--min-digits", metavar="N", type=float, default=4.0,
-                   help="fewer trustworthy digits than N is an error (exit 3); default 4")
+                   help=f"fewer trustworthy digits than N is an error (exit 3); 0 to {MAX_MIN_DIGITS:g}, "
+                        "default 4")
     r.add_argument("--seed", metavar="N", type=int, default=0,
-                   help="seed of the random load samples (default 0)")
+                   help="seed of the random load samples: 0 to 2**63-1 (default 0)")
     r.add_argument("--samples", metavar="N", type=int, default=3,
-                   help="number of random load samples (default 3)")
+                   help=f"number of random load samples: 0 to {MAX_SAMPLES} (default 3)")
     r.add_argument("--engine", choices=ENGINES, default="scipy",
                    help="sparse direct solver: scipy (SuperLU, default) or petsc (MUMPS and SLEPc; run "
                         "under mpiexec, environment from scripts/setup-petsc-engine.sh)")
@@ -74,7 +92,9 @@ def build_parser() -> argparse.ArgumentParser:
                      epilog="Exit status: 0 healthy; 1 warnings only; 2 unusable input or bad "
                             "options; 3 errors found (singular, a free or nearly free mode, or "
                             "fewer trustworthy digits than --min-digits); 4 internal error; "
-                            "130 interrupted.")
+                            "130 interrupted; 141 standard output closed early; 143 terminated "
+                            "(SIGTERM). Environment: CONDITIONING_MEMORY_LIMIT (bytes, e.g. 8G, "
+                            "512M, 1e9; blank or unset: 70% of the available memory).")
     from conditioning import __version__
 
     parser.add_argument("--version", action="version", version=f"conditioning {__version__}")
@@ -92,8 +112,8 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Diagnose each bundled demo model and show its report.")
     m.add_argument("--json", metavar="DIR", help="also write one JSON report per model in DIR")
     m.add_argument("--html", metavar="DIR", help="also write one HTML report per model in DIR")
-    m.add_argument("--seed", metavar="N", type=int, default=0)
-    m.add_argument("--samples", metavar="N", type=int, default=3)
+    m.add_argument("--seed", metavar="N", type=int, default=0, help="0 to 2**63-1 (default 0)")
+    m.add_argument("--samples", metavar="N", type=int, default=3, help=f"0 to {MAX_SAMPLES} (default 3)")
     m.add_argument("--quiet", "-q", action="store_true", help="print only the verdicts")
     m.add_argument("--verbose", "-v", action="count", default=0)
     c = sub.add_parser("compare", help="what changed between two exports of the same model",
@@ -107,7 +127,8 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Explain one row of a stiffness export: its node and DOF, couplings, "
                                    "stiffness jumps, pivot, share of the near-singular modes, what would help.")
     e.add_argument("matrix", metavar="MATRIX", help=".mtx, .mtx.gz, .mtx.bz2, .rsa, .rua, .hb")
-    e.add_argument("--row", metavar="N", type=int, required=True, help="the row (equation) number")
+    e.add_argument("--row", metavar="N", type=int, required=True,
+                   help="the row (equation) number: from --row-base to the matrix's last row")
     e.add_argument("--row-base", metavar="B", type=int, choices=(0, 1), default=1,
                    help="1 (default): the first row is 1; 0: the first row is 0")
     e.add_argument("--from-report", metavar="FILE",
@@ -117,14 +138,46 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _OncePerMessage(logging.Filter):
+    """Each distinct message is shown once per run (the same warning from every sample is one line)."""
+
+    def __init__(self):
+        super().__init__()
+        self._seen: set[tuple[str, int, str]] = set()
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        key = (record.name, record.levelno, record.getMessage())
+        if key in self._seen:
+            return False
+        self._seen.add(key)
+        return True
+
+
+class _ShownFormatter(logging.Formatter):
+    """Log records as written, but with control characters shown escaped (names in them are the user's)."""
+
+    def format(self, record: logging.LogRecord) -> str:
+        from conditioning.render.safe_text import shown
+
+        return shown(super().format(record))
+
+
 def configure_logging(verbose: int, quiet: bool = False) -> None:
     """-v: INFO, -vv: DEBUG; default WARNING; --quiet: ERROR only."""
     level = logging.WARNING if verbose <= 0 else logging.INFO if verbose == 1 else logging.DEBUG
     handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+    handler.setFormatter(_ShownFormatter("%(levelname)s %(name)s: %(message)s"))
+    handler.addFilter(_OncePerMessage())
     root = logging.getLogger("conditioning")
     root.handlers[:] = [handler]
     root.setLevel(logging.ERROR if quiet and verbose <= 0 else level)
+    # numpy's floating-point RuntimeWarnings (an overflow met on extreme but valid input) are the
+    # stages' business: their figures say what could not be computed. -vv shows the warnings, once each.
+    logging.captureWarnings(True)
+    py_warnings = logging.getLogger("py.warnings")
+    py_warnings.handlers[:] = [handler]
+    py_warnings.propagate = False
+    py_warnings.setLevel(logging.WARNING if verbose >= 2 else logging.CRITICAL)
 
 
 def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:
@@ -138,9 +191,37 @@ def parse(argv: Optional[Sequence[str]] = None) -> argparse.Namespace:
         For ``--help`` (status 0).
     """
     args = build_parser().parse_args(argv)
+    check_numbers(args)
     if args.command != "demo":
         check_options(args)
     return args
+
+
+def check_numbers(args) -> None:
+    """Bounds of the numeric options every command shares, and the memory setting (exit 2, one line)."""
+    seed = getattr(args, "seed", 0)
+    if not 0 <= seed <= MAX_SEED:
+        raise UsageError(f"--seed {seed}: must be an integer from 0 to 2**63-1")
+    samples = getattr(args, "samples", 0)
+    if not 0 <= samples <= MAX_SAMPLES:
+        raise UsageError(f"--samples {samples}: must be from 0 to {MAX_SAMPLES}")
+    min_digits = getattr(args, "min_digits", 0.0)
+    if not (math.isfinite(min_digits) and 0.0 <= min_digits <= MAX_MIN_DIGITS):
+        raise UsageError(f"--min-digits {min_digits}: must be a number of digits from 0 to {MAX_MIN_DIGITS:g}")
+    from conditioning.engine.memory import memory_limit_setting
+
+    memory_limit_setting()  # SettingError (one line, exit 2) when CONDITIONING_MEMORY_LIMIT is not understood
+
+
+def check_files(args) -> None:
+    """Inputs must be regular files; no output may be an input or another output (exit 2, one line)."""
+    from conditioning.io.outputs import check_outputs, require_regular_file
+
+    inputs = [(label, getattr(args, attr, None)) for attr, label in INPUT_OPTIONS]
+    for _, path in inputs:
+        if path is not None:
+            require_regular_file(path)
+    check_outputs(inputs, [(label, getattr(args, attr, None)) for attr, label in OUTPUT_OPTIONS])
 
 
 def check_options(args) -> None:
@@ -161,6 +242,7 @@ def check_options(args) -> None:
         raise UsageError("--modes-vtk needs a DOF map (--dofs, --dofs-per-node or --dof-names)")
     if getattr(args, "modes_vtk", None) and args.coords is None:
         raise UsageError("--modes-vtk needs node coordinates (--coords)")
+    check_files(args)
     missing = [m for m in ("petsc4py", "slepc4py") if importlib.util.find_spec(m) is None]
     if getattr(args, "engine", "scipy") == "petsc" and missing:
         raise UsageError(f"--engine petsc needs {' and '.join(missing)}, not importable here; "

@@ -28,3 +28,24 @@ class InputError(ConditioningError):
         self.path = str(path)
         self.problem = " ".join(str(problem).split())
         super().__init__(f"{self.path}: {self.problem}")
+
+
+class OutputError(ConditioningError):
+    """An output file cannot be written, or would overwrite an input (exit 2).
+
+    Parameters
+    ----------
+    path : str
+        The output as the user named it.
+    problem : str
+        What is wrong, in one line (naming the other file when two collide).
+    """
+
+    def __init__(self, path: str, problem: str):
+        self.path = str(path)
+        self.problem = " ".join(str(problem).split())
+        super().__init__(f"{self.path}: {self.problem}")
+
+
+class SettingError(ConditioningError):
+    """An environment setting the tool reads (``CONDITIONING_MEMORY_LIMIT``) is not understood (exit 2)."""

@@ -178,3 +178,154 @@ def test_mangled_context_file_gives_model_or_input_error(tmp_path_factory, case)
         assert "\n" not in str(exc)
     else:
         _check_model(model)
+
+
+# --------------------------------------------------------------------------- #
+# Output paths, case names and option values (issue 23)
+# --------------------------------------------------------------------------- #
+
+import os  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from conditioning.command_line import MAX_MIN_DIGITS, MAX_SAMPLES, MAX_SEED, UsageError, parse  # noqa: E402
+from conditioning.errors import OutputError, SettingError  # noqa: E402
+from conditioning.io.outputs import check_outputs  # noqa: E402
+
+
+@st.composite
+def spelled_paths(draw, names):
+    """A path to one of ``names`` (or a new name) in a folder, spelled in one of the ways a shell
+    allows: plain, ``./``, ``sub/../``, ``sub/./../``, through a symlink or a hard link."""
+    name = draw(st.sampled_from(names + ["new.json", "other.html"]))
+    how = draw(st.sampled_from(["plain", "dot", "dotdot", "dotdotdot", "symlink", "hardlink"]))
+    return name, how
+
+
+def _spell(folder, name, how, k):
+    target = folder / name
+    if how == "plain":
+        return str(target)
+    if how == "dot":
+        return str(folder / "." / name)
+    if how == "dotdot":
+        return str(folder / "sub" / ".." / name)
+    if how == "dotdotdot":
+        return str(folder / "sub" / "." / ".." / name)
+    if how == "symlink":
+        link = folder / f"s{k}-{name}"
+        if not link.is_symlink():
+            link.symlink_to(name)
+        return str(link)
+    if not target.exists():
+        return str(target)
+    hard = folder / f"h{k}-{name}"
+    if not hard.exists():
+        os.link(target, hard)
+    return str(hard)
+
+
+def _same(a: str, b: str) -> bool:
+    """The outside oracle: os.path.samefile for existing files, the real path otherwise."""
+    if os.path.exists(a) and os.path.exists(b):
+        return os.path.samefile(a, b)
+    return os.path.realpath(a) == os.path.realpath(b)
+
+
+@settings(max_examples=200, deadline=None)
+@given(outs=st.lists(spelled_paths(["k.mtx", "d.csv", "l.csv"]), min_size=1, max_size=4))
+def test_output_paths_never_name_an_input_or_each_other(tmp_path_factory, outs):
+    folder = tmp_path_factory.mktemp("paths")
+    (folder / "sub").mkdir()
+    inputs = []
+    for label, name in (("MATRIX", "k.mtx"), ("--dofs", "d.csv"), ("--load", "l.csv")):
+        (folder / name).write_text(name)
+        inputs.append((label, str(folder / name)))
+    outputs = [(f"--out{k}", _spell(folder, name, how, k)) for k, (name, how) in enumerate(outs)]
+    collide = any(_same(out, other) for k, (_, out) in enumerate(outputs)
+                  for _, other in inputs + outputs[:k])
+    try:
+        check_outputs(inputs, outputs)
+    except OutputError as exc:
+        assert collide, exc
+        assert "\n" not in str(exc) and "the same file" in str(exc)
+    else:
+        assert not collide
+    for _, path in inputs:   # inputs are never modified by the check
+        assert Path(path).read_text() == Path(path).name
+
+
+@settings(max_examples=200, deadline=None)
+@given(name=st.text(min_size=1, max_size=30))
+def test_any_case_name_reaches_the_console_inert(name):
+    """Whatever a user puts in a case name, the console neither crashes, nor interprets markup,
+    nor lets a control character through (ECMA-48 C0/C1, DEL, the Unicode bidi controls)."""
+    from rich.table import Table
+    from rich.text import Text
+
+    from conditioning.render.safe_text import CONTROL, SafeConsole, shown_line
+
+    console = SafeConsole(file=io.StringIO(), width=400, record=True, color_system=None)
+    table = Table()
+    table.add_column("sample")
+    table.add_row(name)
+    console.print(table)
+    console.print(f"for sample '{name}'")
+    console.print(Text(f"for sample '{name}'"))
+    out = console.export_text()
+    assert not CONTROL.search(out)
+    # rich itself drops BEL, BS, VT, FF and CR (rich.control.strip_control_codes); every other
+    # character of the name is shown, a control one escaped, markup as written.
+    from rich.control import strip_control_codes
+
+    visible = shown_line(strip_control_codes(name)).replace("\\n", " ").replace("\\t", " ")
+    flat = out.replace("\n", "")
+    for piece in visible.split():   # every piece of the name (rich may fold blanks and wrap)
+        assert piece in flat
+
+
+@settings(max_examples=6, deadline=None)
+@given(name=st.text(alphabet=st.sampled_from(list("[]/=ab \x1b\x07\u202e,\"")), min_size=1, max_size=12))
+def test_any_case_name_gives_a_verdict_or_one_line(tmp_path_factory, name):
+    """A whole run with a hostile case name: a verdict (exit 3 for this mast) or one line, exit 2."""
+    import contextlib
+
+    from conditioning.cli import main
+
+    folder = tmp_path_factory.mktemp("names")
+    load = folder / "cases.csv"
+    header = name.replace("\n", " ")
+    load.write_text(f"\"{header.replace(chr(34), chr(34) * 2)}\",other\n" + "1.0,2.0\n" * 16, encoding="utf-8")
+    demo = Path(__file__).resolve().parents[1] / "matrices"
+    err = io.StringIO()
+    with contextlib.redirect_stdout(io.StringIO()) as out, contextlib.redirect_stderr(err):
+        code = main(["diagnose", str(demo / "mast_soft_spring.mtx"), "--load", str(load), "--samples", "0"])
+    assert code in (2, 3), err.getvalue()
+    assert "\x1b" not in out.getvalue() + err.getvalue()
+    if code == 2:
+        assert len(err.getvalue().strip().splitlines()) == 1
+
+
+@settings(max_examples=300, deadline=None)
+@given(seed=st.integers(-2**70, 2**70), samples=st.integers(-10**9, 10**9),
+       digits=st.floats(allow_nan=True, allow_infinity=True),
+       limit=st.one_of(st.none(), st.text(max_size=12),
+                       st.from_regex(r"\A-?[0-9]{0,4}(\.[0-9]{1,3})?([eE][+-]?[0-9]{1,3})?[kKmMgGtT]?i?[bB]?\Z")))
+def test_option_values_parse_or_refuse_in_one_line(seed, samples, digits, limit):
+    if limit is not None and "\x00" in limit:
+        return   # an environment variable cannot hold NUL
+    saved = os.environ.pop("CONDITIONING_MEMORY_LIMIT", None)
+    try:
+        if limit is not None:
+            os.environ["CONDITIONING_MEMORY_LIMIT"] = limit
+        args = parse(["diagnose", "k.mtx", "--seed", str(seed), "--samples", str(samples),
+                      "--min-digits", repr(digits)])
+    except (UsageError, SettingError) as exc:
+        assert "\n" not in str(exc)
+        return
+    finally:
+        os.environ.pop("CONDITIONING_MEMORY_LIMIT", None)
+        if saved is not None:
+            os.environ["CONDITIONING_MEMORY_LIMIT"] = saved
+    if True:
+        assert 0 <= args.seed <= MAX_SEED and 0 <= args.samples <= MAX_SAMPLES
+        assert 0 <= args.min_digits <= MAX_MIN_DIGITS

@@ -16,6 +16,7 @@ are merged, which is exact and shrinks the loop by the DOFs per node.
 from __future__ import annotations
 
 import logging
+import math
 import os
 import re
 from dataclasses import dataclass
@@ -27,6 +28,7 @@ from numpy.typing import NDArray
 
 from conditioning.engine.ordering import coincident, choose_ordering, nested_dissection, supervariables
 from conditioning.engine.base import FactorMemoryPrediction
+from conditioning.errors import SettingError
 
 logger = logging.getLogger(__name__)
 
@@ -47,7 +49,7 @@ DEFAULT_SHARE = 0.7
 #: Relative accuracy of the byte prediction measured on the benchmark models.
 BYTES_ACCURACY = 0.25
 
-_SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*([kKmMgGtT]?)(i?[bB])?\s*$")
+_SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][+]?[0-9]+)?)\s*([kKmMgGtT]?)(i?[bB])?\s*$")
 
 
 def predict_factor_memory(
@@ -246,19 +248,38 @@ def fits(prediction: FactorMemoryPrediction, limit_bytes: Optional[int] = None) 
 
 def memory_limit() -> int:
     """Bytes a factorization may use: ``CONDITIONING_MEMORY_LIMIT`` or a share of MemAvailable."""
+    limit = memory_limit_setting()
+    return int(DEFAULT_SHARE * available_memory()) if limit is None else limit
+
+
+def memory_limit_setting() -> Optional[int]:
+    """``CONDITIONING_MEMORY_LIMIT`` in bytes; None when unset or blank (the default applies).
+
+    Raises
+    ------
+    conditioning.errors.SettingError
+        The value is not a positive size (``abc``, ``-1``, ``0``): one line, exit 2.
+    """
     env = os.environ.get("CONDITIONING_MEMORY_LIMIT")
-    if env:
+    if env is None or not env.strip():
+        return None
+    try:
         return parse_size(env)
-    return int(DEFAULT_SHARE * available_memory())
+    except ValueError as exc:
+        raise SettingError(f"CONDITIONING_MEMORY_LIMIT={env!r}: {exc}") from None
 
 
 def parse_size(text: str) -> int:
-    """``"2G"`` -> 2 * 1024**3 bytes; accepts k, M, G, T (binary) with optional ``B``/``iB``."""
+    """``"2G"`` -> 2 * 1024**3 bytes; accepts k, M, G, T (binary) with optional ``B``/``iB``,
+    and a plain or scientific number of bytes (``1e9``). A size must be positive and finite."""
     m = _SIZE.match(text)
     if not m:
-        raise ValueError(f"memory size {text!r} not understood; write e.g. 2G, 512M or 1000000")
+        raise ValueError(f"memory size {text!r} not understood; write e.g. 2G, 512M, 1e9 or 1000000 (bytes)")
     unit = {"": 1, "k": 2**10, "m": 2**20, "g": 2**30, "t": 2**40}[m.group(2).lower()]
-    return int(float(m.group(1)) * unit)
+    value = float(m.group(1)) * unit
+    if not (math.isfinite(value) and value >= 1):
+        raise ValueError(f"memory size {text!r} must be a positive number of bytes")
+    return int(value)
 
 
 def available_memory() -> int:

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import logging
 import os
+import re
 from collections.abc import Mapping
 from dataclasses import replace
 from typing import Optional, Sequence, Union
@@ -40,7 +41,9 @@ from conditioning.io.matrix_formats import (
     read_csv_rows,
     read_matrix,
     read_vector,
+    require_memory_for_entries,
 )
+from conditioning.io.outputs import require_regular_file
 from conditioning.model import DOF_NAMES, DOFS_PER_NODE_LAYOUT, Coordinates, DofTable, Model
 from conditioning.results import OneTriangleExport
 
@@ -57,6 +60,11 @@ _DOF_INDEX = {name: k for k, name in enumerate(DOF_NAMES)}
 #: 0-based integer indices of an in-memory map).
 DOF_CODES = {str(k + 1): k for k in range(len(DOF_NAMES))}
 _FIRST_SHOWN = 3
+#: Node ids are stored as int64: the range a DOF map, coordinates and restraints may use.
+NODE_ID_MIN, NODE_ID_MAX = int(np.iinfo(np.int64).min), int(np.iinfo(np.int64).max)
+#: Names the digits stage gives its own samples (``random-1``..., ``worst-case``); a load case
+#: may not take one, or two rows of the digits table would carry the same name.
+RESERVED_SAMPLE_NAME = re.compile(r"^(random-\d+|worst-case)$", re.IGNORECASE)
 
 
 def load_model(
@@ -120,18 +128,25 @@ def load_model(
     >>> model.n, model.source
     (3, '<array>')
     """
-    K, source, notes = _read_stiffness(matrix)
+    for value in (matrix, dofs, coords, load, solution, fix):
+        if _is_path(value):
+            require_regular_file(str(value))
+    K, source, notes = _reading(matrix, lambda: _read_stiffness(matrix))
+    _require_some_stiffness(K, source, "")
+    _note_extreme_entries(K, notes)
     K, one_triangle = mirror_one_triangle_export(K, notes)
     n = int(K.shape[0])
-    table = _dof_map(dofs, dofs_per_node, n, source, notes)
-    positions = _coordinates(coords, table, notes)
-    f, load_names = _vector(load, n, "load", notes)
-    u, _ = _vector(solution, n, "solution", notes)
+    table = _reading(dofs, lambda: _dof_map(dofs, dofs_per_node, n, source, notes))
+    positions = _reading(coords, lambda: _coordinates(coords, table, notes))
+    f, load_names = _reading(load, lambda: _vector(load, n, "load", notes))
+    u, _ = _reading(solution, lambda: _vector(solution, n, "solution", notes))
     _require_matching_columns(solution, u, load, f)
     restrained = 0
     if fix is not None:
         keep, restrained = _restraint_rows(fix, table, n, notes)
         K = _principal_submatrix(K, keep)
+        _require_some_stiffness(K, source, f" once the restraints of {fix if _is_path(fix) else 'the fix list'} "
+                                           "are removed")
         one_triangle = _restrict_export(one_triangle, keep, n)
         table = table.take(keep) if table is not None else None
         f = f[keep] if f is not None else None
@@ -148,6 +163,32 @@ def load_model(
 
 def _is_path(value) -> bool:
     return isinstance(value, (str, os.PathLike))
+
+
+def _reading(value, read):
+    """``read()``; a MemoryError while reading a file becomes an InputError naming that file."""
+    try:
+        return read()
+    except MemoryError:
+        where = str(value) if _is_path(value) else ARRAY_SOURCE
+        raise InputError(where, "too large to read in the memory available (raise CONDITIONING_MEMORY_LIMIT "
+                                "only if the machine has the memory)") from None
+
+
+def _note_extreme_entries(K: sp.csr_array, notes: list[str]) -> None:
+    """A note when K holds subnormal entries (magnitude below the smallest normal float64)."""
+    tiny = int(np.count_nonzero(np.abs(K.data) < np.finfo(np.float64).tiny))
+    if tiny:
+        notes.append(f"{tiny} entr{'y is' if tiny == 1 else 'ies are'} subnormal (magnitude below "
+                     f"{np.finfo(np.float64).tiny:.1e}): they carry fewer than 53 significant bits, and "
+                     "displacements for loads of ordinary size overflow float64; rescale the export's units")
+
+
+def _require_some_stiffness(K: sp.csr_array, source: str, when: str) -> None:
+    """An all-zero matrix (no entries, or only zeros) holds no stiffness at all: unusable input."""
+    if K.nnz == 0:
+        raise InputError(source, f"every entry of the {K.shape[0]} x {K.shape[0]} matrix is zero{when}: "
+                                 "it holds no stiffness (was the export taken before assembly?)")
 
 
 def _read_stiffness(matrix) -> tuple[sp.csr_array, str, list[str]]:
@@ -289,7 +330,11 @@ def _header_columns(source: str, rows, required: tuple[str, ...], optional: tupl
 def _parse_node(source: str, cell: str, line_no: int) -> int:
     if not _is_int(cell):
         raise InputError(source, f"line {line_no}: node {cell!r} is not an integer")
-    return int(cell)
+    node = int(cell)
+    if not NODE_ID_MIN <= node <= NODE_ID_MAX:
+        raise InputError(source, f"line {line_no}: node {cell.strip()[:40]} is outside the node ids this tool "
+                                 f"stores ({NODE_ID_MIN} to {NODE_ID_MAX}, 64-bit integers)")
+    return node
 
 
 def _parse_dof(source: str, cell, line_no: Optional[int]) -> int:
@@ -399,9 +444,9 @@ def _dof_pairs_from_sequence(pairs, source: str):
 
 
 def _require_unique_pairs(source: str, node, dof, lines: Optional[list[int]]) -> None:
-    key = node.astype(np.int64) * len(DOF_NAMES) + dof
-    order = np.argsort(key, kind="stable")
-    same = np.flatnonzero(key[order][1:] == key[order][:-1])
+    node, dof = np.asarray(node, dtype=np.int64), np.asarray(dof, dtype=np.int64)
+    order = np.lexsort((dof, node))  # sorted by (node, dof) without forming node * 6 + dof, which wraps
+    same = np.flatnonzero((node[order][1:] == node[order][:-1]) & (dof[order][1:] == dof[order][:-1]))
     if same.size:
         a, b = int(order[same[0]]), int(order[same[0] + 1])
         where = (f"lines {lines[a]} and {lines[b]}" if lines is not None else f"rows {a + 1} and {b + 1}")
@@ -587,6 +632,8 @@ def _read_columns(name: str, n: int, what: str) -> tuple[NDArray[np.float64], tu
     except (OSError, ValueError, TypeError, IndexError):
         is_mm = False
     if is_mm:
+        rows_, cols_, entries, fmt, *_ = scipy.io.mminfo(name)
+        require_memory_for_entries(name, rows_ * cols_ if fmt == "array" else entries)
         data = scipy.io.mmread(name)
         block = np.asarray(data.toarray() if sp.issparse(data) else data)
         if np.iscomplexobj(block):
@@ -599,6 +646,11 @@ def _read_columns(name: str, n: int, what: str) -> tuple[NDArray[np.float64], tu
             names = tuple(c or f"load-{k + 1}" for k, c in enumerate(rows[0][1]))
             if len(set(names)) != m:
                 raise InputError(name, f"line {rows[0][0]}: the {what} case names repeat: {', '.join(names)}")
+            taken = [c for c in names if RESERVED_SAMPLE_NAME.match(c.strip())]
+            if taken:
+                raise InputError(name, f"line {rows[0][0]}: the {what} case name {taken[0]!r} is the name of one "
+                                       "of the tool's own samples (random-1, random-2, ..., worst-case); "
+                                       "rename the case")
             rows = rows[1:]
         values = []
         for line_no, cells in rows:

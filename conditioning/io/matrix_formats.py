@@ -181,6 +181,9 @@ def read_vector(path: PathLike, n: int, what: str) -> NDArray[np.float64]:
     return vec
 
 
+_COMMENT_LINE = re.compile(r"^[ \t]*#[^\r\n]*", re.MULTILINE)
+
+
 def read_csv_rows(path: PathLike) -> list[tuple[int, list[str]]]:
     """Rows of a comma-separated text file with their 1-based line numbers.
 
@@ -207,6 +210,9 @@ def read_csv_rows(path: PathLike) -> list[tuple[int, list[str]]]:
     except UnicodeDecodeError as exc:
         raise InputError(name, f"not UTF-8 text (undecodable byte at position {exc.start + 1})") from None
     rows: list[tuple[int, list[str]]] = []
+    # Comment lines are skipped before the csv module reads them: its field size limit
+    # (131,072 characters) would otherwise refuse a long comment. Line numbers are kept.
+    text = _COMMENT_LINE.sub("", text)
     try:
         for line_no, cells in enumerate(csv.reader(io.StringIO(text)), start=1):
             cells = [c.strip() for c in cells]
@@ -457,14 +463,107 @@ def _read_head(name: str) -> bytes:
 
 
 def _read_all_bytes(name: str) -> bytes:
+    """The whole (decompressed) file, read in blocks and refused once beyond :func:`text_read_cap`."""
+    cap, blocks, total = text_read_cap(), [], 0
     with _open_binary(name) as fh:
-        try:
-            data = fh.read()
-        except (OSError, EOFError, zlib.error, ValueError) as exc:
-            raise _corrupt_compressed(name, exc) from None
+        while True:
+            try:
+                block = fh.read(_READ_BLOCK)
+            except (OSError, EOFError, zlib.error, ValueError) as exc:
+                raise _corrupt_compressed(name, exc) from None
+            if not block:
+                break
+            total += len(block)
+            if total > cap:
+                raise _too_large(name, cap)
+            blocks.append(block)
+    data = b"".join(blocks)
+    del blocks
     if not data.strip():
         raise InputError(name, "file is empty")
     return data
+
+
+#: Bytes read at a time from an input file.
+_READ_BLOCK = 1 << 22
+#: Memory the CSV readers (DOF map, coordinates, restraints, load columns) may take per byte
+#: of (decompressed) text: they hold every line as Python strings, measured here at about
+#: 35 bytes per byte of text (1 million lines, 20.8 MB); the project's choice: 40.
+TEXT_BYTES_PER_BYTE = 40
+#: The same for the triplet reader, which turns each block of lines into arrays before
+#: reading the next: measured 9.2 bytes per byte of text at its peak, assembly included
+#: (1 million entries, 20.8 MB); the project's choice: 12.
+TRIPLET_BYTES_PER_BYTE = 12
+#: Memory reading one Matrix Market coordinate entry takes at its peak, in bytes: measured
+#: about 50 for 1 million entries of a general 1000 x 1000 matrix (scipy's arrays, the
+#: assembly into CSR); a symmetric file mirrors every entry, so twice that is allowed.
+MM_BYTES_PER_ENTRY = 100
+
+
+def read_memory_limit() -> int:
+    """Bytes the readers may use: the memory limit of the run (``CONDITIONING_MEMORY_LIMIT``, else
+    70% of the available memory; :func:`conditioning.engine.memory.memory_limit`)."""
+    from conditioning.engine.memory import memory_limit
+
+    return memory_limit()
+
+
+def text_read_cap(bytes_per_byte: int = TEXT_BYTES_PER_BYTE) -> int:
+    """Largest (decompressed) text file read: the memory limit over ``bytes_per_byte``
+    (at least 1 MiB)."""
+    return max(read_memory_limit() // bytes_per_byte, 1 << 20)
+
+
+def require_memory_for_entries(name: str, entries: int) -> None:
+    """Refuse, before reading, a Matrix Market file whose size line announces more entries than
+    the memory limit can hold (:data:`MM_BYTES_PER_ENTRY` each); the reader itself refuses a file
+    holding more entries than its size line announces."""
+    need, limit = int(entries) * MM_BYTES_PER_ENTRY, read_memory_limit()
+    if need > limit:
+        raise InputError(name, f"the size line announces {int(entries):,} entries: reading them needs about "
+                               f"{need / 2**30:.3g} GiB, more than the memory limit ({limit / 2**30:.3g} GiB; "
+                               "CONDITIONING_MEMORY_LIMIT, else 70% of the available memory)")
+
+
+def _too_large(name: str, cap: int) -> InputError:
+    return InputError(name, f"holds more than {cap / 2**20:,.0f} MiB of text (decompressed): reading it would "
+                            f"need more than the memory limit ({read_memory_limit() / 2**30:.3g} GiB; "
+                            "CONDITIONING_MEMORY_LIMIT, else 70% of the available memory)")
+
+
+def _text_chunks(name: str):
+    """``(number of the first line, text)`` of successive blocks of whole lines of a text file
+    (decompressed), UTF-8; refused once beyond :func:`text_read_cap` or when not UTF-8."""
+    cap, total, line_no, offset, carry = text_read_cap(TRIPLET_BYTES_PER_BYTE), 0, 1, 0, b""
+    with _open_binary(name) as fh:
+        while True:
+            try:
+                block = fh.read(_READ_BLOCK)
+            except (OSError, EOFError, zlib.error, ValueError) as exc:
+                raise _corrupt_compressed(name, exc) from None
+            total += len(block)
+            if total > cap:
+                raise _too_large(name, cap)
+            data = carry + block
+            if block:
+                cut = data.rfind(b"\n") + 1
+                if cut == 0:   # no line ends in this block yet: read on
+                    carry = data
+                    continue
+                chunk, carry = data[:cut], data[cut:]
+            else:
+                chunk, carry = data, b""
+            if chunk:
+                try:
+                    text = chunk.decode("utf-8")
+                except UnicodeDecodeError as exc:
+                    raise InputError(name, f"not UTF-8 text (undecodable byte at position "
+                                           f"{offset + exc.start + 1})") from None
+                yield line_no, text
+                line_no += chunk.count(b"\n")
+                offset += len(chunk)
+            if not block:
+                break
 
 
 def _corrupt_compressed(name: str, exc: BaseException) -> InputError:
@@ -597,6 +696,7 @@ def _read_matrix_market(name: str, head: bytes):
         raise InputError(name, f"matrix is {nrows} x {ncols}; a stiffness matrix must be square")
     n = nrows
     _require_plausible_size(name, fmt, n, entries)
+    require_memory_for_entries(name, n * n if fmt == "array" else entries)
     data = _scipy_mm(name, canonical, lambda s: scipy.io.mmread(s, spmatrix=False))
     stored_count = f" ({entries} stored entries)" if fmt == "coordinate" else ""
     notes = [f"read a {n} x {n} Matrix Market {fmt} {field} {symmetry} matrix{stored_count}"
@@ -620,6 +720,7 @@ def _read_matrix_market_vector(name: str, head: bytes, n: int, what: str) -> NDA
     if (nrows, ncols) not in ((n, 1), (1, n)):
         raise InputError(name, f"the {what} vector is {nrows} x {ncols}; it must be {n} x 1 "
                                f"to match the matrix's {n} rows")
+    require_memory_for_entries(name, n if fmt == "array" else entries)
     data = _scipy_mm(name, canonical, lambda s: scipy.io.mmread(s, spmatrix=False))
     if fmt == "array":
         vec = np.asarray(data, dtype=np.float64).ravel()
@@ -650,10 +751,10 @@ _INTEGER = re.compile(r"[+-]?\d+$")
 _NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eEdD][+-]?\d+)?$")
 
 
-def _data_lines(text: str) -> list[tuple[int, list[str]]]:
-    """``(line number, fields)`` of each line that is not blank or a comment."""
+def _data_lines(text: str, start: int = 1) -> list[tuple[int, list[str]]]:
+    """``(line number, fields)`` of each line that is not blank or a comment (``start``: the first line's number)."""
     out = []
-    for k, line in enumerate(text.splitlines(), start=1):
+    for k, line in enumerate(text.split("\n"), start=start):
         stripped = line.strip()
         if not stripped or stripped[0] in "#%" or stripped.startswith("//"):
             continue
@@ -688,48 +789,69 @@ def _looks_like_triplets(head: bytes) -> bool:
 
 
 def _read_triplets(name: str):
-    """Triplets of a plain ``i j value`` list, 0-based, as the readers return them."""
-    try:
-        text = _read_all_bytes(name).decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise InputError(name, f"not UTF-8 text (undecodable byte at position {exc.start + 1})") from None
-    lines = _data_lines(text)
-    if lines and _is_header(lines[0][1]):
-        lines = lines[1:]
-    for i, (k, fields) in enumerate(lines):
-        if not _is_entry(fields):
-            raise InputError(name, f"line {k}: {' '.join(fields)!r} is not 'row column value' "
-                                   "(two integer indices and a number)"
-                                   + (", as the lines before it are" if i else ", as the lines after it are"))
-    if not lines:
+    """Triplets of a plain ``i j value`` list, 0-based, as the readers return them.
+
+    Read in chunks of whole lines (:func:`_text_chunks`), each turned into
+    arrays before the next is read, so that the Python objects alive at a time
+    stay bounded whatever the file's size; the file's decompressed size is
+    itself bounded by :func:`text_read_cap`.
+    """
+    row_parts, col_parts, val_parts = [], [], []
+    first, count, header_seen = None, 0, None
+    for start, text in _text_chunks(name):
+        lines = _data_lines(text, start)
+        if header_seen is None and lines:
+            header_seen = _is_header(lines[0][1])
+            lines = lines[1:] if header_seen else lines
+        for i, (k, fields) in enumerate(lines, start=count):
+            if not _is_entry(fields):
+                raise InputError(name, f"line {k}: {' '.join(fields)!r} is not 'row column value' "
+                                       "(two integer indices and a number)"
+                                       + (", as the lines before it are" if i else ", as the lines after it are"))
+        if not lines:
+            continue
+        if first is None:
+            first = lines[0]
+        table = np.array([f for _, f in lines])
+        try:
+            row_parts.append(table[:, 0].astype(np.int64))
+            col_parts.append(table[:, 1].astype(np.int64))
+        except OverflowError:
+            raise InputError(name, "looks like a triplet list, but an index is too large for a matrix "
+                                   f"(above {np.iinfo(np.int64).max:,}): check the indices") from None
+        val_parts.append(np.char.replace(np.char.replace(table[:, 2], "D", "E"), "d", "e").astype(np.float64))
+        count += len(lines)
+        del table, lines
+    if first is None:
         raise InputError(name, "holds a header but no entries")
-    first = lines[0][1]
-    if first[2].lstrip("+").isdigit() and int(first[2]) == len(lines) - 1 and first[0] == first[1] \
-            and int(first[0]) > 0:     # an MM size line: n n entries
+    rows, cols, vals = np.concatenate(row_parts), np.concatenate(col_parts), np.concatenate(val_parts)
+    del row_parts, col_parts, val_parts
+    f0 = first[1]
+    if f0[2].lstrip("+").isdigit() and int(f0[2]) == count - 1 and f0[0] == f0[1] and int(f0[0]) > 0 \
+            and _indices_within(rows[1:], cols[1:], int(f0[0])):   # an MM size line: n n entries
         raise InputError(name, f"looks like a Matrix Market file without its banner line: line "
-                               f"{lines[0][0]} '{' '.join(first)}' reads as a size line (rows, columns, "
+                               f"{first[0]} '{' '.join(f0)}' reads as a size line (rows, columns, "
                                "entries); add '%%MatrixMarket matrix coordinate real general' above it")
-    table = np.array([f for _, f in lines])
-    try:
-        rows, cols = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
-    except OverflowError:
-        raise InputError(name, "looks like a triplet list, but an index is too large for a matrix "
-                               f"(above {np.iinfo(np.int64).max:,}): check the indices") from None
-    vals = np.char.replace(np.char.replace(table[:, 2], "D", "E"), "d", "e").astype(np.float64)
     low = int(min(rows.min(), cols.min()))
     if low < 0:
         raise InputError(name, f"looks like a triplet list, but an index is negative ({low})")
     base = 0 if low == 0 else 1
     rows, cols = rows - base, cols - base
     n = int(max(rows.max(), cols.max())) + 1
-    if n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * len(lines):
+    if n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * count:
         raise InputError(name, f"read as a triplet list, its largest index makes the matrix of order {n:,} "
-                               f"from only {len(lines):,} entries: check the indices")
-    notes = [f"read as a triplet list (row column value), {n} x {n} from {len(lines)} entries; "
+                               f"from only {count:,} entries: check the indices")
+    notes = [f"read as a triplet list (row column value), {n} x {n} from {count} entries; "
              + ("0-based indices (an index 0 occurs)" if base == 0 else
                 "1-based indices (no index 0 occurs" + (")" if low == 1 else
                                                         f"; the smallest is {low})"))]
     return rows, cols, vals, n, "general", notes
+
+
+def _indices_within(rows, cols, n: int) -> bool:
+    """True when every later entry's indices lie in 1..n: the first line can be a size line
+    ``n n entries`` only then (``1 1 2`` over ``2 1 -1`` is an entry, not the size of a 1 x 1 matrix)."""
+    return bool(rows.size == 0 or (rows.min() >= 1 and cols.min() >= 1 and rows.max() <= n and cols.max() <= n))
 
 
 def _what_it_looks_like(head: bytes) -> str:

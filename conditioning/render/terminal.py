@@ -23,6 +23,7 @@ from rich.table import Table
 from rich.text import Text
 
 from conditioning import results
+from conditioning.render.safe_text import SafeConsole
 from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
                                          fmt_mode_eigenvalue, ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
                                          scaling_sentence, summarise_ids, total_of, unit_word,
@@ -79,7 +80,7 @@ class TerminalReport:
 
 def render_text(report: results.Report, *, width: int = 100, **kwargs) -> str:
     """The terminal report as plain text (no colour codes), e.g. for a README."""
-    console = Console(file=io.StringIO(), width=width, record=True, color_system=None)
+    console = SafeConsole(file=io.StringIO(), width=width, record=True, color_system=None)
     console.print(TerminalReport(report, **kwargs))
     return console.export_text()
 
@@ -857,7 +858,7 @@ class ComparisonView:
 
 def render_comparison_text(comparison, *, width: int = 100) -> str:
     """The comparison as plain text."""
-    console = Console(file=io.StringIO(), width=width, record=True, color_system=None)
+    console = SafeConsole(file=io.StringIO(), width=width, record=True, color_system=None)
     console.print(ComparisonView(comparison))
     return console.export_text()
 

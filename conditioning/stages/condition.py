@@ -197,6 +197,41 @@ def confirmed_lambda_max(K: sp.csr_array, fac: Factorization, lam: float, how: s
     return lam, how + "; NOT confirmed by the inertia count after recomputing"
 
 
+#: K's largest entry is brought to 2**BIG_TARGET (resp. 2**-BIG_TARGET) before norms and
+#: eigenvalues when it lies beyond 2**BIG_EXPONENT (about 1e289, resp. below 1e-289): room for
+#: sums of n entries and for squares, and 500 binary orders below it before any entry could
+#: become subnormal. The project's choice; a scale of 1 (nothing done) for every other matrix.
+BIG_EXPONENT, BIG_TARGET = 960, 500
+
+
+def exponent_scale(K) -> float:
+    """A power of two c such that c * K keeps clear of overflow and underflow; 1.0 for ordinary K."""
+    big = float(np.max(np.abs(K.data))) if K.nnz else 0.0
+    if big == 0.0 or not math.isfinite(big):
+        return 1.0
+    e = math.frexp(big)[1]
+    if e > BIG_EXPONENT:
+        return math.ldexp(1.0, BIG_TARGET - e)
+    if e < -BIG_EXPONENT:
+        return math.ldexp(1.0, -BIG_TARGET - e)
+    return 1.0
+
+
+class _Rescaled:
+    """The shared factorization of K seen as one of c * K: solve(x) = (cK)^-1 x, kept in range."""
+
+    def __init__(self, fac: Factorization, c: float):
+        self._fac, self._c = fac, c
+
+    def __getattr__(self, name):
+        return getattr(self._fac, name)
+
+    def solve(self, x):
+        x = np.asarray(x, dtype=np.float64)
+        # K huge (c < 1): K^-1 x is small, divide after; K tiny (c > 1): scale x down first.
+        return self._fac.solve(x) / self._c if self._c < 1.0 else self._fac.solve(x / self._c)
+
+
 def _one_norm_condition(K: sp.csr_array, fac: Factorization, rng) -> float:
     """Hager-Higham lower bound on ||K||_1 ||K^-1||_1 (K symmetric)."""
     n = K.shape[0]
@@ -243,12 +278,18 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
     """
     K = sp.csr_array(K)
     rng = np.random.default_rng(rng)
+    # Entries near overflow (or underflow) are scaled by a power of two c, exactly, before any
+    # norm, square or eigenvalue is formed; kappa does not change, lambdas are divided back by c.
+    c = exponent_scale(K)
+    Kc, fac_c = (K, fac) if c == 1.0 else (sp.csr_array(K * c), None if fac is None else _Rescaled(fac, c))
     free = spectrum.count if free_modes is None else free_modes
     if empty_rows is None:
         empty_rows = 0 if fac is None else fac.active.size - int(fac.active.sum())
     singular = bool((fac is not None and fac.singular) or free > 0 or empty_rows > 0)
     dense = K.shape[0] <= DENSE_LIMIT
-    lam_max = float(np.linalg.eigvalsh(K.toarray())[-1]) if dense else largest_eigenvalue(K, rng=rng)
+    lam_max_c = float(np.linalg.eigvalsh(Kc.toarray())[-1]) if dense else largest_eigenvalue(Kc, rng=rng)
+    with np.errstate(over="ignore"):
+        lam_max = lam_max_c / c  # in K's units: inf when K's own lambda_max is beyond float64
     how_max = "dense eigensolver (LAPACK)" if dense else "Lanczos (residual bound 1e-3 relative)"
     s_lmin = float(np.min(np.abs(spectrum.values))) if spectrum.values.size else None
     scaled_method = (f"2-norm of S = D^-1/2 K D^-1/2 from its extreme eigenvalues ({spectrum.method}); "
@@ -273,10 +314,13 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
             one_norm_method=f"not computed: {no_factorization}", scaling_gain_digits=None,
         )
     if not dense:
-        lam_max, how_max = confirmed_lambda_max(K, fac, lam_max, how_max, rng)
-    lam_min, how_min = _lambda_min_raw(K, fac, spectrum, rng)
-    kappa = lam_max / abs(lam_min) if lam_min != 0 else math.inf
-    k1 = _one_norm_condition(K, fac, rng)
+        lam_max_c, how_max = confirmed_lambda_max(Kc, fac_c, lam_max_c, how_max, rng)
+        with np.errstate(over="ignore"):
+            lam_max = lam_max_c / c
+    lam_min_c, how_min = _lambda_min_raw(Kc, fac_c, spectrum, rng)
+    lam_min = lam_min_c / c
+    kappa = lam_max_c / abs(lam_min_c) if lam_min_c != 0 else math.inf
+    k1 = _one_norm_condition(Kc, fac_c, rng)
     gain = math.log10(kappa / s_kappa) if math.isfinite(kappa) and math.isfinite(s_kappa) and s_kappa > 0 else None
     return ConditionResult(
         singular=False, lambda_max=lam_max, lambda_min=lam_min, estimate=kappa,
