@@ -68,6 +68,7 @@ def load_model(
     load: Union[PathLike, ArrayLike, None] = None,
     solution: Union[PathLike, ArrayLike, None] = None,
     fix: Union[PathLike, DofPairs, None] = None,
+    elements=None,
 ) -> Model:
     """Read a stiffness matrix and its model context into a :class:`Model`.
 
@@ -94,6 +95,11 @@ def load_model(
     fix : path or sequence of (node, dof) pairs, optional
         Restrained degrees of freedom; their rows and columns are removed
         from the matrix, the vectors and the DOF map. Needs a DOF map.
+    elements : path, mapping {element id: node ids} or sequence of (id, node ids), optional
+        Element connectivity (:mod:`conditioning.io.elements`: file
+        ``id,node,node,...``; the kind from the node count and the model's
+        dimension). Needs coordinates; turns on the element-shape checks and
+        the real cells of the mode files.
 
     Returns
     -------
@@ -125,6 +131,14 @@ def load_model(
     n = int(K.shape[0])
     table = _dof_map(dofs, dofs_per_node, n, source, notes)
     positions = _coordinates(coords, table, notes)
+    element_table = None
+    if elements is not None:
+        from conditioning.io.elements import read_elements
+        element_table = read_elements(elements, positions, table)
+        kinds = np.unique(element_table.kind, return_counts=True)
+        from conditioning.results import ELEMENT_KINDS
+        notes.append(f"elements from {element_table.source}: {len(element_table):,} ("
+                     + ", ".join(f"{c:,} {ELEMENT_KINDS[k]}" for k, c in zip(*kinds)) + ")")
     f, load_names = _vector(load, n, "load", notes)
     u, _ = _vector(solution, n, "solution", notes)
     _require_matching_columns(solution, u, load, f)
@@ -138,7 +152,8 @@ def load_model(
         u = u[keep] if u is not None else None
     logger.info("model %s: n = %d, %d restrained", source, K.shape[0], restrained)
     return Model(K=K, source=source, dofs=table, coords=positions, load=f, solution=u,
-                 load_names=load_names, restrained=restrained, notes=tuple(notes), one_triangle=one_triangle)
+                 load_names=load_names, restrained=restrained, notes=tuple(notes), one_triangle=one_triangle,
+                 elements=element_table)
 
 
 # --------------------------------------------------------------------------- #

@@ -177,17 +177,30 @@ def _actions(r: results.Report, max_ids: int):
     """The changes to the model the findings call for, in the engineer's words."""
     lines: list[Text] = []
     restraints = r.restraints
+    seen: set[str] = set()
+    # Coincident nodes that K does not join and a free mode moves apart: merging them is the first fix.
+    merge = [f for f in r.findings if f.code == "geometry.coincident-nodes" and f.severity == "error"]
+    for f in merge:
+        first = f.advice.split(". ")[0].rstrip(".") + "."
+        lines.append(Text(f"- {first}", style="bold"))
+        seen.add(_action_text(r, f, max_ids))
     if restraints:
-        lines.append(Text(f"Add {'this support' if len(restraints) == 1 else 'these supports'} "
-                          "(one minimal choice; each must exist in the real structure):"))
+        second = [res for res in restraints if res.reason.startswith(_SECOND_CHOICE)]
+        if second:
+            lines.append(Text(f"Second choice, only if the part is meant to stand apart: add "
+                              f"{'this support' if len(restraints) == 1 else 'these supports'} "
+                              "(one minimal choice; each must exist in the real structure):"))
+        else:
+            lines.append(Text(f"Add {'this support' if len(restraints) == 1 else 'these supports'} "
+                              "(one minimal choice; each must exist in the real structure):"))
         for res in restraints[:max_ids]:
             dof = f" {res.dof}" if res.dof and res.dof != "-" else ""
             line = Text(f"  {unit_word(r)} {res.node}{dof}", style="bold")
-            line.append(f"  {res.reason}")
+            reason = res.reason.split(": ", 1)[1] if res.reason.startswith(_SECOND_CHOICE) else res.reason
+            line.append(f"  {reason}")
             lines.append(line)
         if len(restraints) > max_ids:
             lines.append(Text(f"  and {len(restraints) - max_ids:,} more (all in the JSON report)"))
-    seen: set[str] = set()
     for f in _by_severity(r.findings):
         if f.severity == "note" or f.code in _COVERED or (f.code in _COVERED_BY_RESTRAINTS and restraints):
             continue
@@ -201,6 +214,8 @@ def _actions(r: results.Report, max_ids: int):
     return Group(*lines)
 
 
+#: How a suggested support that merging coincident nodes would make needless begins its reason.
+_SECOND_CHOICE = "second choice to merging"
 #: Findings whose action is another finding's (they point at the cause, not at a change).
 _COVERED = {"digits.below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
             "spectrum.inertia-mismatch", "digits.refinement-not-converged"}

@@ -297,4 +297,27 @@ def _motion_without_coords(model: Model, motion, rows) -> str:
     return "a free motion (rotation or mechanism; coordinates would say which)"
 
 
-__all__ = ["suggest_restraints", "nonsingular_after_restraints"]
+def merging_first(restraints: list[Restraint], geometry, part_of_row, model: Model) -> list[Restraint]:
+    """The restraints with "second choice" in the reason of each one on a part
+    that coincident nodes K does not join leave free (``geometry``: the
+    :class:`~conditioning.results.GeometryChecks`): merging or tying those nodes
+    is the first fix, a support only if the part is meant to stand apart."""
+    from conditioning.stages.findings import coincident_phrase
+
+    groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
+    if not groups or not restraints or model.dofs is None:
+        return restraints
+    part_of_row = np.asarray(part_of_row)
+    moving = np.isin(model.dofs.node, [c.nodes[0] for c in groups])
+    parts = set(int(p) for p in part_of_row[moving])
+    phrase = coincident_phrase(groups)
+    out = []
+    for r in restraints:
+        if int(part_of_row[r.row]) in parts and not r.reason.startswith("second choice"):
+            r = Restraint(node=r.node, dof=r.dof, row=r.row,
+                          reason=f"second choice to merging {phrase}: {r.reason}")
+        out.append(r)
+    return out
+
+
+__all__ = ["suggest_restraints", "nonsingular_after_restraints", "merging_first"]
