@@ -381,7 +381,8 @@ def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,
     fac = _engine(engine, "auto").factorize(scaled, coords=_row_coordinates(model))
     try:
         explanation = explain_row(model, row, fac=fac, spectrum=report.spectrum, jumps=report.jumps,
-                                  restraints=report.restraints, row_base=row_base)
+                                  restraints=report.restraints, row_base=row_base,
+                                  geometry=report.geometry_checks)
     finally:
         fac.release()
     return report, explanation

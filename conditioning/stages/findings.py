@@ -975,14 +975,15 @@ def _far_node_finding(far, spectrum: Optional[SpectrumResult], jumps: list[Stiff
             caused.append(f"near-singular mode{'s' if len(carried) > 1 else ''} {_list_nodes(carried, 6)} "
                           f"{'are' if len(carried) > 1 else 'is'} carried by it")
     if pivots is not None:
-        lost = [p for p in pivots.worst if p.row in far.rows and p.digits >= 4]
+        lost = [p for p in pivots.worst[:1] if p.digits >= 1 and p.label.split(" ")[1].isdigit()
+                and int(p.label.split(" ")[1]) in near]
         if lost:
             caused.append(f"{lost[0].digits:.1f} digits are lost at the pivot of {lost[0].label}")
     if caused:
         msg += " Tied to it: " + "; ".join(caused) + "."
     return Finding(
         "warning", "geometry.far-node", msg, [far.node],
-        f"Check node {far.node}'s coordinates where the model was built (a length in the wrong unit, a "
+        "Check its coordinates where the model was built (a length in the wrong unit, a "
         "misplaced decimal point) and export K again: K was assembled with them, so the elements at it are "
         "distorted. If it is a reference node coupled on purpose, nothing to change.")
 
