@@ -64,9 +64,8 @@ def _load(path: str, args, progress: Optional[ProgressCallback]):
 
     if progress:
         progress("reading", None)
-    return load_model(path, dofs=args.dofs, dofs_per_node=args.dof_names or args.dofs_per_node,
-                      coords=args.coords, load=args.load, solution=args.solution, fix=args.fix,
-                      elements=getattr(args, "elements", None))
+    return load_model(path, dofs=args.dofs, dofs_per_node=args.dof_names or args.dofs_per_node, coords=args.coords,
+                      load=args.load, solution=args.solution, fix=args.fix, elements=vars(args).get("elements"))
 
 
 def diagnose_model(model, **kwargs) -> results.Report:

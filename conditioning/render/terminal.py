@@ -362,7 +362,30 @@ def _model(r: results.Report, max_ids: int, verbose: bool):
                   + (f"{' and '.join(given)} given" if given else "no load given")
                   + (f"; {s.restrained:,} restrained rows removed" if s.restrained else "") + ".")]
     lines.append(Text(_structure_line(st, max_ids, r.geometry)))
+    geometry = _geometry_line(r.geometry_checks)
+    if geometry:
+        lines.append(Text(geometry))
     return Group(*lines)
+
+
+def _geometry_line(c: Optional[results.GeometryChecks]) -> str:
+    """One sentence on the geometry checks, when they found something or read elements."""
+    if c is None or not (c.coincident or c.far or c.elements is not None):
+        return ""
+    loose = sum(1 for g in c.coincident if g.joined == "no")
+    partly = len(c.coincident) - loose
+    parts = [f"{loose:,} coincident node group{'s' if loose != 1 else ''} K does not join" if loose else
+             "no coincident nodes K does not join"]
+    if partly:
+        parts.append(f"{partly:,} partly tied (hinges or releases)")
+    parts.append(f"{len(c.far):,} node{'s' if len(c.far) != 1 else ''} far from every node coupled to it"
+                 if c.far else "no node far from its coupled nodes")
+    if c.elements is not None:
+        flagged = len({e.element for e in c.flagged_elements})
+        kinds = ", ".join(f"{v:,} {k}" for k, v in c.element_kinds.items())
+        parts.append(f"{c.elements:,} elements ({kinds}), "
+                     + (f"{flagged:,}{'+' if flagged >= 50 else ''} of poor shape" if flagged else "none of poor shape"))
+    return "Geometry: " + "; ".join(parts) + "."
 
 
 def _model_grid(r: results.Report):

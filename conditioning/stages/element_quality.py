@@ -187,7 +187,8 @@ def _quality(eid: int, kind: str, nodes, m: dict, j: int, sign: float) -> Elemen
         if not aspect <= ASPECT_RATIO_MAX:
             problems.append("aspect ratio")
         lo, hi = m["limits"]
-        if angle is not None and (np.min(angle) < lo or np.max(angle) > hi) and not {"inverted", "collapsed"} & set(problems):
+        broken = bool({"inverted", "collapsed"} & set(problems))
+        if angle is not None and (np.min(angle) < lo or np.max(angle) > hi) and not broken:
             problems.append("angle")
         if warping is not None and warping > WARPING_MAX:
             problems.append("warping")
