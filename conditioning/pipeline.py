@@ -112,6 +112,8 @@ def diagnose(
     solution=None,
     fix=None,
     elements=None,
+    basis=None,
+    mesh=None,
     samples: int = 3,
     seed: int = 0,
     min_digits: float = 4.0,
@@ -179,7 +181,8 @@ def diagnose(
     else:
         with stage("reading"):
             model = load_model(matrix, dofs=dofs, dofs_per_node=dofs_per_node, coords=coords,
-                               load=load, solution=solution, fix=fix, elements=elements)
+                               load=load, solution=solution, fix=fix, elements=elements,
+                               basis=basis, mesh=mesh)
     run = _Run(
         stage=stage, rng=np.random.default_rng(seed), seed=seed, samples=samples, min_digits=min_digits,
         measure=measure, memory_limit=default_memory_limit() if memory_limit is None else memory_limit,

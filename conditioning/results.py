@@ -877,8 +877,8 @@ class ElementQuality:
     face); None for other kinds."""
     scaled_jacobian: float
     """Smallest corner Jacobian determinant over the product of the corner's
-    edge lengths, signed relative to the orientation of most elements of the
-    mesh (dimensionless: the sine of the corner angle for a face; 1 for a
+    edge lengths, signed relative to the element's own orientation (the sign
+    of the sum of its corner Jacobians; dimensionless: the sine of the corner angle for a face; 1 for a
     rectangle or a box; 1/sqrt(2) at the corners of a regular tetrahedron;
     0 for a collapsed corner; negative for an inverted one)."""
     jacobian_ratio: float

@@ -180,3 +180,48 @@ def test_cli_elements_bad_input_and_vtu_cells(tmp_path):
     grid = meshio.read(str(vtu))
     quads = [c for c in grid.cells if c.type == "quad"]
     assert quads and quads[0].data.shape == (8, 4)
+
+
+# ------------------------------------------------ scikit-fem basis, mesh files
+def _basis_model(mesh, element):
+    from skfem.models.elasticity import lame_parameters, linear_elasticity
+    basis = skfem.Basis(mesh, skfem.ElementVector(element))
+    K = linear_elasticity(*lame_parameters(210000.0, 0.3)).assemble(basis)
+    return basis, (K + K.T) / 2
+
+
+@pytest.mark.parametrize("make", [
+    lambda: (skfem.MeshTri.init_symmetric().refined(2), skfem.ElementTriP1()),
+    lambda: (skfem.MeshQuad.init_tensor(np.linspace(0, 4, 5), np.linspace(0, 2, 3)), skfem.ElementQuad1()),
+    lambda: (skfem.MeshTet.init_tensor(*[np.linspace(0, 1, 3)] * 3), skfem.ElementTetP1()),
+    lambda: (skfem.MeshHex.init_tensor(*[np.linspace(0, 1, 3)] * 3), skfem.ElementHex1()),
+])
+def test_basis_gives_map_coordinates_and_healthy_elements(make):
+    """load_model(K, basis=...) numbers rows as scikit-fem does (nodal_dofs) and
+    reads its mesh's elements; a healthy mesh flags none (an inverted corner order
+    of scikit-fem's hexahedra would flag every one)."""
+    mesh, element = make()
+    basis, K = _basis_model(mesh, element)
+    model = load_model(K, basis=basis)
+    for c in range(basis.nodal_dofs.shape[0]):
+        rows = basis.nodal_dofs[c]
+        assert np.all(model.dofs.node[rows] == np.arange(mesh.p.shape[1]) + 1)
+        assert np.all(model.dofs.dof[rows] == c)
+    np.testing.assert_array_equal(model.coords.xyz[:, : mesh.p.shape[0]], mesh.p.T)
+    assert len(model.elements) == mesh.t.shape[1]
+    measures = element_measures(model)
+    assert not [q for q in measures if q.problems], [q for q in measures if q.problems][:2]
+
+
+def test_mesh_file_read_with_meshio(tmp_path):
+    meshio = pytest.importorskip("meshio")
+    ref, elements, p, t = plate_with()
+    path = tmp_path / "plate.vtu"
+    # vertex i of scikit-fem is node i + 1 (fe_reference); a point array names the ids
+    meshio.write(str(path), meshio.Mesh(np.c_[p.T, np.zeros(p.shape[1])], [("quad", t.T)],
+                                        point_data={"node": np.arange(p.shape[1]) + 1}))
+    model = load_model(ref.K, dofs=ref.dofs, mesh=str(path))
+    assert len(model.elements) == t.shape[1]
+    np.testing.assert_array_equal(model.coords.xyz[:, :2], p.T)
+    with pytest.raises(InputError):
+        load_model(ref.K, dofs=ref.dofs, mesh=str(path), coords=ref.coords)

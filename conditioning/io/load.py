@@ -69,6 +69,8 @@ def load_model(
     solution: Union[PathLike, ArrayLike, None] = None,
     fix: Union[PathLike, DofPairs, None] = None,
     elements=None,
+    basis=None,
+    mesh=None,
 ) -> Model:
     """Read a stiffness matrix and its model context into a :class:`Model`.
 
@@ -100,6 +102,15 @@ def load_model(
         ``id,node,node,...``; the kind from the node count and the model's
         dimension). Needs coordinates; turns on the element-shape checks and
         the real cells of the mode files.
+    basis : scikit-fem Basis, optional
+        A vector basis whose every DOF sits at a vertex: gives the DOF map
+        (``basis.nodal_dofs``), the coordinates and the elements of its mesh
+        (:func:`conditioning.io.mesh_context.from_basis`) where ``dofs``,
+        ``coords`` and ``elements`` are not given.
+    mesh : path, optional
+        A mesh file meshio reads (Gmsh, VTK/VTU, XDMF; the optional ``mesh``
+        extra): coordinates and elements, linked to K's rows through the DOF
+        map (:func:`conditioning.io.mesh_context.read_mesh`). Not with ``coords``.
 
     Returns
     -------
@@ -129,6 +140,20 @@ def load_model(
     K, source, notes = _read_stiffness(matrix)
     K, one_triangle = mirror_one_triangle_export(K, notes)
     n = int(K.shape[0])
+    if basis is not None:
+        from conditioning.io.mesh_context import from_basis
+        b_dofs, b_coords, b_elements = from_basis(basis, n)
+        dofs = b_dofs if dofs is None and dofs_per_node is None else dofs
+        coords = b_coords if coords is None else coords
+        elements = b_elements if elements is None else elements
+        notes.append("DOF map, coordinates and elements from the scikit-fem basis")
+    if mesh is not None:
+        if coords is not None:
+            raise InputError(str(mesh), "give either a mesh file or coordinates, not both")
+        from conditioning.io.mesh_context import read_mesh
+        coords, m_elements = read_mesh(str(mesh))
+        elements = m_elements if elements is None else elements
+        notes.append(f"coordinates and elements from the mesh {mesh}")
     table = _dof_map(dofs, dofs_per_node, n, source, notes)
     positions = _coordinates(coords, table, notes)
     element_table = None

@@ -10,10 +10,15 @@ stiffness is wrong rather than merely inaccurate. The measures come from
 :mod:`conditioning.linalg.element_shape` and use the corner nodes only (the
 midside nodes of second-order elements are not checked).
 
-Signs are taken relative to the mesh: the orientation of most elements of a
-dimension (faces of a 2D model; solids) is the positive one, so that a mesh
-numbered clockwise throughout is not called inverted; an element of the
-other orientation, or with corners of both signs, is.
+Signs are taken relative to the element itself (the sign of the sum of its
+corner Jacobians is its orientation): an element is inverted or folded when
+its corner Jacobians have both signs (a non-convex or bow-tie quadrilateral,
+a folded hexahedron). Reversing the node order of a whole element changes
+every sign at once and, for an assembler that integrates with |det J|,
+leaves its stiffness unchanged, so it is not called inverted; nor is a
+triangle or tetrahedron ever, whose one Jacobian has one sign (scikit-fem's
+triangle meshes mix both orders). A corner Jacobian near zero is a
+collapsed element, whatever the kind.
 """
 
 from __future__ import annotations
@@ -118,7 +123,6 @@ def element_measures(model: Model) -> list[ElementQuality]:
     table, coords = model.elements, model.coords
     planar = coords.dim == 2
     out: list[Optional[ElementQuality]] = [None] * len(table)
-    families = {"face": [], "solid": []}
     computed = {}
     for k in np.unique(table.kind):
         kind = ELEMENT_KINDS[int(k)]
@@ -127,16 +131,10 @@ def element_measures(model: Model) -> list[ElementQuality]:
         nodes = np.stack([table.nodes_of(int(i))[:corners] for i in idx])
         P = coords.lookup(nodes.ravel()).reshape(idx.size, corners, 3)
         computed[kind] = (idx, nodes, _measure(kind, P, planar))
-        if kind.startswith(("tri", "quad")) and planar:
-            families["face"].append(computed[kind][2]["det"].sum(axis=1))
-        elif kind.startswith(("tet", "hex")):
-            families["solid"].append(computed[kind][2]["det"].sum(axis=1))
-    orient = {f: (1.0 if not v or np.median(np.concatenate(v)) >= 0 else -1.0) for f, v in families.items()}
     for kind, (idx, nodes, m) in computed.items():
-        family = "solid" if kind.startswith(("tet", "hex")) else "face" if planar else None
-        sign = orient.get(family, 1.0)
+        own = np.where(m["det"].sum(axis=1) < 0, -1.0, 1.0)  # each element's own orientation
         for j, i in enumerate(idx):
-            out[i] = _quality(int(table.ids[i]), kind, table.nodes_of(int(i)), m, j, sign)
+            out[i] = _quality(int(table.ids[i]), kind, table.nodes_of(int(i)), m, j, float(own[j]))
     return out
 
 

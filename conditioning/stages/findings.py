@@ -58,7 +58,7 @@ CODES = {
     "geometry.coincident-partly-tied": "coincident nodes K ties in some DOF types only (a hinge or release "
                                        "modelled with duplicate nodes)",
     "geometry.far-node": "a node far from every node it is coupled to (a coordinate in the wrong unit or a typo)",
-    "geometry.element-inverted": "elements whose corner Jacobian changes sign: inverted or folded",
+    "geometry.element-inverted": "elements whose corner Jacobians have both signs: inverted or folded",
     "geometry.element-collapsed": "elements with a corner Jacobian near zero: collapsed onto a line or a plane",
     "geometry.element-shape": "elements with a poor shape (aspect ratio, corner angles, warping, Jacobian ratio)",
 }
@@ -1015,13 +1015,13 @@ def _element_findings(geometry: GeometryChecks) -> list[Finding]:
         out.append(Finding(
             severity, code,
             f"{total:,} element{'s' if total != 1 else ''} "
-            + {"inverted": "inverted or folded (a corner Jacobian of the opposite sign)",
+            + {"inverted": "inverted or folded (corner Jacobians of both signs)",
                "collapsed": "collapsed (a corner Jacobian near zero)",
                None: f"of poor shape ({counts})"}[problem]
             + f": element{'s' if len(ids) > 1 else ''} {shown}" + (f" and {more:,} more" if more > 0 else "")
             + f". Worst, element {worst.element} ({worst.kind}; nodes {_list_nodes(worst.nodes, 8)}): {what}.",
             sorted({v for e in hit[:ELEMENTS_NAMED] for v in e.nodes}),
-            {"inverted": "Renumber the element's nodes in the usual order (counter-clockwise in 2D) or "
+            {"inverted": "Check the element's node order (corners in turn around it, not across it) or "
                          "move the node that folds it; K from an inverted element is wrong, not just inaccurate.",
              "collapsed": "Move or merge the nodes that collapse it, or remove the element: it adds "
                           "almost no stiffness in one direction and degrades K.",

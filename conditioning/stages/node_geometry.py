@@ -88,6 +88,8 @@ def check_node_geometry(model: Model, structure: StructureResult,
     """
     if model.dofs is None or model.coords is None or model.K.nnz > MAX_ENTRIES:
         return None
+    if not np.all(model.coords.has(model.dofs.nodes)):
+        return None  # a Model built by hand without every position (load_model requires them)
     graph = _NodeGraph(model)
     coincident = _coincident_groups(model, graph, structure, modes)
     far = _far_nodes(model, graph)
@@ -109,12 +111,7 @@ class _NodeGraph:
         m = self.nodes.size
         self.row_node = np.searchsorted(self.nodes, model.dofs.node)
         self.xyz = model.coords.lookup(self.nodes)
-        coo = sp.coo_array(model.K)
-        a, b = self.row_node[coo.row], self.row_node[coo.col]
-        off = a != b
-        A = sp.csr_array((np.ones(int(off.sum())), (a[off], b[off])), shape=(m, m))
-        A.sum_duplicates()
-        self.adjacency = A
+        self.adjacency = A = _node_adjacency(sp.csr_array(model.K), self.row_node, m)
         rows = np.repeat(np.arange(m), np.diff(A.indptr))
         self.length = np.linalg.norm(self.xyz[rows] - self.xyz[A.indices], axis=1)
         # members of positive length, each row's lengths sorted ascending
@@ -140,6 +137,31 @@ class _NodeGraph:
         has = self.degree > 0
         out[has] = self.sorted_lengths[self.members.indptr[:-1][has] + (self.degree[has] - 1) // 2]
         return out
+
+
+#: Entries of K turned into node pairs at a time (bounds the temporary arrays).
+_CHUNK = 1 << 22
+
+
+def _node_adjacency(K: sp.csr_array, row_node: NDArray[np.intp], m: int) -> sp.csr_array:
+    """(m, m) pattern of node pairs K couples (no diagonal), built a block of rows at a time."""
+    A = sp.csr_array((m, m))
+    start = 0
+    n = K.shape[0]
+    while start < n:
+        stop = int(np.searchsorted(K.indptr, K.indptr[start] + _CHUNK, side="right")) - 1
+        stop = min(max(stop, start + 1), n)
+        lo, hi = K.indptr[start], K.indptr[stop]
+        rows = np.repeat(np.arange(start, stop), np.diff(K.indptr[start:stop + 1]))
+        a, b = row_node[rows], row_node[K.indices[lo:hi]]
+        off = a != b
+        block = sp.csr_array((np.ones(int(off.sum())), (a[off], b[off])), shape=(m, m))
+        block.sum_duplicates()
+        block.data[:] = 1.0
+        A = A + block
+        start = stop
+    A.data[:] = 1.0
+    return A
 
 
 # ------------------------------------------------------------- coincident
