@@ -210,3 +210,14 @@ def test_every_geometry_key_is_documented():
     collect(report_to_dict(conditioning.diagnose(ref.K, dofs=ref.dofs, coords=ref.coords,
                                                  measure=False))["geometry_checks"])
     assert not sorted(keys - documented)
+
+
+def test_explain_from_a_saved_report_names_the_far_node(tmp_path):
+    from conditioning.pipeline import explain_from_report
+    from conditioning.render.json_report import write_json
+    ref, _ = moved_plate()
+    model = Model(ref.K, dofs=ref.dofs, coords=ref.coords)
+    path = tmp_path / "plate.json"
+    write_json(conditioning.diagnose(model, measure=False), path)
+    e = explain_from_report(model, int(np.flatnonzero(ref.dofs.node == 23)[0]), path)
+    assert e.advice[0].startswith("Check the coordinates of node 23")

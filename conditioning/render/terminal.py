@@ -244,6 +244,14 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
         label = f.message.split(" at the pivot of ", 1)[-1].split(":", 1)[0]
         return (f"{label[0].upper() + label[1:]} is nearly unsupported once the rest is eliminated: "
                 "check its supports and the members that hold it.")
+    if f.code.startswith("geometry.element-") and r.geometry_checks is not None:
+        problem = f.code.rsplit("-", 1)[1]
+        broken = {"inverted", "collapsed"}
+        ids = sorted(e.element for e in r.geometry_checks.flagged_elements
+                     if problem in e.problems or (problem == "shape" and not broken & set(e.problems)))
+        if ids:
+            more = f" and {len(ids) - max_ids:,} more" if len(ids) > max_ids else ""
+            return f"Element{'s' if len(ids) > 1 else ''} {', '.join(map(str, ids[:max_ids]))}{more}: {f.advice}"
     where = _where(r, f.nodes, max_ids) if f.nodes else ""
     advice = f.advice or f.message
     return f"{where[0].upper() + where[1:]}: {advice}" if where else advice

@@ -136,6 +136,10 @@ def explain_saved_row(model: Model, row: int, saved: "SavedReport", *, row_base:
     d = model.K.diagonal()
     explanation = _explain(model, row, _saved_pivot(saved, row, d[row]), _saved_shares(saved, d, row),
                            saved.jumps, saved.restraints, row_base)
+    first = geometry_advice(model, row, getattr(saved, "geometry", None))
+    if first:
+        rest = [a for a in explanation.advice if not a.startswith("Nothing at this row needs changing")]
+        explanation = replace(explanation, advice=first + rest)
     return replace(explanation, from_report=saved.path)
 
 

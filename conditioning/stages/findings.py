@@ -1005,7 +1005,7 @@ def _element_findings(geometry: GeometryChecks) -> list[Finding]:
             total = geometry.flagged_count.get(problem, len(hit))
         if not hit:
             continue
-        ids = [e.element for e in hit]
+        ids = sorted(e.element for e in hit)
         shown = ", ".join(str(i) for i in ids[:ELEMENTS_NAMED])
         more = max(len(hit), 0) - ELEMENTS_NAMED
         worst = hit[0]
