@@ -63,6 +63,8 @@ def test_bracket_leads_with_merging_the_pad_nodes():
     assert first.advice.startswith("Merge nodes 201-205 onto nodes 83-87")
     assert "nodes 201-205 onto nodes 83-87" in report.verdict and report.verdict.startswith("singular")
     assert all(r.reason.startswith("second choice to merging") for r in report.restraints)
+    rigid = [f for f in report.findings if f.code == "support.rigid-body-mode"]
+    assert len(rigid) == 3 and all(f.advice.startswith("First merge nodes 201-205 onto nodes 83-87") for f in rigid)
     actions = what_to_do(report)
     assert actions[0].startswith("- Merge nodes 201-205 onto nodes 83-87"), actions
     assert any(a.startswith("Second choice") for a in actions[1:]), actions

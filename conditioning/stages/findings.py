@@ -157,6 +157,7 @@ def build_findings(
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(digits, min_digits)
     )
+    out = _merging_first(out, spectrum, geometry)
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
     return out
@@ -1071,3 +1072,24 @@ def verdict_with_geometry(line: str, status: str, findings: list[Finding],
         tail = line[at + 2:] if at >= 0 else ""
         return f"suspect geometry: {text}" + (f"; {tail}" if tail else ""), status
     return f"{line}; {text}", status
+
+
+def _merging_first(findings: list[Finding], spectrum: Optional[SpectrumResult],
+                   geometry: Optional[GeometryChecks]) -> list[Finding]:
+    """The advice of a free-mode finding whose mode moves coincident nodes apart
+    that K does not join starts with merging them (supports second)."""
+    if geometry is None or spectrum is None:
+        return findings
+    from dataclasses import replace as _replace
+
+    out = []
+    for f in findings:
+        if f.code in ("support.rigid-body-mode", "support.mechanism"):
+            modes = {k + 1 for k, m in enumerate(spectrum.modes) if list(m.nodes) == list(f.nodes)}
+            groups = [c for c in geometry.coincident if c.joined == "no" and modes & set(c.moved_apart_by)]
+            if groups:
+                f = _replace(f, advice=f"First merge {coincident_phrase(groups)} (or tie them): K does not join "
+                                       f"them; only if the part is meant to stand apart: {f.advice[0].lower()}"
+                                       f"{f.advice[1:]}")
+        out.append(f)
+    return out
