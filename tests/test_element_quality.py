@@ -225,3 +225,27 @@ def test_mesh_file_read_with_meshio(tmp_path):
     np.testing.assert_array_equal(model.coords.xyz[:, :2], p.T)
     with pytest.raises(InputError):
         load_model(ref.K, dofs=ref.dofs, mesh=str(path), coords=ref.coords)
+
+
+def test_warped_quadrilateral_closed_form():
+    """Corner (1, 1) lifted by h: the triangles of the diagonal 0-2 have normals
+    (0, -h, 1) and (-h, 0, 1), at acos(1 / (1 + h^2)) (the larger of the two splits)."""
+    h = 0.2
+    P = np.array([[[0, 0, 0], [1, 0, 0], [1, 1, h], [0, 1, 0.0]]])
+    assert shape.quad_warping(P)[0] == pytest.approx(math.degrees(math.acos(1 / (1 + h * h))), rel=1e-12)
+
+
+def test_shell_quadrilaterals_in_3d_are_read_with_rotations(tmp_path):
+    """In a 3D model whose nodes carry rotations, 4 nodes are a shell quadrilateral, not a tetrahedron."""
+    import scipy.sparse as sp
+    from conditioning.model import DofTable, Coordinates
+    n_nodes = 4
+    dofs = DofTable(np.repeat(np.arange(1, n_nodes + 1), 6), np.tile(np.arange(6, dtype=np.int8), n_nodes))
+    coords = Coordinates(np.arange(1, 5), np.array([[0, 0, 0], [1, 0, 0], [1, 1, 0.3], [0, 1, 0.0]]), 3)
+    K = sp.identity(24, format="csr") * 2.0 - sp.eye(24, k=6, format="csr") - sp.eye(24, k=-6, format="csr")
+    model = load_model(K, dofs=dofs, coords=coords, elements={7: [1, 2, 3, 4]})
+    (q,) = element_measures(model)
+    assert q.kind == "quad4" and "warping" in q.problems
+    translations = DofTable(np.repeat(np.arange(1, 5), 3), np.tile(np.arange(3, dtype=np.int8), 4))
+    model = load_model(sp.identity(12, format="csr"), dofs=translations, coords=coords, elements={7: [1, 2, 3, 4]})
+    assert model.elements.kind_name(0) == "tet4"
