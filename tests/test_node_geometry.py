@@ -223,3 +223,12 @@ def test_explain_from_a_saved_report_names_the_far_node(tmp_path):
     write_json(conditioning.diagnose(model, measure=False), path)
     e = explain_from_report(model, int(np.flatnonzero(ref.dofs.node == 23)[0]), path)
     assert e.advice[0].startswith("Check the coordinates of node 23")
+
+
+def test_html_draws_the_geometry_figure(tmp_path):
+    pytest.importorskip("matplotlib")
+    from conditioning.render.html import render_html
+    report = conditioning.diagnose(scenarios()["bracket_loose_pad"].model, measure=False)
+    assert 'alt="Geometry checks"' in render_html(report)
+    healthy = conditioning.diagnose(scenarios()["footbridge"].model, measure=False)
+    assert 'alt="Geometry checks"' not in render_html(healthy)
