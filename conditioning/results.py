@@ -902,6 +902,9 @@ class GeometryChecks:
     DOF types; empty when none."""
     far: list[FarNode]
     """Nodes far from every node K couples them to; empty when none."""
+    coincident_total: int = 0
+    """Groups of ``coincident`` found, all counted (the list keeps at most
+    :data:`conditioning.stages.node_geometry.MAX_GROUPS`)."""
     elements: Optional[int] = None
     """Elements read from ``--elements``; None without an element table."""
     element_kinds: dict[str, int] = field(default_factory=dict)

@@ -58,6 +58,10 @@ FAR_FACTOR = 8.0
 #: translation is at least this share of the mode's largest translation (the
 #: project's choice: the modes stage names nodes from 1% of the largest).
 APART_SHARE = 0.01
+#: Coincident groups listed in the report at most (all are counted in
+#: ``GeometryChecks.coincident_total``). The project's choice: an interface
+#: of a few thousand duplicate nodes is one finding either way.
+MAX_GROUPS = 2000
 #: Stored entries of K beyond which the checks do not run (the node graph
 #: would cost about 24 bytes per entry). The project's choice.
 MAX_ENTRIES = 200_000_000
@@ -97,7 +101,7 @@ def check_node_geometry(model: Model, structure: StructureResult,
     coincident = _coincident_groups(model, graph, structure, modes)
     far = _far_nodes(model, graph)
     logger.info("geometry: %d coincident group(s), %d far node(s)", len(coincident), len(far))
-    return GeometryChecks(method=METHOD, coincident=coincident, far=far,
+    return GeometryChecks(method=METHOD, coincident=_cap(coincident), far=far, coincident_total=len(coincident),
                           thresholds={"coincident_share": COINCIDENT_SHARE, "far_factor": FAR_FACTOR,
                                       "apart_share": APART_SHARE})
 
@@ -113,8 +117,11 @@ class _NodeGraph:
         self.nodes = model.dofs.nodes
         m = self.nodes.size
         self.row_node = np.searchsorted(self.nodes, model.dofs.node)
+        self._by_node = np.argsort(self.row_node, kind="stable")
+        self._first = np.searchsorted(self.row_node[self._by_node], np.arange(m + 1))
         self.xyz = model.coords.lookup(self.nodes)
-        self.adjacency = A = _node_adjacency(sp.csr_array(model.K), self.row_node, m)
+        self.K = sp.csr_array(model.K)
+        self.adjacency = A = _node_adjacency(self.K, self.row_node, m)
         rows = np.repeat(np.arange(m), np.diff(A.indptr))
         self.length = np.linalg.norm(self.xyz[rows] - self.xyz[A.indices], axis=1)
         # members of positive length, each row's lengths sorted ascending
@@ -126,6 +133,10 @@ class _NodeGraph:
         self.sorted_lengths = P.data[order]
         self.sorted_to = P.indices[order]
         self.degree = np.diff(P.indptr)
+
+    def rows_of(self, k: int) -> NDArray[np.intp]:
+        """0-based rows of node index k, ascending."""
+        return self._by_node[self._first[k]:self._first[k + 1]]
 
     def shortest(self) -> NDArray[np.float64]:
         """(m,) shortest member at each node (NaN for a node without one)."""
@@ -212,29 +223,42 @@ def _coincident_groups(model: Model, g: _NodeGraph, structure: StructureResult,
     return out
 
 
+def _cap(groups: list[CoincidentNodes]) -> list[CoincidentNodes]:
+    return groups[:MAX_GROUPS]
+
+
 def _classify(model: Model, g: _NodeGraph, idx: NDArray[np.intp]):
     """("no" | "partly", tied DOF names, free DOF names), or None when K ties
     every shared DOF type between them (a zero-length tie: nothing to say)."""
-    sub = g.adjacency[idx][:, idx]
-    clusters, _ = connected_components(sub, directed=False)
-    rows_of = [np.flatnonzero(g.row_node == k) for k in idx]
+    if idx.size == 2:
+        clusters = 1 if _stored(g.adjacency, int(idx[0]), int(idx[1])) else 2
+    else:
+        clusters, _ = connected_components(g.adjacency[idx][:, idx], directed=False)
+    rows_of = [g.rows_of(int(k)) for k in idx]
     dof_sets = [set(int(d) for d in model.dofs.dof[r]) for r in rows_of]
     shared = sorted(set.intersection(*dof_sets))
     if clusters > 1:
         return "no", [], [DOF_NAMES[d] for d in shared]
-    K = sp.csr_array(model.K)
     tied = set()
     for p in range(len(idx)):
         for q in range(p + 1, len(idx)):
             for d in shared:
                 rp = rows_of[p][model.dofs.dof[rows_of[p]] == d]
                 rq = rows_of[q][model.dofs.dof[rows_of[q]] == d]
-                if rp.size and rq.size and K[int(rp[0]), int(rq[0])] != 0:
+                if rp.size and rq.size and _stored(g.K, int(rp[0]), int(rq[0])):
                     tied.add(d)
     free = [d for d in shared if d not in tied]
     if not free:
         return None
     return "partly", [DOF_NAMES[d] for d in sorted(tied)], [DOF_NAMES[d] for d in free]
+
+
+def _stored(A: sp.csr_array, i: int, j: int) -> bool:
+    """True when the CSR matrix A stores a nonzero at (i, j)."""
+    lo, hi = A.indptr[i], A.indptr[i + 1]
+    cols = A.indices[lo:hi]
+    hit = np.flatnonzero(cols == j)
+    return bool(hit.size and A.data[lo + hit[0]] != 0)
 
 
 def _mode_displacements(model: Model, g: _NodeGraph, modes: Sequence[NearSingularMode]):
@@ -311,7 +335,7 @@ def _far_node(model: Model, g: _NodeGraph, v: int, nearest: float, usual: float)
     near = int(nb[np.argmin(P.data[lo:hi])])
     d = np.abs(model.K.diagonal())
     t = np.isin(model.dofs.dof, TRANSLATIONS)
-    own = np.flatnonzero((g.row_node == v) & t)
+    own = g.rows_of(v)[t[g.rows_of(v)]]
     theirs = np.flatnonzero(np.isin(g.row_node, nb) & t)
     softer = None
     if own.size and theirs.size and np.median(d[own]) > 0:
