@@ -825,6 +825,33 @@ class CoincidentNodes:
 
 
 @dataclass(frozen=True)
+class TouchingParts:
+    """A connected part whose nodes come close to another part's without
+    sharing stiffness with it (:mod:`conditioning.stages.node_geometry`): two
+    parts meshed separately, resting on each other with nodes that do not
+    coincide (a block on a pedestal), or separated by a small gap."""
+
+    part: int
+    """The part (1-based, as :attr:`NearSingularMode.part`); the one with free
+    modes when one of the two has them."""
+    other_part: int
+    """The part it comes close to (1-based)."""
+    gap: float
+    """Smallest distance from a node of ``part`` to a node of ``other_part``
+    (model length unit)."""
+    share: float
+    """Smallest of those distances over the shortest member at the node
+    (dimensionless); at most :data:`conditioning.stages.node_geometry.TOUCH_SHARE`."""
+    nodes: list[int]
+    """Nodes of ``part`` that close to ``other_part``."""
+    other_nodes: list[int]
+    """Their nearest nodes of ``other_part``."""
+    moved_apart_by: list[int]
+    """1-based near-singular modes of ``part`` (rigid-body or mechanism):
+    tying the parts removes them. Empty when it has none."""
+
+
+@dataclass(frozen=True)
 class FarNode:
     """A node far from every node K couples it to (:mod:`conditioning.stages.node_geometry`):
     a coordinate in the wrong unit or with a typo, or a reference node coupled on purpose."""
@@ -902,6 +929,9 @@ class GeometryChecks:
     DOF types; empty when none."""
     far: list[FarNode]
     """Nodes far from every node K couples them to; empty when none."""
+    touching: list[TouchingParts] = field(default_factory=list)
+    """Parts close to another part that share no stiffness with it (nodes
+    that do not coincide); empty when none."""
     coincident_total: int = 0
     """Groups of ``coincident`` found, all counted (the list keeps at most
     :data:`conditioning.stages.node_geometry.MAX_GROUPS`)."""

@@ -211,6 +211,10 @@ def test_every_geometry_key_is_documented():
     ref, _ = moved_plate()
     collect(report_to_dict(conditioning.diagnose(ref.K, dofs=ref.dofs, coords=ref.coords,
                                                  measure=False))["geometry_checks"])
+    ref, _ = block_on_pedestal()
+    collect(report_to_dict(conditioning.diagnose(ref.K, dofs=ref.dofs, coords=ref.coords,
+                                                 measure=False))["geometry_checks"])
+    assert {"touching", "other_part", "share", "coincident", "far", "moved_apart_by"} <= keys
     assert not sorted(keys - documented)
 
 
@@ -232,3 +236,29 @@ def test_html_draws_the_geometry_figure(tmp_path):
     assert 'alt="Geometry checks"' in render_html(report)
     healthy = conditioning.diagnose(scenarios()["footbridge"].model, measure=False)
     assert 'alt="Geometry checks"' not in render_html(healthy)
+
+
+def block_on_pedestal():
+    """A steel block (20 x 20 x 10, 10-unit hexahedra) meshed on its own on a
+    concrete pedestal (30 x 30 x 20, 10-unit hexahedra) held 3-2-1, offset by half
+    an element: its bottom nodes (scikit-fem's vertices at z = 20) sit on the
+    pedestal's top face between the pedestal's nodes, at sqrt(5^2 + 5^2) from
+    the nearest."""
+    pedestal = solid_block(nx=3, ny=3, nz=2, size=(30.0, 30.0, 20.0), E=30000.0)
+    block = solid_block(nx=2, ny=2, nz=1, size=(20.0, 20.0, 10.0), origin=(5.0, 5.0, 20.0))
+    shift = int(pedestal.coords.node.max())
+    bottom = [int(k) + shift for k, p in zip(block.coords.node, block.coords.xyz) if p[2] == 20.0]
+    return restrained(_stack(pedestal, block), three_two_one_supports(pedestal)), bottom
+
+
+def test_a_block_resting_on_a_pedestal_leads_with_tying_them():
+    ref, bottom = block_on_pedestal()
+    report = conditioning.diagnose(ref.K, dofs=ref.dofs, coords=ref.coords, measure=False)
+    (t,) = report.geometry_checks.touching
+    assert (t.part, t.other_part, t.nodes) == (2, 1, bottom)
+    assert t.gap == pytest.approx(50 ** 0.5, rel=1e-12) and t.moved_apart_by == [1, 2, 3, 4, 5, 6]
+    first = report.findings[0]
+    assert first.code == "geometry.touching-parts" and first.severity == "error"
+    assert report.verdict.startswith("singular") and "part 2 rests within 7.07 of part 1" in report.verdict
+    assert what_to_do(report)[0].startswith("- Tie part 2 to part 1 where they touch")
+    assert all(r.reason.startswith("second choice to tying part 2 to part 1") for r in report.restraints)

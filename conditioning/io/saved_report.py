@@ -27,7 +27,8 @@ from numpy.typing import NDArray
 from conditioning.errors import InputError
 from conditioning.model import DOF_NAMES, Model, matrix_fingerprint
 from conditioning.results import REPORT_SCHEMA as SCHEMA
-from conditioning.results import CoincidentNodes, FarNode, GeometryChecks, Restraint, RowShares, StiffnessJump
+from conditioning.results import (CoincidentNodes, FarNode, GeometryChecks, Restraint, RowShares, StiffnessJump,
+                                  TouchingParts)
 
 _NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
 _RERUN = "run 'conditioning diagnose MATRIX --json FILE' again with this version"
@@ -186,7 +187,8 @@ def _geometry(d: Optional[dict]) -> Optional[GeometryChecks]:
         return None
     return GeometryChecks(method=str(d.get("method", "")),
                           coincident=[_rebuild(CoincidentNodes, c) for c in d.get("coincident", [])],
-                          far=[_rebuild(FarNode, f) for f in d.get("far", [])])
+                          far=[_rebuild(FarNode, f) for f in d.get("far", [])],
+                          touching=[_rebuild(TouchingParts, t) for t in d.get("touching", [])])
 
 
 def _mode(m: dict, n: int) -> SavedMode:

@@ -179,7 +179,8 @@ def _actions(r: results.Report, max_ids: int):
     restraints = r.restraints
     seen: set[str] = set()
     # Coincident nodes that K does not join and a free mode moves apart: merging them is the first fix.
-    merge = [f for f in r.findings if f.code == "geometry.coincident-nodes" and f.severity == "error"]
+    merge = [f for f in r.findings if f.code in ("geometry.coincident-nodes", "geometry.touching-parts")
+             and f.severity == "error"]
     for f in merge:
         first = f.advice.split(". ")[0].rstrip(".") + "."
         lines.append(Text(f"- {first}", style="bold"))
@@ -215,7 +216,7 @@ def _actions(r: results.Report, max_ids: int):
 
 
 #: How a suggested support that merging coincident nodes would make needless begins its reason.
-_SECOND_CHOICE = "second choice to merging"
+_SECOND_CHOICE = "second choice to "
 #: Findings whose action is another finding's (they point at the cause, not at a change).
 _COVERED = {"digits.below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
             "spectrum.inertia-mismatch", "digits.refinement-not-converged"}

@@ -307,6 +307,11 @@ def geometry_advice(model: Model, row: int, geometry) -> list[str]:
             out.append(f"Node {node} coincides with node {', '.join(str(v) for v in c.nodes if v != node)}; K ties "
                        f"{', '.join(c.tied)} between them but not {', '.join(c.free)} (a release modelled with "
                        "duplicate nodes): nothing to change if that is meant.")
+    for t in getattr(geometry, "touching", []):
+        if node in t.nodes and t.moved_apart_by:
+            out.append(f"Tie part {t.part} to part {t.other_part} where it rests on it (this node is {t.share:.2f} "
+                       f"of a member length from part {t.other_part}, which shares no stiffness with it): that "
+                       "removes its free modes; supports are the second choice.")
     for f in geometry.far:
         xyz = ", ".join(f"{v:.6g}" for v in (f.position if any(f.position[2:]) else f.position[:2]))
         if node == f.node:

@@ -58,6 +58,8 @@ CODES = {
     "geometry.coincident-partly-tied": "coincident nodes K ties in some DOF types only (a hinge or release "
                                        "modelled with duplicate nodes)",
     "geometry.far-node": "a node far from every node it is coupled to (a coordinate in the wrong unit or a typo)",
+    "geometry.touching-parts": "parts whose nodes come close to each other's without sharing stiffness "
+                               "(meshed separately, resting on each other)",
     "geometry.element-inverted": "elements whose corner Jacobians have both signs: inverted or folded",
     "geometry.element-collapsed": "elements with a corner Jacobian near zero: collapsed onto a line or a plane",
     "geometry.element-shape": "elements with a poor shape (aspect ratio, corner angles, warping, Jacobian ratio)",
@@ -875,6 +877,7 @@ def geometry_findings(model: Model, structure: StructureResult, spectrum: Option
     if geometry is None:
         return []
     out = _coincident_findings(structure, spectrum, geometry)
+    out += [_touching_finding(t) for t in geometry.touching]
     out += [_far_node_finding(far, spectrum, jumps, pivots) for far in geometry.far]
     out += _element_findings(geometry)
     return out
@@ -941,6 +944,28 @@ def _coincident_findings(structure: StructureResult, spectrum: Optional[Spectrum
             sorted({v for c in groups for v in c.nodes}),
             "Nothing to change if the release is meant; if the nodes should be one, merge them."))
     return out
+
+
+def _touching_finding(t) -> Finding:
+    from conditioning.stages.node_geometry import TOUCH_SHARE
+    at = (f"Part {t.part} comes within {t.gap:.3g} of part {t.other_part} ({t.share:.2f} of the shortest member "
+          f"there; parts closer than {TOUCH_SHARE:g} of it are taken to touch) at nodes {_list_nodes(t.nodes, 6)}, "
+          f"near nodes {_list_nodes(t.other_nodes, 6)} of part {t.other_part}, but the two share no stiffness")
+    nodes = sorted(set(t.nodes) | set(t.other_nodes))
+    if t.moved_apart_by:
+        listed = _list_nodes(t.moved_apart_by, 6)
+        return Finding(
+            "error", "geometry.touching-parts",
+            f"{at}: near-singular mode{'s' if len(t.moved_apart_by) > 1 else ''} {listed} move part {t.part} "
+            f"freely. If it rests on part {t.other_part}, the parts were meshed separately and never tied: "
+            "its nodes do not coincide with those they sit on.", nodes,
+            f"Tie part {t.part} to part {t.other_part} where they touch (constraint equations or a bonded "
+            f"contact), or mesh both with common nodes there and merge them, and export K again. Supports on "
+            f"part {t.part} are the second choice, only if it is meant to stand apart from the rest.")
+    return Finding(
+        "note", "geometry.touching-parts", f"{at}; each is held on its own.", nodes,
+        f"If parts {t.part} and {t.other_part} are meant to act together, tie them where they touch; if a gap "
+        "or a contact is modelled apart on purpose, nothing to change.")
 
 
 def _moving_part(structure: StructureResult, spectrum: Optional[SpectrumResult], modes: list[int]) -> Optional[int]:
@@ -1049,6 +1074,10 @@ def verdict_with_geometry(line: str, status: str, findings: list[Finding],
     if freed:
         groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
         clause.append(f"{coincident_phrase(groups)} coincide but K does not join them: merge them first")
+    for t in geometry.touching:
+        if t.moved_apart_by:
+            clause.append(f"part {t.part} rests within {t.gap:.3g} of part {t.other_part} without sharing stiffness: "
+                          "tie them first")
     far = [f for f in findings if f.code == "geometry.far-node"]
     if far:
         first = geometry.far[0]
@@ -1087,6 +1116,12 @@ def _merging_first(findings: list[Finding], spectrum: Optional[SpectrumResult],
         if f.code in ("support.rigid-body-mode", "support.mechanism"):
             modes = {k + 1 for k, m in enumerate(spectrum.modes) if list(m.nodes) == list(f.nodes)}
             groups = [c for c in geometry.coincident if c.joined == "no" and modes & set(c.moved_apart_by)]
+            resting = [t for t in geometry.touching if modes & set(t.moved_apart_by)]
+            if resting and not groups:
+                t = resting[0]
+                f = _replace(f, advice=f"First tie part {t.part} to part {t.other_part} where it rests on it (nodes "
+                                       f"{_list_nodes(t.nodes, 4)}); only if it is meant to stand apart: "
+                                       f"{f.advice[0].lower()}{f.advice[1:]}")
             if groups:
                 f = _replace(f, advice=f"First merge {coincident_phrase(groups)} (or tie them): K does not join "
                                        f"them; only if the part is meant to stand apart: {f.advice[0].lower()}"

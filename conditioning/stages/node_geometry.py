@@ -35,7 +35,8 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from conditioning.model import DOF_NAMES, TRANSLATIONS, Model
-from conditioning.results import (CoincidentNodes, FarNode, GeometryChecks, NearSingularMode, StructureResult)
+from conditioning.results import (CoincidentNodes, FarNode, GeometryChecks, NearSingularMode, StructureResult,
+                                  TouchingParts)
 
 logger = logging.getLogger(__name__)
 
@@ -54,6 +55,12 @@ COINCIDENT_SHARE = 1e-3
 #: A node held only by one long member (a stay to an anchor that is not fully
 #: restrained) can exceed it legitimately; the finding says so.
 FAR_FACTOR = 8.0
+#: A node of one part closer to a node of another part than this share of
+#: its shortest member, with no stiffness between the parts, makes the parts
+#: touch. The project's choice: nodes of a block meshed on a pedestal with an
+#: offset of half an element lie at 0.71 of the member length (0.5 diagonally
+#: in plane, times sqrt 2); a part a full element away is apart.
+TOUCH_SHARE = 0.75
 #: Two coincident nodes move apart in a near-singular mode when their relative
 #: translation is at least this share of the mode's largest translation (the
 #: project's choice: the modes stage names nodes from 1% of the largest).
@@ -100,10 +107,12 @@ def check_node_geometry(model: Model, structure: StructureResult,
     graph = _NodeGraph(model)
     coincident = _coincident_groups(model, graph, structure, modes)
     far = _far_nodes(model, graph)
+    touching = _touching_parts(graph, structure, modes)
     logger.info("geometry: %d coincident group(s), %d far node(s)", len(coincident), len(far))
     return GeometryChecks(method=METHOD, coincident=_cap(coincident), far=far, coincident_total=len(coincident),
+                          touching=touching,
                           thresholds={"coincident_share": COINCIDENT_SHARE, "far_factor": FAR_FACTOR,
-                                      "apart_share": APART_SHARE})
+                                      "apart_share": APART_SHARE, "touch_share": TOUCH_SHARE})
 
 
 #: Why the checks did not run, for ``Report.skipped``.
@@ -298,6 +307,48 @@ def _moved_apart(idx, displacement, node_part, modes) -> tuple[list[int], NDArra
             apart.append(k + 1)
             weight += np.linalg.norm(here, axis=1)
     return apart, weight
+
+
+# ---------------------------------------------------------- touching parts
+def _touching_parts(g: _NodeGraph, structure: StructureResult,
+                    modes: Sequence[NearSingularMode]) -> list[TouchingParts]:
+    """Pairs of counted parts whose nodes come within TOUCH_SHARE of a member
+    length of each other without coinciding; each pair once, from the side of
+    the part with free modes when one has them."""
+    if structure.parts < 2:
+        return []
+    node_part = np.full(g.nodes.size, -1, dtype=np.intp)
+    node_part[g.row_node] = structure.part_of_row
+    shortest = g.shortest()
+    typical = float(np.nanmedian(shortest)) if np.any(np.isfinite(shortest)) else np.nan
+    if not np.isfinite(typical):
+        return []
+    size = np.where(np.isfinite(shortest), shortest, typical)
+    free = {p: [k + 1 for k, m in enumerate(modes) if m.kind != "dof-without-stiffness" and m.part == p + 1]
+            for p in range(structure.parts)}
+    found: dict[frozenset, TouchingParts] = {}
+    for p in range(structure.parts):
+        mine = np.flatnonzero(node_part == p)
+        others = np.flatnonzero((node_part >= 0) & (node_part < structure.parts) & (node_part != p))
+        if not mine.size or not others.size:
+            continue
+        d, j = cKDTree(g.xyz[others]).query(g.xyz[mine])
+        close = (d <= TOUCH_SHARE * size[mine]) & (d > COINCIDENT_SHARE * size[mine])
+        if not close.any():
+            continue
+        near = others[j[close]]
+        q = int(np.bincount(node_part[near]).argmax())
+        close_to_q = close.copy()
+        close_to_q[close] = node_part[near] == q
+        key = frozenset((p, q))
+        if key in found and (found[key].moved_apart_by or not free[p]):
+            continue
+        ratio = d / size[mine]
+        found[key] = TouchingParts(
+            part=p + 1, other_part=q + 1, gap=float(d[close_to_q].min()), share=float(ratio[close_to_q].min()),
+            nodes=[int(v) for v in g.nodes[mine[close_to_q]]],
+            other_nodes=sorted({int(v) for v in g.nodes[others[j[close_to_q]]]}), moved_apart_by=free[p])
+    return sorted(found.values(), key=lambda t: (not t.moved_apart_by, t.part))
 
 
 # -------------------------------------------------------------- far nodes

@@ -305,17 +305,20 @@ def merging_first(restraints: list[Restraint], geometry, part_of_row, model: Mod
     from conditioning.stages.findings import coincident_phrase
 
     groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
-    if not groups or not restraints or model.dofs is None:
+    resting = [t for t in geometry.touching if t.moved_apart_by]
+    if not (groups or resting) or not restraints or model.dofs is None:
         return restraints
     part_of_row = np.asarray(part_of_row)
-    moving = np.isin(model.dofs.node, [c.nodes[0] for c in groups])
-    parts = set(int(p) for p in part_of_row[moving])
-    phrase = coincident_phrase(groups)
+    fix: dict[int, str] = {t.part - 1: f"tying part {t.part} to part {t.other_part}" for t in resting}
+    if groups:
+        moving = np.isin(model.dofs.node, [c.nodes[0] for c in groups])
+        for p in set(int(p) for p in part_of_row[moving]):
+            fix[p] = f"merging {coincident_phrase(groups)}"
     out = []
     for r in restraints:
-        if int(part_of_row[r.row]) in parts and not r.reason.startswith("second choice"):
-            r = Restraint(node=r.node, dof=r.dof, row=r.row,
-                          reason=f"second choice to merging {phrase}: {r.reason}")
+        p = int(part_of_row[r.row])
+        if p in fix and not r.reason.startswith("second choice"):
+            r = Restraint(node=r.node, dof=r.dof, row=r.row, reason=f"second choice to {fix[p]}: {r.reason}")
         out.append(r)
     return out
 
