@@ -64,11 +64,11 @@ def _progress(enabled: bool) -> Iterator[Optional[ProgressCallback]]:
 
 def _load(path: str, args, progress: Optional[ProgressCallback]):
     from conditioning.io.load import load_model
-
     if progress:
         progress("reading", None)
-    return load_model(path, dofs=args.dofs, dofs_per_node=args.dof_names or args.dofs_per_node,
-                      coords=args.coords, load=args.load, solution=args.solution, fix=args.fix)
+    extra = {k: v for k, v in vars(args).items() if k in ("elements", "mesh")}
+    return load_model(path, dofs=args.dofs, dofs_per_node=args.dof_names or args.dofs_per_node, coords=args.coords,
+                      load=args.load, solution=args.solution, fix=args.fix, **extra)
 
 
 def diagnose_model(model, **kwargs) -> results.Report:

@@ -33,7 +33,7 @@ MAX_MIN_DIGITS = 20.0
 #: Options naming input files (attribute, as the user wrote it): never written over by an output.
 INPUT_OPTIONS = (("matrix", "MATRIX"), ("before", "BEFORE"), ("after", "AFTER"), ("dofs", "--dofs"),
                  ("coords", "--coords"), ("load", "--load"), ("solution", "--solution"), ("fix", "--fix"),
-                 ("elements", "--elements"), ("from_report", "--from-report"))
+                 ("elements", "--elements"), ("mesh", "--mesh"), ("from_report", "--from-report"))
 #: Options naming output files.
 OUTPUT_OPTIONS = (("json", "--json"), ("html", "--html"), ("modes_vtk", "--modes-vtk"),
                   ("modes_csv", "--modes-csv"))
@@ -62,6 +62,12 @@ def _add_input_options(p: argparse.ArgumentParser) -> argparse._ArgumentGroup:
     dofs.add_argument("--dof-names", metavar="LIST", type=lambda v: tuple(x.strip() for x in v.split(",")),
                       help="a regular map naming each node's DOFs in row order, e.g. ux,uy,rz (2D frame)")
     g.add_argument("--coords", metavar="FILE", help="CSV 'node,x,y[,z]' of node positions")
+    g.add_argument("--mesh", metavar="FILE",
+                   help="a mesh file (Gmsh .msh, VTK/VTU, XDMF; needs meshio) for coordinates and elements "
+                        "instead of --coords and --elements")
+    g.add_argument("--elements", metavar="FILE",
+                   help="CSV 'element,node,node,...' of element connectivity (kind from the node count): "
+                        "element shapes checked, real cells in --modes-vtk; needs --coords")
     g.add_argument("--load", metavar="FILE", help="load vector, or load cases as columns (Matrix Market array or CSV)")
     g.add_argument("--solution", metavar="FILE", help="displacements computed elsewhere, to be audited (one column per load case)")
     g.add_argument("--fix", metavar="FILE",
@@ -240,7 +246,11 @@ def check_options(args) -> None:
     if getattr(args, "modes_vtk", None) and args.dofs is None and args.dofs_per_node is None \
             and args.dof_names is None:
         raise UsageError("--modes-vtk needs a DOF map (--dofs, --dofs-per-node or --dof-names)")
-    if getattr(args, "modes_vtk", None) and args.coords is None:
+    if getattr(args, "mesh", None) and getattr(args, "coords", None):
+        raise UsageError("--mesh gives the coordinates: leave out --coords")
+    if getattr(args, "elements", None) and getattr(args, "coords", None) is None and not getattr(args, "mesh", None):
+        raise UsageError("--elements needs node coordinates (--coords)")
+    if getattr(args, "modes_vtk", None) and args.coords is None and not getattr(args, "mesh", None):
         raise UsageError("--modes-vtk needs node coordinates (--coords)")
     check_files(args)
     missing = [m for m in ("petsc4py", "slepc4py") if importlib.util.find_spec(m) is None]

@@ -16,7 +16,7 @@ from numpy.typing import NDArray
 
 # DOF_NAMES lives with the results (the renderers read it there) and is
 # re-exported here, where the stages have always found it.
-from conditioning.results import DOF_NAMES, OneTriangleExport  # noqa: F401
+from conditioning.results import DOF_NAMES, ElementTable, OneTriangleExport  # noqa: F401
 TRANSLATIONS = (0, 1, 2)
 ROTATIONS = (3, 4, 5)
 
@@ -142,6 +142,7 @@ class Model:
     restrained: int = 0
     notes: tuple[str, ...] = field(default_factory=tuple)
     one_triangle: Optional[OneTriangleExport] = None
+    elements: Optional[ElementTable] = None
 
     @property
     def n(self) -> int:

@@ -41,12 +41,14 @@ from conditioning.results import Finding, ModelSummary, Report, Restraint, RowEx
 from conditioning.stages.condition import condition_numbers
 from conditioning.stages.digits import certify_digits, measure_digits
 from conditioning.stages.explain import explain_row, explain_saved_row, with_row_shares
-from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.element_quality import check_elements
+from conditioning.stages.findings import build_findings, verdict, verdict_with_geometry
+from conditioning.stages.node_geometry import WHY_NOT_RUN, check_node_geometry
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import ZERO_ROOM, locate_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
-from conditioning.stages.restraints import suggest_restraints
+from conditioning.stages.restraints import merging_first, suggest_restraints
 from conditioning.stages.spectrum import (confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
                                           spectrum_result, with_inertia, with_low_end_search)
 from conditioning.stages.structure import check_structure
@@ -111,6 +113,9 @@ def diagnose(
     load=None,
     solution=None,
     fix=None,
+    elements=None,
+    basis=None,
+    mesh=None,
     samples: int = 3,
     seed: int = 0,
     min_digits: float = 4.0,
@@ -178,7 +183,8 @@ def diagnose(
     else:
         with stage("reading"):
             model = load_model(matrix, dofs=dofs, dofs_per_node=dofs_per_node, coords=coords,
-                               load=load, solution=solution, fix=fix)
+                               load=load, solution=solution, fix=fix, elements=elements,
+                               basis=basis, mesh=mesh)
     run = _Run(
         stage=stage, rng=np.random.default_rng(seed), seed=seed, samples=samples, min_digits=min_digits,
         measure=measure, memory_limit=default_memory_limit() if memory_limit is None else memory_limit,
@@ -327,18 +333,26 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
                 digits = certify_digits(model, digits, condition, perm, structure,
                                         factor_entries=fac.info.fill, memory_limit=run.memory_limit,
                                         verified=proof)
+    with stage("geometry checks"):
+        geometry_checks = check_elements(model, check_node_geometry(model, structure, spectrum.modes))
+    if geometry_checks is None:
+        skipped["geometry checks"] = WHY_NOT_RUN
+    else:
+        restraints = merging_first(restraints, geometry_checks, structure.part_of_row, model)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
-                              min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
+                              min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues,
+                              geometry=geometry_checks)
     if too_large is not None:
         findings.append(_factorization_free_finding(too_large, eig.method))
     if fac is not None and fac.info.pivots_note:
         findings.append(_pivots_not_read_finding(fac.info.pivots_note, measured=bool(digits and digits.samples)))
     line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=run.min_digits)
+    line, status = verdict_with_geometry(line, status, findings, geometry_checks)
     return Report(
         summary=summarize(model), structure=structure, factorization=None if fac is None else fac.info,
         condition=condition, spectrum=spectrum, restraints=restraints, jumps=jumps, pivots=pivots, digits=digits,
         findings=findings, verdict=line, status=status, timings=stage.timings, seed=run.seed, skipped=skipped,
-        geometry=model_geometry(model),
+        geometry=model_geometry(model), geometry_checks=geometry_checks,
     )
 
 
@@ -425,7 +439,8 @@ def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,
     fac = _engine(engine, "auto").factorize(scaled, coords=_row_coordinates(model))
     try:
         explanation = explain_row(model, row, fac=fac, spectrum=report.spectrum, jumps=report.jumps,
-                                  restraints=report.restraints, row_base=row_base)
+                                  restraints=report.restraints, row_base=row_base,
+                                  geometry=report.geometry_checks)
     finally:
         fac.release()
     return report, explanation

@@ -846,6 +846,9 @@ class ModelGeometry:
     """(m,) True for a node of ``nodes`` without some DOF that other nodes
     carry (a restrained DOF removed from K, or an element type without it);
     None without a map."""
+    elements: Optional[ElementTable] = field(default=None, repr=False)
+    """The element table (``--elements``) for the views (cells of the mode
+    files); None without one."""
 
     def node_index(self) -> NDArray[np.intp]:
         """(rows,) position in ``nodes`` of each row's node (requires a map)."""
@@ -858,6 +861,201 @@ class ModelGeometry:
         if self.xyz is None:
             return np.zeros(self.nodes.size, dtype=bool)
         return ~np.isnan(self.xyz).any(axis=1)
+
+
+#: Element kinds of an element table (:class:`ElementTable`), by corner
+#: layout and node count; the corner nodes come first (the usual ordering of
+#: open mesh formats such as Gmsh and VTK).
+ELEMENT_KINDS: tuple[str, ...] = ("line2", "tri3", "tri6", "quad4", "quad8", "quad9",
+                                  "tet4", "tet10", "hex8", "hex20")
+
+
+@dataclass(frozen=True)
+class ElementTable:
+    """Element connectivity as the user gave it (``--elements``), read by
+    :func:`conditioning.io.elements.read_elements`. Input restated, no diagnosis."""
+
+    ids: NDArray[np.int64] = field(repr=False)
+    """(e,) element ids as the user numbered them, in file order."""
+    kind: NDArray[np.int8] = field(repr=False)
+    """(e,) index into :data:`ELEMENT_KINDS` of each element."""
+    offsets: NDArray[np.intp] = field(repr=False)
+    """(e + 1,) start of each element's nodes in ``nodes``."""
+    nodes: NDArray[np.int64] = field(repr=False)
+    """Node ids of every element, element after element, in the order given."""
+    source: str = "<array>"
+    """Where the table came from (a path or ``"<array>"``)."""
+
+    def __len__(self) -> int:
+        return int(self.ids.size)
+
+    def nodes_of(self, k: int) -> NDArray[np.int64]:
+        """Node ids of the k-th element (0-based position in the table)."""
+        return self.nodes[self.offsets[k]:self.offsets[k + 1]]
+
+    def kind_name(self, k: int) -> str:
+        return ELEMENT_KINDS[int(self.kind[k])]
+
+
+@dataclass(frozen=True)
+class CoincidentNodes:
+    """Nodes at one place (:mod:`conditioning.stages.node_geometry`): closer to
+    each other than the tolerance, which is a share of the local member length."""
+
+    nodes: list[int]
+    """Node ids of the group; when a near-singular mode moves them apart,
+    the nodes it moves first, then those that stay."""
+    position: list[float]
+    """[x, y, z] of the first node (model length unit; z = 0 in 2D)."""
+    separation: float
+    """Largest distance between two nodes of the group (model length unit;
+    0.0 for nodes at exactly one place)."""
+    tolerance: float
+    """Distance below which two nodes were taken as one place (model length
+    unit): :data:`conditioning.stages.node_geometry.COINCIDENT_SHARE` times the
+    shortest member at the nodes."""
+    joined: Literal["no", "partly"]
+    """``no``: K couples no DOF of one node to any DOF of another (the nodes
+    were never merged or tied); ``partly``: K ties some DOF types between them
+    and leaves others free (a hinge or release modelled with duplicate nodes).
+    Groups that K ties in every DOF type they share are not listed."""
+    tied: list[str]
+    """DOF types K couples between the nodes (``ux`` ... ``rz``); empty when
+    ``joined`` is ``no``."""
+    free: list[str]
+    """DOF types the nodes share that K does not couple between them."""
+    parts: list[int]
+    """1-based connected parts (:attr:`StructureResult.part_of_row`) of the nodes."""
+    moved_apart_by: list[int]
+    """1-based near-singular modes (:attr:`SpectrumResult.modes`) in which the
+    nodes move apart (relative displacement at least
+    :data:`conditioning.stages.node_geometry.APART_SHARE` of the mode's
+    largest): merging or tying them removes that freedom. Empty when none does."""
+
+
+@dataclass(frozen=True)
+class TouchingParts:
+    """A connected part whose nodes come close to another part's without
+    sharing stiffness with it (:mod:`conditioning.stages.node_geometry`): two
+    parts meshed separately, resting on each other with nodes that do not
+    coincide (a block on a pedestal), or separated by a small gap."""
+
+    part: int
+    """The part (1-based, as :attr:`NearSingularMode.part`); the one with free
+    modes when one of the two has them."""
+    other_part: int
+    """The part it comes close to (1-based)."""
+    gap: float
+    """Smallest distance from a node of ``part`` to a node of ``other_part``
+    (model length unit)."""
+    share: float
+    """Smallest of those distances over the shortest member at the node
+    (dimensionless); at most :data:`conditioning.stages.node_geometry.TOUCH_SHARE`."""
+    nodes: list[int]
+    """Nodes of ``part`` that close to ``other_part``."""
+    other_nodes: list[int]
+    """Their nearest nodes of ``other_part``."""
+    moved_apart_by: list[int]
+    """1-based near-singular modes of ``part`` (rigid-body or mechanism):
+    tying the parts removes them. Empty when it has none."""
+
+
+@dataclass(frozen=True)
+class FarNode:
+    """A node far from every node K couples it to (:mod:`conditioning.stages.node_geometry`):
+    a coordinate in the wrong unit or with a typo, or a reference node coupled on purpose."""
+
+    node: int
+    """Node id."""
+    position: list[float]
+    """[x, y, z] as read (model length unit; z = 0 in 2D)."""
+    nearest: float
+    """Distance to the nearest node K couples it to (model length unit)."""
+    nearest_node: int
+    """That node's id."""
+    usual_length: float
+    """Median over its coupled nodes of their own usual member length (the
+    lower median of the distances to the nodes each is coupled to), model
+    length unit: how long members are where this node attaches."""
+    ratio: float
+    """``nearest / usual_length`` (dimensionless); listed above
+    :data:`conditioning.stages.node_geometry.FAR_FACTOR`."""
+    neighbours: list[int]
+    """Ids of the nodes K couples it to."""
+    softer: Optional[float]
+    """Median K_jj of its coupled nodes' translation rows over the median
+    K_ii of its own (dimensionless; above 1 when its rows are softer); None
+    when it has no translation rows or they have no coupled counterpart."""
+    rows: list[int]
+    """Its 0-based matrix rows."""
+
+
+@dataclass(frozen=True)
+class ElementQuality:
+    """One element whose shape fails a common-practice check
+    (:mod:`conditioning.stages.element_quality`; corner nodes only)."""
+
+    element: int
+    """Element id as the user numbered it."""
+    kind: str
+    """One of :data:`ELEMENT_KINDS`."""
+    nodes: list[int]
+    """Its node ids, as given."""
+    aspect_ratio: float
+    """Longest edge over shortest edge (dimensionless; inf for a zero-length edge)."""
+    min_angle: Optional[float]
+    """Smallest corner angle of its faces, degrees; None for a line."""
+    max_angle: Optional[float]
+    """Largest corner angle of its faces, degrees; None for a line."""
+    warping: Optional[float]
+    """Quadrilateral faces: largest angle between the normals of the two
+    triangles either diagonal splits a face into, degrees (0 for a plane
+    face); None for other kinds."""
+    scaled_jacobian: float
+    """Smallest corner Jacobian determinant over the product of the corner's
+    edge lengths, signed relative to the element's own orientation (the sign
+    of the sum of its corner Jacobians; dimensionless: the sine of the corner angle for a face; 1 for a
+    rectangle or a box; 1/sqrt(2) at the corners of a regular tetrahedron;
+    0 for a collapsed corner; negative for an inverted one)."""
+    jacobian_ratio: float
+    """Smallest over largest corner Jacobian determinant, signed as above (1
+    for a parallelogram or a parallelepiped; at most 0 when inverted)."""
+    problems: list[str]
+    """What fails: ``inverted``, ``collapsed``, ``aspect ratio``, ``angle``,
+    ``warping``, ``scaled Jacobian``, ``jacobian ratio`` (thresholds in
+    :attr:`GeometryChecks.thresholds`)."""
+
+
+@dataclass(frozen=True)
+class GeometryChecks:
+    """The model's geometry read as geometry (:mod:`conditioning.stages.node_geometry`
+    and :mod:`conditioning.stages.element_quality`)."""
+
+    method: str
+    """How the checks were made, in words (what was compared with what)."""
+    coincident: list[CoincidentNodes]
+    """Groups of coincident nodes that K does not join, or joins only in some
+    DOF types; empty when none."""
+    far: list[FarNode]
+    """Nodes far from every node K couples them to; empty when none."""
+    touching: list[TouchingParts] = field(default_factory=list)
+    """Parts close to another part that share no stiffness with it (nodes
+    that do not coincide); empty when none."""
+    coincident_total: int = 0
+    """Groups of ``coincident`` found, all counted (the list keeps at most
+    :data:`conditioning.stages.node_geometry.MAX_GROUPS`)."""
+    elements: Optional[int] = None
+    """Elements read from ``--elements``; None without an element table."""
+    element_kinds: dict[str, int] = field(default_factory=dict)
+    """Elements per kind (:data:`ELEMENT_KINDS`); empty without a table."""
+    flagged_elements: list[ElementQuality] = field(default_factory=list)
+    """Elements whose shape fails a check, worst first (at most
+    :data:`conditioning.stages.element_quality.MAX_LISTED`)."""
+    flagged_count: dict[str, int] = field(default_factory=dict)
+    """Elements failing each check (``inverted``, ``collapsed``, ...), all of them counted."""
+    thresholds: dict[str, float] = field(default_factory=dict)
+    """The limits used, by name (tolerances and element-shape limits; their
+    sources are in the stage modules: the project's choice or common practice)."""
 
 
 @dataclass(frozen=True)
@@ -909,6 +1107,9 @@ class Report:
     """Nodes, positions, row map and node graph for the figures and mode
     files; None when the report was built without a model (then the views
     draw the spectrum only and number rows instead of nodes)."""
+    geometry_checks: Optional[GeometryChecks] = None
+    """Coincident nodes, misplaced nodes and element shapes; None when the
+    model has no DOF map or no coordinates (``skipped["geometry checks"]`` says why)."""
 
 
 # ---------------------------------------------------------------- explain

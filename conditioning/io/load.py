@@ -76,6 +76,9 @@ def load_model(
     load: Union[PathLike, ArrayLike, None] = None,
     solution: Union[PathLike, ArrayLike, None] = None,
     fix: Union[PathLike, DofPairs, None] = None,
+    elements=None,
+    basis=None,
+    mesh=None,
 ) -> Model:
     """Read a stiffness matrix and its model context into a :class:`Model`.
 
@@ -102,6 +105,20 @@ def load_model(
     fix : path or sequence of (node, dof) pairs, optional
         Restrained degrees of freedom; their rows and columns are removed
         from the matrix, the vectors and the DOF map. Needs a DOF map.
+    elements : path, mapping {element id: node ids} or sequence of (id, node ids), optional
+        Element connectivity (:mod:`conditioning.io.elements`: file
+        ``id,node,node,...``; the kind from the node count and the model's
+        dimension). Needs coordinates; turns on the element-shape checks and
+        the real cells of the mode files.
+    basis : scikit-fem Basis, optional
+        A vector basis whose every DOF sits at a vertex: gives the DOF map
+        (``basis.nodal_dofs``), the coordinates and the elements of its mesh
+        (:func:`conditioning.io.mesh_context.from_basis`) where ``dofs``,
+        ``coords`` and ``elements`` are not given.
+    mesh : path, optional
+        A mesh file meshio reads (Gmsh, VTK/VTU, XDMF; the optional ``mesh``
+        extra): coordinates and elements, linked to K's rows through the DOF
+        map (:func:`conditioning.io.mesh_context.read_mesh`). Not with ``coords``.
 
     Returns
     -------
@@ -128,7 +145,7 @@ def load_model(
     >>> model.n, model.source
     (3, '<array>')
     """
-    for value in (matrix, dofs, coords, load, solution, fix):
+    for value in (matrix, dofs, coords, load, solution, fix, elements, mesh):
         if _is_path(value):
             require_regular_file(str(value))
     K, source, notes = _reading(matrix, lambda: _read_stiffness(matrix))
@@ -136,8 +153,30 @@ def load_model(
     _note_extreme_entries(K, notes)
     K, one_triangle = mirror_one_triangle_export(K, notes)
     n = int(K.shape[0])
+    if basis is not None:
+        from conditioning.io.mesh_context import from_basis
+        b_dofs, b_coords, b_elements = from_basis(basis, n)
+        dofs = b_dofs if dofs is None and dofs_per_node is None else dofs
+        coords = b_coords if coords is None else coords
+        elements = b_elements if elements is None else elements
+        notes.append("DOF map, coordinates and elements from the scikit-fem basis")
+    if mesh is not None:
+        if coords is not None:
+            raise InputError(str(mesh), "give either a mesh file or coordinates, not both")
+        from conditioning.io.mesh_context import read_mesh
+        coords, m_elements = read_mesh(str(mesh))
+        elements = m_elements if elements is None else elements
+        notes.append(f"coordinates and elements from the mesh {mesh}")
     table = _reading(dofs, lambda: _dof_map(dofs, dofs_per_node, n, source, notes))
     positions = _reading(coords, lambda: _coordinates(coords, table, notes))
+    element_table = None
+    if elements is not None:
+        from conditioning.io.elements import read_elements
+        element_table = _reading(elements, lambda: read_elements(elements, positions, table))
+        kinds = np.unique(element_table.kind, return_counts=True)
+        from conditioning.results import ELEMENT_KINDS
+        notes.append(f"elements from {element_table.source}: {len(element_table):,} ("
+                     + ", ".join(f"{c:,} {ELEMENT_KINDS[k]}" for k, c in zip(*kinds)) + ")")
     f, load_names = _reading(load, lambda: _vector(load, n, "load", notes))
     u, _ = _reading(solution, lambda: _vector(solution, n, "solution", notes))
     _require_matching_columns(solution, u, load, f)
@@ -153,7 +192,8 @@ def load_model(
         u = u[keep] if u is not None else None
     logger.info("model %s: n = %d, %d restrained", source, K.shape[0], restrained)
     return Model(K=K, source=source, dofs=table, coords=positions, load=f, solution=u,
-                 load_names=load_names, restrained=restrained, notes=tuple(notes), one_triangle=one_triangle)
+                 load_names=load_names, restrained=restrained, notes=tuple(notes), one_triangle=one_triangle,
+                 elements=element_table)
 
 
 # --------------------------------------------------------------------------- #

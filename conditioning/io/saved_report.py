@@ -27,7 +27,8 @@ from numpy.typing import NDArray
 from conditioning.errors import InputError
 from conditioning.model import DOF_NAMES, Model, matrix_fingerprint
 from conditioning.results import REPORT_SCHEMA as SCHEMA
-from conditioning.results import Restraint, RowShares, StiffnessJump
+from conditioning.results import (CoincidentNodes, FarNode, GeometryChecks, Restraint, RowShares, StiffnessJump,
+                                  TouchingParts)
 
 _NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
 _RERUN = "run 'conditioning diagnose MATRIX --json FILE' again with this version"
@@ -72,6 +73,9 @@ class SavedReport:
     """The stiffness jumps, as the report lists them."""
     restraints: list[Restraint]
     """The suggested supports, as the report lists them."""
+    geometry: Optional[GeometryChecks] = None
+    """The coincident and far nodes of the earlier run (no element shapes);
+    None when its report has no geometry checks."""
 
 
 def read_saved_report(path: Union[str, Path], model: Model) -> SavedReport:
@@ -173,7 +177,18 @@ def _saved(where: str, data: dict, n: int) -> SavedReport:
         path=where, ordering=None if fac is None else str(fac["ordering"]), singular=singular,
         kept_by_row=kept, no_pivots=no_pivots, modes=[_mode(m, n) for m in data["near_singular_modes"]],
         jumps=[_rebuild(StiffnessJump, j) for j in data["stiffness_jumps"]],
-        restraints=[_rebuild(Restraint, r) for r in data["suggested_restraints"]])
+        restraints=[_rebuild(Restraint, r) for r in data["suggested_restraints"]],
+        geometry=_geometry(data.get("geometry_checks")))
+
+
+def _geometry(d: Optional[dict]) -> Optional[GeometryChecks]:
+    """The node checks of a saved report (what explain's advice uses)."""
+    if not d:
+        return None
+    return GeometryChecks(method=str(d.get("method", "")),
+                          coincident=[_rebuild(CoincidentNodes, c) for c in d.get("coincident", [])],
+                          far=[_rebuild(FarNode, f) for f in d.get("far", [])],
+                          touching=[_rebuild(TouchingParts, t) for t in d.get("touching", [])])
 
 
 def _mode(m: dict, n: int) -> SavedMode:

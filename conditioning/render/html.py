@@ -296,6 +296,14 @@ def _figures(r: results.Report) -> str:
             wanted.append(("Trustworthy digits per node",
                            "Worst component of each node; over the node positions when given.",
                            lambda: plots.digits_png(geometry, sample)))
+        checks = r.geometry_checks
+        if checks is not None and (checks.far or checks.flagged_elements
+                                   or any(c.joined == "no" for c in checks.coincident)):
+            wanted.append(("Geometry checks",
+                           "K's node graph in grey; orange rings: coincident nodes K does not join; red "
+                           "crosses: nodes far from every node they are coupled to; red outlines: elements "
+                           "of poor shape, with their ids.",
+                           lambda: plots.geometry_png(geometry, checks)))
         if r.spectrum is not None and r.spectrum.modes:
             for k, mode in enumerate(r.spectrum.modes[:MAX_MODE_PLOTS], start=1):
                 # the key once, under the first mode plot

@@ -108,7 +108,11 @@ def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
     xyz = np.vstack([g.xyz, other_xyz])
     m = xyz.shape[0]
     has_rotations = bool(np.isin(g.row_dof, (3, 4, 5)).any())
-    connectivity, offsets, types = _cells(g.edges, m)
+    element_ids = None
+    if g.elements is not None:
+        connectivity, offsets, types, element_ids = _element_cells(g.elements, np.concatenate([nodes, other]))
+    else:
+        connectivity, offsets, types = _cells(g.edges, m)
 
     root = ET.Element("VTKFile", type="UnstructuredGrid", version="1.0",
                       byte_order="LittleEndian", header_type="UInt64")
@@ -133,6 +137,13 @@ def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
             _, rot = nodal_field(g, mode.vector, (3, 4, 5))
             _array(point_data, f"mode_{k}_rotation", "Float64", 3,
                    np.vstack([rot, restrained]).ravel())
+    if element_ids is not None:
+        cell_data = ET.SubElement(piece, "CellData")
+        _array(cell_data, "element", "Int64", 1, element_ids)
+        checks = report.geometry_checks
+        flagged = {e.element for e in checks.flagged_elements} if checks is not None else set()
+        _array(cell_data, "shape_flagged", "UInt8", 1,
+               [1 if (e >= 0 and int(e) in flagged) else 0 for e in element_ids])
     points = ET.SubElement(piece, "Points")
     _array(points, "Points", "Float64", 3, xyz.ravel())
     cells = ET.SubElement(piece, "Cells")
@@ -142,6 +153,26 @@ def write_modes_vtu(report: results.Report, path: Union[str, Path]) -> int:
     ET.indent(root)
     ET.ElementTree(root).write(str(path), encoding="utf-8", xml_declaration=True)
     return len(modes)
+
+
+#: VTK cell type of each element kind (results.ELEMENT_KINDS); the node order
+#: of the element table is VTK's (corners first, as the reader documents).
+VTK_CELL = {"line2": 3, "tri3": 5, "tri6": 22, "quad4": 9, "quad8": 23, "quad9": 28,
+            "tet4": 10, "tet10": 24, "hex8": 12, "hex20": 25}
+
+
+def _element_cells(table: results.ElementTable, point_ids: NDArray[np.int64]):
+    """VTK cell arrays from the element table, then a vertex per point no
+    element uses; and the element id of each cell (-1 for a vertex)."""
+    order = np.argsort(point_ids)
+    index = order[np.searchsorted(point_ids, table.nodes, sorter=order)]
+    alone = np.setdiff1d(np.arange(point_ids.size), index)
+    connectivity = np.concatenate([index, alone]).astype(np.int64)
+    offsets = np.concatenate([table.offsets[1:], table.offsets[-1] + np.arange(1, alone.size + 1)]).astype(np.int64)
+    kinds = np.array([VTK_CELL[k] for k in results.ELEMENT_KINDS])
+    types = np.concatenate([kinds[table.kind], np.full(alone.size, VTK_VERTEX)])
+    ids = np.concatenate([table.ids, np.full(alone.size, -1)]).astype(np.int64)
+    return connectivity, offsets, types, ids
 
 
 def _cells(edges: Optional[NDArray[np.intp]], points: int

@@ -339,3 +339,65 @@ def _depth(xyz: NDArray[np.float64]) -> NDArray[np.float64]:
 
 def _marker(m: int) -> float:
     return float(np.clip(4000.0 / max(m, 1), 2.0, 60.0))
+
+
+#: Corner pairs drawn for a flagged element, by its number of corners and kind.
+_OUTLINE = {"tri": ((0, 1), (1, 2), (2, 0)), "quad": ((0, 1), (1, 2), (2, 3), (3, 0)),
+            "tet": ((0, 1), (1, 2), (2, 0), (0, 3), (1, 3), (2, 3)),
+            "hex": ((0, 1), (1, 2), (2, 3), (3, 0), (4, 5), (5, 6), (6, 7), (7, 4),
+                    (0, 4), (1, 5), (2, 6), (3, 7))}
+_CORNERS = {"tri": 3, "quad": 4, "tet": 4, "hex": 8}
+
+
+def geometry_png(geometry: results.ModelGeometry, checks: results.GeometryChecks) -> Optional[bytes]:
+    """The node graph with what the geometry checks flagged: coincident nodes
+    K does not join (orange rings), nodes far from their coupled nodes (red
+    crosses, labelled), and flagged elements (red outlines, labelled by id);
+    None when nothing was flagged or positions are missing."""
+    if geometry.nodes is None or geometry.xyz is None or not geometry.has_position().all():
+        return None
+    loose = [c for c in checks.coincident if c.joined == "no"]
+    if not (loose or checks.far or checks.flagged_elements):
+        return None
+    Figure = require_matplotlib()
+    from matplotlib.collections import LineCollection
+
+    ids = np.concatenate([geometry.nodes, geometry.other_nodes if geometry.other_nodes is not None else []])
+    xyz = np.vstack([geometry.xyz, geometry.other_xyz if geometry.other_xyz is not None else np.zeros((0, 3))])
+    order = np.argsort(ids)
+    xy = _project(xyz, geometry.dim or 2)
+
+    def at(nodes):
+        return xy[order[np.searchsorted(ids[order], np.asarray(nodes, dtype=np.int64))]]
+
+    fig = Figure(figsize=(6.5, 4.2))
+    ax = fig.subplots()
+    if geometry.edges is not None and geometry.edges.size:
+        ax.add_collection(LineCollection(xy[geometry.edges], colors="#cccccc", lw=0.6, zorder=0))
+    ax.scatter(xy[:, 0], xy[:, 1], s=_marker(len(xy)) / 3, color="#777777", zorder=1)
+    if loose:
+        p = at([v for c in loose for v in c.nodes])
+        ax.scatter(p[:, 0], p[:, 1], s=90, facecolors="none", edgecolors="#e07b00", linewidths=1.5, zorder=3,
+                   label="coincident nodes K does not join")
+    for f in checks.far:
+        p = at([f.node])[0]
+        ax.scatter([p[0]], [p[1]], marker="x", s=80, color="#c0392b", zorder=4)
+        ax.annotate(f"node {f.node}", p, textcoords="offset points", xytext=(5, 5), fontsize=8, color="#c0392b")
+    segments, labels = [], []
+    for e in checks.flagged_elements:
+        family = e.kind.rstrip("0123456789")
+        if family not in _OUTLINE:
+            continue
+        corners = at(e.nodes[:_CORNERS[family]])
+        segments += [corners[[a, b]] for a, b in _OUTLINE[family]]
+        labels.append((e.element, corners.mean(axis=0)))
+    if segments:
+        ax.add_collection(LineCollection(segments, colors="#c0392b", lw=1.4, zorder=2))
+        for eid, c in labels[:20]:
+            ax.annotate(str(eid), c, fontsize=7, color="#c0392b", ha="center", va="center")
+    ax.autoscale()
+    ax.set_aspect("equal", adjustable="datalim")
+    if loose:
+        ax.legend(loc="best", fontsize=8)
+    ax.set_title("geometry checks: flagged nodes and elements", fontsize=9)
+    return _png(fig)

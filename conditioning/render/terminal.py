@@ -179,8 +179,21 @@ def _actions(r: results.Report, max_ids: int):
     lines: list[Text] = []
     restraints = r.restraints
     conditional = "only if the mode is free (not decided: see the support proof): "
+    seen: set[str] = set()
+    # Coincident nodes that K does not join and a free mode moves apart: merging them is the first fix.
+    merge = [f for f in r.findings if f.code in ("geometry.coincident-nodes", "geometry.touching-parts")
+             and f.severity == "error"]
+    for f in merge:
+        first = f.advice.split(". ")[0].rstrip(".") + "."
+        lines.append(Text(f"- {first}", style="bold"))
+        seen.add(_action_text(r, f, max_ids))
     if restraints:
-        if all(res.reason.startswith(conditional) for res in restraints):
+        second = [res for res in restraints if res.reason.startswith(_SECOND_CHOICE)]
+        if second:
+            lines.append(Text(f"Second choice, only if the part is meant to stand apart: add "
+                              f"{'this support' if len(restraints) == 1 else 'these supports'} "
+                              "(one minimal choice; each must exist in the real structure):"))
+        elif all(res.reason.startswith(conditional) for res in restraints):
             lines.append(Text("Not decided whether a support is missing; if the modes are free, "
                               f"{'this support' if len(restraints) == 1 else 'these supports'} would "
                               "remove them (one minimal choice):"))
@@ -190,11 +203,11 @@ def _actions(r: results.Report, max_ids: int):
         for res in restraints[:max_ids]:
             dof = f" {res.dof}" if res.dof and res.dof != "-" else ""
             line = Text(f"  {unit_word(r)} {res.node}{dof}", style="bold")
-            line.append(f"  {res.reason.removeprefix(conditional)}")
+            reason = res.reason.split(": ", 1)[1] if res.reason.startswith(_SECOND_CHOICE) else res.reason
+            line.append(f"  {reason.removeprefix(conditional)}")
             lines.append(line)
         if len(restraints) > max_ids:
             lines.append(Text(f"  and {len(restraints) - max_ids:,} more (all in the JSON report)"))
-    seen: set[str] = set()
     for f in _by_severity(r.findings):
         if f.severity == "note" or f.code in _COVERED or (f.code in _COVERED_BY_RESTRAINTS and restraints):
             continue
@@ -208,6 +221,8 @@ def _actions(r: results.Report, max_ids: int):
     return Group(*lines)
 
 
+#: How a suggested support that merging coincident nodes would make needless begins its reason.
+_SECOND_CHOICE = "second choice to "
 #: Findings whose action is another finding's (they point at the cause, not at a change).
 _COVERED = {"digits.below-minimum", "digits.node-below-minimum", "condition.ill-conditioned", "stiffness.stiff-link-eigenvalue",
             "spectrum.inertia-mismatch", "digits.refinement-not-converged"}
@@ -241,6 +256,14 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
         label = f.message.split(" at the pivot of ", 1)[-1].split(":", 1)[0]
         return (f"{label[0].upper() + label[1:]} is nearly unsupported once the rest is eliminated: "
                 "check its supports and the members that hold it.")
+    if f.code.startswith("geometry.element-") and r.geometry_checks is not None:
+        problem = f.code.rsplit("-", 1)[1]
+        broken = {"inverted", "collapsed"}
+        ids = sorted(e.element for e in r.geometry_checks.flagged_elements
+                     if problem in e.problems or (problem == "shape" and not broken & set(e.problems)))
+        if ids:
+            more = f" and {len(ids) - max_ids:,} more" if len(ids) > max_ids else ""
+            return f"Element{'s' if len(ids) > 1 else ''} {', '.join(map(str, ids[:max_ids]))}{more}: {f.advice}"
     where = _where(r, f.nodes, max_ids) if f.nodes else ""
     advice = f.advice or f.message
     return f"{where[0].upper() + where[1:]}: {advice}" if where else advice
@@ -385,7 +408,30 @@ def _model(r: results.Report, max_ids: int, verbose: bool):
                   + (f"{' and '.join(given)} given" if given else "no load given")
                   + (f"; {s.restrained:,} restrained rows removed" if s.restrained else "") + ".")]
     lines.append(Text(_structure_line(st, max_ids, r.geometry)))
+    geometry = _geometry_line(r.geometry_checks)
+    if geometry:
+        lines.append(Text(geometry))
     return Group(*lines)
+
+
+def _geometry_line(c: Optional[results.GeometryChecks]) -> str:
+    """One sentence on the geometry checks, when they found something or read elements."""
+    if c is None or not (c.coincident or c.far or c.elements is not None):
+        return ""
+    loose = sum(1 for g in c.coincident if g.joined == "no")
+    partly = len(c.coincident) - loose
+    parts = [f"{loose:,} coincident node group{'s' if loose != 1 else ''} K does not join" if loose else
+             "no coincident nodes K does not join"]
+    if partly:
+        parts.append(f"{partly:,} partly tied (hinges or releases)")
+    parts.append(f"{len(c.far):,} node{'s' if len(c.far) != 1 else ''} far from every node coupled to it"
+                 if c.far else "no node far from its coupled nodes")
+    if c.elements is not None:
+        flagged = len({e.element for e in c.flagged_elements})
+        kinds = ", ".join(f"{v:,} {k}" for k, v in c.element_kinds.items())
+        parts.append(f"{c.elements:,} elements ({kinds}), "
+                     + (f"{flagged:,}{'+' if flagged >= 50 else ''} of poor shape" if flagged else "none of poor shape"))
+    return "Geometry: " + "; ".join(parts) + "."
 
 
 def _model_grid(r: results.Report):

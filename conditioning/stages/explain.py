@@ -60,7 +60,7 @@ SINGULAR = ("K is singular: no displacement is defined and a DOF in a free mode 
 
 def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[SpectrumResult] = None,
                 jumps: Optional[list[StiffnessJump]] = None, restraints: Optional[list[Restraint]] = None,
-                row_base: int = 1) -> RowExplanation:
+                row_base: int = 1, geometry=None) -> RowExplanation:
     """Explain 0-based matrix ``row`` of ``model.K``.
 
     Parameters
@@ -75,6 +75,10 @@ def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[Spectrum
         when it is singular or shifted, no pivot figures.
     spectrum, jumps, restraints : optional
         The diagnosis's near-singular modes, stiffness jumps and suggested supports.
+    geometry : GeometryChecks, optional
+        The diagnosis's geometry checks: a coincident node K does not join, or
+        a node far from its coupled nodes, at or next to the row comes first
+        in the advice.
     row_base : int
         The numbering the row was asked in (0 or 1), recorded for the output.
 
@@ -90,8 +94,13 @@ def explain_row(model: Model, row: int, *, fac=None, spectrum: Optional[Spectrum
     """
     _check_row(model, row)
     d = model.K.diagonal()
-    return _explain(model, row, _pivot(model, fac, row, d[row]), _mode_shares(spectrum, d, row), jumps,
-                    restraints, row_base)
+    out = _explain(model, row, _pivot(model, fac, row, d[row]), _mode_shares(spectrum, d, row), jumps,
+                   restraints, row_base)
+    first = geometry_advice(model, row, geometry)
+    if not first:
+        return out
+    rest = [a for a in out.advice if not a.startswith("Nothing at this row needs changing")]
+    return replace(out, advice=first + rest)
 
 
 def explain_saved_row(model: Model, row: int, saved: "SavedReport", *, row_base: int = 1) -> RowExplanation:
@@ -127,6 +136,10 @@ def explain_saved_row(model: Model, row: int, saved: "SavedReport", *, row_base:
     d = model.K.diagonal()
     explanation = _explain(model, row, _saved_pivot(saved, row, d[row]), _saved_shares(saved, d, row),
                            saved.jumps, saved.restraints, row_base)
+    first = geometry_advice(model, row, getattr(saved, "geometry", None))
+    if first:
+        rest = [a for a in explanation.advice if not a.startswith("Nothing at this row needs changing")]
+        explanation = replace(explanation, advice=first + rest)
     return replace(explanation, from_report=saved.path)
 
 
@@ -269,6 +282,49 @@ def _mode_shares(spectrum: Optional[SpectrumResult], d, row: int) -> list[ModeSh
             continue
         out.append(ModeShare(mode=k + 1, kind=mode.kind, eigenvalue=float(mode.eigenvalue), share=share,
                              exact=bool(getattr(mode, "exact", False))))
+    return out
+
+
+def geometry_advice(model: Model, row: int, geometry) -> list[str]:
+    """What the geometry checks say about the row's node, first in the advice:
+    a coincident node K does not join (merge it), a node far from every node it is
+    coupled to (its coordinates), or a neighbour of such a node."""
+    if geometry is None or model.dofs is None:
+        return []
+    node = int(model.dofs.node[row])
+    out = []
+    for c in geometry.coincident:
+        if node in c.nodes and c.joined == "no":
+            others = ", ".join(str(v) for v in c.nodes if v != node)
+            out.append(f"Merge node {node} with node{'s' if len(c.nodes) > 2 else ''} {others} (or tie them): "
+                       "they are at one place but K joins none of their DOFs"
+                       + (f"; near-singular mode{'s' if len(c.moved_apart_by) > 1 else ''} "
+                          f"{', '.join(map(str, c.moved_apart_by))} move{'' if len(c.moved_apart_by) > 1 else 's'} "
+                          "them apart, and merging removes "
+                          f"{'them' if len(c.moved_apart_by) > 1 else 'it'}; supports are the second choice."
+                          if c.moved_apart_by else "."))
+        elif node in c.nodes:
+            out.append(f"Node {node} coincides with node {', '.join(str(v) for v in c.nodes if v != node)}; K ties "
+                       f"{', '.join(c.tied)} between them but not {', '.join(c.free)} (a release modelled with "
+                       "duplicate nodes): nothing to change if that is meant.")
+    for t in getattr(geometry, "touching", []):
+        if node in t.nodes and t.moved_apart_by:
+            out.append(f"Tie part {t.part} to part {t.other_part} where it rests on it (this node is {t.share:.2f} "
+                       f"of a member length from part {t.other_part}, which shares no stiffness with it): that "
+                       "removes its free modes; supports are the second choice.")
+    for f in geometry.far:
+        xyz = ", ".join(f"{v:.6g}" for v in (f.position if any(f.position[2:]) else f.position[:2]))
+        if node == f.node:
+            softer = (f"; its rows are {f.softer:.1e} times softer than its neighbours'"
+                      if f.softer is not None and f.softer >= 10 else "")
+            out.append(f"Check the coordinates of node {node}, ({xyz}): it is {f.nearest:.3g} from the nearest "
+                       f"node it is coupled to, {f.ratio:,.0f} times the usual member length there "
+                       f"({f.usual_length:.3g}){softer}. A length in the wrong unit or a typo distorts its "
+                       "elements; correct it and export K again.")
+        elif node in f.neighbours:
+            out.append(f"It is coupled to node {f.node} at ({xyz}), {f.ratio:,.0f} times the usual member length "
+                       "away: that node's coordinates distort the elements it shares with this row (the "
+                       "stiffness here and any spring to ground or jump reported at it); check them first.")
     return out
 
 

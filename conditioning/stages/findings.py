@@ -15,7 +15,7 @@ import numpy as np
 from conditioning.model import Model
 from conditioning.linalg.doubledouble import U
 from conditioning.results import (
-    Asymmetry, ConditionResult, PivotLoss, DigitsResult, Finding, ModeGroup, NearSingularMode,
+    Asymmetry, ConditionResult, PivotLoss, DigitsResult, Finding, GeometryChecks, ModeGroup, NearSingularMode,
     OneTriangleExport, Restraint, SolutionAudit, SpectrumResult, StiffnessJump, StructureResult,
 )
 from conditioning.stages.structure import ASYMMETRY_NOISE, asymmetry_reported, looks_like_placeholder
@@ -58,6 +58,15 @@ CODES = {
     "solution.lower-precision": "the supplied solution solves K and f to the lower precision it was written in "
                                 "(single precision, or a few significant figures), and keeps the digits measured",
     "digits.node-below-minimum": "a node of the engineer's load keeps fewer trustworthy digits than required",
+    "geometry.coincident-nodes": "nodes at one place that K does not join (never merged or tied)",
+    "geometry.coincident-partly-tied": "coincident nodes K ties in some DOF types only (a hinge or release "
+                                       "modelled with duplicate nodes)",
+    "geometry.far-node": "a node far from every node it is coupled to (a coordinate in the wrong unit or a typo)",
+    "geometry.touching-parts": "parts whose nodes come close to each other's without sharing stiffness "
+                               "(meshed separately, resting on each other)",
+    "geometry.element-inverted": "elements whose corner Jacobians have both signs: inverted or folded",
+    "geometry.element-collapsed": "elements with a corner Jacobian near zero: collapsed onto a line or a plane",
+    "geometry.element-shape": "elements with a poor shape (aspect ratio, corner angles, warping, Jacobian ratio)",
 }
 
 
@@ -163,13 +172,17 @@ def build_findings(
     *,
     min_digits: float = 4.0,
     stiff_link_eigenvalues: Sequence[float] = (),
+    geometry: Optional[GeometryChecks] = None,
 ) -> list[Finding]:
     """Findings, most severe first (errors, warnings, notes; within a
-    severity in the order of the families below). See :data:`CODES`."""
+    severity in the order of the families below). See :data:`CODES`.
+    ``geometry``: the geometry checks (coincident and far nodes, element
+    shapes), whose findings come first within their severity."""
     rows_word = "nodes" if model.dofs is not None else "rows"
     audit = digits.audit if digits is not None else None
     out = (
         _input_findings(model, structure)
+        + geometry_findings(model, structure, spectrum, jumps, pivots, geometry)
         + _structure_findings(model, structure)
         + _mode_findings(model, structure, spectrum, restraints, rows_word)
         + _spectrum_findings(spectrum, pivots)
@@ -180,6 +193,7 @@ def build_findings(
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(model, digits, min_digits, rows_word)
     )
+    out = _merging_first(out, spectrum, geometry)
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
     return out
@@ -704,7 +718,7 @@ ILL_CONDITIONED = 1e8
 #: then the supplied solution, then what costs digits.
 CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not fit",
           "not decided", "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
-          "healthy", "no defect found")
+          "suspect geometry", "healthy", "no defect found")
 
 
 def _significant(digits: float) -> str:
@@ -1013,3 +1027,304 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     limits = sorted(c for c in codes)
     return (f"no defect found ({', '.join(CODES.get(c, c) for c in limits)})"
             f"{tail}"), status
+
+
+# ------------------------------------------------------------------ geometry
+#: Pairs of nodes named in a coincident-nodes finding before "and N more".
+PAIRS_NAMED = 6
+#: Elements named per element finding before "and N more".
+ELEMENTS_NAMED = 8
+
+
+def _run(ids: Sequence[int]) -> Optional[str]:
+    """``"201-205"`` for three or more consecutive ids, else None."""
+    ids = list(ids)
+    if len(ids) >= 3 and all(b == a + 1 for a, b in zip(ids, ids[1:])):
+        return f"{ids[0]}-{ids[-1]}"
+    return None
+
+
+def coincident_phrase(groups, onto: bool = True) -> str:
+    """``"nodes 201-205 onto nodes 83-87"`` (the nodes a mode moves first), or
+    ``"node pairs 201/83, 202/84"``, or ``"nodes 5, 17, 30"`` for one larger group."""
+    if all(len(c.nodes) == 2 for c in groups):
+        pairs = sorted((c.nodes[0], c.nodes[1]) for c in groups)
+        left, right = [a for a, _ in pairs], [b for _, b in pairs]
+        if _run(left) and _run(right):
+            return f"nodes {_run(left)} {'onto' if onto else 'and'} nodes {_run(right)}"
+        if len(pairs) == 1:
+            return f"node {left[0]} {'onto' if onto else 'and'} node {right[0]}"
+        named = ", ".join(f"{a}/{b}" for a, b in pairs[:PAIRS_NAMED])
+        more = len(pairs) - PAIRS_NAMED
+        return f"node pairs {named}" + (f" and {more:,} more" if more > 0 else "")
+    named = "; ".join(_list_nodes(c.nodes, 6) for c in groups[:PAIRS_NAMED])
+    more = len(groups) - PAIRS_NAMED
+    return f"node groups {named}" + (f" and {more:,} more" if more > 0 else "")
+
+
+def _parts_words(parts: Sequence[int]) -> str:
+    return f"part {parts[0]}" if len(parts) == 1 else "parts " + ", ".join(str(p) for p in parts[:-1]) + \
+        f" and {parts[-1]}"
+
+
+def geometry_findings(model: Model, structure: StructureResult, spectrum: Optional[SpectrumResult],
+                      jumps: list[StiffnessJump], pivots: Optional[PivotLoss],
+                      geometry: Optional[GeometryChecks]) -> list[Finding]:
+    """geometry.*: coincident nodes K does not join (an error when a near-singular
+    mode moves them apart: the first fix is to merge them), coincident nodes tied
+    in some DOF types only (a note), far nodes (a warning, tied to the weak rows,
+    springs to ground, modes and pivots they cause), element shapes."""
+    if geometry is None:
+        return []
+    out = _coincident_findings(structure, spectrum, geometry)
+    out += [_touching_finding(t) for t in geometry.touching]
+    out += [_far_node_finding(far, spectrum, jumps, pivots) for far in geometry.far]
+    out += _element_findings(geometry)
+    return out
+
+
+def _coincident_findings(structure: StructureResult, spectrum: Optional[SpectrumResult],
+                         geometry: GeometryChecks) -> list[Finding]:
+    from conditioning.stages.node_geometry import COINCIDENT_SHARE
+    out = []
+    loose: dict = {}
+    for c in geometry.coincident:
+        if c.joined == "no":
+            loose.setdefault((tuple(c.parts), bool(c.moved_apart_by)), []).append(c)
+    for (parts, frees), groups in loose.items():
+        nodes = sorted({v for c in groups for v in c.nodes})
+        sep = max(c.separation for c in groups)
+        tol = min(c.tolerance for c in groups)
+        where = ("at exactly one place" if sep == 0.0 else f"at most {sep:.3g} apart") + \
+            f" (tolerance {tol:.3g}: {COINCIDENT_SHARE:g} x the shortest member there)"
+        count = f"{len(groups):,} {'pair' if all(len(c.nodes) == 2 for c in groups) else 'group'}" + \
+            ("s" if len(groups) != 1 else "")
+        phrase = coincident_phrase(groups, onto=frees)
+        head = f"{count} of coincident nodes that K does not join: {phrase}, {where}"
+        if frees:
+            modes = sorted({k for c in groups for k in c.moved_apart_by})
+            part_of = _moving_part(structure, spectrum, modes)
+            who = f"part {part_of}" if part_of is not None and structure.parts > 1 else "the part they belong to"
+            listed = _list_nodes(modes, 6)
+            out.append(Finding(
+                "error", "geometry.coincident-nodes",
+                f"{head}. Near-singular mode{'s' if len(modes) > 1 else ''} {listed} move{'' if len(modes) > 1 else 's'} "
+                f"them apart: {who} is free of the rest because these nodes were never merged, "
+                "not for want of a support.",
+                nodes,
+                f"Merge {phrase} (or tie them with constraint equations) and export K again. Supports on "
+                f"{who} are the second choice, only if it is meant to stand apart from the rest."))
+        elif len(parts) > 1:
+            out.append(Finding(
+                "warning", "geometry.coincident-nodes",
+                f"{head}: {_parts_words(list(parts))} touch there but share no stiffness, and each is held "
+                "on its own.", nodes,
+                f"If the parts are meant to act together, merge {phrase} (or tie them); if they are meant to "
+                "be separate (a gap or a contact modelled apart), nothing to change."))
+        else:
+            out.append(Finding(
+                "note", "geometry.coincident-nodes",
+                f"{head}, within one connected part: a crack, slit or contact face modelled with duplicate "
+                "nodes, or a seam left open.", nodes,
+                f"If no crack or gap is meant here, merge {phrase}: an open seam makes the model softer "
+                "than the structure."))
+    partly: dict = {}
+    for c in geometry.coincident:
+        if c.joined == "partly":
+            partly.setdefault((tuple(c.tied), tuple(c.free)), []).append(c)
+    for (tied, free), groups in partly.items():
+        rotations_only = all(d[0] == "r" for d in free) and all(d[0] == "u" for d in tied)
+        what = (f"a hinge (rotation{'s' if len(free) > 1 else ''} {', '.join(free)} released)" if rotations_only
+                else f"a release of {', '.join(free)} (free to slide or turn apart in {'these' if len(free) > 1 else 'that'})")
+        out.append(Finding(
+            "note", "geometry.coincident-partly-tied",
+            f"{coincident_phrase(groups, onto=False)[0].upper()}{coincident_phrase(groups, onto=False)[1:]} "
+            f"coincide and K ties {', '.join(tied)} between them but not {', '.join(free)}: {what} "
+            "modelled with duplicate nodes.",
+            sorted({v for c in groups for v in c.nodes}),
+            "Nothing to change if the release is meant; if the nodes should be one, merge them."))
+    return out
+
+
+def _touching_finding(t) -> Finding:
+    from conditioning.stages.node_geometry import TOUCH_SHARE
+    at = (f"Part {t.part} comes within {t.gap:.3g} of part {t.other_part} ({t.share:.2f} of the shortest member "
+          f"there; parts closer than {TOUCH_SHARE:g} of it are taken to touch) at nodes {_list_nodes(t.nodes, 6)}, "
+          f"near nodes {_list_nodes(t.other_nodes, 6)} of part {t.other_part}, but the two share no stiffness")
+    nodes = sorted(set(t.nodes) | set(t.other_nodes))
+    if t.moved_apart_by:
+        listed = _list_nodes(t.moved_apart_by, 6)
+        return Finding(
+            "error", "geometry.touching-parts",
+            f"{at}: near-singular mode{'s' if len(t.moved_apart_by) > 1 else ''} {listed} move part {t.part} "
+            f"freely. If it rests on part {t.other_part}, the parts were meshed separately and never tied: "
+            "its nodes do not coincide with those they sit on.", nodes,
+            f"Tie part {t.part} to part {t.other_part} where they touch (constraint equations or a bonded "
+            f"contact), or mesh both with common nodes there and merge them, and export K again. Supports on "
+            f"part {t.part} are the second choice, only if it is meant to stand apart from the rest.")
+    return Finding(
+        "note", "geometry.touching-parts", f"{at}; each is held on its own.", nodes,
+        f"If parts {t.part} and {t.other_part} are meant to act together, tie them where they touch; if a gap "
+        "or a contact is modelled apart on purpose, nothing to change.")
+
+
+def _moving_part(structure: StructureResult, spectrum: Optional[SpectrumResult], modes: list[int]) -> Optional[int]:
+    """The 1-based part of the first of ``modes`` (1-based), when the spectrum has it."""
+    if spectrum is None or not modes or modes[0] > len(spectrum.modes):
+        return None
+    return int(spectrum.modes[modes[0] - 1].part)
+
+
+def _far_node_finding(far, spectrum: Optional[SpectrumResult], jumps: list[StiffnessJump],
+                      pivots: Optional[PivotLoss]) -> Finding:
+    xyz = ", ".join(f"{c:.6g}" for c in (far.position if any(far.position[2:]) else far.position[:2]))
+    msg = (f"Node {far.node} at ({xyz}) is {far.nearest:.3g} from the nearest node it is coupled to (node "
+           f"{far.nearest_node}), {far.ratio:,.0f} times the usual member length where it attaches "
+           f"({far.usual_length:.3g}): a coordinate in the wrong unit or with a typo, or a reference node "
+           "coupled on purpose.")
+    if far.softer is not None and far.softer >= 10:
+        msg += f" Its rows are {far.softer:.1e} times softer than those of the nodes it is coupled to."
+    elif far.softer is not None and far.softer <= 0.1:
+        msg += f" Its rows are {1 / far.softer:.1e} times stiffer than those of the nodes it is coupled to."
+    near = {far.node, *far.neighbours}
+    caused = []
+    grounded = sorted({v for j in jumps if j.kind == "diagonal-outlier" for v in j.nodes if v in near})
+    if grounded:
+        caused.append(f"the springs to ground reported at nodes {_list_nodes(grounded, 6)} are the rows of "
+                      "its distorted elements, not supports")
+    linked = sorted({v for j in jumps if j.kind != "diagonal-outlier" for v in j.nodes if v in near})
+    if linked:
+        caused.append(f"the stiffness jumps at nodes {_list_nodes(linked, 6)} come from its distorted elements")
+    if spectrum is not None:
+        carried = [k + 1 for k, m in enumerate(spectrum.modes) if far.node in m.nodes]
+        if carried:
+            caused.append(f"near-singular mode{'s' if len(carried) > 1 else ''} {_list_nodes(carried, 6)} "
+                          f"{'are' if len(carried) > 1 else 'is'} carried by it")
+    if pivots is not None:
+        lost = [p for p in pivots.worst[:1] if p.digits >= 1 and p.label.split(" ")[1].isdigit()
+                and int(p.label.split(" ")[1]) in near]
+        if lost:
+            caused.append(f"{lost[0].digits:.1f} digits are lost at the pivot of {lost[0].label}")
+    if caused:
+        msg += " Tied to it: " + "; ".join(caused) + "."
+    return Finding(
+        "warning", "geometry.far-node", msg, [far.node],
+        "Check its coordinates where the model was built (a length in the wrong unit, a "
+        "misplaced decimal point) and export K again: K was assembled with them, so the elements at it are "
+        "distorted. If it is a reference node coupled on purpose, nothing to change.")
+
+
+def _element_findings(geometry: GeometryChecks) -> list[Finding]:
+    from conditioning.stages.element_quality import PROBLEM_TEXT
+    out = []
+    if not geometry.flagged_elements:
+        return out
+    for problem, code, severity in (("inverted", "geometry.element-inverted", "error"),
+                                    ("collapsed", "geometry.element-collapsed", "error"),
+                                    (None, "geometry.element-shape", "warning")):
+        if problem is None:
+            hit = [e for e in geometry.flagged_elements
+                   if not {"inverted", "collapsed"} & set(e.problems)]
+            total = sum(v for k, v in geometry.flagged_count.items() if k not in ("inverted", "collapsed"))
+        else:
+            hit = [e for e in geometry.flagged_elements if problem in e.problems]
+            total = geometry.flagged_count.get(problem, len(hit))
+        if not hit:
+            continue
+        ids = sorted(e.element for e in hit)
+        shown = ", ".join(str(i) for i in ids[:ELEMENTS_NAMED])
+        more = max(len(hit), 0) - ELEMENTS_NAMED
+        worst = hit[0]
+        what = "; ".join(f"{p}: {PROBLEM_TEXT[p](worst)}" for p in worst.problems)
+        counts = (", ".join(f"{geometry.flagged_count[k]:,} {k}" for k in sorted(geometry.flagged_count)
+                            if k not in ("inverted", "collapsed")) if problem is None else "")
+        out.append(Finding(
+            severity, code,
+            f"{total:,} element{'s' if total != 1 else ''} "
+            + {"inverted": "inverted or folded (corner Jacobians of both signs)",
+               "collapsed": "collapsed (a corner Jacobian near zero)",
+               None: f"of poor shape ({counts})"}[problem]
+            + f": element{'s' if len(ids) > 1 else ''} {shown}" + (f" and {more:,} more" if more > 0 else "")
+            + f". Worst, element {worst.element} ({worst.kind}; nodes {_list_nodes(worst.nodes, 8)}): {what}.",
+            sorted({v for e in hit[:ELEMENTS_NAMED] for v in e.nodes}),
+            {"inverted": "Check the element's node order (corners in turn around it, not across it) or "
+                         "move the node that folds it; K from an inverted element is wrong, not just inaccurate.",
+             "collapsed": "Move or merge the nodes that collapse it, or remove the element: it adds "
+                          "almost no stiffness in one direction and degrades K.",
+             None: "Remesh the region with better-shaped elements (common practice: aspect ratio, corner "
+                   "angles and warping within the limits shown); poor shapes give stresses of lower accuracy."
+             }[problem]))
+    return out
+
+
+def verdict_with_geometry(line: str, status: str, findings: list[Finding],
+                          geometry: Optional[GeometryChecks]) -> tuple[str, str]:
+    """The verdict of :func:`verdict` with what the geometry checks found.
+
+    Coincident nodes that a near-singular mode moves apart are named after a
+    singular or near-singular verdict (merging them is the first fix); a far
+    node or a bad element is named after a verdict whose digits it explains,
+    and becomes the cause (``suspect geometry``) when the verdict would
+    otherwise be ``healthy`` or ``no defect found`` with geometry warnings only.
+    """
+    if geometry is None:
+        return line, status
+    freed = [f for f in findings if f.code == "geometry.coincident-nodes" and f.severity == "error"]
+    clause = []
+    if freed:
+        groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
+        clause.append(f"{coincident_phrase(groups)} coincide but K does not join them: merge them first")
+    for t in geometry.touching:
+        if t.moved_apart_by:
+            clause.append(f"part {t.part} rests within {t.gap:.3g} of part {t.other_part} without sharing stiffness: "
+                          "tie them first")
+    far = [f for f in findings if f.code == "geometry.far-node"]
+    if far:
+        first = geometry.far[0]
+        extra = f" (and {len(geometry.far) - 1} more)" if len(geometry.far) > 1 else ""
+        clause.append(f"node {first.node}{extra} lies {first.ratio:,.0f} times the usual member length from "
+                      "every node it is coupled to: check its coordinates")
+    bad = [f for f in findings if f.code in ("geometry.element-inverted", "geometry.element-collapsed")]
+    if bad:
+        clause.append("; ".join(f.message.split(":")[0] for f in bad))
+    shape = [f for f in findings if f.code == "geometry.element-shape"]
+    if shape and not bad:
+        clause.append(shape[0].message.split(":")[0])
+    if not clause:
+        return line, status
+    text = "; ".join(clause)
+    serious = {f.code for f in findings if f.severity in ("error", "warning")}
+    others = {c for c in serious if not c.startswith("geometry.")}
+    if line.startswith(("healthy", "no defect found")) and not others:
+        at = max(line.rfind("; trustworthy to "), line.rfind("; about "), line.rfind(": trustworthy to "),
+                 line.rfind(": about "))
+        tail = line[at + 2:] if at >= 0 else ""
+        return f"suspect geometry: {text}" + (f"; {tail}" if tail else ""), status
+    return f"{line}; {text}", status
+
+
+def _merging_first(findings: list[Finding], spectrum: Optional[SpectrumResult],
+                   geometry: Optional[GeometryChecks]) -> list[Finding]:
+    """The advice of a free-mode finding whose mode moves coincident nodes apart
+    that K does not join starts with merging them (supports second)."""
+    if geometry is None or spectrum is None:
+        return findings
+    from dataclasses import replace as _replace
+
+    out = []
+    for f in findings:
+        if f.code in ("support.rigid-body-mode", "support.mechanism"):
+            modes = {k + 1 for k, m in enumerate(spectrum.modes) if list(m.nodes) == list(f.nodes)}
+            groups = [c for c in geometry.coincident if c.joined == "no" and modes & set(c.moved_apart_by)]
+            resting = [t for t in geometry.touching if modes & set(t.moved_apart_by)]
+            if resting and not groups:
+                t = resting[0]
+                f = _replace(f, advice=f"First tie part {t.part} to part {t.other_part} where it rests on it (nodes "
+                                       f"{_list_nodes(t.nodes, 4)}); only if it is meant to stand apart: "
+                                       f"{f.advice[0].lower()}{f.advice[1:]}")
+            if groups:
+                f = _replace(f, advice=f"First merge {coincident_phrase(groups)} (or tie them): K does not join "
+                                       f"them; only if the part is meant to stand apart: {f.advice[0].lower()}"
+                                       f"{f.advice[1:]}")
+        out.append(f)
+    return out

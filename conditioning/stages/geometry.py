@@ -62,7 +62,7 @@ def model_geometry(model: Model) -> ModelGeometry:
                          row_dof=np.asarray(model.dofs.dof, dtype=np.int8),
                          xyz=xyz, dim=dim, edges=_node_edges(model, nodes),
                          other_nodes=other_nodes, other_xyz=other_xyz,
-                         lacks_dofs=_lacks_dofs(model, nodes))
+                         lacks_dofs=_lacks_dofs(model, nodes), elements=model.elements)
 
 
 def _lacks_dofs(model: Model, nodes: NDArray[np.int64]) -> NDArray[np.bool_]:

@@ -297,4 +297,30 @@ def _motion_without_coords(model: Model, motion, rows) -> str:
     return "a free motion (rotation or mechanism; coordinates would say which)"
 
 
-__all__ = ["suggest_restraints", "nonsingular_after_restraints"]
+def merging_first(restraints: list[Restraint], geometry, part_of_row, model: Model) -> list[Restraint]:
+    """The restraints with "second choice" in the reason of each one on a part
+    that coincident nodes K does not join leave free (``geometry``: the
+    :class:`~conditioning.results.GeometryChecks`): merging or tying those nodes
+    is the first fix, a support only if the part is meant to stand apart."""
+    from conditioning.stages.findings import coincident_phrase
+
+    groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
+    resting = [t for t in geometry.touching if t.moved_apart_by]
+    if not (groups or resting) or not restraints or model.dofs is None:
+        return restraints
+    part_of_row = np.asarray(part_of_row)
+    fix: dict[int, str] = {t.part - 1: f"tying part {t.part} to part {t.other_part}" for t in resting}
+    if groups:
+        moving = np.isin(model.dofs.node, [c.nodes[0] for c in groups])
+        for p in set(int(p) for p in part_of_row[moving]):
+            fix[p] = f"merging {coincident_phrase(groups)}"
+    out = []
+    for r in restraints:
+        p = int(part_of_row[r.row])
+        if p in fix and not r.reason.startswith("second choice"):
+            r = Restraint(node=r.node, dof=r.dof, row=r.row, reason=f"second choice to {fix[p]}: {r.reason}")
+        out.append(r)
+    return out
+
+
+__all__ = ["suggest_restraints", "nonsingular_after_restraints", "merging_first"]
