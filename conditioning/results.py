@@ -296,6 +296,27 @@ class ModeGroup:
 
 
 @dataclass(frozen=True)
+class NegativeMode:
+    """One negative eigenvalue of S located by its eigenvector
+    (:func:`conditioning.stages.negative_modes.locate_negative_modes`)."""
+
+    eigenvalue: float
+    """Eigenvalue of the scaled matrix S (dimensionless, below zero)."""
+    nodes: list[int]
+    """Nodes that carry the eigenvector, largest share first: those whose
+    weight (sum of v_i^2 over the node's rows of the unit scaled vector v)
+    is at least 1% of the largest node's, at most 12. 1-based rows without a
+    DOF map."""
+    shares: list[float]
+    """Each of ``nodes``' share of the vector (its weight; the weights of all
+    nodes sum to 1)."""
+    method: str
+    """How the eigenvector was obtained, in words (LAPACK, the spectrum
+    stage's shift-and-invert Lanczos, or a Lanczos run for the smallest
+    algebraic eigenvalues), with its residual."""
+
+
+@dataclass(frozen=True)
 class SpectrumResult:
     """Smallest eigenvalues of S and the split into near-singular modes: the
     spectrum stage's public result, however its eigenpairs were obtained
@@ -350,6 +371,10 @@ class SpectrumResult:
     """True when ``negative_eigenvalues`` is a count (LAPACK, or Sylvester's
     law on the factorization's pivots); False when it is a lower bound (only
     the eigenvalues found, or proved, are counted)."""
+    negative_modes: list[NegativeMode] = field(default_factory=list)
+    """The most negative eigenvalues (at most 4) located by their
+    eigenvectors, most negative first; empty when K has none, or when no
+    eigenvector was obtained (``negative_method`` then says why)."""
 
 
 @dataclass(frozen=True)
@@ -448,6 +473,13 @@ class PivotLoss:
     indefinite and the DOF pushes back negatively once the DOFs
     eliminated before it are condensed out. ``kept`` = D_ii / K_ii < 0 for a
     positive diagonal; ``digits`` is inf."""
+    negative_count: int = 0
+    """Number of negative pivots in all (``negative_pivots`` lists at most
+    ``worst`` of them): the count the reports show."""
+    symmetric: bool = True
+    """True when the pivots are those of an LDL^T (the row permutation equals
+    the column permutation), so their signs are an inertia (Sylvester's law);
+    False after unsymmetric row pivoting, when they are not."""
     kept_by_row: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """(n,) D_ii / K_ii of every row in row order, as ``kept`` of
     :class:`PivotEntry` (dimensionless; NaN for a row that was not factored:

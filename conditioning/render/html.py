@@ -231,7 +231,7 @@ def _pivots(r: results.Report) -> str:
     low = pivots_are_lower_bounds(r)
     rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
              fmt_number(e.kept)] for e in d.worst[:10]]
-    largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
+    largest = (f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite. " if negative
                else f"At least {d.max_digits:.1f} digits lost at a pivot "
                     "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")

@@ -266,7 +266,8 @@ def _key_figures(r: results.Report):
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
         if p.negative_pivots:
-            t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
+            t.add_row("negative pivots", f"{p.negative_count:,}", f"first at {p.negative_pivots[0].label}"
+                      + ("" if p.symmetric else " (row-pivoted LU: not an inertia)"))
         else:
             if pivots_are_lower_bounds(r):
                 t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
@@ -514,7 +515,8 @@ def _pivots(r: results.Report):
     g = _grid()
     negative = {e.row for e in getattr(d, "negative_pivots", [])}
     if negative:
-        g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
+        g.add_row("negative", f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite"
+                  + ("" if d.symmetric else " (row-pivoted LU: their signs do not count eigenvalues)"))
     elif pivots_are_lower_bounds(r):
         g.add_row("largest", f"at least {d.max_digits:.1f} digits lost at a pivot (K singular: "
                   "along its free modes all digits are lost)")

@@ -538,22 +538,67 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
 
 
 def _negative_pivot_finding(model: Model, pivots: PivotLoss, spectrum: Optional[SpectrumResult]) -> Finding:
-    """Negative pivots, where they appeared, how many eigenvalues are negative, and what usually causes one."""
+    """Negative eigenvalues where their eigenvectors live, then where the elimination met them,
+    how many there are and how they were counted, and what usually causes one."""
     neg = pivots.negative_pivots
-    where = ", ".join(e.label for e in neg[:6]) + (f" and {len(neg) - 6} more" if len(neg) > 6 else "")
+    total = max(pivots.negative_count, len(neg))
+    where = ", ".join(e.label for e in neg[:6]) + (f" and {total - 6:,} more" if total > 6 else "")
     count = spectrum.negative_eigenvalues if spectrum is not None else 0
-    counted = (f"K has {count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from the pivots' "
-               "signs, Sylvester's law of inertia). " if count else "")
+    at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
+    how = (spectrum.negative_method if spectrum is not None and spectrum.negative_method
+           else "the pivots' signs, Sylvester's law of inertia")
+    counted = (f"K has {at_least}{count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from "
+               f"{how}). " if count else "")
+    located = negative_mode_words(model, spectrum)
+    met = ("The elimination met it at " if located else "Negative pivot at ") + (
+        f"{where} ({total:,} negative pivot{'' if total == 1 else 's'}): once the DOFs eliminated before it "
+        "are condensed out, the stiffness left at this DOF is negative, so K is not positive definite: a "
+        "Cholesky solver stops here, and one that carries on returns displacements of a structure that is "
+        "not stable. Which DOF shows it depends on the elimination order"
+        + ("; the eigenvector says where the cause is." if located else "; the cause is nearby."))
+    if not pivots.symmetric:
+        met += (" The factorization pivoted rows, so these pivots are not an LDL^T's: their signs do not "
+                "count the negative eigenvalues.")
+    nodes = _eigenvector_nodes(spectrum)
+    nodes += [v for v in model.nodes_of([e.row for e in neg]) if v not in nodes]
     return Finding(
-        "error", "factor.negative-pivot",
-        f"{counted}Negative pivot at {where}: once the DOFs eliminated before it are condensed out, the "
-        "stiffness left at this DOF is negative, so K is not positive definite: a Cholesky solver "
-        "stops here, and one that carries on returns displacements of a structure that is not "
-        "stable. Which DOF shows it depends on the elimination order; the cause is nearby.",
-        model.nodes_of([e.row for e in neg]),
-        "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
+        "error", "factor.negative-pivot", f"{counted}{located}{met}", nodes,
+        ("Look first at the nodes the eigenvector names. " if located else "")
+        + "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
         "spring or element entered with a negative stiffness, or a sign error in an element or "
         "in the export. Check the loads of a geometric-stiffness step against the buckling load.")
+
+
+#: Nodes of a negative eigenvector named in a finding's message (project's choice).
+NEGATIVE_NODES_WORDS = 4
+
+
+def _eigenvector_nodes(spectrum: Optional[SpectrumResult]) -> list[int]:
+    """The nodes the negative eigenvectors live on, largest share of the most negative first."""
+    out: list[int] = []
+    for m in spectrum.negative_modes if spectrum is not None else []:
+        out += [v for v in m.nodes[:NEGATIVE_NODES_WORDS] if v not in out]
+    return out
+
+
+def negative_mode_words(model: Model, spectrum: Optional[SpectrumResult]) -> str:
+    """``"Its eigenvector lives at node 74 (9%), ...: look there. "``; empty without located ones."""
+    modes = spectrum.negative_modes if spectrum is not None else []
+    if not modes:
+        return ""
+    word = "node" if model.dofs is not None else "row"
+
+    def at(m) -> str:
+        items = [f"{v} ({100 * s:.0f}%)" for v, s in zip(m.nodes[:NEGATIVE_NODES_WORDS], m.shares)]
+        return f"{word}{'s' if len(items) > 1 else ''} " + ", ".join(items)
+
+    if len(modes) == 1:
+        head = f"Its eigenvector lives at {at(modes[0])} (share of the scaled eigenvector)"
+    else:
+        head = (f"The eigenvector of the most negative (scaled eigenvalue {modes[0].eigenvalue:.2g}) lives at "
+                f"{at(modes[0])}, of the next ({modes[1].eigenvalue:.2g}) at {at(modes[1])} (shares of the "
+                "scaled eigenvectors)")
+    return head + ": the negative stiffness is there. "
 
 
 #: A scaled condition number above this is "ill-conditioned": more than half
@@ -774,7 +819,12 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
     if negative or pivots or "stiffness.indefinite" in codes:
         at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
         count = f"{at_least}{negative} negative eigenvalue{'' if negative == 1 else 's'}" if negative else ""
-        if pivots:
+        carrying = _eigenvector_nodes(spectrum)[:NEGATIVE_NODES_WORDS]
+        if carrying:
+            at = f"{words[:-1]} {carrying[0]}" if len(carrying) == 1 else f"{words} {_list_nodes(carrying, 4)}"
+            whose = "its" if negative == 1 else "the most negative one's"
+            head = f"{count or 'negative eigenvalues'}, {whose} eigenvector at {at}"
+        elif pivots:
             nodes = pivots[0].nodes
             at = f"{words[:-1]} {nodes[0]}" if len(nodes) == 1 else f"{words} {_list_nodes(nodes, 4)}"
             head = f"negative pivot at {at}" + (f" ({count})" if count else "")
