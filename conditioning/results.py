@@ -106,6 +106,14 @@ class StructureResult:
     one_triangle: Optional[OneTriangleExport] = None
     """Set when the input stored one triangle plus a few stray entries of the
     other and was mirrored (see :class:`OneTriangleExport`); None otherwise."""
+    constraint_rows: NDArray[np.intp] = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    """0-based rows of a zero diagonal block coupled to the rest: rows with a
+    zero diagonal that have no entry in the columns of the other zero-diagonal
+    rows, and couple to rows with stiffness. They are the rows of Lagrange
+    multipliers or constraint equations, [[K, C^T], [C, 0]]: the matrix is a
+    constrained (saddle-point) system, not a stiffness, and has one negative
+    eigenvalue per independent constraint (when K is positive definite on the
+    motions the constraints allow). Empty otherwise."""
 
 
 # ----------------------------------------------------------- factorization

@@ -241,14 +241,25 @@ def _jump_cost(j: results.StiffnessJump) -> str:
 
 
 # ------------------------------------------------------------- key figures
+def _negative_how(method: str) -> str:
+    """The negative count's method, short: LAPACK, pivot signs, Lanczos."""
+    if "LAPACK" in method:
+        return "counted: all eigenvalues (LAPACK)"
+    if "inertia" in method and "no inertia" not in method:
+        return "counted: pivot signs (Sylvester's law)"
+    if "Lanczos" in method or "LOBPCG" in method:
+        return "lower bound: eigenvalues found (Lanczos)"
+    return method
 def _key_figures(r: results.Report):
     t = _table("figure", "value", "how obtained", right=(1,))
     c = r.condition
     if c is not None:
         t.add_row("condition number, raw K", _kappa(c.estimate, c.singular), _how(c.estimate, c.estimate_method))
+        constrained = r.structure is not None and r.structure.constraint_rows.size > 0
         t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
                   _how(c.scaled_estimate, c.scaled_method)
-                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
+                  + ("; constraint rows scaled by 1 (convention)" if constrained else
+                     f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
     if sp is not None:
@@ -261,13 +272,17 @@ def _key_figures(r: results.Report):
     if len(links) < len(r.jumps):
         t.add_row("springs to ground", str(len(r.jumps) - len(links)),
                   "cost no digits (scaling removes them)")
+    if sp is not None and sp.negative_eigenvalues:
+        t.add_row("negative eigenvalues", f"{'>= ' if not sp.negative_exact else ''}{sp.negative_eigenvalues:,}",
+                  _negative_how(sp.negative_method))
     p = r.pivots
     if p is None and "pivots" in r.skipped:
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
-        if p.negative_pivots:
-            t.add_row("negative pivots", f"{p.negative_count:,}", f"first at {p.negative_pivots[0].label}"
-                      + ("" if p.symmetric else " (row-pivoted LU: not an inertia)"))
+        if p.negative_pivots and p.symmetric:
+            t.add_row("negative pivots", f"{p.negative_count:,}", f"elimination met it at {p.negative_pivots[0].label}")
+        elif p.negative_pivots:
+            pass   # a row-pivoted LU's pivot signs count nothing: the negative eigenvalues row says how many
         else:
             if pivots_are_lower_bounds(r):
                 t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
@@ -461,8 +476,14 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     if verbose or len(counts) > 2 or sp.negative_eigenvalues or sp.inertia_agrees is False:
         lines += [Text(line, style="red" if "DISAGREES" in line else "") for line in counts]
     if sp.negative_eigenvalues:
-        lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues} negative "
-                          "eigenvalue(s) of K: the stiffness is indefinite", style="red"))
+        constrained = r.structure is not None and r.structure.constraint_rows.size > 0
+        lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues:,} negative "
+                          "eigenvalue(s) of K: " + (f"a constrained system with {r.structure.constraint_rows.size:,} "
+                                                    "constraint rows" if constrained else "the stiffness is indefinite"),
+                          style="red"))
+        for m in ([] if constrained else sp.negative_modes[:2]):
+            lines.append(Text(f"  eigenvalue {m.eigenvalue:.3g} (scaled): carried by {unit_word(r)}s "
+                              + ", ".join(f"{v} ({100 * s:.0f}%)" for v, s in zip(m.nodes[:6], m.shares))))
     if verbose:
         lines.append(Text(f"method: {sp.method}", style="dim"))
         lines.append(Text(f"rule: {sp.gap_rule}", style="dim"))

@@ -32,6 +32,8 @@ CODES = {
     "structure.dof-without-stiffness": "rows with no stiffness at all",
     "structure.negative-diagonal": "negative diagonal entries",
     "structure.zero-diagonal": "zero diagonal entries in rows that have stiffness",
+    "structure.constrained-system": "a constrained (saddle-point) system with multiplier or constraint rows, "
+                                    "not a stiffness",
     "structure.separate-parts": "the model has parts that share no stiffness",
     "support.rigid-body-mode": "a part can move as a rigid body",
     "support.mechanism": "an internal mechanism",
@@ -146,6 +148,8 @@ def build_findings(
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(digits, min_digits)
     )
+    if structure.constraint_rows.size:
+        out = _constrained_system_findings(model, structure, spectrum, pivots, out)
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
     return out
@@ -365,6 +369,56 @@ def _node_dof_advice(modes: list[NearSingularMode]) -> str:
                       "which give no stiffness across it (add a member or support across that line)")
     return ("Each is a DOF without stiffness along its axis, not a mechanism: typically "
             + "; or ".join(causes) + ". Restrain it at each node (the suggested restraints) or remove the cause.")
+
+
+#: Findings a constrained system's own finding replaces: its negative
+#: eigenvalues are the constraints' (one each), its zero diagonals are the
+#: multiplier rows, and its raw-versus-scaled condition numbers compare rows
+#: scaled by the 1 of a convention.
+_CONSTRAINED_REPLACES = ("stiffness.indefinite", "factor.negative-pivot", "condition.units-only")
+
+
+def _constrained_system_findings(model: Model, structure: StructureResult, spectrum: Optional[SpectrumResult],
+                                 pivots: Optional[PivotLoss], out: list[Finding]) -> list[Finding]:
+    """structure.constrained-system in place of the findings that read it as a stiffness."""
+    rows = structure.constraint_rows
+    m = int(rows.size)
+    others = np.setdiff1d(structure.zero_diagonal, rows)
+    kept = [f for f in out if f.code not in _CONSTRAINED_REPLACES
+            and not (f.code == "structure.zero-diagonal" and others.size == 0)]
+    labels = ", ".join(model.row_label(int(r)) for r in rows[:6]) + (f" and {m - 6:,} more" if m > 6 else "")
+    negative = spectrum.negative_eigenvalues if spectrum is not None else None
+    exact = spectrum is None or spectrum.negative_exact
+    if negative is None:
+        count, severity = "", "warning"
+    else:
+        how = spectrum.negative_method
+        has = f"it has {'' if exact else 'at least '}{negative:,} (counted from {how})"
+        if negative == m or (not exact and negative < m):
+            count, severity = f"; {has}, as the constraints explain." if negative == m else f"; {has}.", "warning"
+        elif negative > m:
+            count, severity = (f"; {has}: {negative - m:,} more than the constraints explain, so the stiffness "
+                               "itself is not positive definite on the motions the constraints allow "
+                               "(a negative spring, buckling, or a free mode the constraints do not hold)."), "error"
+        else:
+            count, severity = (f"; {has}: {m - negative:,} fewer, so some constraints are dependent (the "
+                               "same restraint written twice) or hold nothing."), "error"
+    if pivots is not None and pivots.negative_count and not pivots.symmetric:
+        count += (f" The {pivots.negative_count:,} negative pivots of the factorization are of a row-pivoted LU "
+                  "and count nothing.")
+    message = (f"K is a constrained (saddle-point) system, not a stiffness: {m:,} row{'s' if m != 1 else ''} "
+               f"({labels}) form a zero diagonal block coupled to the stiffness rows, as Lagrange "
+               f"multiplier or constraint-equation rows do. Such a system has one negative eigenvalue per "
+               f"independent constraint{count} These rows have no diagonal to scale by, so the scaling "
+               "takes 1 for them (a convention): the raw and the scaled condition numbers both depend on the "
+               "units the constraint rows are written in and are not the stiffness's. The digits are those of "
+               "a solve with row pivoting (threshold partial pivoting).")
+    finding = Finding(severity, "structure.constrained-system", message, model.nodes_of(rows),
+                      "To check the stiffness itself, export it without the multiplier rows, with the "
+                      "supports as removed rows (or the constraints eliminated); to solve this system use a "
+                      "symmetric indefinite (LDL^T with pivoting) or an LU solver with pivoting, not Cholesky.")
+    order = {"error": 0, "warning": 1, "note": 2}
+    return sorted([finding] + kept, key=lambda f: order[f.severity])
 
 
 def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:
@@ -608,7 +662,7 @@ ILL_CONDITIONED = 1e8
 #: The causes a verdict names, in the order :func:`verdict` tries them: the
 #: input first (every later figure rests on it), then what makes K unusable,
 #: then the supplied solution, then what costs digits.
-CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not fit",
+CAUSES = ("suspect input", "singular", "constrained system", "indefinite", "supplied solution does not fit",
           "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
           "healthy", "no defect found")
 
@@ -815,6 +869,20 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         return f"singular: {total} free mode{'' if total == 1 else 's'} ({detail})", status
     words = "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
+    if structure.constraint_rows.size:
+        rows = structure.constraint_rows
+        m = int(rows.size)
+        shown = ", ".join(str(int(r) + 1) for r in rows[:4]) + (f" and {m - 4:,} more" if m > 4 else "")
+        at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
+        exact = spectrum is None or spectrum.negative_exact
+        per = ("one per constraint" if negative == m else
+               f"{m:,} expected, one per constraint (the count is a lower bound)" if not exact and negative < m else
+               f"{negative - m:,} beyond the constraints: the stiffness is not positive definite" if negative > m
+               else f"{m - negative:,} fewer than the constraints: some are dependent")
+        count = f"; {at_least}{negative:,} negative eigenvalue{'' if negative == 1 else 's'}, {per}" \
+            if spectrum is not None else ""
+        return (f"constrained system, not a stiffness: {m:,} constraint row{'' if m == 1 else 's'} "
+                f"(rows {shown}) with a zero diagonal block{count}{tail}"), status
     pivots = [f for f in findings if f.code == "factor.negative-pivot"]
     if negative or pivots or "stiffness.indefinite" in codes:
         at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
