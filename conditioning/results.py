@@ -408,10 +408,13 @@ class StiffnessJump:
     """A stiffness far above the typical stiffness of its DOF type
     (:func:`conditioning.stages.jumps.find_stiffness_jumps`)."""
 
-    kind: Literal["coupling", "diagonal-outlier"]
+    kind: Literal["coupling", "diagonal-outlier", "stiff-region"]
     """``coupling``: an off-diagonal K_ij between DOFs of one type (a penalty
     or very stiff link); ``diagonal-outlier``: a large K_ii with no equally
-    stiff link (a support or spring to ground given by a large number)."""
+    stiff link in a grounded row (a support or spring to ground given by a
+    large number); ``stiff-region``: large K_ii in rows that are not grounded
+    (K times a rigid motion is round-off there): a region much stiffer than
+    its surroundings, or a distorted element, ``nodes`` all its nodes."""
     rows: list[int]
     """0-based rows involved."""
     nodes: list[int]

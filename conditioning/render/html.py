@@ -214,7 +214,7 @@ def _jumps(r: results.Report) -> str:
         return ""
     # a jump's reasoning is usually a finding's advice already: say it once, in the findings
     advised = {f.advice for f in r.findings if f.advice}
-    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), ("none (scaled)" if j.kind == "diagonal-outlier" else "all" if j.swallowed else f"{j.digits_cost:.1f}"),
+    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), ("none (scaled)" if j.kind == "diagonal-outlier" else "see digits" if j.kind == "stiff-region" else "all" if j.swallowed else f"{j.digits_cost:.1f}"),
              fmt_number(j.advice_value), "see the findings" if j.reasoning in advised else j.reasoning]
             for j in r.jumps]
     return "<h2>Stiffness jumps</h2>" + _table(

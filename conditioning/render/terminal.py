@@ -237,6 +237,8 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
 def _jump_cost(j: results.StiffnessJump) -> str:
     if j.kind == "diagonal-outlier":
         return "none (scaled)"  # a spring to ground raises only the raw figure
+    if j.kind == "stiff-region":
+        return "see digits"
     return "all" if j.swallowed else f"up to {j.digits_cost:.1f}"
 
 
@@ -265,13 +267,16 @@ def _key_figures(r: results.Report):
     if sp is not None:
         t.add_row("near-singular modes", _mode_count(sp),
                   _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
-    links = [j for j in r.jumps if j.kind != "diagonal-outlier"]
+    links = [j for j in r.jumps if j.kind == "coupling"]
     if links:
         worst = max(links, key=lambda j: j.digits_cost)
         t.add_row("stiffness jumps", str(len(links)), f"estimated; worst {_jump_cost(worst)} digits")
-    if len(links) < len(r.jumps):
-        t.add_row("springs to ground", str(len(r.jumps) - len(links)),
-                  "cost no digits (scaling removes them)")
+    regions = [j for j in r.jumps if j.kind == "stiff-region"]
+    if regions:
+        t.add_row("stiff regions", str(len(regions)), "rows not grounded; cost in the digits below")
+    grounded = sum(1 for j in r.jumps if j.kind == "diagonal-outlier")
+    if grounded:
+        t.add_row("springs to ground", str(grounded), "cost no digits (scaling removes them)")
     if sp is not None and sp.negative_eigenvalues:
         t.add_row("negative eigenvalues", f"{'>= ' if not sp.negative_exact else ''}{sp.negative_eigenvalues:,}",
                   _negative_how(sp.negative_method))
@@ -809,6 +814,7 @@ def explanation_view(e: results.RowExplanation) -> Group:
     lines.append(t if e.couplings else Text("Coupled to no other row."))
     for j in e.jumps:
         cost = ("no digits for a direct solve" if j.kind == "diagonal-outlier"
+                else "its cost shows in the measured digits" if j.kind == "stiff-region"
                 else f"about {fmt_digits(j.digits_cost)} digits")
         lines.append(Text(f"Stiffness jump ({j.kind}, ratio {fmt_number(j.ratio)}, {cost}): "
                           f"nodes {', '.join(map(str, j.nodes))}."))

@@ -40,6 +40,8 @@ CODES = {
     "support.dof-without-stiffness": "a direction at a node that nothing resists, though no row is empty",
     "stiffness.indefinite": "negative eigenvalues: the stiffness is not positive semi-definite",
     "stiffness.jump": "a stiffness jump that costs digits",
+    "stiffness.stiff-region": "a region much stiffer than its surroundings whose rows balance (not grounded): "
+                              "a stiff material or section, or a distorted element",
     "stiffness.spring-to-ground": "a support or spring to ground given by a large number (raises the raw "
                                   "condition number only; a direct solve loses no digits to it)",
     "stiffness.penalty-swallowed": "a penalty so stiff that K no longer holds the structural stiffness of the DOFs it links",
@@ -476,6 +478,13 @@ def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float
                        "diagonal of its DOF type (a support given by a large number): it raises the raw "
                        "condition number by about that ratio, which diagonal scaling removes; a direct "
                        "solve loses no digits to it.", j.nodes, j.reasoning)
+    if j.kind == "stiff-region":
+        shown = _at(model, rows_word, j.nodes)
+        return Finding("note", "stiffness.stiff-region",
+                       f"Stiff region at {shown}: diagonal stiffness up to {j.ratio:.1e} times the typical of its "
+                       "DOF type, in rows that are not grounded (their response to a rigid motion is round-off): "
+                       "a part much stiffer than its surroundings or a distorted element, not a spring to ground.",
+                       j.nodes, j.reasoning)
     # A stiff spring to ground is absorbed by diagonal scaling; a stiff
     # link between DOFs is not. Once digits are measured (the worst-case
     # load excites the weakest mode), the measurement decides.
