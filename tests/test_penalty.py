@@ -218,7 +218,6 @@ def test_negative_pivot_beyond_buckling_is_named_with_its_dof():
     w, V = np.linalg.eigh(d[:, None] * Kd * d[None, :])
     weights = np.bincount(model.dofs.node, weights=V[:, 0] ** 2)
     assert finding.nodes[0] == int(np.argmax(weights))
-    assert int(model.dofs.node[entry.row]) in finding.nodes
     assert "The elimination met it at " + entry.label in finding.message
     assert "buckling" in finding.advice and "negative stiffness" in finding.advice
     assert not any("inf digits" in f.message for f in report.findings)

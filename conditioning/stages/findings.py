@@ -622,11 +622,13 @@ def _negative_pivot_finding(model: Model, pivots: PivotLoss, spectrum: Optional[
     if not pivots.symmetric:
         met += (" The factorization pivoted rows, so these pivots are not an LDL^T's: their signs do not "
                 "count the negative eigenvalues.")
-    nodes = _eigenvector_nodes(spectrum)
-    nodes += [v for v in model.nodes_of([e.row for e in neg]) if v not in nodes]
+    # Located: the eigenvector's nodes are where to look; the pivot's node is
+    # named in the message only, as where the elimination met it.
+    nodes = _eigenvector_nodes(spectrum) or model.nodes_of([e.row for e in neg])
     return Finding(
         "error", "factor.negative-pivot", f"{counted}{located}{met}", nodes,
-        ("Look first at the nodes the eigenvector names. " if located else "")
+        ("Look here first: the negative eigenvector lives at these nodes (the negative pivot's DOF is only "
+         "where the elimination met it). " if located else "")
         + "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
         "spring or element entered with a negative stiffness, or a sign error in an element or "
         "in the export. Check the loads of a geometric-stiffness step against the buckling load.")
