@@ -260,7 +260,7 @@ def _key_figures(r: results.Report):
         constrained = r.structure is not None and r.structure.constraint_rows.size > 0
         t.add_row("condition number, scaled", _kappa(c.scaled_estimate, c.singular),
                   _how(c.scaled_estimate, c.scaled_method)
-                  + ("; constraint rows scaled by 1 (convention)" if constrained else
+                  + ("; constraint rows unscaled" if constrained else
                      f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum

@@ -406,8 +406,8 @@ def _constrained_system_findings(model: Model, structure: StructureResult, spect
             count, severity = (f"; {has}: {m - negative:,} fewer, so some constraints are dependent (the "
                                "same restraint written twice) or hold nothing."), "error"
     if pivots is not None and pivots.negative_count and not pivots.symmetric:
-        count += (f" The {pivots.negative_count:,} negative pivots of the factorization are of a row-pivoted LU "
-                  "and count nothing.")
+        count += (f" The {pivots.negative_count:,} negative pivots of the factorization are those of a row-pivoted "
+                  "LU, whose signs do not count eigenvalues.")
     message = (f"K is a constrained (saddle-point) system, not a stiffness: {m:,} row{'s' if m != 1 else ''} "
                f"({labels}) form a zero diagonal block coupled to the stiffness rows, as Lagrange "
                f"multiplier or constraint-equation rows do. Such a system has one negative eigenvalue per "
