@@ -519,12 +519,19 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     return Group(*lines) if lines else None
 
 
+#: Nodes of a stiff region shown in the jumps table (the project's choice: the
+#: table stays within 80 columns).
+REGION_NODES_SHOWN = 4
+
+
 def _jumps(r: results.Report, max_ids: int):
     if not r.jumps:
         return None
     t = _table("kind", unit_word(r) + "s", "ratio", "digits cost", "suggested", right=(2, 3, 4))
     for j in r.jumps[:max_ids]:
-        t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio, 2),
+        # A region lists all its nodes: its first few here, every one in the finding and the JSON.
+        shown = min(max_ids, REGION_NODES_SHOWN) if j.kind == "stiff-region" else max_ids
+        t.add_row(j.kind, summarise_ids(j.nodes, shown), fmt_number(j.ratio, 2),
                   _jump_cost(j), fmt_number(j.advice_value))
     parts = [t]
     if len(r.jumps) > max_ids:
