@@ -18,6 +18,7 @@ from conditioning.demo.assemble import plane_stress_quad
 from conditioning.demo.scenarios import _quad_grid
 from conditioning.model import Model
 from conditioning.render.json_report import report_to_dict
+from conditioning.render.html import render_html
 from conditioning.render.terminal import render_text
 
 
@@ -60,6 +61,7 @@ def test_multiplier_rows_reported_as_a_constrained_system(nx, ny):
     text = render_text(report, width=120)
     figures = text.split("Key figures")[1].split("Model")[0]
     assert "constraint rows unscaled" in figures
+    assert "are left unscaled (scale 1, a convention)" in render_html(report)
     data = report_to_dict(report)
     shown = [line for line in figures.splitlines() if line.startswith("negative eigenvalues")]
     assert shown and shown[0].split()[2 if sp_.negative_exact else 3] == str(data["spectrum"]["negative_eigenvalues"])

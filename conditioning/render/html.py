@@ -175,7 +175,12 @@ def _condition(r: results.Report) -> str:
         rows.append([name, "singular" if value is None else fmt_number(value),
                      "-" if value is None else how_obtained(method), method])
     text = ""
-    if c.scaling_gain_digits is not None:
+    constraint_rows = r.structure.constraint_rows.size if r.structure is not None else 0
+    if constraint_rows:
+        text = (f"<p>{constraint_rows:,} constraint rows (a zero diagonal block) have no diagonal to scale by and "
+                "are left unscaled (scale 1, a convention): both figures depend on the units of those rows and "
+                "are not the stiffness's condition number.</p>")
+    elif c.scaling_gain_digits is not None:
         text = f"<p>{_e(scaling_sentence(c.scaling_gain_digits))}</p>"
     return ("<h2>Condition number</h2>"
             + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
