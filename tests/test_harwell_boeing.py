@@ -22,7 +22,7 @@ import scipy.sparse.linalg as sla
 
 from conditioning.cli import main
 from conditioning.errors import InputError
-from conditioning.io.harwell_boeing import Field, FortranFormat, read_field
+from conditioning.io.harwell_boeing import FortranFormat, read_field
 from conditioning.io.matrix_formats import read_matrix
 from conftest import REFERENCE_MATRICES
 

@@ -627,8 +627,8 @@ def _negative_pivot_finding(model: Model, pivots: PivotLoss, spectrum: Optional[
     nodes = _eigenvector_nodes(spectrum) or model.nodes_of([e.row for e in neg])
     return Finding(
         "error", "factor.negative-pivot", f"{counted}{located}{met}", nodes,
-        ("Look here first: the negative eigenvector lives at these nodes (the negative pivot's DOF is only "
-         "where the elimination met it). " if located else "")
+        (f"Look here first: the negative eigenvector lives at these {'nodes' if model.dofs is not None else 'rows'} "
+         "(the negative pivot's DOF is only where the elimination met it). " if located else "")
         + "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
         "spring or element entered with a negative stiffness, or a sign error in an element or "
         "in the export. Check the loads of a geometric-stiffness step against the buckling load.")
