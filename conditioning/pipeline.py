@@ -46,6 +46,7 @@ from conditioning.stages.findings import build_findings, verdict, verdict_with_g
 from conditioning.stages.node_geometry import WHY_NOT_RUN, check_node_geometry
 from conditioning.stages.jumps import find_stiffness_jumps
 from conditioning.stages.modes import ZERO_ROOM, locate_modes
+from conditioning.stages.negative_modes import locate_negative_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import merging_first, suggest_restraints
@@ -266,7 +267,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         skipped.update(WITHOUT_FACTORIZATION)
     # Independent streams for the stages that draw start vectors, so that the
     # random loads (drawn from run.rng itself) do not move when they change.
-    spectrum_rng, condition_rng, low_end_rng = _spawn(run.rng, 3)
+    spectrum_rng, condition_rng, low_end_rng, negative_rng = _spawn(run.rng, 4)
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
     if fac is not None and not fac.info.pivots_note and (
@@ -327,6 +328,10 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
         # outside the eigensolver's window: search the low end by products.
         with stage("low-end search"):
             spectrum = with_low_end_search(spectrum, scaled.S, rng=low_end_rng)
+    if spectrum.negative_eigenvalues:
+        with stage("negative modes"):
+            spectrum = replace(spectrum, negative_modes=locate_negative_modes(
+                model, scaled.scale, scaled.active, scaled.S, eig, spectrum, rng=negative_rng))
     if fac is not None:
         if digits is not None and digits.samples:
             with stage("certification"):

@@ -106,6 +106,14 @@ class StructureResult:
     one_triangle: Optional[OneTriangleExport] = None
     """Set when the input stored one triangle plus a few stray entries of the
     other and was mirrored (see :class:`OneTriangleExport`); None otherwise."""
+    constraint_rows: NDArray[np.intp] = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    """0-based rows of a zero diagonal block coupled to the rest: rows with a
+    zero diagonal that have no entry in the columns of the other zero-diagonal
+    rows, and couple to rows with stiffness. They are the rows of Lagrange
+    multipliers or constraint equations, [[K, C^T], [C, 0]]: the matrix is a
+    constrained (saddle-point) system, not a stiffness, and has one negative
+    eigenvalue per independent constraint (when K is positive definite on the
+    motions the constraints allow). Empty otherwise."""
 
 
 # ----------------------------------------------------------- factorization
@@ -340,6 +348,27 @@ class SupportDecision:
 
 
 @dataclass(frozen=True)
+class NegativeMode:
+    """One negative eigenvalue of S located by its eigenvector
+    (:func:`conditioning.stages.negative_modes.locate_negative_modes`)."""
+
+    eigenvalue: float
+    """Eigenvalue of the scaled matrix S (dimensionless, below zero)."""
+    nodes: list[int]
+    """Nodes that carry the eigenvector, largest share first: those whose
+    weight (sum of v_i^2 over the node's rows of the unit scaled vector v)
+    is at least 1% of the largest node's, at most 12. 1-based rows without a
+    DOF map."""
+    shares: list[float]
+    """Each of ``nodes``' share of the vector (its weight; the weights of all
+    nodes sum to 1)."""
+    method: str
+    """How the eigenvector was obtained, in words (LAPACK, the spectrum
+    stage's shift-and-invert Lanczos, or a Lanczos run for the smallest
+    algebraic eigenvalues), with its residual."""
+
+
+@dataclass(frozen=True)
 class SpectrumResult:
     """Smallest eigenvalues of S and the split into near-singular modes: the
     spectrum stage's public result, however its eigenpairs were obtained
@@ -397,6 +426,10 @@ class SpectrumResult:
     """True when ``negative_eigenvalues`` is a count (LAPACK, or Sylvester's
     law on the factorization's pivots); False when it is a lower bound (only
     the eigenvalues found, or proved, are counted)."""
+    negative_modes: list[NegativeMode] = field(default_factory=list)
+    """The most negative eigenvalues (at most 4) located by their
+    eigenvectors, most negative first; empty when K has none, or when no
+    eigenvector was obtained (``negative_method`` then says why)."""
 
 
 @dataclass(frozen=True)
@@ -422,10 +455,13 @@ class StiffnessJump:
     """A stiffness far above the typical stiffness of its DOF type
     (:func:`conditioning.stages.jumps.find_stiffness_jumps`)."""
 
-    kind: Literal["coupling", "diagonal-outlier"]
+    kind: Literal["coupling", "diagonal-outlier", "stiff-region"]
     """``coupling``: an off-diagonal K_ij between DOFs of one type (a penalty
     or very stiff link); ``diagonal-outlier``: a large K_ii with no equally
-    stiff link (a support or spring to ground given by a large number)."""
+    stiff link in a grounded row (a support or spring to ground given by a
+    large number); ``stiff-region``: large K_ii in rows that are not grounded
+    (K times a rigid motion is round-off there): a region much stiffer than
+    its surroundings, or a distorted element, ``nodes`` all its nodes."""
     rows: list[int]
     """0-based rows involved."""
     nodes: list[int]
@@ -495,6 +531,13 @@ class PivotLoss:
     indefinite and the DOF pushes back negatively once the DOFs
     eliminated before it are condensed out. ``kept`` = D_ii / K_ii < 0 for a
     positive diagonal; ``digits`` is inf."""
+    negative_count: int = 0
+    """Number of negative pivots in all (``negative_pivots`` lists at most
+    ``worst`` of them): the count the reports show."""
+    symmetric: bool = True
+    """True when the pivots are those of an LDL^T (the row permutation equals
+    the column permutation), so their signs are an inertia (Sylvester's law);
+    False after unsymmetric row pivoting, when they are not."""
     kept_by_row: Optional[NDArray[np.float64]] = field(default=None, repr=False)
     """(n,) D_ii / K_ii of every row in row order, as ``kept`` of
     :class:`PivotEntry` (dimensionless; NaN for a row that was not factored:

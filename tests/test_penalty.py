@@ -212,10 +212,16 @@ def test_negative_pivot_beyond_buckling_is_named_with_its_dof():
     (finding,) = [f for f in report.findings if f.code == "factor.negative-pivot"]
     entry = report.pivots.negative_pivots[0]
     assert finding.severity == "error" and entry.label in finding.message
-    assert finding.nodes == [int(model.dofs.node[entry.row])]
+    # The nodes the negative eigenvector lives on come first (LAPACK's eigenvector of the
+    # scaled matrix, per-node weight sum v_i^2), the pivot's node after them.
+    d = 1.0 / np.sqrt(np.abs(np.diag(Kd)))
+    w, V = np.linalg.eigh(d[:, None] * Kd * d[None, :])
+    weights = np.bincount(model.dofs.node, weights=V[:, 0] ** 2)
+    assert finding.nodes[0] == int(np.argmax(weights))
+    assert "The elimination met it at " + entry.label in finding.message
     assert "buckling" in finding.advice and "negative stiffness" in finding.advice
     assert not any("inf digits" in f.message for f in report.findings)
-    assert report.verdict.startswith("indefinite: negative pivot at node ")
+    assert report.verdict.startswith("indefinite: 1 negative eigenvalue, its eigenvector at node")
 
 
 def test_negative_pivot_row_matches_leading_minors_in_natural_order():

@@ -46,6 +46,16 @@ PREDICT_ABOVE = 20000
 
 
 SUPERLU_ORDERINGS = ("MMD_AT_PLUS_A", "MMD_ATA", "COLAMD", "NATURAL")
+#: Threshold partial pivoting (SuperLU's ``diag_pivot_thresh``) for a matrix
+#: with zero diagonal entries (a constrained system: Lagrange multiplier rows):
+#: a row is swapped in when the diagonal is below this share of the column's
+#: largest entry. Without it SuperLU takes every nonzero diagonal, however
+#: small, which is not a stable elimination of a saddle-point matrix; 0.1 is
+#: the usual choice of threshold pivoting (I. S. Duff, A. M. Erisman, J. K.
+#: Reid, Direct Methods for Sparse Matrices, 1986, section 5.4, from memory).
+#: A matrix without zero diagonals keeps the diagonal pivots (0.0), whose signs
+#: are the inertia.
+STABLE_PIVOT_THRESHOLD = 0.1
 
 
 @dataclass
@@ -158,10 +168,11 @@ def _resolve_ordering(ordering: Ordering, K, coords) -> Ordering:
 
 
 def _superlu(A: sp.csc_array, permc_spec: str):
+    zero_diagonal = bool(np.any(A.diagonal() == 0.0))
     return spla.splu(
         A,
         permc_spec=permc_spec,
-        diag_pivot_thresh=0.0,
+        diag_pivot_thresh=STABLE_PIVOT_THRESHOLD if zero_diagonal else 0.0,
         options=dict(SymmetricMode=True),
     )
 

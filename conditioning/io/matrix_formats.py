@@ -1,7 +1,9 @@
 """Reading stiffness matrices and vectors from Matrix Market, Harwell-Boeing and CSV.
 
-The parsing itself is scipy's (:func:`scipy.io.mmread`, :func:`scipy.io.mminfo`,
-:func:`scipy.io.hb_read`); this module opens the file, checks that what was
+The Matrix Market parsing is scipy's (:func:`scipy.io.mmread`,
+:func:`scipy.io.mminfo`); Harwell-Boeing files are read field by field from
+the header's Fortran formats (:mod:`conditioning.io.harwell_boeing`). This
+module opens the file, checks that what was
 read can be a stiffness matrix, turns every failure into an
 :class:`~conditioning.errors.InputError` naming the file and the line, and
 brings the matrix to the form every stage expects: ``float64``, full
@@ -132,7 +134,9 @@ def read_matrix(path: PathLike) -> tuple[sp.csr_array, list[str]]:
     if _is_matrix_market(head):
         rows, cols, vals, n, stored, notes = _read_matrix_market(name, head)
     elif _looks_like_harwell_boeing(name, head):
-        rows, cols, vals, n, stored, notes = _read_harwell_boeing(name)
+        from conditioning.io.harwell_boeing import read_harwell_boeing
+        rows, cols, vals, n, stored, notes = read_harwell_boeing(name, _read_all_bytes(name),
+                                                                 _require_plausible_size)
     elif _looks_like_triplets(head):
         rows, cols, vals, n, stored, notes = _read_triplets(name)
     else:
@@ -880,89 +884,6 @@ def _looks_like_harwell_boeing(name: str, head: bytes) -> bool:
     for suffix in (".gz", ".bz2"):
         lowered = lowered.removesuffix(suffix)
     return lowered.endswith(HARWELL_BOEING_SUFFIXES)
-
-
-def _hb_int(name: str, line: str, lo: int, hi: int, line_no: int, what: str) -> int:
-    field = line[lo:hi].strip()
-    try:
-        return int(field) if field else 0
-    except ValueError:
-        raise InputError(name, f"line {line_no}: {what} (columns {lo + 1}-{hi}) is not an integer: {field!r}") from None
-
-
-def _read_harwell_boeing(name: str):
-    """Read through scipy.io.hb_read, first fixing the header words it does not take.
-
-    scipy reads only unsymmetric assembled files without right-hand sides and
-    wants header lines padded to 72 characters. An in-memory copy is adjusted
-    (the user's file is never touched): symmetric type ``xSA`` -> ``xUA`` (the
-    stored triangle is mirrored afterwards), right-hand-side count set to 0,
-    header lines padded, Fortran ``D`` exponents written as ``E``.
-    """
-    text = _read_all_bytes(name).decode("latin-1")
-    lines = text.splitlines(keepends=False)
-    if len(lines) < 4:
-        raise InputError(name, f"Harwell-Boeing header needs 4 lines, the file has {len(lines)}")
-    mxtype = lines[2][:3].upper()
-    if not _HB_TYPE.match(mxtype):
-        raise InputError(name, f"line 3: {lines[2][:3]!r} is not a Harwell-Boeing matrix type such as RSA")
-    value, structure, storage = mxtype
-    if value == "C":
-        raise InputError(name, "line 3: the file holds complex values; a stiffness matrix must be real")
-    if value == "P":
-        raise InputError(name, "line 3: the file is pattern-only (no values); a stiffness matrix needs its values")
-    if structure == "Z":
-        raise InputError(name, "line 3: the matrix is labelled skew-symmetric; a stiffness matrix is symmetric")
-    if structure == "H":
-        raise InputError(name, "line 3: the matrix is labelled hermitian; a stiffness matrix is real symmetric")
-    if storage == "E":
-        raise InputError(name, "line 3: elemental (unassembled) storage is not supported; assemble the matrix first")
-    nrows = _hb_int(name, lines[2], 14, 28, 3, "number of rows")
-    ncols = _hb_int(name, lines[2], 28, 42, 3, "number of columns")
-    nnz = _hb_int(name, lines[2], 42, 56, 3, "number of entries")
-    rhs_lines = _hb_int(name, lines[1], 56, 70, 2, "right-hand-side line count")
-    if structure == "R" or nrows != ncols:
-        raise InputError(name, f"line 3: matrix is {nrows} x {ncols}; a stiffness matrix must be square")
-    _require_plausible_size(name, "coordinate", nrows, nnz)
-    notes = [f"read a {nrows} x {ncols} Harwell-Boeing {mxtype} matrix ({nnz} stored entries)"]
-    header = [lines[0][:80].ljust(80), lines[1].ljust(80), lines[2].ljust(80), lines[3]]
-    body = lines[4:]
-    if rhs_lines:
-        header[1] = header[1][:56] + "0".rjust(14) + header[1][70:]
-        body = body[1:]
-        notes.append("right-hand sides stored in the file ignored")
-    header[2] = value + "UA" + header[2][3:]
-    if value == "I":
-        notes.append("integer values converted to float64")
-    values_format = lines[3][32:].upper() if len(lines[3]) > 32 else ""
-    body_text = "\n".join(body) + "\n"
-    if "D" in values_format or re.search(r"\d[dD][+-]?\d", body_text):
-        body_text = re.sub(r"(?<=[\d.])[dD](?=[+-]?\d)", "E", body_text)
-    copy = io.StringIO("\n".join(header) + "\n" + body_text)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error")
-            A = scipy.io.hb_read(copy, spmatrix=False)
-            A = sp.csc_array(A)
-            A.check_format(full_check=True)
-    except Exception as exc:  # noqa: BLE001 - every scipy failure becomes an InputError
-        problem = " ".join(str(exc).split())
-        if "could not be read to its end" in problem:
-            problem = "non-numeric data in the pointer, index or value section"
-        elif "indices must be" in problem:
-            problem = f"row index out of range (indices run from 1 to {nrows})"
-        elif "should have the same size" in problem:
-            problem = "fewer values or indices than the header announces (cut short?)"
-        raise InputError(name, f"cannot be read as Harwell-Boeing: {problem}") from None
-    if A.shape != (nrows, ncols):
-        raise InputError(name, f"pointer section describes a {A.shape[0]} x {A.shape[1]} matrix, "
-                               f"line 3 says {nrows} x {ncols}")
-    if A.nnz != nnz:
-        raise InputError(name, f"holds {A.nnz} entries, line 3 announces {nnz} "
-                               "(fewer entries than the header says; cut short?)")
-    coo = A.tocoo()
-    stored: Stored = "triangle" if structure == "S" else "general"
-    return coo.row, coo.col, coo.data, nrows, stored, notes
 
 
 # --------------------------------------------------------------------------- #

@@ -175,7 +175,12 @@ def _condition(r: results.Report) -> str:
         rows.append([name, "singular" if value is None else fmt_number(value),
                      "-" if value is None else how_obtained(method), method])
     text = ""
-    if c.scaling_gain_digits is not None:
+    constraint_rows = r.structure.constraint_rows.size if r.structure is not None else 0
+    if constraint_rows:
+        text = (f"<p>{constraint_rows:,} constraint rows (a zero diagonal block) have no diagonal to scale by and "
+                "are left unscaled (scale 1, a convention): both figures depend on the units of those rows and "
+                "are not the stiffness's condition number.</p>")
+    elif c.scaling_gain_digits is not None:
         text = f"<p>{_e(scaling_sentence(c.scaling_gain_digits))}</p>"
     return ("<h2>Condition number</h2>"
             + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
@@ -214,7 +219,7 @@ def _jumps(r: results.Report) -> str:
         return ""
     # a jump's reasoning is usually a finding's advice already: say it once, in the findings
     advised = {f.advice for f in r.findings if f.advice}
-    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), ("none (scaled)" if j.kind == "diagonal-outlier" else "all" if j.swallowed else f"{j.digits_cost:.1f}"),
+    rows = [[j.kind, summarise_ids(j.nodes, 12), fmt_number(j.ratio), ("none (scaled)" if j.kind == "diagonal-outlier" else "see digits" if j.kind == "stiff-region" else "all" if j.swallowed else f"{j.digits_cost:.1f}"),
              fmt_number(j.advice_value), "see the findings" if j.reasoning in advised else j.reasoning]
             for j in r.jumps]
     return "<h2>Stiffness jumps</h2>" + _table(
@@ -231,7 +236,7 @@ def _pivots(r: results.Report) -> str:
     low = pivots_are_lower_bounds(r)
     rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
              fmt_number(e.kept)] for e in d.worst[:10]]
-    largest = (f"{len(negative)} negative pivot(s): K is not positive definite. " if negative
+    largest = (f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite. " if negative
                else f"At least {d.max_digits:.1f} digits lost at a pivot "
                     "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")

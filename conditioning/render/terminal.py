@@ -272,10 +272,21 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
 def _jump_cost(j: results.StiffnessJump) -> str:
     if j.kind == "diagonal-outlier":
         return "none (scaled)"  # a spring to ground raises only the raw figure
+    if j.kind == "stiff-region":
+        return "see digits"
     return "all" if j.swallowed else f"up to {j.digits_cost:.1f}"
 
 
 # ------------------------------------------------------------- key figures
+def _negative_how(method: str) -> str:
+    """The negative count's method, short: LAPACK, pivot signs, Lanczos."""
+    if "LAPACK" in method:
+        return "counted: all eigenvalues (LAPACK)"
+    if "inertia" in method and "no inertia" not in method:
+        return "counted: pivot signs (Sylvester's law)"
+    if "Lanczos" in method or "LOBPCG" in method:
+        return "lower bound: eigenvalues found (Lanczos)"
+    return method
 def _key_figures(r: results.Report):
     t = _table("figure", "value", "how obtained", right=(1,))
     c = r.condition
@@ -285,28 +296,38 @@ def _key_figures(r: results.Report):
     if c is not None:
         t.add_row("condition, raw, after" if after else "condition number, raw K", _kappa(c.estimate, c.singular),
                   ("prediction; " if after else "") + _how(c.estimate, c.estimate_method))
+        constrained = r.structure is not None and r.structure.constraint_rows.size > 0
         t.add_row("condition, scaled, after" if after else "condition number, scaled",
                   _kappa(c.scaled_estimate, c.singular),
                   ("prediction; " if after else "") + _how(c.scaled_estimate, c.scaled_method)
-                  + (f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
+                  + ("; constraint rows unscaled" if constrained else
+                     f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
     if sp is not None:
         t.add_row("near-singular modes", _mode_count(sp),
                   _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
-    links = [j for j in r.jumps if j.kind != "diagonal-outlier"]
+    links = [j for j in r.jumps if j.kind == "coupling"]
     if links:
         worst = max(links, key=lambda j: j.digits_cost)
         t.add_row("stiffness jumps", str(len(links)), f"estimated; worst {_jump_cost(worst)} digits")
-    if len(links) < len(r.jumps):
-        t.add_row("springs to ground", str(len(r.jumps) - len(links)),
-                  "cost no digits (scaling removes them)")
+    regions = [j for j in r.jumps if j.kind == "stiff-region"]
+    if regions:
+        t.add_row("stiff regions", str(len(regions)), "rows not grounded; cost in the digits below")
+    grounded = sum(1 for j in r.jumps if j.kind == "diagonal-outlier")
+    if grounded:
+        t.add_row("springs to ground", str(grounded), "cost no digits (scaling removes them)")
+    if sp is not None and sp.negative_eigenvalues:
+        t.add_row("negative eigenvalues", f"{'>= ' if not sp.negative_exact else ''}{sp.negative_eigenvalues:,}",
+                  _negative_how(sp.negative_method))
     p = r.pivots
     if p is None and "pivots" in r.skipped:
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
-        if p.negative_pivots:
-            t.add_row("negative pivots", str(len(p.negative_pivots)), f"first at {p.negative_pivots[0].label}")
+        if p.negative_pivots and p.symmetric:
+            t.add_row("negative pivots", f"{p.negative_count:,}", f"elimination met it at {p.negative_pivots[0].label}")
+        elif p.negative_pivots:
+            pass   # a row-pivoted LU's pivot signs count nothing: the negative eigenvalues row says how many
         else:
             if pivots_are_lower_bounds(r):
                 t.add_row("digits lost at a pivot", f">= {fmt_digits(p.max_digits)}",
@@ -544,8 +565,14 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     if verbose or len(counts) > 2 or sp.negative_eigenvalues or sp.inertia_agrees is False:
         lines += [Text(line, style="red" if "DISAGREES" in line else "") for line in counts]
     if sp.negative_eigenvalues:
-        lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues} negative "
-                          "eigenvalue(s) of K: the stiffness is indefinite", style="red"))
+        constrained = r.structure is not None and r.structure.constraint_rows.size > 0
+        lines.append(Text(f"{'' if sp.negative_exact else 'at least '}{sp.negative_eigenvalues:,} negative "
+                          "eigenvalue(s) of K: " + (f"a constrained system with {r.structure.constraint_rows.size:,} "
+                                                    "constraint rows" if constrained else "the stiffness is indefinite"),
+                          style="red"))
+        for m in ([] if constrained else sp.negative_modes[:2]):
+            lines.append(Text(f"  eigenvalue {m.eigenvalue:.3g} (scaled): carried by {unit_word(r)}s "
+                              + ", ".join(f"{v} ({100 * s:.0f}%)" for v, s in zip(m.nodes[:6], m.shares))))
     support = getattr(sp, "support", None)
     if support is not None:
         figure = (f"lambda_min(S) >= {support.lower_bound_scaled:.2e} proved"
@@ -586,12 +613,19 @@ def _modes(r: results.Report, max_ids: int, verbose: bool):
     return Group(*lines) if lines else None
 
 
+#: Nodes of a stiff region shown in the jumps table (the project's choice: the
+#: table stays within 80 columns).
+REGION_NODES_SHOWN = 4
+
+
 def _jumps(r: results.Report, max_ids: int):
     if not r.jumps:
         return None
     t = _table("kind", unit_word(r) + "s", "ratio", "digits cost", "suggested", right=(2, 3, 4))
     for j in r.jumps[:max_ids]:
-        t.add_row(j.kind, summarise_ids(j.nodes, max_ids), fmt_number(j.ratio, 2),
+        # A region lists all its nodes: its first few here, every one in the finding and the JSON.
+        shown = min(max_ids, REGION_NODES_SHOWN) if j.kind == "stiff-region" else max_ids
+        t.add_row(j.kind, summarise_ids(j.nodes, shown), fmt_number(j.ratio, 2),
                   _jump_cost(j), fmt_number(j.advice_value))
     parts = [t]
     if len(r.jumps) > max_ids:
@@ -608,7 +642,8 @@ def _pivots(r: results.Report):
     g = _grid()
     negative = {e.row for e in getattr(d, "negative_pivots", [])}
     if negative:
-        g.add_row("negative", f"{len(negative)} negative pivot(s): K is not positive definite")
+        g.add_row("negative", f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite"
+                  + ("" if d.symmetric else " (row-pivoted LU: their signs do not count eigenvalues)"))
     elif pivots_are_lower_bounds(r):
         g.add_row("largest", f"at least {d.max_digits:.1f} digits lost at a pivot (K singular: "
                   "along its free modes all digits are lost)")
@@ -928,6 +963,7 @@ def explanation_view(e: results.RowExplanation) -> Group:
     lines.append(t if e.couplings else Text("Coupled to no other row."))
     for j in e.jumps:
         cost = ("no digits for a direct solve" if j.kind == "diagonal-outlier"
+                else "its cost shows in the measured digits" if j.kind == "stiff-region"
                 else f"about {fmt_digits(j.digits_cost)} digits")
         lines.append(Text(f"Stiffness jump ({j.kind}, ratio {fmt_number(j.ratio)}, {cost}): "
                           f"nodes {', '.join(map(str, j.nodes))}."))

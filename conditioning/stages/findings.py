@@ -33,12 +33,16 @@ CODES = {
     "structure.dof-without-stiffness": "rows with no stiffness at all",
     "structure.negative-diagonal": "negative diagonal entries",
     "structure.zero-diagonal": "zero diagonal entries in rows that have stiffness",
+    "structure.constrained-system": "a constrained (saddle-point) system with multiplier or constraint rows, "
+                                    "not a stiffness",
     "structure.separate-parts": "the model has parts that share no stiffness",
     "support.rigid-body-mode": "a part can move as a rigid body",
     "support.mechanism": "an internal mechanism",
     "support.dof-without-stiffness": "a direction at a node that nothing resists, though no row is empty",
     "stiffness.indefinite": "negative eigenvalues: the stiffness is not positive semi-definite",
     "stiffness.jump": "a stiffness jump that costs digits",
+    "stiffness.stiff-region": "a region much stiffer than its surroundings whose rows balance (not grounded): "
+                              "a stiff material or section, or a distorted element",
     "stiffness.spring-to-ground": "a support or spring to ground given by a large number (raises the raw "
                                   "condition number only; a direct solve loses no digits to it)",
     "stiffness.penalty-swallowed": "a penalty so stiff that K no longer holds the structural stiffness of the DOFs it links",
@@ -193,6 +197,8 @@ def build_findings(
         + (_solution_findings(audit, rows_word) if audit is not None else [])
         + _digits_findings(model, digits, min_digits, rows_word)
     )
+    if structure.constraint_rows.size:
+        out = _constrained_system_findings(model, structure, spectrum, pivots, out)
     out = _merging_first(out, spectrum, geometry)
     order = {"error": 0, "warning": 1, "note": 2}
     out.sort(key=lambda f: order[f.severity])
@@ -447,6 +453,56 @@ def _node_dof_advice(modes: list[NearSingularMode]) -> str:
             + "; or ".join(causes) + ". Restrain it at each node (the suggested restraints) or remove the cause.")
 
 
+#: Findings a constrained system's own finding replaces: its negative
+#: eigenvalues are the constraints' (one each), its zero diagonals are the
+#: multiplier rows, and its raw-versus-scaled condition numbers compare rows
+#: scaled by the 1 of a convention.
+_CONSTRAINED_REPLACES = ("stiffness.indefinite", "factor.negative-pivot", "condition.units-only")
+
+
+def _constrained_system_findings(model: Model, structure: StructureResult, spectrum: Optional[SpectrumResult],
+                                 pivots: Optional[PivotLoss], out: list[Finding]) -> list[Finding]:
+    """structure.constrained-system in place of the findings that read it as a stiffness."""
+    rows = structure.constraint_rows
+    m = int(rows.size)
+    others = np.setdiff1d(structure.zero_diagonal, rows)
+    kept = [f for f in out if f.code not in _CONSTRAINED_REPLACES
+            and not (f.code == "structure.zero-diagonal" and others.size == 0)]
+    labels = ", ".join(model.row_label(int(r)) for r in rows[:6]) + (f" and {m - 6:,} more" if m > 6 else "")
+    negative = spectrum.negative_eigenvalues if spectrum is not None else None
+    exact = spectrum is None or spectrum.negative_exact
+    if negative is None:
+        count, severity = "", "warning"
+    else:
+        how = spectrum.negative_method
+        has = f"it has {'' if exact else 'at least '}{negative:,} (counted from {how})"
+        if negative == m or (not exact and negative < m):
+            count, severity = f"; {has}, as the constraints explain." if negative == m else f"; {has}.", "warning"
+        elif negative > m:
+            count, severity = (f"; {has}: {negative - m:,} more than the constraints explain, so the stiffness "
+                               "itself is not positive definite on the motions the constraints allow "
+                               "(a negative spring, buckling, or a free mode the constraints do not hold)."), "error"
+        else:
+            count, severity = (f"; {has}: {m - negative:,} fewer, so some constraints are dependent (the "
+                               "same restraint written twice) or hold nothing."), "error"
+    if pivots is not None and pivots.negative_count and not pivots.symmetric:
+        count += (f" The {pivots.negative_count:,} negative pivots of the factorization are those of a row-pivoted "
+                  "LU, whose signs do not count eigenvalues.")
+    message = (f"K is a constrained (saddle-point) system, not a stiffness: {m:,} row{'s' if m != 1 else ''} "
+               f"({labels}) form a zero diagonal block coupled to the stiffness rows, as Lagrange "
+               f"multiplier or constraint-equation rows do. Such a system has one negative eigenvalue per "
+               f"independent constraint{count} These rows have no diagonal to scale by, so the scaling "
+               "takes 1 for them (a convention): the raw and the scaled condition numbers both depend on the "
+               "units the constraint rows are written in and are not the stiffness's. The digits are those of "
+               "a solve with row pivoting (threshold partial pivoting).")
+    finding = Finding(severity, "structure.constrained-system", message, model.nodes_of(rows),
+                      "To check the stiffness itself, export it without the multiplier rows, with the "
+                      "supports as removed rows (or the constraints eliminated); to solve this system use a "
+                      "symmetric indefinite (LDL^T with pivoting) or an LU solver with pivoting, not Cholesky.")
+    order = {"error": 0, "warning": 1, "note": 2}
+    return sorted([finding] + kept, key=lambda f: order[f.severity])
+
+
 def _spectrum_findings(spectrum: Optional[SpectrumResult], pivots: Optional[PivotLoss]) -> list[Finding]:
     """stiffness.indefinite (when no pivot locates it) and spectrum.inertia-mismatch."""
     if spectrum is None:
@@ -502,6 +558,13 @@ def _jump_finding(model: Model, j: StiffnessJump, measured_worst: Optional[float
                        "diagonal of its DOF type (a support given by a large number): it raises the raw "
                        "condition number by about that ratio, which diagonal scaling removes; a direct "
                        "solve loses no digits to it.", j.nodes, j.reasoning)
+    if j.kind == "stiff-region":
+        shown = _at(model, rows_word, j.nodes)
+        return Finding("note", "stiffness.stiff-region",
+                       f"Stiff region at {shown}: diagonal stiffness up to {j.ratio:.1e} times the typical of its "
+                       "DOF type, in rows that are not grounded (their response to a rigid motion is round-off): "
+                       "a part much stiffer than its surroundings or a distorted element, not a spring to ground.",
+                       j.nodes, j.reasoning)
     # A stiff spring to ground is absorbed by diagonal scaling; a stiff
     # link between DOFs is not. Once digits are measured (the worst-case
     # load excites the weakest mode), the measurement decides.
@@ -691,22 +754,69 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
 
 
 def _negative_pivot_finding(model: Model, pivots: PivotLoss, spectrum: Optional[SpectrumResult]) -> Finding:
-    """Negative pivots, where they appeared, how many eigenvalues are negative, and what usually causes one."""
+    """Negative eigenvalues where their eigenvectors live, then where the elimination met them,
+    how many there are and how they were counted, and what usually causes one."""
     neg = pivots.negative_pivots
-    where = ", ".join(e.label for e in neg[:6]) + (f" and {len(neg) - 6} more" if len(neg) > 6 else "")
+    total = max(pivots.negative_count, len(neg))
+    where = ", ".join(e.label for e in neg[:6]) + (f" and {total - 6:,} more" if total > 6 else "")
     count = spectrum.negative_eigenvalues if spectrum is not None else 0
-    counted = (f"K has {count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from the pivots' "
-               "signs, Sylvester's law of inertia). " if count else "")
+    at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
+    how = (spectrum.negative_method if spectrum is not None and spectrum.negative_method
+           else "the pivots' signs, Sylvester's law of inertia")
+    counted = (f"K has {at_least}{count:,} negative eigenvalue{'' if count == 1 else 's'} (counted from "
+               f"{how}). " if count else "")
+    located = negative_mode_words(model, spectrum)
+    met = ("The elimination met it at " if located else "Negative pivot at ") + (
+        f"{where} ({total:,} negative pivot{'' if total == 1 else 's'}): once the DOFs eliminated before it "
+        "are condensed out, the stiffness left at this DOF is negative, so K is not positive definite: a "
+        "Cholesky solver stops here, and one that carries on returns displacements of a structure that is "
+        "not stable. Which DOF shows it depends on the elimination order"
+        + ("; the eigenvector says where the cause is." if located else "; the cause is nearby."))
+    if not pivots.symmetric:
+        met += (" The factorization pivoted rows, so these pivots are not an LDL^T's: their signs do not "
+                "count the negative eigenvalues.")
+    # Located: the eigenvector's nodes are where to look; the pivot's node is
+    # named in the message only, as where the elimination met it.
+    nodes = _eigenvector_nodes(spectrum) or model.nodes_of([e.row for e in neg])
     return Finding(
-        "error", "factor.negative-pivot",
-        f"{counted}Negative pivot at {where}: once the DOFs eliminated before it are condensed out, the "
-        "stiffness left at this DOF is negative, so K is not positive definite: a Cholesky solver "
-        "stops here, and one that carries on returns displacements of a structure that is not "
-        "stable. Which DOF shows it depends on the elimination order; the cause is nearby.",
-        model.nodes_of([e.row for e in neg]),
-        "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
+        "error", "factor.negative-pivot", f"{counted}{located}{met}", nodes,
+        (f"Look here first: the negative eigenvector lives at these {'nodes' if model.dofs is not None else 'rows'} "
+         "(the negative pivot's DOF is only where the elimination met it). " if located else "")
+        + "Usual causes: compressive geometric (stress) stiffness at or beyond a buckling load, a "
         "spring or element entered with a negative stiffness, or a sign error in an element or "
         "in the export. Check the loads of a geometric-stiffness step against the buckling load.")
+
+
+#: Nodes of a negative eigenvector named in a finding's message (project's choice).
+NEGATIVE_NODES_WORDS = 4
+
+
+def _eigenvector_nodes(spectrum: Optional[SpectrumResult]) -> list[int]:
+    """The nodes the negative eigenvectors live on, largest share of the most negative first."""
+    out: list[int] = []
+    for m in spectrum.negative_modes if spectrum is not None else []:
+        out += [v for v in m.nodes[:NEGATIVE_NODES_WORDS] if v not in out]
+    return out
+
+
+def negative_mode_words(model: Model, spectrum: Optional[SpectrumResult]) -> str:
+    """``"Its eigenvector lives at node 74 (9%), ...: look there. "``; empty without located ones."""
+    modes = spectrum.negative_modes if spectrum is not None else []
+    if not modes:
+        return ""
+    word = "node" if model.dofs is not None else "row"
+
+    def at(m) -> str:
+        items = [f"{v} ({100 * s:.0f}%)" for v, s in zip(m.nodes[:NEGATIVE_NODES_WORDS], m.shares)]
+        return f"{word}{'s' if len(items) > 1 else ''} " + ", ".join(items)
+
+    if len(modes) == 1:
+        head = f"Its eigenvector lives at {at(modes[0])} (share of the scaled eigenvector)"
+    else:
+        head = (f"The eigenvector of the most negative (scaled eigenvalue {modes[0].eigenvalue:.2g}) lives at "
+                f"{at(modes[0])}, of the next ({modes[1].eigenvalue:.2g}) at {at(modes[1])} (shares of the "
+                "scaled eigenvectors)")
+    return head + ": the negative stiffness is there. "
 
 
 #: A scaled condition number above this is "ill-conditioned": more than half
@@ -716,7 +826,7 @@ ILL_CONDITIONED = 1e8
 #: The causes a verdict names, in the order :func:`verdict` tries them: the
 #: input first (every later figure rests on it), then what makes K unusable,
 #: then the supplied solution, then what costs digits.
-CAUSES = ("suspect input", "singular", "indefinite", "supplied solution does not fit",
+CAUSES = ("suspect input", "singular", "constrained system", "indefinite", "supplied solution does not fit",
           "not decided", "near-singular", "stiffness jump", "ill-conditioned", "fewer digits than required",
           "suspect geometry", "healthy", "no defect found")
 
@@ -963,11 +1073,30 @@ def verdict(findings: list[Finding], spectrum: Optional[SpectrumResult], structu
         return f"singular: {total} free mode{'' if total == 1 else 's'} ({detail})", status
     words = "rows" if "input.no-dof-map" in {f.code for f in findings} else "nodes"
     negative = spectrum.negative_eigenvalues if spectrum is not None else 0
+    if structure.constraint_rows.size:
+        rows = structure.constraint_rows
+        m = int(rows.size)
+        shown = ", ".join(str(int(r) + 1) for r in rows[:4]) + (f" and {m - 4:,} more" if m > 4 else "")
+        at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
+        exact = spectrum is None or spectrum.negative_exact
+        per = ("one per constraint" if negative == m else
+               f"{m:,} expected, one per constraint (the count is a lower bound)" if not exact and negative < m else
+               f"{negative - m:,} beyond the constraints: the stiffness is not positive definite" if negative > m
+               else f"{m - negative:,} fewer than the constraints: some are dependent")
+        count = f"; {at_least}{negative:,} negative eigenvalue{'' if negative == 1 else 's'}, {per}" \
+            if spectrum is not None else ""
+        return (f"constrained system, not a stiffness: {m:,} constraint row{'' if m == 1 else 's'} "
+                f"(rows {shown}) with a zero diagonal block{count}{tail}"), status
     pivots = [f for f in findings if f.code == "factor.negative-pivot"]
     if negative or pivots or "stiffness.indefinite" in codes:
         at_least = "" if spectrum is None or spectrum.negative_exact else "at least "
         count = f"{at_least}{negative} negative eigenvalue{'' if negative == 1 else 's'}" if negative else ""
-        if pivots:
+        carrying = _eigenvector_nodes(spectrum)[:NEGATIVE_NODES_WORDS]
+        if carrying:
+            at = f"{words[:-1]} {carrying[0]}" if len(carrying) == 1 else f"{words} {_list_nodes(carrying, 4)}"
+            whose = "its" if negative == 1 else "the most negative one's"
+            head = f"{count or 'negative eigenvalues'}, {whose} eigenvector at {at}"
+        elif pivots:
             nodes = pivots[0].nodes
             at = f"{words[:-1]} {nodes[0]}" if len(nodes) == 1 else f"{words} {_list_nodes(nodes, 4)}"
             head = f"negative pivot at {at}" + (f" ({count})" if count else "")

@@ -14,10 +14,23 @@ Two kinds are found, both vectorised over the stored entries:
     spring, a "rigid" link or a very stiff element between soft parts.
 ``diagonal-outlier``
     a diagonal K_ii orders of magnitude above the typical diagonal of its
-    type without an equally stiff link: a support or a spring to ground
-    given by a large number. It raises the raw condition number only:
-    diagonal scaling leaves its row nearly decoupled, so a direct solve
-    loses no digits to it (``digits_cost`` 0).
+    type without an equally stiff link, in a row that is grounded: a support
+    or a spring to ground given by a large number. It raises the raw
+    condition number only: diagonal scaling leaves its row nearly decoupled,
+    so a direct solve loses no digits to it (``digits_cost`` 0).
+``stiff-region``
+    such diagonals in rows that are not grounded: K times a rigid motion is
+    round-off in them (their element forces balance), so no spring to ground
+    holds them; they are a region much stiffer than its surroundings (a
+    stiffer material or section, or a distorted element with a very short
+    edge), reported with its nodes, grouped by connection.
+
+A row is grounded when its response to the rigid motions r_k (translations
+and rotations, :mod:`conditioning.linalg.rigid_motions`) is a large share of
+its entries: max_k |(K r_k)_i| / sum_j |K_ij| |r_kj| >= :data:`GROUNDED_SHARE`.
+An element's forces balance under a rigid motion, so only springs to ground,
+supports given by a number, and couplings to removed (supported) DOFs make
+(K r)_i nonzero; row-local, it needs no part of the model but the row.
 """
 
 from __future__ import annotations
@@ -27,9 +40,12 @@ from dataclasses import dataclass, replace
 from typing import Optional
 
 import numpy as np
+import scipy.sparse as sp
 from numpy.typing import NDArray
+from scipy.sparse import csgraph
 
 from conditioning.linalg.floating_point import EPS
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.model import DOF_NAMES, Model
 from conditioning.results import StiffnessJump, StructureResult
 
@@ -51,6 +67,19 @@ FLOAT64_DIGITS = 53 * np.log10(2.0)
 #: n eps lambda_max(S) of the spectrum stage, within the factor 10 the mode
 #: stage allows for round-off (the project's choice, matched to it).
 SWALLOW_FACTOR = 10.0
+#: A row is grounded when its response to a rigid motion, |(K r)_i|, is at
+#: least this share of sum_j |K_ij| |r_j| (the project's choice: a support or
+#: spring given by a large number gives about 1, the rows of elements whose
+#: forces balance give round-off, ~1e-15; a row next to removed supports
+#: gives the share of its coupling to them, below 1/2 in the invented plates).
+GROUNDED_SHARE = 0.5
+#: An edge of a stiff region shorter than this share of the model's median
+#: edge (the distance between coupled nodes) is named as a distorted element
+#: (the project's choice).
+SHORT_EDGE_SHARE = 0.05
+#: Coupled node pairs sampled for the model's median edge length (bounds the
+#: work on large models; the project's choice).
+EDGE_SAMPLE = 200_000
 
 
 @dataclass(frozen=True)
@@ -366,6 +395,30 @@ def _advice_text(advice: Optional[float], ordinary: float) -> str:
 
 
 # ------------------------------------------------------------------ diagonals
+def grounded_share(model: Model, rows: NDArray[np.intp]) -> Optional[NDArray[np.float64]]:
+    """Per row: max_k |(K r_k)_i| / sum_j |K_ij| |r_kj| over the rigid motions r_k (dimensionless, 0..1).
+
+    About 1 for a row held by a spring to ground or a support given by a
+    large number, round-off for a row whose element forces balance under a
+    rigid motion. None when it cannot be told: without a DOF map (no rigid
+    motion is known). A rotation row without coordinates gets NaN (its
+    rigid rotation needs positions).
+    """
+    if model.dofs is None or rows.size == 0:
+        return None
+    xyz = model.positions_of(np.arange(model.n))
+    basis = rigid_motions(model.dofs.dof, xyz, model.dofs.node).basis
+    K = model.K
+    sub = K[rows]
+    response = np.abs(sub @ basis)
+    size = abs(sub) @ np.abs(basis)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(size > 0, response / size, 0.0).max(axis=1)
+    if xyz is None:
+        share = np.where(np.asarray(model.dofs.dof)[rows] >= 3, np.nan, share)
+    return share
+
+
 def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupled) -> list[StiffnessJump]:
     d = np.abs(model.K.diagonal())
     rows = np.flatnonzero((d > 0) & ~coupled)
@@ -375,6 +428,14 @@ def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupl
     if not np.any(hit):
         return []
     rows, t, excess = rows[hit], t[hit], excess[hit]
+    share = grounded_share(model, rows)
+    regions: list[StiffnessJump] = []
+    if share is not None:
+        balanced = share < GROUNDED_SHARE          # NaN (cannot tell) stays a spring to ground
+        regions = _stiff_regions(model, rows[balanced], excess[balanced], share[balanced], d, limit)
+        rows, t, excess = rows[~balanced], t[~balanced], excess[~balanced]
+        if rows.size == 0:
+            return regions
     nodes = _node_of_rows(model, rows)
     jumps = []
     for members, worst in _top_groups(nodes[:, None], excess, limit):
@@ -399,7 +460,77 @@ def _diagonal_jumps(model: Model, dof_type, stats: _TypeStats, limit: int, coupl
             kind="diagonal-outlier", rows=sorted(int(r) for r in rows[members]), nodes=[int(nodes[k])],
             ratio=10.0**worst, digits_cost=0.0, advice_value=None, reasoning=text,
         ))
-    return jumps
+    return jumps + regions
+
+
+def _stiff_regions(model: Model, rows, excess, share, d, limit: int) -> list[StiffnessJump]:
+    """Ungrounded diagonal outliers grouped into connected regions (nodes coupled in K), largest ratio first."""
+    if rows.size == 0:
+        return []
+    nodes = _node_of_rows(model, rows)
+    uniq, inv = np.unique(nodes, return_inverse=True)
+    sub = sp.coo_array(model.K[rows][:, rows])
+    G = sp.coo_array((np.ones(sub.nnz), (inv[sub.row], inv[sub.col])), shape=(uniq.size, uniq.size))
+    count, label = csgraph.connected_components(G, directed=False)
+    best = np.full(count, -np.inf)
+    np.maximum.at(best, label[inv], excess)
+    typical_edge = _median_edge(model)
+    out = []
+    for g in np.argsort(-best, kind="stable")[:limit]:
+        members = np.flatnonzero(label[inv] == g)
+        region_nodes = sorted(int(v) for v in np.unique(nodes[members]))
+        ratio = 10.0 ** float(best[g])
+        short = _shortest_edge(model, region_nodes)
+        where = ", ".join(str(v) for v in region_nodes[:8]) + (
+            f" and {len(region_nodes) - 8} more" if len(region_nodes) > 8 else "")
+        text = (
+            f"The diagonal stiffness of {len(region_nodes)} node{'s' if len(region_nodes) != 1 else ''} "
+            f"({where}) is up to {ratio:.3g} times the typical diagonal of its DOF type, and these rows are not "
+            f"grounded: K times a rigid translation or rotation is round-off in them (at most "
+            f"{float(np.max(share[members])):.1e} of their entries; a spring to ground would give about 1), "
+            f"so their element forces balance. This is not a support or a spring to ground but a region much "
+            f"stiffer than its surroundings: a stiffer material or thicker section, or a distorted element "
+            f"(a very short edge or a bad aspect ratio makes large entries)."
+        )
+        if short is not None and typical_edge and short[2] < SHORT_EDGE_SHARE * typical_edge:
+            text += (f" Nodes {short[0]} and {short[1]} are {short[2]:.3g} apart, {short[2] / typical_edge:.1e} of "
+                     f"the model's median element edge ({typical_edge:.3g}): check that element's shape.")
+        text += (" What it costs a solve shows in the scaled condition number and the measured digits; "
+                 "if the stiffness is meant, nothing needs changing.")
+        out.append(StiffnessJump(
+            kind="stiff-region", rows=sorted(int(r) for r in rows[members]), nodes=region_nodes,
+            ratio=ratio, digits_cost=0.0, advice_value=None, reasoning=text,
+        ))
+    return out
+
+
+def _median_edge(model: Model) -> Optional[float]:
+    """Median distance between coupled nodes (model length unit); None without coordinates."""
+    if model.dofs is None or model.coords is None:
+        return None
+    coo = sp.coo_array(model.K)
+    step = max(1, coo.nnz // EDGE_SAMPLE)
+    a, b = model.dofs.node[coo.row[::step]], model.dofs.node[coo.col[::step]]
+    keep = (a < b) & model.coords.has(a) & model.coords.has(b)
+    if not np.any(keep):
+        return None
+    return float(np.median(np.linalg.norm(model.coords.lookup(a[keep]) - model.coords.lookup(b[keep]), axis=1)))
+
+
+def _shortest_edge(model: Model, region_nodes: list[int]):
+    """(node, node, distance) of the closest coupled pair with a node in the region; None without coordinates."""
+    if model.dofs is None or model.coords is None:
+        return None
+    rows = np.flatnonzero(np.isin(model.dofs.node, region_nodes))
+    coo = sp.coo_array(model.K[rows])
+    a, b = model.dofs.node[rows[coo.row]], model.dofs.node[coo.col]
+    keep = (a != b) & model.coords.has(a) & model.coords.has(b)
+    if not np.any(keep):
+        return None
+    a, b = a[keep], b[keep]
+    dist = np.linalg.norm(model.coords.lookup(a) - model.coords.lookup(b), axis=1)
+    k = int(np.argmin(dist))
+    return int(min(a[k], b[k])), int(max(a[k], b[k])), float(dist[k])
 
 
 def _scaled_coupling_squared(model: Model, rows: NDArray[np.intp], d: NDArray[np.float64]) -> float:

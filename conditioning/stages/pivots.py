@@ -130,8 +130,10 @@ def pivot_loss(model: Model, fac: Factorization, *, worst: int = 20) -> PivotLos
         PivotEntry(row=int(r), label=model.row_label(int(r)), kept=float(kept[r]), digits=math.inf)
         for r in np.flatnonzero(active & (np.asarray(fac.pivots) < 0))[:worst]
     ]
+    negative_count = int(np.count_nonzero(active & (np.asarray(fac.pivots) < 0)))
     return PivotLoss(worst=entries, max_digits=max_digits, method=method, negative_pivots=negative,
-                     kept_by_row=kept)
+                     kept_by_row=kept, negative_count=negative_count,
+                     symmetric=bool(fac.info.symmetric_pivoting))
 
 
 def _kept_shares(model: Model, fac: Factorization):

@@ -303,7 +303,7 @@ def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, 
             # negative pivots to the computed values above its shift miscounts
             # a zero eigenvalue whose round-off sign differs from its pivot's.)
             expected = int(np.count_nonzero(values < split_point))
-        elif fac is not None and fac.info.negative_pivots is not None:
+        elif fac is not None and fac.info.negative_pivots is not None and fac.info.symmetric_pivoting:
             expected = int(fac.info.negative_pivots
                            + np.count_nonzero((values >= fac.shift) & (values < split_point)))
     # Shift-and-invert finds eigenvalues near the shift only: true negative
@@ -311,9 +311,13 @@ def _split_result(values, vectors, lam_max, first, count, gap, na, fac, method, 
     # pivots were read; otherwise only those found are counted).
     if dense:
         negative, exact, how = first, True, "all eigenvalues of S (LAPACK)"
-    elif fac is not None and fac.info.negative_pivots is not None:
+    elif fac is not None and fac.info.negative_pivots is not None and fac.info.symmetric_pivoting:
         negative, exact = int(fac.info.negative_pivots), True
         how = "the factorization's inertia (signs of its pivots, Sylvester's law)"
+    elif fac is not None and fac.info.negative_pivots is not None:
+        negative, exact = first, False
+        how = ("the eigenvalues found near zero by shift-and-invert (no inertia: the factorization "
+               "pivoted rows, so the signs of its pivots do not count eigenvalues)")
     elif fac is not None:
         negative, exact = first, False
         how = "the eigenvalues found near zero by shift-and-invert (no inertia: the pivots were not read)"

@@ -189,4 +189,24 @@ def check_structure(model: Model) -> StructureResult:
         parts=int(np.count_nonzero(counted)),
         placeholder_rows=placeholders,
         one_triangle=model.one_triangle,
+        constraint_rows=constraint_rows(K, zero_diag),
     )
+
+
+def constraint_rows(K: sp.csr_array, zero_diagonal: NDArray[np.intp]) -> NDArray[np.intp]:
+    """Rows of a zero diagonal block coupled to the rest: multiplier or constraint rows.
+
+    A row with a zero diagonal, no entry in the columns of the other
+    zero-diagonal rows, and an entry in some other column is a row of C in
+    [[K, C^T], [C, 0]] (a Lagrange multiplier or a constraint equation; common
+    practice of the mixed and constrained formulations, e.g. M. Benzi, G. H.
+    Golub, J. Liesen, "Numerical solution of saddle point problems", Acta
+    Numerica 14, 2005, section 1, from memory). Returns them, 0-based, sorted.
+    """
+    if zero_diagonal.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    zero = np.zeros(K.shape[0], dtype=bool)
+    zero[zero_diagonal] = True
+    block = sp.csr_array(K[zero_diagonal][:, zero])
+    inside = np.diff(block.indptr) > 0
+    return np.asarray(zero_diagonal[~inside], dtype=np.intp)
