@@ -1321,7 +1321,11 @@ def _far_node_finding(far, spectrum: Optional[SpectrumResult], jumps: list[Stiff
     if grounded:
         caused.append(f"the springs to ground reported at nodes {_list_nodes(grounded, 6)} are the rows of "
                       "its distorted elements, not supports")
-    linked = sorted({v for j in jumps if j.kind != "diagonal-outlier" for v in j.nodes if v in near})
+    region = sorted({v for j in jumps if j.kind == "stiff-region" for v in j.nodes if v in near})
+    if region:
+        caused.append(f"the stiff region reported at nodes {_list_nodes(region, 6)} is the rows of its "
+                      "distorted elements, not a stiffer material")
+    linked = sorted({v for j in jumps if j.kind == "coupling" for v in j.nodes if v in near})
     if linked:
         caused.append(f"the stiffness jumps at nodes {_list_nodes(linked, 6)} come from its distorted elements")
     if spectrum is not None:
