@@ -326,7 +326,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
             with stage("certification"):
                 digits = certify_digits(model, digits, condition, perm, structure,
                                         factor_entries=fac.info.fill, memory_limit=run.memory_limit,
-                                        verified=proof)
+                                        verified=proof, smallest_vector=spectrum.smallest_vector)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
                               min_digits=run.min_digits, stiff_link_eigenvalues=located.stiff_link_eigenvalues)
     if too_large is not None:
