@@ -264,7 +264,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
     if fac is not None and not fac.info.pivots_note and (
-            refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2 <= run.memory_limit):
+            refactorization_bytes(fac.info.fill, scaled.S.nnz) * COEXISTING_FACTORS <= run.memory_limit):
         with stage("smallest eigenvalue check"):
             eig = confirm_largest(confirm_smallest(eig, scaled, fac, rng=spectrum_rng), scaled, fac,
                                   rng=spectrum_rng)
@@ -385,6 +385,13 @@ def _restraints(model: Model, structure, located, *, proved: bool = False) -> li
     return out
 
 
+#: A check that factors again while the shared factor is kept (the inertia
+#: confirmations of lambda_min and lambda_max, the support proof) runs when
+#: this many refactorizations' worth of memory fit: the shared factor and the
+#: new one, each counted as one read-back refactorization (project's choice).
+COEXISTING_FACTORS = 2
+
+
 def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skipped: dict):
     """(SupportDecision or None, proof or None, the modes stage's levels) for the spectrum's near-zero modes."""
     if fac is None or structure.empty_rows.size or not claims_zero(eig):
@@ -393,7 +400,7 @@ def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skippe
         perm = fac.ordering_permutation()
     except (NotImplementedError, AttributeError):
         perm = None
-    need = refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2
+    need = refactorization_bytes(fac.info.fill, scaled.S.nnz) * COEXISTING_FACTORS
     why = ""
     if need > run.memory_limit:
         why = (f"the proof's factorization beside the shared one would need about {need / 2**30:.1f} GiB, "
