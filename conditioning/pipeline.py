@@ -271,7 +271,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     with stage("spectrum"):
         eig = smallest_eigenpairs(scaled, fac, model=model, rng=spectrum_rng)
     if fac is not None and not fac.info.pivots_note and (
-            refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2 <= run.memory_limit):
+            refactorization_bytes(fac.info.fill, scaled.S.nnz) * COEXISTING_FACTORS <= run.memory_limit):
         with stage("smallest eigenvalue check"):
             eig = confirm_largest(confirm_smallest(eig, scaled, fac, rng=spectrum_rng), scaled, fac,
                                   rng=spectrum_rng)
@@ -337,7 +337,7 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
             with stage("certification"):
                 digits = certify_digits(model, digits, condition, perm, structure,
                                         factor_entries=fac.info.fill, memory_limit=run.memory_limit,
-                                        verified=proof)
+                                        verified=proof, smallest_vector=spectrum.smallest_vector)
     with stage("geometry checks"):
         geometry_checks = check_elements(model, check_node_geometry(model, structure, spectrum.modes))
     if geometry_checks is None:
@@ -404,6 +404,13 @@ def _restraints(model: Model, structure, located, *, proved: bool = False) -> li
     return out
 
 
+#: A check that factors again while the shared factor is kept (the inertia
+#: confirmations of lambda_min and lambda_max, the support proof) runs when
+#: this many refactorizations' worth of memory fit: the shared factor and the
+#: new one, each counted as one read-back refactorization (project's choice).
+COEXISTING_FACTORS = 2
+
+
 def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skipped: dict):
     """(SupportDecision or None, proof or None, the modes stage's levels) for the spectrum's near-zero modes."""
     if fac is None or structure.empty_rows.size or not claims_zero(eig):
@@ -412,7 +419,7 @@ def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skippe
         perm = fac.ordering_permutation()
     except (NotImplementedError, AttributeError):
         perm = None
-    need = refactorization_bytes(fac.info.fill, scaled.S.nnz) * 2
+    need = refactorization_bytes(fac.info.fill, scaled.S.nnz) * COEXISTING_FACTORS
     why = ""
     if need > run.memory_limit:
         why = (f"the proof's factorization beside the shared one would need about {need / 2**30:.1f} GiB, "

@@ -257,9 +257,9 @@ class NearSingularMode:
     undecided: bool = False
     """True when the eigenvalue lies above that resolution (the stored K
     resolves it) but no proof of positive definiteness succeeded and it is
-    below n eps lambda_max(S), the worst-case error of a float64
-    factorization: not decided whether the mode is free (see
-    ``SpectrumResult.support``)."""
+    below 10 n eps lambda_max(S) (the old worst-case zero level,
+    ``conditioning.stages.modes.ZERO_ROOM``): not decided whether the mode is
+    free (see ``SpectrumResult.support``)."""
     axis: Optional[tuple[float, float, float]] = None
     """Unit direction (global x, y, z; dimensionless) of the motion when it
     has one: the axis a DOF without stiffness turns about (or moves along)

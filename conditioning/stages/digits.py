@@ -51,6 +51,7 @@ from conditioning.model import Model
 from conditioning.linalg.verified_eigenvalue import (
     VerifiedEigenvalueBound,
     certified_errors,
+    power_of_two_scaling,
     verified_smallest_eigenvalue,
 )
 from conditioning.linalg.refinement import RefinementResult, refine_block, scaled_condition_estimate
@@ -385,8 +386,20 @@ def _worst_first(audits: list[SolutionAudit]) -> list[SolutionAudit]:
     return sorted(audits, key=lambda a: (a.fits, a.trustworthy_digits))
 
 
-def _verify(K, perm, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]:
-    """The verified eigenvalue bound for K, and what it proved or why not."""
+#: Shifts tried first when the smallest eigenvector of S is known, as fractions
+#: of its Rayleigh quotient in E K E's coordinates (an upper bound on
+#: lambda_min(E K E)); the project's choice, as in the support proof.
+RAYLEIGH_SHIFTS = (0.9, 0.5)
+
+
+def _verify(K, perm, condition, vector=None) -> tuple[Optional[VerifiedEigenvalueBound], str]:
+    """The verified eigenvalue bound for K, and what it proved or why not.
+
+    With S's smallest eigenvector ``vector`` (S's coordinates, all rows), the
+    shift is first put just below its Rayleigh quotient in the power-of-two
+    scaled E K E (sharper than a quarter of the estimate, which allows for the
+    two scalings' difference blindly), then the default shifts are tried.
+    """
     estimate = None if condition is None else condition.scaled_lambda_min
     if estimate is None or not estimate > 0:
         return None, "not attempted: no positive estimate of the smallest eigenvalue of S"
@@ -395,6 +408,14 @@ def _verify(K, perm, condition) -> tuple[Optional[VerifiedEigenvalueBound], str]
         # more than the engine's own; and it analyses SuperLU's LU.
         return None, "not attempted: the engine shares no fill-reducing ordering for the proof's factorization"
     try:
+        if vector is not None and np.all(K.diagonal() > 0):
+            e = power_of_two_scaling(K)
+            y = (1.0 / np.sqrt(K.diagonal()) / e) * np.asarray(vector, dtype=np.float64)
+            rq = estimate / float(y @ y) if float(y @ y) > 0 else 0.0
+            for frac in RAYLEIGH_SHIFTS if rq > 0 else ():
+                bound = verified_smallest_eigenvalue(K, estimate, perm=perm, shift=frac * rq)
+                if bound.verified:
+                    return bound, bound.reason
         bound = verified_smallest_eigenvalue(K, estimate, perm=perm)
     except (MemoryError, RuntimeError, ValueError) as exc:
         return None, f"not attempted: {exc}"
@@ -826,7 +847,8 @@ def _sample(model: Model, op, name, f, x, ref: RefinementResult, conf: Optional[
 def certify_digits(model: Model, digits: DigitsResult, condition: Optional[ConditionResult],
                    perm: Optional[NDArray[np.intp]], structure=None, *, factor_entries: Optional[int] = None,
                    memory_limit: Optional[int] = None,
-                   verified: Optional[VerifiedEigenvalueBound] = None) -> DigitsResult:
+                   verified: Optional[VerifiedEigenvalueBound] = None,
+                   smallest_vector: Optional[NDArray[np.float64]] = None) -> DigitsResult:
     """Prove the measured figures with the verified eigenvalue bound.
 
     Run after the shared factorization is released: the proof's own
@@ -844,7 +866,8 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
         ``digits`` with those samples certified (method
         ``certified (verified eigenvalue bound)``) when the bound was proved,
         and ``certification`` saying what was proved or why not. A bound
-        already ``verified`` (the support proof's) is reused, not paid twice.
+        already ``verified`` (the support proof's) is reused, not paid twice;
+        ``smallest_vector`` (S's smallest eigenvector) sharpens the shift.
     """
     if not digits.samples:
         return digits
@@ -857,7 +880,7 @@ def certify_digits(model: Model, digits: DigitsResult, condition: Optional[Condi
             return replace(digits, certification=(
                 f"not attempted: the proof's factorization and the copy of its factors it reads would need "
                 f"about {need / 2**30:.1f} GiB, more than the {memory_limit / 2**30:.1f} GiB allowed"))
-    verified, reason = _verify(K, perm, condition)
+    verified, reason = _verify(K, perm, condition, smallest_vector)
     if verified is None or not verified.verified:
         return replace(digits, certification=reason)
     return _certify_with(model, digits, K, verified, structure, reason)

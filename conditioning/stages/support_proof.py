@@ -201,7 +201,7 @@ def _prove(K, scale, theta: float, v: NDArray, perm, flops: float) -> tuple[Opti
             break
         bound = verified_smallest_eigenvalue(K, theta, perm=perm, shift=c)
         if bound.verified and bound.lower > R_E:
-            return bound, f"proved: {bound.reason}"
+            return bound, bound.reason
         why.append(f"float64 bound at c = {c:.2e}: {bound.reason}")
         if bound.rounding_bound is not None:
             break  # the pivots were positive: a lower shift only loosens the same bound
