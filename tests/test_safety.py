@@ -223,10 +223,10 @@ def test_node_ids_beyond_int64_and_no_false_duplicate(mast, tmp_path, capsys):
     del args[args.index("--coords"):args.index("--coords") + 2]
     assert main(args) == 2
     assert "99999999999999999999" in _one_error_line(capsys.readouterr().err)
-    # 1537228672809129302 * 6 wraps in int64 to -9223372036854775804, next to node -1537228672809129301's
-    # keys: two different nodes, no duplicate (exact integer arithmetic says so).
-    a, b = 1537228672809129302, -1537228672809129301
-    assert (a * 6) % 2**64 - 2**64 != b * 6 + 0 or True
+    # Nodes 2**62 and -2**62 differ by 2**63, so 6 * node is the same modulo 2**64 (exact integer
+    # arithmetic): a key node * 6 + dof in int64 wraps onto the same value for both. Two nodes, no duplicate.
+    a, b = 2**62, -2**62
+    assert (6 * a - 6 * b) % 2**64 == 0 and a != b
     model = load_model(np.eye(4) * 2, dofs=[(a, "ux"), (a, "uy"), (b, "ux"), (b, "uy")])
     assert set(model.dofs.node.tolist()) == {a, b}
 
