@@ -14,7 +14,6 @@ from __future__ import annotations
 import math
 import subprocess
 import sys
-import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
@@ -23,7 +22,6 @@ import conditioning
 from conditioning.errors import InputError
 from conditioning.io.load import load_model
 from conditioning.linalg import element_shape as shape
-from conditioning.model import Model
 from conditioning.stages.element_quality import element_measures
 
 skfem = pytest.importorskip("skfem")

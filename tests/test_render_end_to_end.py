@@ -95,9 +95,10 @@ def test_demo_html_with_every_figure(demo):
     case, report = demo["bracket_loose_pad"]
     page = render_html(report)
     assert report.verdict in page
-    # spectrum, diagonal histogram, digits per node (when measured), 3 mode shapes
+    # spectrum, diagonal histogram, digits per node (when measured), the geometry
+    # checks (the pad's unmerged coincident nodes), 3 mode shapes
     images = page.count('src="data:image/png;base64,')
-    assert images == 5 + (report.digits is not None and not report.digits.skipped)
+    assert images == 6 + (report.digits is not None and not report.digits.skipped)
     case, report = demo["footbridge"]
     page = render_html(report)
     assert "Trustworthy digits per node" in page

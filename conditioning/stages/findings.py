@@ -1286,8 +1286,8 @@ def _touching_finding(t) -> Finding:
         return Finding(
             "error", "geometry.touching-parts",
             f"{at}: near-singular mode{'s' if len(t.moved_apart_by) > 1 else ''} {listed} move part {t.part} "
-            f"freely. If it rests on part {t.other_part}, the parts were meshed separately and never tied: "
-            "its nodes do not coincide with those they sit on.", nodes,
+            f"freely. If it rests on part {t.other_part}, the parts were meshed separately and never tied "
+            "(its nodes lie near those of the other part, not on them); else the gap leaves it unsupported.", nodes,
             f"Tie part {t.part} to part {t.other_part} where they touch (constraint equations or a bonded "
             f"contact), or mesh both with common nodes there and merge them, and export K again. Supports on "
             f"part {t.part} are the second choice, only if it is meant to stand apart from the rest.")
