@@ -304,6 +304,16 @@ def test_text_beyond_the_memory_limit_is_refused_naming_the_file(tmp_path, monke
     assert str(big) in line and "memory limit" in line
 
 
+def test_a_plain_csv_beyond_the_limit_is_refused_before_it_is_read(tmp_path, monkeypatch, capsys):
+    """The fast path of the DOF map reader (one read of the whole file) is bounded too."""
+    monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "8M")   # CSV cap: the 1 MiB floor
+    dofs = tmp_path / "d.csv"
+    dofs.write_text("node,dof\n" + "".join(f"{k + 1},ux\n" for k in range(200_000)))   # 2.2 MB
+    assert main(["diagnose", str(DEMO / "footbridge.mtx"), "--dofs", str(dofs)]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert str(dofs) in line and "memory limit" in line
+
+
 def test_out_of_memory_while_reading_names_the_file(monkeypatch, capsys):
     import conditioning.io.load as load
 
