@@ -432,6 +432,10 @@ def test_extreme_values_say_what_could_not_be_computed(mast, tmp_path, case, cap
         assert first["load"] == second["load"]
     else:
         assert any("subnormal" in note for note in data["summary"]["notes"])
+        # The tridiagonal T has kappa_2 = 175 (LAPACK via numpy); the rule of thumb 16 - log10 kappa
+        # (common practice), with 3 digits to spare, is what a measured figure must reach.
+        floor = 16 - math.log10(np.linalg.cond(_tridiagonal())) - 3
+        assert min(s["trustworthy_digits"] for s in data["digits"]) >= floor
 
 
 # ------------------------------------------------------------------ 9 false rejections
