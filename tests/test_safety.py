@@ -15,6 +15,7 @@ import errno
 import gzip
 import hashlib
 import json
+import math
 import os
 import signal
 import subprocess
@@ -304,6 +305,16 @@ def test_text_beyond_the_memory_limit_is_refused_naming_the_file(tmp_path, monke
     assert str(big) in line and "memory limit" in line
 
 
+def test_a_plain_csv_beyond_the_limit_is_refused_before_it_is_read(tmp_path, monkeypatch, capsys):
+    """The fast path of the DOF map reader (one read of the whole file) is bounded too."""
+    monkeypatch.setenv("CONDITIONING_MEMORY_LIMIT", "8M")   # CSV cap: the 1 MiB floor
+    dofs = tmp_path / "d.csv"
+    dofs.write_text("node,dof\n" + "".join(f"{k + 1},ux\n" for k in range(200_000)))   # 2.2 MB
+    assert main(["diagnose", str(DEMO / "footbridge.mtx"), "--dofs", str(dofs)]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert str(dofs) in line and "memory limit" in line
+
+
 def test_out_of_memory_while_reading_names_the_file(monkeypatch, capsys):
     import conditioning.io.load as load
 
@@ -398,7 +409,8 @@ def test_extreme_values_say_what_could_not_be_computed(mast, tmp_path, case, cap
     if case == "huge load":
         n = 16
         load = tmp_path / "load.csv"
-        load.write_text("\n".join(repr(1e300 * (k + 1)) for k in range(n)) + "\n")
+        # (k + 1) * 2**1000, about 1e301: a power-of-two multiple of the load 1..16 measured below.
+        load.write_text("\n".join(repr(math.ldexp(k + 1, 1000)) for k in range(n)) + "\n")
         args = ["diagnose", str(mast["matrix"]), "--load", str(load)]
     else:
         args = ["diagnose", str(_write_mm(tmp_path / "tiny.mtx", _tridiagonal() * 1e-310))]
@@ -410,7 +422,7 @@ def test_extreme_values_say_what_could_not_be_computed(mast, tmp_path, case, cap
     for sample in data["digits"]:
         assert not (sample["converged"] and sample["stop_reason"].startswith("correction is not finite"))
     if case == "huge load":
-        # Digits are relative: the load 1e300 * (1..16) measures as the same load scaled to 1.
+        # Digits are relative, and a power-of-two scaling is exact: the same figure as for 1..16.
         scaled = tmp_path / "scaled.csv"
         scaled.write_text("\n".join(repr(float(k + 1)) for k in range(16)) + "\n")
         again = tmp_path / "again.json"
@@ -420,6 +432,10 @@ def test_extreme_values_say_what_could_not_be_computed(mast, tmp_path, case, cap
         assert first["load"] == second["load"]
     else:
         assert any("subnormal" in note for note in data["summary"]["notes"])
+        # The tridiagonal T has kappa_2 = 175 (LAPACK via numpy); the rule of thumb 16 - log10 kappa
+        # (common practice), with 3 digits to spare, is what a measured figure must reach.
+        floor = 16 - math.log10(np.linalg.cond(_tridiagonal())) - 3
+        assert min(s["trustworthy_digits"] for s in data["digits"]) >= floor
 
 
 # ------------------------------------------------------------------ 9 false rejections

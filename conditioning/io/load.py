@@ -42,6 +42,7 @@ from conditioning.io.matrix_formats import (
     read_matrix,
     read_vector,
     require_memory_for_entries,
+    text_read_cap,
 )
 from conditioning.io.outputs import require_regular_file
 from conditioning.model import DOF_NAMES, DOFS_PER_NODE_LAYOUT, Coordinates, DofTable, Model
@@ -418,6 +419,8 @@ def _fast_table(source: str, columns: tuple[str, ...]) -> Optional[NDArray]:
     and the line-by-line reader, which names the offending line, takes over.
     """
     try:
+        if os.path.getsize(source) > text_read_cap():
+            return None  # the line-by-line reader refuses it in one line, naming the file
         with open(source, "rb") as fh:
             data = fh.read()
         text = data.decode("utf-8-sig")

@@ -674,6 +674,7 @@ def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, 
         load (and solution); zero load cases are left out.
     """
     n = model.n
+    tool_scale = _tool_load_scale(model.K)   # 1.0 but for K's entries beyond 2**+-LOAD_EXPONENT
     names, cols, cases = [], [], []
     if model.load is not None:
         L = np.asarray(model.load, dtype=np.float64)
@@ -692,11 +693,11 @@ def _loads(model: Model, fac, spectrum, samples: int, rng: np.random.Generator, 
         f = rng.standard_normal(n)
         if placeholders is not None and len(placeholders):
             f[np.asarray(placeholders, dtype=np.intp)] = 0.0
-        cols.append(f)
+        cols.append(f * tool_scale)
     mode = worst_case_load(model.K, fac, spectrum)
     if mode is not None:
         names.append("worst-case")
-        cols.append(mode)
+        cols.append(mode * tool_scale)
     return names, np.column_stack(cols), cases
 
 
@@ -713,6 +714,19 @@ def load_scale(f) -> float:
     if big == 0.0 or not math.isfinite(big) or abs(math.frexp(big)[1]) <= LOAD_EXPONENT:
         return 1.0
     return math.ldexp(1.0, -math.frexp(big)[1])
+
+
+def _tool_load_scale(K) -> float:
+    """A power of two for the tool's own loads (random, worst-case) when K's largest entry 2**e
+    lies beyond 2**+-LOAD_EXPONENT: 2**(e -+ LOAD_EXPONENT), so that the loads and K^-1 f both stay
+    within about 2**+-530 (K subnormal, about 1e-310: no overflow; K about 1e308: no underflow);
+    1.0 for every other K."""
+    K = sp.csr_array(K)
+    big = float(np.max(np.abs(K.data), initial=0.0))
+    e = math.frexp(big)[1] if big and math.isfinite(big) else 0
+    if abs(e) <= LOAD_EXPONENT:
+        return 1.0
+    return math.ldexp(1.0, e - LOAD_EXPONENT if e > 0 else e + LOAD_EXPONENT)
 
 
 def worst_case_load(K, fac, spectrum: Optional[SpectrumResult] = None) -> Optional[NDArray[np.float64]]:
