@@ -23,7 +23,7 @@ from conditioning import results
 from conditioning.command_line import UsageError, configure_logging, parse, written_by_rank_zero
 from conditioning.errors import ConditioningError
 from conditioning.io.outputs import write_atomically as _write_one
-from conditioning.render.safe_text import safe_console as _console, shown_line
+from conditioning.render.safe_text import one_line, safe_console as _console
 from conditioning.signals import EXIT_TERMINATED, Terminated, terminate_on_sigterm
 
 if TYPE_CHECKING:  # the pipeline is imported late, so that --help stays fast
@@ -151,7 +151,7 @@ def _run_explain(args) -> int:  # what is at one row, in the numbering it was as
 
 
 def _fail(message: str, status: int = EXIT_INPUT) -> int:
-    print(f"conditioning: error: {shown_line(' '.join(str(message).split()))}", file=sys.stderr)
+    print(f"conditioning: error: {one_line(' '.join(str(message).split()))}", file=sys.stderr)
     return status
 
 

@@ -439,6 +439,14 @@ def test_extreme_values_say_what_could_not_be_computed(mast, tmp_path, case, cap
 
 
 # ------------------------------------------------------------------ 9 false rejections
+def test_an_error_quoting_a_huge_line_stays_short(tmp_path, capsys):
+    path = tmp_path / "k.txt"
+    path.write_text("1 1 2\n2 2 2\n" + "3 " * 1_000_000 + "\n")   # a 2 MB garbled line
+    assert main(["diagnose", str(path)]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert line.startswith(f"conditioning: error: {path}") and len(line) < 1200
+
+
 def test_a_three_line_triplet_list_is_read(tmp_path):
     path = tmp_path / "k.txt"
     path.write_text("1 1 2\n2 1 -1\n2 2 2\n")

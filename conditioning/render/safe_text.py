@@ -47,6 +47,19 @@ def shown_line(text: object) -> str:
     return shown(text).replace("\n", "\\n").replace("\t", "\\t")
 
 
+#: Longest one-line message printed (the project's choice): an error quoting a garbled line of a
+#: file (a 100 MB line without a newline) is cut there, the file's name coming first.
+MAX_LINE = 1000
+
+
+def one_line(text: object, limit: int = MAX_LINE) -> str:
+    """:func:`shown_line`, cut to ``limit`` characters (an ellipsis and the count of the rest)."""
+    line = shown_line(text)
+    if len(line) <= limit:
+        return line
+    return f"{line[:limit]}... ({len(line) - limit:,} more characters)"
+
+
 class SafeConsole(Console):
     """A rich Console that never interprets markup and escapes control characters in the text it writes."""
 
