@@ -35,11 +35,14 @@ def _lines(text: str) -> list[str]:
 
 @pytest.mark.parametrize("width", [80, 100])
 def test_demo_reports_fit_the_budget(reports, width):
-    """Each demo model (16 to 198 rows) in at most 60 lines; the verdict first and
-    'What to do' within the first 15 lines, with its first action right under it."""
+    """Each demo model (16 to 198 rows) in at most 62 lines; the verdict first and
+    'What to do' within the first 15 lines, with its first action right under it.
+    (62: the penalty-tie rack, the longest, carries a hinge note, the nodes below
+    the minimum, and the lines saying which loads are invented and whose solve is
+    measured, each asked for by a user.)"""
     for name, report in reports.items():
         lines = _lines(render_text(report, width=width))
-        limit = 60 if width == 100 else 66  # at 80 columns prose wraps a little more
+        limit = 62 if width == 100 else 68  # at 80 columns prose wraps a little more
         assert len(lines) <= limit, f"{name}: {len(lines)} lines at {width} columns"
         assert lines[0].startswith("Verdict: ")
         head = next(i for i, ln in enumerate(lines) if ln.startswith("What to do "))
