@@ -1406,7 +1406,7 @@ def verdict_with_geometry(line: str, status: str, findings: list[Finding],
     clause = []
     if freed:
         groups = [c for c in geometry.coincident if c.joined == "no" and c.moved_apart_by]
-        clause.append(f"{coincident_phrase(groups)} coincide but K does not join them: merge them first")
+        clause.append(f"{coincident_phrase(groups, onto=False)} coincide but K does not join them: merge them first")
     for t in geometry.touching:
         if t.moved_apart_by:
             clause.append(f"part {t.part} rests within {t.gap:.3g} of part {t.other_part} without sharing stiffness: "
