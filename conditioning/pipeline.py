@@ -50,7 +50,7 @@ from conditioning.stages.negative_modes import locate_negative_modes
 from conditioning.stages.penalty import hold_swallowed, restore_report, swallowed_rows
 from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import merging_first, suggest_restraints
-from conditioning.stages.spectrum import (confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
+from conditioning.stages.spectrum import (MIN_GAP, confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
                                           spectrum_result, with_inertia, with_low_end_search)
 from conditioning.stages.structure import check_structure
 from conditioning.stages.support_proof import PROVED, RESOLUTION_ROOM, UNDECIDED, claims_zero, decide_support
@@ -287,6 +287,10 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
                                            memory_limit=run.memory_limit)
             except RuntimeError:  # exactly singular after all: the shift policy's factor again
                 fac = run.engine.factorize(scaled, coords=_row_coordinates(model), memory_limit=run.memory_limit)
+    if support is not None and support.outcome == PROVED and eig.count and (eig.gap is None or eig.gap < MIN_GAP):
+        # Proved positive definite and no spectral gap: the eigenvalues that only the
+        # n eps rule put near zero are a slender or graded structure's stiffness, not modes.
+        eig = replace(eig, count=0, gap=None, split_point=None, below_split=None)
     with stage("modes"):
         located = locate_modes(model, structure, scaled.scale, scaled.active, eig, **levels)
     with stage("condition"):

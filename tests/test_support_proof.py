@@ -201,3 +201,24 @@ def test_cantilever_without_a_proof_is_not_decided(monkeypatch):
         if f.code.startswith("support."):
             assert f.severity == "warning" and f.advice.startswith("If the mode is free"), f
     assert own_samples(report.digits), report.digits.skipped
+
+
+def test_proved_supported_without_a_gap_has_no_modes():
+    """A long clamped cantilever's smallest eigenvalues are graded (LAPACK: no ratio of
+    1e3 between neighbours), so once positive definiteness is proved nothing is a
+    'nearly free mode' or a 'mechanism': the model is ill-conditioned, and no action
+    sends the engineer to the node where the elimination met the smallest pivot."""
+    from conditioning.render.terminal import render_text
+    from conditioning.stages.spectrum import MIN_GAP
+
+    model = clamped_cantilever(1000)
+    w = np.linalg.eigvalsh(scaled(sp.csr_array(model.K)).toarray())     # LAPACK syevd
+    assert np.max(w[1:13] / w[:12]) < MIN_GAP                              # no spectral gap
+    report = diagnose(model, seed=1)
+    _supported(report)
+    assert report.spectrum.modes == [] and report.spectrum.count == 0
+    assert report.verdict.startswith("ill-conditioned"), report.verdict
+    assert not [f for f in report.findings if f.code.startswith("support.")]
+    text = render_text(report, width=80)
+    actions = text.split("What to do", 1)[1].split("Key figures", 1)[0]
+    assert "nearly unsupported" not in actions and "mechanism" not in actions, actions

@@ -253,6 +253,9 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
     if f.code == "pivot.digits-lost":
         if (r.spectrum is not None and r.spectrum.modes) or r.jumps:
             return ""  # a symptom of the modes or jumps listed above, not a change of its own
+        if r.spectrum is not None and r.spectrum.support is not None and \
+                r.spectrum.support.outcome == "proved supported":
+            return ""  # proved supported, no mode: the conditioning's cost, met where the order put it
         label = f.message.split(" at the pivot of ", 1)[-1].split(":", 1)[0]
         return (f"{label[0].upper() + label[1:]} is nearly unsupported once the rest is eliminated: "
                 "check its supports and the members that hold it.")
