@@ -13,15 +13,16 @@ class ConditioningError(ValueError):
     """Base class of every error the tool raises on purpose."""
 
 
-class InputError(ConditioningError):
-    """A user-supplied file cannot be used.
+class FileError(ConditioningError):
+    """A file the user named cannot be used (exit 2): ``str`` is ``"<path>: <problem>"``.
 
     Parameters
     ----------
     path : str
         The file as the user named it.
     problem : str
-        What is wrong, in one line, with the line or row where it applies.
+        What is wrong, in one line, with the line or row where it applies (white
+        space runs folded to one blank).
     """
 
     def __init__(self, path: str, problem: str):
@@ -30,21 +31,13 @@ class InputError(ConditioningError):
         super().__init__(f"{self.path}: {self.problem}")
 
 
-class OutputError(ConditioningError):
-    """An output file cannot be written, or would overwrite an input (exit 2).
+class InputError(FileError):
+    """A user-supplied input file cannot be used."""
 
-    Parameters
-    ----------
-    path : str
-        The output as the user named it.
-    problem : str
-        What is wrong, in one line (naming the other file when two collide).
-    """
 
-    def __init__(self, path: str, problem: str):
-        self.path = str(path)
-        self.problem = " ".join(str(problem).split())
-        super().__init__(f"{self.path}: {self.problem}")
+class OutputError(FileError):
+    """An output file cannot be written, or would overwrite an input (the problem names the
+    other file when two collide)."""
 
 
 class SettingError(ConditioningError):

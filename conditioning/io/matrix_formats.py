@@ -468,19 +468,7 @@ def _read_head(name: str) -> bytes:
 
 def _read_all_bytes(name: str) -> bytes:
     """The whole (decompressed) file, read in blocks and refused once beyond :func:`text_read_cap`."""
-    cap, blocks, total = text_read_cap(), [], 0
-    with _open_binary(name) as fh:
-        while True:
-            try:
-                block = fh.read(_READ_BLOCK)
-            except (OSError, EOFError, zlib.error, ValueError) as exc:
-                raise _corrupt_compressed(name, exc) from None
-            if not block:
-                break
-            total += len(block)
-            if total > cap:
-                raise _too_large(name, cap)
-            blocks.append(block)
+    blocks = [block for block in _blocks(name, text_read_cap()) if block]
     data = b"".join(blocks)
     del blocks
     if not data.strip():
@@ -538,7 +526,32 @@ def _too_large(name: str, cap: int) -> InputError:
 def _text_chunks(name: str):
     """``(number of the first line, text)`` of successive blocks of whole lines of a text file
     (decompressed), UTF-8; refused once beyond :func:`text_read_cap` or when not UTF-8."""
-    cap, total, line_no, offset, carry = text_read_cap(TRIPLET_BYTES_PER_BYTE), 0, 1, 0, b""
+    line_no, offset, carry = 1, 0, b""
+    for block in _blocks(name, text_read_cap(TRIPLET_BYTES_PER_BYTE)):
+        data = carry + block
+        if block:
+            cut = data.rfind(b"\n") + 1
+            if cut == 0:   # no line ends in this block yet: read on
+                carry = data
+                continue
+            chunk, carry = data[:cut], data[cut:]
+        else:
+            chunk, carry = data, b""
+        if chunk:
+            try:
+                text = chunk.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                raise InputError(name, f"not UTF-8 text (undecodable byte at position "
+                                       f"{offset + exc.start + 1})") from None
+            yield line_no, text
+            line_no += chunk.count(b"\n")
+            offset += len(chunk)
+
+
+def _blocks(name: str, cap: int):
+    """Successive blocks of the (decompressed) file, the last one empty; refused once
+    more than ``cap`` bytes arrive (one line naming the file)."""
+    total = 0
     with _open_binary(name) as fh:
         while True:
             try:
@@ -548,26 +561,9 @@ def _text_chunks(name: str):
             total += len(block)
             if total > cap:
                 raise _too_large(name, cap)
-            data = carry + block
-            if block:
-                cut = data.rfind(b"\n") + 1
-                if cut == 0:   # no line ends in this block yet: read on
-                    carry = data
-                    continue
-                chunk, carry = data[:cut], data[cut:]
-            else:
-                chunk, carry = data, b""
-            if chunk:
-                try:
-                    text = chunk.decode("utf-8")
-                except UnicodeDecodeError as exc:
-                    raise InputError(name, f"not UTF-8 text (undecodable byte at position "
-                                           f"{offset + exc.start + 1})") from None
-                yield line_no, text
-                line_no += chunk.count(b"\n")
-                offset += len(chunk)
+            yield block
             if not block:
-                break
+                return
 
 
 def _corrupt_compressed(name: str, exc: BaseException) -> InputError:
