@@ -60,7 +60,7 @@ def test_bracket_leads_with_merging_the_pad_nodes():
     assert first.code == "geometry.coincident-nodes" and first.severity == "error"
     assert "nodes 201-205 onto nodes 83-87" in first.message
     assert first.advice.startswith("Merge nodes 201-205 onto nodes 83-87")
-    assert "nodes 201-205 onto nodes 83-87" in report.verdict and report.verdict.startswith("singular")
+    assert "nodes 201-205 and nodes 83-87 coincide" in report.verdict and report.verdict.startswith("singular")
     assert all(r.reason.startswith("second choice to merging") for r in report.restraints)
     rigid = [f for f in report.findings if f.code == "support.rigid-body-mode"]
     assert len(rigid) == 3 and all(f.advice.startswith("First merge nodes 201-205 onto nodes 83-87") for f in rigid)
