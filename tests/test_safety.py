@@ -283,6 +283,27 @@ def test_a_gzip_bomb_is_refused_from_its_size_line(tmp_path, monkeypatch, capsys
     assert time.perf_counter() - start < 20      # refused from the header, not after reading
 
 
+def test_a_gzip_bomb_is_refused_under_the_default_memory_limit(tmp_path, capsys):
+    """Without CONDITIONING_MEMORY_LIMIT: 3 million entries announced for a 1000 x 1000
+    matrix (one million positions) is refused from the size line, before any reading."""
+    bomb = tmp_path / "bomb.mtx.gz"
+    with gzip.open(bomb, "wb") as fh:
+        fh.write(b"%%MatrixMarket matrix coordinate real general\n1000 1000 3000000\n")
+        fh.write(b"1 1 1\n" * 3_000_000)
+    assert main(["diagnose", str(bomb)]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert str(bomb) in line and "more than its 1,000,000 positions" in line
+
+
+def test_a_small_export_with_repeated_entries_is_still_read(tmp_path):
+    """Repeated entries are summed (the Matrix Market convention scipy.io.mmread follows)."""
+    path = tmp_path / "repeated.mtx"
+    path.write_text("%%MatrixMarket matrix coordinate real symmetric\n2 2 6\n"
+                    "1 1 1\n1 1 1\n2 2 1\n2 2 1\n2 1 -0.5\n2 1 -0.5\n")
+    K = load_model(str(path)).K.toarray()
+    assert np.array_equal(K, [[2.0, -1.0], [-1.0, 2.0]])
+
+
 def test_more_entries_than_announced_is_refused(tmp_path, capsys):
     path = tmp_path / "extra.mtx"
     path.write_text("%%MatrixMarket matrix coordinate real general\n2 2 2\n1 1 1\n2 2 1\n1 1 1\n")

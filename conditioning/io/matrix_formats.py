@@ -669,6 +669,10 @@ def _mm_size(name: str, canonical: bytes) -> tuple[int, int, int]:
 
 #: Fewest bytes one coordinate entry line can take ("1 1 1" and a newline).
 MIN_ENTRY_BYTES = 6
+#: A coordinate file may announce more entries than its matrix has positions (repeated
+#: entries, summed) only below this many entries: room for small element-by-element
+#: exports, far below what would strain memory (the project's choice).
+MAX_REPEATS_FREE = 1_000_000
 
 
 def _require_plausible_size(name: str, fmt: str, n: int, entries: int) -> None:
@@ -678,6 +682,13 @@ def _require_plausible_size(name: str, fmt: str, n: int, entries: int) -> None:
     if fmt == "coordinate" and n > _MAX_SPARSE_ORDER_FREE and n > _MAX_ROWS_PER_ENTRY * max(entries, 1):
         raise InputError(name, f"size line announces order {n} but only {entries} entries; "
                                "check the size line (rows columns entries)")
+    if fmt == "coordinate" and entries > max(n * n, MAX_REPEATS_FREE):
+        # An n x n matrix has n^2 positions: a file announcing more entries repeats
+        # positions on average, which no assembled (or element-by-element) export of a
+        # real model does; a compressed file of repeated lines could otherwise expand
+        # to any size before the reader's own checks.
+        raise InputError(name, f"the size line announces {entries:,} entries for a {n:,} x {n:,} matrix, "
+                               f"more than its {n * n:,} positions: check the size line (rows columns entries)")
     if fmt == "coordinate" and not _compression(name):
         # Every entry line holds at least "i j v" and a newline: 6 bytes. A size
         # line claiming more entries than the file can hold is a broken header,
