@@ -530,7 +530,7 @@ def confirm_largest(eig: Eigenpairs, scaled: ScaledStiffness, fac: Optional[Fact
     theta, how = largest_eigenvalue_bounded(
         Sa, shift=sigma, shift_how=f"S + {sigma:.2g} I positive semi-definite by {why}", rng=rng)
     lam = max(eig.lambda_max, theta)
-    note = f"; lambda_max {how}"
+    note = f"; lambda_max by {how}"
     if theta > eig.lambda_max * (1 + KW_EPS):
         logger.warning("lambda_max of S %.6g was %.2g%% low: %.6g", eig.lambda_max,
                        100 * (1 - eig.lambda_max / theta), theta)
