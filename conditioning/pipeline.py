@@ -408,7 +408,7 @@ def _restraints(model: Model, structure, located, *, proved: bool = False) -> li
 
 
 #: A check that factors again while the shared factor is kept (the inertia
-#: confirmations of lambda_min and lambda_max, the support proof) runs when
+#: confirmation of lambda_min, the support proof; lambda_max needs none) runs when
 #: this many refactorizations' worth of memory fit: the shared factor and the
 #: new one, each counted as one read-back refactorization (project's choice).
 COEXISTING_FACTORS = 2
