@@ -186,7 +186,7 @@ def confirmed_lambda_max(K: sp.csr_array, fac: Optional[Factorization], lam: flo
     """
     sigma, why = psd_shift(K, fac, diagonal=np.abs(K.diagonal()))
     theta, bounded = largest_eigenvalue_bounded(
-        K, shift=sigma, shift_how=f"K + {sigma:.2g} I positive semi-definite by {why}", rng=rng)
+        K, shift=sigma, shift_how=why, name="K", rng=rng)
     if math.isfinite(lam) and theta > lam * (1 + KW_EPS):
         logger.warning("lambda_max of K %.6g was %.2g%% low: %.6g", lam, 100 * (1 - lam / theta), theta)
         return theta, bounded + f" (the first Lanczos run's value was {100 * (1 - lam / theta):.2g}% low: recomputed)"

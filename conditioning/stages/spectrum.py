@@ -236,7 +236,7 @@ def psd_shift(A, fac: Optional[Factorization] = None, *, diagonal=None) -> tuple
     return max(0.0, -lower), "Gershgorin's discs"
 
 
-def largest_eigenvalue_bounded(A, *, shift: float = 0.0, shift_how: str = "A positive semi-definite",
+def largest_eigenvalue_bounded(A, *, shift: float = 0.0, shift_how: str = "the caller's assumption", name: str = "A",
                                eps: float = KW_EPS, fail: float = KW_FAIL, rng=0) -> tuple[float, str]:
     """(lambda_max of the symmetric A, how): Lanczos from a random start run for the number
     of steps the Kuczynski-Wozniakowski bound needs for a relative error ``eps`` with failure
@@ -266,6 +266,9 @@ def largest_eigenvalue_bounded(A, *, shift: float = 0.0, shift_how: str = "A pos
         lam = largest_eigenvalue(A, rng=rng)
         return lam, "Lanczos (residual bound 1e-3 relative; no diagonal entry > 0: no probability bound)"
     eps_shifted = eps * d / (d + shift)
+    # A shift that is only psd_shift's rounding margin (far below eps d) is said as such.
+    shift_how = (f"{name} positive semi-definite by {shift_how}" + (", to rounding" if shift else "") if shift <= 1e-6 * d else
+                 f"{name} + {shift:.2g} I positive semi-definite by {shift_how}")
     m = min(n, kw_steps(n, eps_shifted, fail))
     capped = m > KW_MAX_STEPS
     m = min(m, KW_MAX_STEPS)
@@ -533,7 +536,7 @@ def confirm_largest(eig: Eigenpairs, scaled: ScaledStiffness, fac: Optional[Fact
         return eig
     sigma, why = psd_shift(Sa, fac)
     theta, how = largest_eigenvalue_bounded(
-        Sa, shift=sigma, shift_how=f"S + {sigma:.2g} I positive semi-definite by {why}", rng=rng)
+        Sa, shift=sigma, shift_how=why, name="S", rng=rng)
     lam = max(eig.lambda_max, theta)
     note = f"; lambda_max by {how}"
     if theta > eig.lambda_max * (1 + KW_EPS):
