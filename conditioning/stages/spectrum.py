@@ -231,7 +231,8 @@ def psd_shift(A, fac: Optional[Factorization] = None, *, diagonal=None) -> tuple
             and math.isfinite(fac.shift)):
         c = float(fac.shift)
         dmax = 1.0 if diagonal is None else float(np.max(diagonal))
-        return max(0.0, -c) * dmax + n * EPS * norm_inf, "the factorization's inertia (no negative pivot)"
+        return (max(0.0, -c) * dmax + n * EPS * norm_inf,
+                f"the factorization's inertia (no negative pivot at shift {c:.2g}; n eps ||A||_inf added for rounding)")
     lower = float(np.min(2 * dg - row)) if n else 0.0  # A_ii - sum_{j != i} |A_ij|
     return max(0.0, -lower), "Gershgorin's discs"
 
@@ -266,9 +267,8 @@ def largest_eigenvalue_bounded(A, *, shift: float = 0.0, shift_how: str = "the c
         lam = largest_eigenvalue(A, rng=rng)
         return lam, "Lanczos (residual bound 1e-3 relative; no diagonal entry > 0: no probability bound)"
     eps_shifted = eps * d / (d + shift)
-    # A shift that is only psd_shift's rounding margin (far below eps d) is said as such.
-    shift_how = (f"{name} positive semi-definite by {shift_how}" + (", to rounding" if shift else "") if shift <= 1e-6 * d else
-                 f"{name} + {shift:.2g} I positive semi-definite by {shift_how}")
+    shift_how = (f"{name} + {shift:.2g} I positive semi-definite by {shift_how}" if shift > 0 else
+                 f"{name} positive semi-definite by {shift_how}")
     m = min(n, kw_steps(n, eps_shifted, fail))
     capped = m > KW_MAX_STEPS
     m = min(m, KW_MAX_STEPS)
