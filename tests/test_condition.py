@@ -301,3 +301,34 @@ def test_kuczynski_wozniakowski_steps_meet_the_bound_on_a_closed_form_spectrum()
     theta, how = largest_eigenvalue_bounded(A - sp.identity(n, format="csr"), shift=1.0, rng=0)
     assert (1 - 1e-3) * (top - 1) <= theta <= (top - 1) * (1 + 1e-12)
     assert int(how.split(",")[1].split()[0]) > m
+
+
+def test_raw_lambda_max_short_of_the_largest_is_caught_without_a_factorization():
+    """K's lambda_max given 5% short (LAPACK eigvalsh is the truth) comes back within 0.1% of the
+    largest from the Kuczynski-Wozniakowski-length run; an indefinite K (one negative spring)
+    takes its shift from Gershgorin's discs and is still within 0.1%. No factorization is used
+    (the factor's count_below raises if called)."""
+    from conditioning.stages.condition import confirmed_lambda_max
+
+    rng = np.random.default_rng(6)
+    n = 1400
+    springs = rng.uniform(1.0, 100.0, n + 1)
+    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    w = np.linalg.eigvalsh(K.toarray())
+    fac = factorize(K)
+
+    def no_factorization(c):
+        raise AssertionError("lambda_max must not cost a factorization")
+
+    fac.count_below = no_factorization
+    lam, how = confirmed_lambda_max(K, fac, 0.95 * float(w[-1]), "test", rng)
+    assert (1 - 1e-3) * w[-1] <= lam <= w[-1] * (1 + 1e-12)
+    assert "recomputed" in how and "probability >= 1 - 1e-09" in how and "inertia" in how
+    Kn = sp.lil_array(K)
+    Kn[700, 700] = -50.0  # a negative spring: K indefinite
+    Kn = sp.csr_array(Kn)
+    wn = np.linalg.eigvalsh(Kn.toarray())
+    assert wn[0] < 0  # LAPACK: indefinite
+    lam, how = confirmed_lambda_max(Kn, None, -np.inf, "test", rng)
+    assert (1 - 1e-3) * wn[-1] <= lam <= wn[-1] * (1 + 1e-12)
+    assert "Gershgorin" in how
