@@ -273,8 +273,11 @@ def _analyse(model: Model, structure, jumps, run: _Run) -> Report:
     if fac is not None and not fac.info.pivots_note and (
             refactorization_bytes(fac.info.fill, scaled.S.nnz) * COEXISTING_FACTORS <= run.memory_limit):
         with stage("smallest eigenvalue check"):
-            eig = confirm_largest(confirm_smallest(eig, scaled, fac, rng=spectrum_rng), scaled, fac,
-                                  rng=spectrum_rng)
+            eig = confirm_smallest(eig, scaled, fac, rng=spectrum_rng)
+    # lambda_max(S) by the Kuczynski-Wozniakowski stopping test: products with S only, no
+    # factorization, so run whatever the memory.
+    with stage("largest eigenvalue bound"):
+        eig = confirm_largest(eig, scaled, fac, rng=spectrum_rng)
     support, proof, levels = _decide_support(model, structure, scaled, eig, fac, run, skipped)
     if support is not None and support.outcome in (PROVED, UNDECIDED) and (fac.singular or fac.shift != 0.0):
         # Proved positive definite, or resolved by the stored K: the shifted factor
@@ -409,7 +412,7 @@ def _restraints(model: Model, structure, located, *, proved: bool = False) -> li
 
 
 #: A check that factors again while the shared factor is kept (the inertia
-#: confirmations of lambda_min and lambda_max, the support proof) runs when
+#: confirmation of lambda_min, the support proof; lambda_max needs none) runs when
 #: this many refactorizations' worth of memory fit: the shared factor and the
 #: new one, each counted as one read-back refactorization (project's choice).
 COEXISTING_FACTORS = 2

@@ -39,7 +39,8 @@ from conditioning.engine.base import Factorization
 from conditioning.linalg.floating_point import EPS
 from conditioning.linalg.onenormest import one_norm_estimate
 from conditioning.results import ConditionResult
-from conditioning.stages.spectrum import DENSE_LIMIT, Eigenpairs, largest_eigenvalue
+from conditioning.stages.spectrum import (DENSE_LIMIT, KW_EPS, Eigenpairs, largest_eigenvalue,
+                                          largest_eigenvalue_bounded, psd_shift)
 
 logger = logging.getLogger(__name__)
 
@@ -171,30 +172,25 @@ def confirmed_lambda_min(K: sp.csr_array, fac: Factorization, lam: float, op, ho
     return lam, how + "; NOT confirmed by the inertia count after recomputing"
 
 
-def confirmed_lambda_max(K: sp.csr_array, fac: Factorization, lam: float, how: str, rng) -> tuple[float, str]:
-    """(lambda_max of K, how) confirmed by an inertia count: K - (1 + INERTIA_MARGIN) lam I has no
-    positive pivot (negative definite, so its elimination is stable); else recomputed by ARPACK
-    (largest algebraic, random start) and the larger kept."""
-    try:
-        perm = fac.ordering_permutation()
-    except (AttributeError, NotImplementedError):
-        perm = None
-    if fac.info.pivots_note:
-        return lam, how + "; not confirmed by an inertia count (no memory for a second factorization)"
-    rng = np.random.default_rng(rng)
-    n = K.shape[0]
-    for attempt in range(CONFIRM_RETRIES + 1):
-        below = count_below_raw(K, (1 + INERTIA_MARGIN) * lam, perm)
-        if below is None:
-            return lam, how + ("; not confirmed by an inertia count (the shift is below what a float64 "
-                               "elimination resolves, or SuperLU pivoted rows)")
-        if below >= n:
-            note = "confirmed" if attempt == 0 else f"recomputed {attempt} time(s) until confirmed"
-            return lam, how + f"; {note} by an inertia count (no eigenvalue of K above (1 + {INERTIA_MARGIN:g}) lambda_max)"
-        top = spla.eigsh(K, k=min(n - 1, 4), which="LA", tol=1e-8, v0=rng.standard_normal(n),
-                         return_eigenvectors=False)
-        lam = max(lam, float(np.max(top)))
-    return lam, how + "; NOT confirmed by the inertia count after recomputing"
+def confirmed_lambda_max(K: sp.csr_array, fac: Optional[Factorization], lam: float, how: str,
+                         rng) -> tuple[float, str]:
+    """(lambda_max of K, how), bounded by a probabilistic stopping test (no factorization).
+
+    A Lanczos run from a random start for the number of steps the Kuczynski-Wozniakowski
+    bound needs (:func:`conditioning.stages.spectrum.largest_eigenvalue_bounded`): its Ritz
+    value is within KW_EPS of lambda_max with probability at least 1 - KW_FAIL. K + sigma I
+    is positive semi-definite with sigma from the shared factorization's inertia (S - cI
+    with no negative pivot gives K >= c D, D = diag K) or from Gershgorin's discs. The
+    larger of ``lam`` and that Ritz value is kept (both are at most lambda_max). Replaces
+    an inertia count of K - (1 + delta) lam I, which cost one more sparse factorization.
+    """
+    sigma, why = psd_shift(K, fac, diagonal=np.abs(K.diagonal()))
+    theta, bounded = largest_eigenvalue_bounded(
+        K, shift=sigma, shift_how=why, name="K", rng=rng)
+    if math.isfinite(lam) and theta > lam * (1 + KW_EPS):
+        logger.warning("lambda_max of K %.6g was %.2g%% low: %.6g", lam, 100 * (1 - lam / theta), theta)
+        return theta, bounded + f" (the first Lanczos run's value was {100 * (1 - lam / theta):.2g}% low: recomputed)"
+    return max(lam, theta), bounded
 
 
 #: K's largest entry is brought to 2**BIG_TARGET (resp. 2**-BIG_TARGET) before norms and
@@ -287,10 +283,14 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
         empty_rows = 0 if fac is None else fac.active.size - int(fac.active.sum())
     singular = bool((fac is not None and fac.singular) or free > 0 or empty_rows > 0)
     dense = K.shape[0] <= DENSE_LIMIT
-    lam_max_c = float(np.linalg.eigvalsh(Kc.toarray())[-1]) if dense else largest_eigenvalue(Kc, rng=rng)
+    if dense:
+        lam_max_c, how_max = float(np.linalg.eigvalsh(Kc.toarray())[-1]), "dense eigensolver (LAPACK)"
+    else:
+        # One Lanczos run, its length fixed by the Kuczynski-Wozniakowski bound: the estimate
+        # and its confirmation at once (no residual-stopped run before it).
+        lam_max_c, how_max = confirmed_lambda_max(Kc, fac_c, -math.inf, "", rng)
     with np.errstate(over="ignore"):
         lam_max = lam_max_c / c  # in K's units: inf when K's own lambda_max is beyond float64
-    how_max = "dense eigensolver (LAPACK)" if dense else "Lanczos (residual bound 1e-3 relative)"
     s_lmin = float(np.min(np.abs(spectrum.values))) if spectrum.values.size else None
     scaled_method = (f"2-norm of S = D^-1/2 K D^-1/2 from its extreme eigenvalues ({spectrum.method}); "
                      "governs the accuracy of a Cholesky-type solve (van der Sluis 1969; Demmel 1989)")
@@ -313,10 +313,6 @@ def condition_numbers(K: sp.csr_array, fac: Optional[Factorization], spectrum: E
             scaled_method=scaled_method, one_norm_estimate=None,
             one_norm_method=f"not computed: {no_factorization}", scaling_gain_digits=None,
         )
-    if not dense:
-        lam_max_c, how_max = confirmed_lambda_max(Kc, fac_c, lam_max_c, how_max, rng)
-        with np.errstate(over="ignore"):
-            lam_max = lam_max_c / c
     lam_min_c, how_min = _lambda_min_raw(Kc, fac_c, spectrum, rng)
     lam_min = lam_min_c / c
     kappa = lam_max_c / abs(lam_min_c) if lam_min_c != 0 else math.inf
