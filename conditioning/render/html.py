@@ -186,6 +186,13 @@ def _condition(r: results.Report) -> str:
             + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
 
 
+def _mode_kind(m) -> str:
+    """The mode's kind as the terminal shows it: free, not decided by the support proof, or nearly free."""
+    if getattr(m, "exact", True):
+        return m.kind
+    return f"{m.kind} (not decided)" if getattr(m, "undecided", False) else f"{m.kind} (nearly free)"
+
+
 def _modes(r: results.Report) -> str:
     sp = r.spectrum
     if sp is None:
@@ -194,7 +201,7 @@ def _modes(r: results.Report) -> str:
             + f'<br>rule: {_e(sp.gap_rule)}. <span class="how">{_e(sp.method)}</span></p>')
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
-    rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
+    rows = [[str(k), _mode_kind(m),
              fmt_mode_eigenvalue(m.eigenvalue, getattr(m, "exact", False)),
              fmt_mode_eigenvalue(m.relative_eigenvalue, getattr(m, "exact", False)),
              m.description or (fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-"),
