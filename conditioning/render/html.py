@@ -19,7 +19,7 @@ from typing import Callable, Optional, Union
 
 from conditioning import results
 from conditioning.render import plots
-from conditioning.render._format import (fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
+from conditioning.render._format import (NEGATIVE_PIVOTS_HOW, fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
                                          mode_count_lines, pivots_are_lower_bounds, scaling_sentence, summarise_ids,
                                          zero_diagonal_text)
 
@@ -233,6 +233,18 @@ def _jumps(r: results.Report) -> str:
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
 
 
+def _negative_pivots_sentence(r: results.Report, count: int) -> str:
+    """The negative-pivot count with how it was obtained, and the eigenvalue count beside it."""
+    sp = r.spectrum
+    eig = (f" K's negative eigenvalues: {sp.negative_eigenvalues:,} ({sp.negative_method})."
+           if sp is not None and sp.negative_eigenvalues else "")
+    if r.pivots.symmetric:
+        return (f"{count:,} negative pivot(s) ({NEGATIVE_PIVOTS_HOW}: the elimination pivoted on the diagonal, "
+                f"so the pivots' signs are those of K's eigenvalues): K is not positive definite.{eig} ")
+    return (f"{count:,} negative pivot(s) of a row-pivoted LU: their signs are not those of an L D L^T and "
+            f"count no eigenvalues.{eig} ")
+
+
 def _pivots(r: results.Report) -> str:
     d = r.pivots
     if d is None and "pivots" in r.skipped:  # e.g. an engine without pivots: said, not hidden
@@ -243,7 +255,7 @@ def _pivots(r: results.Report) -> str:
     low = pivots_are_lower_bounds(r)
     rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
              fmt_number(e.kept)] for e in d.worst[:10]]
-    largest = (f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite. " if negative
+    largest = (_negative_pivots_sentence(r, max(d.negative_count, len(negative))) if negative
                else f"At least {d.max_digits:.1f} digits lost at a pivot "
                     "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")

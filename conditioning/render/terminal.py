@@ -24,7 +24,7 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render.safe_text import SafeConsole
-from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
+from conditioning.render._format import (NEGATIVE_PIVOTS_HOW, confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
                                          fmt_mode_eigenvalue, ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
                                          scaling_sentence, summarise_ids, total_of, unit_word,
                                          zero_diagonal_text)
@@ -325,7 +325,8 @@ def _key_figures(r: results.Report):
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
         if p.negative_pivots and p.symmetric:
-            t.add_row("negative pivots", f"{p.negative_count:,}", f"elimination met it at {p.negative_pivots[0].label}")
+            t.add_row("negative pivots", f"{p.negative_count:,}",
+                      f"{NEGATIVE_PIVOTS_HOW}; first at {p.negative_pivots[0].label}")
         elif p.negative_pivots:
             pass   # a row-pivoted LU's pivot signs count nothing: the negative eigenvalues row says how many
         else:
