@@ -197,7 +197,16 @@ def _modes(r: results.Report) -> str:
     sp = r.spectrum
     if sp is None:
         return ""
-    head = ("<p>" + "<br>".join(_e(line) for line in mode_count_lines(sp, bool(r.jumps)))
+    dg = r.digits
+    exported = ""
+    if dg is not None and dg.headline_solve == "exported":
+        exported = ("<p>These modes are of the model with the swallowed DOFs held: a prediction after the suggested "
+                    "change. The exported K: "
+                    + (_e(f"{dg.exported_zero_modes:,} scaled eigenvalue(s) zero at working precision "
+                          f"({dg.exported_zero_modes_method})") if dg.exported_zero_modes is not None
+                       else _e(dg.exported_zero_modes_method or "mode count not computed"))
+                    + ".</p>")
+    head = (exported + "<p>" + "<br>".join(_e(line) for line in mode_count_lines(sp, bool(r.jumps)))
             + f'<br>rule: {_e(sp.gap_rule)}. <span class="how">{_e(sp.method)}</span></p>')
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head

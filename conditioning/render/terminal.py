@@ -304,9 +304,13 @@ def _key_figures(r: results.Report):
                      f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
+    if after and r.digits.exported_zero_modes is not None:
+        t.add_row("modes, exported K", f"{r.digits.exported_zero_modes:,} zero",
+                  "LAPACK; zero at working precision")
     if sp is not None:
-        t.add_row("near-singular modes", _mode_count(sp),
-                  _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
+        t.add_row("near-singular modes, after" if after else "near-singular modes", _mode_count(sp),
+                  ("prediction; " if after else "") + _mode_how(sp)
+                  + ("; no inertia count" if "inertia check" in r.skipped else ""))
     links = [j for j in r.jumps if j.kind == "coupling"]
     if links:
         worst = max(links, key=lambda j: j.digits_cost)
