@@ -794,7 +794,9 @@ class DigitsResult:
     """How ``exported_zero_modes`` was obtained, or why it was not."""
     headline_reason: str = ""
     """Why the pivoted LU was measured and is the key figure, or why it was
-    not factored; empty when the kind of solver does not matter."""
+    not factored; or that K is singular at working precision but was factored
+    without a zero pivot or shift, so the digits are of the float64 solve of
+    the stored K as it is; empty when none of these applies."""
 
 
 # --------------------------------------------------------------- findings

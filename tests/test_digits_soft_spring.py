@@ -70,3 +70,16 @@ def test_soft_spring_slab_gets_measured_digits_not_a_bound_of_zero():
     truth_s = _true_digits(K, f, supplied)
     assert audit.trustworthy_digits <= truth_s + 1e-9
     assert audit.trustworthy_digits >= truth_s - 0.5
+
+
+def test_soft_spring_slab_digits_say_whose_solve():
+    """The terminal says the digits are of a solve of the stored K although the support
+    decision calls it singular at working precision (the measured figure beside 'singular')."""
+    import conditioning
+    from conditioning.render.terminal import render_text
+
+    a, f = soft_spring_slab()
+    report = conditioning.diagnose(a.K, dofs=a.dofs, load=f, samples=0)
+    assert report.condition.singular
+    text = " ".join(render_text(report, width=80).split())
+    assert "digits of a float64 solve of the stored K as it is" in text

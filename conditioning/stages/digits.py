@@ -190,11 +190,20 @@ def measure_digits(
             audits.append(_audit(op, solution, out[j], case))
     out = _cases_first(out, len(cases))
     audits = _worst_first(audits)
+    if condition is not None and condition.singular and not why_pivoted:
+        why_pivoted = STORED_K_MEASURED
     return DigitsResult(out, predicted_raw, predicted_scaled, flops,
                         summary=_summary([x for x in out if x.solver_kind == headline], predicted_raw,
                                          predicted_scaled, flops),
                         audit=audits[0] if audits else None, audits=audits,
                         headline_solve=headline, headline_reason=why_pivoted)
+
+
+#: Said beside the digits of a K the support decision calls singular but that
+#: was factored without a zero pivot or a shift (:func:`_stored_k_solvable`).
+STORED_K_MEASURED = ("K is singular at working precision along its near-singular modes, yet it was factored "
+                     "without a zero pivot or a shift: these are the digits of a float64 solve of the stored K "
+                     "as it is, where stiffness at round-off level sets the displacement along those modes")
 
 
 def _stored_k_solvable(fac, structure) -> bool:
