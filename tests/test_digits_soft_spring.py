@@ -83,3 +83,5 @@ def test_soft_spring_slab_digits_say_whose_solve():
     assert report.condition.singular
     text = " ".join(render_text(report, width=80).split())
     assert "digits of a float64 solve of the stored K as it is" in text
+    from conditioning.render.html import render_html
+    assert "digits of a float64 solve of the stored K as it is" in " ".join(render_html(report).split())

@@ -301,6 +301,8 @@ def _digits(r: results.Report) -> str:
         if getattr(s, "solve", ""):
             solves.setdefault(s.solve, []).append(s.sample)
     whose = "".join(f"<p>Whose solve ({_e(', '.join(names))}): {_e(solve)}.</p>" for solve, names in solves.items())
+    if dg.headline_reason:
+        whose += f"<p>{_e(dg.headline_reason)}.</p>"
     invented = any(s.sample.startswith("random-") or s.sample.startswith("worst-case") for s in dg.samples)
     if invented:
         whose += ("<p>random-k: invented loads, random forces on every DOF; worst-case: an invented load along "

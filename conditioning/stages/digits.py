@@ -201,9 +201,10 @@ def measure_digits(
 
 #: Said beside the digits of a K the support decision calls singular but that
 #: was factored without a zero pivot or a shift (:func:`_stored_k_solvable`).
-STORED_K_MEASURED = ("K is singular at working precision along its near-singular modes, yet it was factored "
-                     "without a zero pivot or a shift: these are the digits of a float64 solve of the stored K "
-                     "as it is, where stiffness at round-off level sets the displacement along those modes")
+STORED_K_MEASURED = ("K is singular at working precision along its near-singular modes, yet the stored K is "
+                     "proved positive definite above its resolution (192-bit L D L^T) and was factored without "
+                     "a zero pivot or a shift: these are the digits of a float64 solve of the stored K as it "
+                     "is, where stiffness near round-off level sets the displacement along those modes")
 
 
 #: The stored K's solve is measured although the support decision calls K
