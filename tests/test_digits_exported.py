@@ -110,6 +110,7 @@ def test_swallowed_penalty_names_the_exported_K_modes_and_keeps_the_geometry_che
     assert f"{zero} zero" in figures["modes, exported K"]
     assert "prediction" in figures["near-singular modes, after"]
     assert "near-singular modes" not in figures            # the held model's count is never unlabelled
+    assert "prediction" in figures["digits lost at a pivot, after"]
     (swallowed,) = [f for f in report.findings if f.code == "stiffness.penalty-swallowed"]
     assert "checked with these DOFs held" not in swallowed.message
     assert "not figures of the exported K" in swallowed.message

@@ -339,7 +339,8 @@ def _key_figures(r: results.Report):
                           f"at {p.worst[0].label}; K singular"
                           + (", shifted" if r.factorization.shift != 0.0 else ""))
             else:
-                t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
+                t.add_row("digits lost at a pivot, after" if after else "digits lost at a pivot",
+                          fmt_digits(p.max_digits), ("prediction; " if after else "") + f"at {p.worst[0].label}")
     dg = r.digits
     if dg is not None and dg.samples and not dg.skipped:
         # The tool's own solves and a supplied solution are different questions:
