@@ -781,9 +781,22 @@ class DigitsResult:
     (||K||_2 >= max|K_ii|, ||K^-1||_2 >= ||K^-1 f||_2 / ||f||_2) from the
     certified solution of each measured load; None otherwise or when no
     reference solve ran."""
+    exported_zero_modes: Optional[int] = None
+    """When a penalty swallowed the structure: the number of eigenvalues of
+    the exported K's scaled matrix (D^-1/2 K D^-1/2, as stored) that are zero
+    at working precision (within ten times the stored K's resolution plus
+    each eigenvalue's error bound, LAPACK eigh): the tied motions the penalty
+    left without stiffness. The near-singular modes of ``spectrum`` are then
+    those of the model with the swallowed DOFs held (a prediction after the
+    suggested change). None otherwise, or when K is too large for a dense
+    eigensolve (``exported_zero_modes_method`` says so)."""
+    exported_zero_modes_method: str = ""
+    """How ``exported_zero_modes`` was obtained, or why it was not."""
     headline_reason: str = ""
     """Why the pivoted LU was measured and is the key figure, or why it was
-    not factored; empty when the kind of solver does not matter."""
+    not factored; or that K is singular at working precision but was factored
+    without a zero pivot or shift, so the digits are of the float64 solve of
+    the stored K as it is; empty when none of these applies."""
 
 
 # --------------------------------------------------------------- findings

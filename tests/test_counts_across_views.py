@@ -99,3 +99,35 @@ def test_many_negative_pivots_counted_in_full():
                                   "mast_soft_spring"])
 def test_demo_counts_agree(name):
     check_counts(conditioning.diagnose(scenarios()[name].model, seed=0))
+
+
+def test_bcsstm10_negative_counts_agree_with_lapack_in_every_view():
+    """bcsstm10 (SuiteSparse, 1,086 rows, indefinite): LAPACK eigvalsh (numpy) on the dense
+    matrix counts 54 negative eigenvalues. The tool's elimination pivots on the diagonal, so
+    its negative pivots are the signs of an L D L^T and, by Sylvester's law of inertia, the
+    same count (common practice). The terminal, the JSON and the HTML give that one count,
+    each with how it was obtained (an earlier terminal printed 20, the length of the capped
+    list of rows it names)."""
+    import scipy.io
+
+    from conditioning.render.html import render_html
+    from conftest import reference_matrix_path
+
+    path = reference_matrix_path("bcsstm10")
+    lapack = int(np.sum(np.linalg.eigvalsh(scipy.io.mmread(path).toarray()) < 0))   # LAPACK
+    assert lapack == 54
+    report = conditioning.diagnose(path, samples=0, seed=0)
+    data = report_to_dict(report)
+    assert data["spectrum"]["negative_eigenvalues"] == lapack
+    assert data["pivot_loss"]["negative_count"] == lapack and data["pivot_loss"]["symmetric"]
+    assert data["factorization"]["negative_pivots"] == lapack
+    text = render_text(report, width=200)
+    figures = _key_figures(text)
+    assert _count(figures["negative eigenvalues"]) == lapack
+    assert _count(figures["negative pivots"]) == lapack
+    assert "Sylvester" in text.split("negative pivots", 1)[1].splitlines()[0]
+    check_counts(report)
+    page = " ".join(render_html(report).split())
+    assert f"{lapack} negative pivot(s) (pivot signs (Sylvester): the elimination pivoted on the diagonal" in page
+    assert f"negative eigenvalues: {lapack} (all eigenvalues of S (LAPACK))" in page
+    assert not re.search(r"\b20 negative", text + page)

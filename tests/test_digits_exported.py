@@ -84,3 +84,41 @@ def test_exported_K_digits_are_the_headline_and_match_flint():
     key = text[text.index("Key figures"):text.index("Model")]
     assert "condition, exported K" in key and f"{exported.trustworthy_digits:.1f}" in key
     assert "after the change" in key and "prediction" in key
+
+
+def test_swallowed_penalty_names_the_exported_K_modes_and_keeps_the_geometry_checks():
+    """The mode figures of the exported K are given, the held model's are labelled a
+    prediction, the swallowed-penalty finding says which matrix the rest describes,
+    and the geometry checks survive the held-DOF path (issue 24 item 2, issue 25).
+
+    Outside references: LAPACK eigvalsh (numpy) on the exported K's scaled matrix
+    (D^-1/2 K D^-1/2) has two eigenvalues below 1e-12 and the next above 1e-3 (the
+    two tied motions ux, uy of the link); the tied nodes share their coordinates by
+    construction (tests/test_penalty.py), so they coincide (a closed form)."""
+    model = tied_portal(1e20)
+    K = model.K.toarray()
+    s = 1.0 / np.sqrt(np.diag(K))
+    w = np.abs(np.linalg.eigvalsh(K * s[:, None] * s[None, :]))               # LAPACK
+    zero = int(np.sum(w < 1e-12))
+    assert zero == 2 and np.sort(w)[zero] > 1e-3
+    report = conditioning.diagnose(model, samples=1)
+    dg = report.digits
+    assert dg.headline_solve == "exported"
+    assert dg.exported_zero_modes == zero and "LAPACK" in dg.exported_zero_modes_method
+    text = render_text(report, width=100)
+    figures = {line.split("  ")[0]: line for line in text.split("Key figures")[1].splitlines()}
+    assert f"{zero} zero" in figures["modes, exported K"]
+    assert "prediction" in figures["near-singular modes, after"]
+    assert "near-singular modes" not in figures            # the held model's count is never unlabelled
+    assert "prediction" in figures["digits lost at a pivot, after"]
+    (swallowed,) = [f for f in report.findings if f.code == "stiffness.penalty-swallowed"]
+    assert "checked with these DOFs held" not in swallowed.message
+    assert "not figures of the exported K" in swallowed.message
+    assert f"{zero} scaled eigenvalues zero at working precision" in swallowed.message
+    # Geometry checks of the whole model: the tied nodes coincide (same coordinates).
+    assert report.geometry_checks is not None
+    pairs = {tuple(sorted(g.nodes)): g.joined for g in report.geometry_checks.coincident}
+    assert pairs.get((15, 99)) == "partly"
+    from conditioning.render.html import render_html
+    page = " ".join(render_html(report).split())
+    assert "These modes are of the model with the swallowed DOFs held: a prediction after the suggested change" in page

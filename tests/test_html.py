@@ -244,3 +244,26 @@ def test_a_failing_figure_does_not_cost_the_page(monkeypatch):
     page = render_html(report)
     assert "could not be drawn (ValueError: no luck)" in page
     assert len(_images(page)) == 4     # the other figures are still there
+
+
+def test_undecided_mode_reads_not_decided_as_in_the_terminal():
+    """A mode the support proof left undecided (NearSingularMode.undecided) is 'not decided'
+    in the HTML mode table, as the terminal prints it, never 'nearly free' (issue 22;
+    the reference is the terminal view of the same report: one wording across views,
+    common practice)."""
+    import dataclasses
+
+    from conditioning.render.terminal import render_text
+
+    report, _ = singular_report()
+    modes = [dataclasses.replace(m, exact=False, undecided=True) for m in report.spectrum.modes]
+    groups = [dataclasses.replace(g, exact=False) for g in report.spectrum.mode_groups]
+    report = dataclasses.replace(report, spectrum=dataclasses.replace(report.spectrum, modes=modes,
+                                                                      mode_groups=groups))
+    terminal = render_text(report, width=100)
+    assert "(not decided)" in terminal and "(nearly free)" not in terminal
+    page = render_html(report)
+    modes_section = page[page.index("<h2>Near-singular modes</h2>"):]
+    modes_section = modes_section[:modes_section.index("</table>")]
+    assert "(not decided)" in modes_section
+    assert "nearly free" not in modes_section

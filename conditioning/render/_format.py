@@ -224,6 +224,12 @@ def zero_diagonal_text(st: results.StructureResult, max_ids: int = 8) -> str:
     return f"{empty + coupled:,}: {empty:,} in the DOFs without stiffness, {with_coupling}"
 
 
+#: How a negative-pivot count is obtained when the elimination pivoted on the
+#: diagonal only: the signs of the pivots of K = L D L^T, which by Sylvester's
+#: law of inertia are the signs of K's eigenvalues (common practice).
+NEGATIVE_PIVOTS_HOW = "pivot signs (Sylvester)"
+
+
 def mode_count_lines(sp: results.SpectrumResult, jumps_shown: bool) -> list[str]:
     """The mode count, what lies below the split and the inertia cross-check,
     worded so that each count says what it counts (a stiff-link eigenvalue is

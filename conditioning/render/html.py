@@ -19,7 +19,7 @@ from typing import Callable, Optional, Union
 
 from conditioning import results
 from conditioning.render import plots
-from conditioning.render._format import (fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
+from conditioning.render._format import (NEGATIVE_PIVOTS_HOW, fmt_digits, fmt_mode_eigenvalue, fmt_motion, fmt_number, how_obtained,
                                          mode_count_lines, pivots_are_lower_bounds, scaling_sentence, summarise_ids,
                                          zero_diagonal_text)
 
@@ -186,15 +186,31 @@ def _condition(r: results.Report) -> str:
             + _table(["figure", "value", "how obtained", "method"], rows, {1}) + text)
 
 
+def _mode_kind(m) -> str:
+    """The mode's kind as the terminal shows it: free, not decided by the support proof, or nearly free."""
+    if getattr(m, "exact", True):
+        return m.kind
+    return f"{m.kind} (not decided)" if getattr(m, "undecided", False) else f"{m.kind} (nearly free)"
+
+
 def _modes(r: results.Report) -> str:
     sp = r.spectrum
     if sp is None:
         return ""
-    head = ("<p>" + "<br>".join(_e(line) for line in mode_count_lines(sp, bool(r.jumps)))
+    dg = r.digits
+    exported = ""
+    if dg is not None and dg.headline_solve == "exported":
+        exported = ("<p>These modes are of the model with the swallowed DOFs held: a prediction after the suggested "
+                    "change. The exported K: "
+                    + (_e(f"{dg.exported_zero_modes:,} scaled eigenvalue(s) zero at working precision "
+                          f"({dg.exported_zero_modes_method})") if dg.exported_zero_modes is not None
+                       else _e(dg.exported_zero_modes_method or "mode count not computed"))
+                    + ".</p>")
+    head = (exported + "<p>" + "<br>".join(_e(line) for line in mode_count_lines(sp, bool(r.jumps)))
             + f'<br>rule: {_e(sp.gap_rule)}. <span class="how">{_e(sp.method)}</span></p>')
     if not sp.modes:
         return "<h2>Near-singular modes</h2>" + head
-    rows = [[str(k), m.kind if getattr(m, "exact", True) else f"{m.kind} (nearly free)",
+    rows = [[str(k), _mode_kind(m),
              fmt_mode_eigenvalue(m.eigenvalue, getattr(m, "exact", False)),
              fmt_mode_eigenvalue(m.relative_eigenvalue, getattr(m, "exact", False)),
              m.description or (fmt_motion(m.motion) if m.motion else f"{len(m.groups)} groups" if m.groups else "-"),
@@ -226,6 +242,18 @@ def _jumps(r: results.Report) -> str:
         ["kind", "nodes", "ratio", "digits cost", "suggested value", "reasoning"], rows, {2, 3, 4})
 
 
+def _negative_pivots_sentence(r: results.Report, count: int) -> str:
+    """The negative-pivot count with how it was obtained, and the eigenvalue count beside it."""
+    sp = r.spectrum
+    eig = (f" K's negative eigenvalues: {sp.negative_eigenvalues:,} ({sp.negative_method})."
+           if sp is not None and sp.negative_eigenvalues else "")
+    if r.pivots.symmetric:
+        return (f"{count:,} negative pivot(s) ({NEGATIVE_PIVOTS_HOW}: the elimination pivoted on the diagonal, "
+                f"so the pivots' signs are those of K's eigenvalues): K is not positive definite.{eig} ")
+    return (f"{count:,} negative pivot(s) of a row-pivoted LU: their signs are not those of an L D L^T and "
+            f"count no eigenvalues.{eig} ")
+
+
 def _pivots(r: results.Report) -> str:
     d = r.pivots
     if d is None and "pivots" in r.skipped:  # e.g. an engine without pivots: said, not hidden
@@ -236,7 +264,7 @@ def _pivots(r: results.Report) -> str:
     low = pivots_are_lower_bounds(r)
     rows = [[e.label, "negative pivot" if e.row in negative else (">= " if low else "") + fmt_digits(e.digits),
              fmt_number(e.kept)] for e in d.worst[:10]]
-    largest = (f"{max(d.negative_count, len(negative)):,} negative pivot(s): K is not positive definite. " if negative
+    largest = (_negative_pivots_sentence(r, max(d.negative_count, len(negative))) if negative
                else f"At least {d.max_digits:.1f} digits lost at a pivot "
                     "(K is singular: along its free modes all digits are lost). " if low
                else f"At most {d.max_digits:.1f} digits lost at a pivot. ")
@@ -273,6 +301,8 @@ def _digits(r: results.Report) -> str:
         if getattr(s, "solve", ""):
             solves.setdefault(s.solve, []).append(s.sample)
     whose = "".join(f"<p>Whose solve ({_e(', '.join(names))}): {_e(solve)}.</p>" for solve, names in solves.items())
+    if dg.headline_reason:
+        whose += f"<p>{_e(dg.headline_reason)}.</p>"
     invented = any(s.sample.startswith("random-") or s.sample.startswith("worst-case") for s in dg.samples)
     if invented:
         whose += ("<p>random-k: invented loads, random forces on every DOF; worst-case: an invented load along "

@@ -24,7 +24,7 @@ from rich.text import Text
 
 from conditioning import results
 from conditioning.render.safe_text import SafeConsole
-from conditioning.render._format import (confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
+from conditioning.render._format import (NEGATIVE_PIVOTS_HOW, confirmed, fmt_digits, fmt_motion, fmt_number, how_obtained,
                                          fmt_mode_eigenvalue, ids_phrase, mode_count_lines, pivots_are_lower_bounds, rows_phrase,
                                          scaling_sentence, summarise_ids, total_of, unit_word,
                                          zero_diagonal_text)
@@ -307,9 +307,13 @@ def _key_figures(r: results.Report):
                      f"; {c.scaling_gain_digits:.1f} digits of raw are row scale"
                      if c.scaling_gain_digits is not None and c.scaling_gain_digits >= 1 else ""))
     sp = r.spectrum
+    if after and r.digits.exported_zero_modes is not None:
+        t.add_row("modes, exported K", f"{r.digits.exported_zero_modes:,} zero",
+                  "LAPACK; zero at working precision")
     if sp is not None:
-        t.add_row("near-singular modes", _mode_count(sp),
-                  _mode_how(sp) + ("; no inertia count" if "inertia check" in r.skipped else ""))
+        t.add_row("near-singular modes, after" if after else "near-singular modes", _mode_count(sp),
+                  ("prediction; " if after else "") + _mode_how(sp)
+                  + ("; no inertia count" if "inertia check" in r.skipped else ""))
     links = [j for j in r.jumps if j.kind == "coupling"]
     if links:
         worst = max(links, key=lambda j: j.digits_cost)
@@ -328,7 +332,8 @@ def _key_figures(r: results.Report):
         t.add_row("digits lost at a pivot", "-", _not_measured(r, "pivots"))
     if p is not None and p.worst:
         if p.negative_pivots and p.symmetric:
-            t.add_row("negative pivots", f"{p.negative_count:,}", f"elimination met it at {p.negative_pivots[0].label}")
+            t.add_row("negative pivots", f"{p.negative_count:,}",
+                      f"{NEGATIVE_PIVOTS_HOW}; first at {p.negative_pivots[0].label}")
         elif p.negative_pivots:
             pass   # a row-pivoted LU's pivot signs count nothing: the negative eigenvalues row says how many
         else:
@@ -337,7 +342,8 @@ def _key_figures(r: results.Report):
                           f"at {p.worst[0].label}; K singular"
                           + (", shifted" if r.factorization.shift != 0.0 else ""))
             else:
-                t.add_row("digits lost at a pivot", fmt_digits(p.max_digits), f"at {p.worst[0].label}")
+                t.add_row("digits lost at a pivot, after" if after else "digits lost at a pivot",
+                          fmt_digits(p.max_digits), ("prediction; " if after else "") + f"at {p.worst[0].label}")
     dg = r.digits
     if dg is not None and dg.samples and not dg.skipped:
         # The tool's own solves and a supplied solution are different questions:

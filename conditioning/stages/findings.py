@@ -543,7 +543,7 @@ def _jump_findings(model: Model, jumps: list[StiffnessJump], digits: Optional[Di
     out = []
     for j in jumps:
         if j.swallowed:
-            out.append(_swallowed_finding(model, j, rows_word))
+            out.append(_swallowed_finding(model, j, rows_word, digits))
         else:
             out.append(_jump_finding(model, j, measured_worst, min_digits, rows_word))
     return out
@@ -735,8 +735,27 @@ def _digits_findings(model: Model, digits: Optional[DigitsResult], min_digits: f
     return out
 
 
-def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Finding:
-    """A penalty that swallowed the structure: all digits of the linked DOFs, never a mechanism."""
+def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str,
+                       digits: Optional[DigitsResult] = None) -> Finding:
+    """A penalty that swallowed the structure: all digits of the linked DOFs, never a mechanism.
+
+    What the rest of the report describes is said so that it cannot be read as
+    the exported K's: the condition number, the near-singular modes and the
+    held-DOF digits are of the model with the linked DOFs held (a prediction
+    after the suggested change when the exported K itself was measured)."""
+    exported = digits is not None and digits.headline_solve == "exported"
+    zero = None if digits is None else digits.exported_zero_modes
+    if exported:
+        held = ("The exported K itself is singular at working precision along the link"
+                + (f" ({zero} scaled eigenvalue{'s' if zero != 1 else ''} zero at working precision)"
+                   if zero else "")
+                + "; the condition number, the near-singular modes and the digits marked 'after the change' "
+                  "are of the model with these DOFs held: a prediction for the model once the penalty is lowered, "
+                  "not figures of the exported K.")
+    else:
+        held = ("The condition number, the near-singular modes and the digits shown are of the model with these "
+                "DOFs held (as if prescribed), not of the exported K, which is singular at working precision "
+                "along the link.")
     dofs = ", ".join(model.row_label(r) for r in j.rows[:6]) + (f" and {len(j.rows) - 6} more" if len(j.rows) > 6 else "")
     kept = ("nothing" if not j.structure_digits_kept
             else f"only about {j.structure_digits_kept:.1f} digits")
@@ -745,8 +764,7 @@ def _swallowed_finding(model: Model, j: StiffnessJump, rows_word: str) -> Findin
         f"A penalty link at {_at(model, rows_word, j.nodes)} ({j.ratio:.1e} times the typical stiffness) "
         f"has swallowed the structure: K keeps {kept} of the structural stiffness of {dofs} (about "
         f"{j.structural_stiffness:.2g}), so the displacements of these DOFs have no trustworthy digits. "
-        "This is a stiffness jump, not a mechanism: no restraint is needed. The rest of the model "
-        "was checked with these DOFs held.",
+        "This is a stiffness jump, not a mechanism: no restraint is needed. " + held,
         j.nodes,
         "Lower the penalty to about 1e4 times the stiffness of the members it ties"
         + (f" ({j.advice_value:.3g})" if j.advice_value is not None else "")

@@ -35,9 +35,13 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import NDArray
 
-from conditioning.stages.findings import build_findings, verdict
+from conditioning.stages.element_quality import check_elements
+from conditioning.stages.findings import build_findings, verdict, verdict_with_geometry
+from conditioning.stages.node_geometry import WHY_NOT_RUN, check_node_geometry
+from conditioning.stages.restraints import merging_first
 from conditioning.stages.digits import measure_exported_digits
 from conditioning.stages.geometry import model_geometry
+from conditioning.stages.support_proof import RESOLUTION_ROOM, eigenpair_error_bounds, storage_resolution
 from conditioning.model import Model
 from conditioning.results import (
     PivotEntry, PivotLoss, DigitsResult, Finding, ModelSummary, Report, StiffnessJump, StructureResult,
@@ -119,16 +123,27 @@ def restore_report(model: Model, structure: StructureResult, summary: ModelSumma
     pivots = back.pivots(rest.pivots)
     digits = back.digits(rest.digits, swallowed_rows(jumps))
     digits = with_exported_digits(model, structure, digits, rest.seed)
+    # The geometry checks of the whole model, as pipeline._analyse runs them (the rest's
+    # would name the rest's rows and miss the held nodes).
+    skipped = dict(rest.skipped)
+    skipped.pop("geometry checks", None)
+    geometry_checks = check_elements(model, check_node_geometry(model, structure,
+                                                                spectrum.modes if spectrum is not None else ()))
+    if geometry_checks is None:
+        skipped["geometry checks"] = WHY_NOT_RUN
+    else:
+        restraints = merging_first(restraints, geometry_checks, structure.part_of_row, model)
     findings = build_findings(model, structure, condition, spectrum, restraints, jumps, pivots, digits,
-                              min_digits=min_digits)
+                              min_digits=min_digits, geometry=geometry_checks)
     findings += [f for f in rest.findings if f.code == "stiffness.stiff-link-eigenvalue"]
-    line, status = verdict(findings, spectrum, structure, digits, condition)
+    line, status = verdict(findings, spectrum, structure, digits, condition, min_digits=min_digits)
+    line, status = verdict_with_geometry(line, status, findings, geometry_checks)
     return Report(
         summary=summary, structure=structure, factorization=rest.factorization, condition=condition,
         spectrum=spectrum, restraints=restraints, jumps=jumps, pivots=pivots, digits=digits,
         findings=findings, verdict=line, status=status, timings=rest.timings, seed=rest.seed,
-        skipped=rest.skipped,
-        geometry=model_geometry(model),
+        skipped=skipped,
+        geometry=model_geometry(model), geometry_checks=geometry_checks,
     )
 
 
@@ -156,10 +171,47 @@ def with_exported_digits(model: Model, structure: StructureResult, digits: Optio
     if not exported:
         return replace(digits, headline_reason=why)
     held = [replace(s, solve=PREDICTION + (s.solve or "the tool's float64 solve")) for s in digits.samples]
+    zero_modes, zero_how = exported_zero_modes(model)
     return replace(digits, samples=exported + held, headline_solve="exported", exported_condition_at_least=kappa,
+                   exported_zero_modes=zero_modes, exported_zero_modes_method=zero_how,
                    headline_reason=("a penalty swallowed the structure, so the key figure is a float64 solve of the "
                                     "exported K as stored; the other samples predict the model after the suggested "
                                     "change"))
+
+
+#: Largest exported K whose scaled eigenvalues are all computed densely (LAPACK
+#: eigh) to count its zero modes: the project's choice, about a second at this size.
+EXPORTED_DENSE_MAX_N = 3000
+
+
+def exported_zero_modes(model: Model) -> tuple[Optional[int], str]:
+    """How many eigenvalues of the exported K's scaled matrix are zero at working precision.
+
+    All eigenpairs of S = D^-1/2 K D^-1/2 of the stored K (LAPACK eigh through
+    numpy); a computed eigenvalue theta lies within its residual bound r of
+    an eigenvalue of S (:func:`eigenpair_error_bounds`), and an eigenvalue
+    within RESOLUTION_ROOM times the stored K's resolution R of zero cannot be
+    told from zero (:mod:`conditioning.stages.support_proof`, Weyl's
+    inequality). Counted: |theta| <= RESOLUTION_ROOM * R + r.
+
+    Returns
+    -------
+    (count or None, how it was obtained or why not)
+    """
+    n = model.n
+    if n > EXPORTED_DENSE_MAX_N:
+        return None, (f"not counted: {n:,} rows, above the {EXPORTED_DENSE_MAX_N:,} for which all eigenvalues "
+                      "of the exported K are computed")
+    K = sp.csr_array(model.K, dtype=np.float64)
+    d = np.abs(K.diagonal())
+    s = np.where(d > 0, 1.0 / np.sqrt(np.where(d > 0, d, 1.0)), 1.0)
+    S = sp.csr_array(sp.diags(s) @ K @ sp.diags(s))
+    values, vectors = np.linalg.eigh(S.toarray())
+    R = storage_resolution(S)
+    r = eigenpair_error_bounds(S, values, vectors)
+    count = int(np.count_nonzero(np.abs(values) <= RESOLUTION_ROOM * R + r))
+    return count, (f"all eigenvalues of the exported K's scaled matrix (LAPACK); zero within "
+                   f"{RESOLUTION_ROOM:g} x its resolution {R:.1e} plus each one's error bound")
 
 
 class _Renumber:
