@@ -52,6 +52,7 @@ from conditioning.stages.pivots import pivot_loss, pivots_unavailable
 from conditioning.stages.restraints import merging_first, suggest_restraints
 from conditioning.stages.spectrum import (MIN_GAP, confirm_largest, confirm_smallest, inertia_check, smallest_eigenpairs,
                                           spectrum_result, with_inertia, with_low_end_search)
+from conditioning.linalg.rigid_motions import rigid_motions
 from conditioning.stages.structure import check_structure
 from conditioning.stages.support_proof import PROVED, RESOLUTION_ROOM, UNDECIDED, claims_zero, decide_support
 
@@ -435,11 +436,34 @@ def _decide_support(model: Model, structure, scaled, eig, fac, run: _Run, skippe
         why = "the engine shares no fill-reducing ordering for the proof's factorization"
     with run.stage("support proof"):
         decision, proof = decide_support(model.K, scaled.S, scaled.scale[scaled.active], eig, perm=perm,
-                                         flops=float(fac.info.flops), not_attempted=why)
+                                         flops=float(fac.info.flops), not_attempted=why,
+                                         rigid=_part_rigid_motions(model, structure))
     if decision.outcome == PROVED:
         return decision, proof, {"zero": -1.0, "undecided": -1.0}
     zero = RESOLUTION_ROOM * decision.resolution + max(decision.error_bounds, default=0.0)
     return decision, None, {"zero": zero, "undecided": max(zero, ZERO_ROOM * eig.zero_level)}
+
+
+#: Rigid motions are tested part by part up to this many parts (project's choice: beyond it the
+#: support decision rests on the eigenvalues alone).
+RIGID_PARTS_MAX = 64
+
+
+def _part_rigid_motions(model: Model, structure) -> Optional[np.ndarray]:
+    """(n, m) rigid motions of each connected part (rotations in radians), zero outside its part;
+    None without a DOF map or with more than RIGID_PARTS_MAX parts."""
+    if model.dofs is None or structure.part_sizes.size > RIGID_PARTS_MAX:
+        return None
+    xyz = _row_coordinates(model)
+    cols = []
+    for p in range(structure.part_sizes.size):
+        rows = np.flatnonzero(structure.part_of_row == p)
+        basis = rigid_motions(model.dofs.dof[rows], None if xyz is None else xyz[rows],
+                              model.dofs.node[rows], lever=1.0).basis
+        block = np.zeros((model.n, basis.shape[1]))
+        block[rows] = basis
+        cols.append(block)
+    return np.hstack(cols) if cols else None
 
 
 def explain(model: Model, row: int, *, row_base: int = 1, seed: int = 0,

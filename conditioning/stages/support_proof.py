@@ -73,6 +73,24 @@ SHIFT_FRACTIONS = (0.9, 0.5, 0.1)
 #: clamped cantilever's lambda_min is 18 R).
 RESOLUTION_ROOM = 10.0
 
+#: A rigid motion b of a part whose stored K leaves |K b|_i <= RIGID_ZERO u (|K| |b|)_i in
+#: every row is a null vector of a matrix within that componentwise relative distance of K
+#: (Oettli and Prager 1964; from memory): an assembled K of a free part measures 1-3 u on
+#: scikit-fem solids and plates (tests/test_support_proof.py), so RIGID_ZERO leaves the same
+#: room for the assembly's rounding as RESOLUTION_ROOM (project's choice).
+RIGID_ZERO = 10.0
+#: A rigid motion some row of K resists by more than RIGID_HELD u of that row's |K| |b| is
+#: held by a stiffness the stored K carries (a soft spring, a soft support), not by
+#: rounding: its mode is then decided by the proof, not by its eigenvalue's size
+#: (project's choice: a 3e-7 N/mm spring under a 30 GPa slab measures 433 u).
+RIGID_HELD = 100.0
+#: A near-zero eigenvector is taken as a rigid motion of the model's parts when at least
+#: this share of it (unit vector of S) lies in their span (project's choice).
+RIGID_SHARE = 0.99
+#: The 192-bit proof for a resisted rigid motion also tries the shift HELD_SHIFT R
+#: (project's choice: 1.5 leaves room for the elimination's own rounding bound).
+HELD_SHIFT = 1.5
+
 PROVED = "proved supported"
 ZERO = "zero at working precision"
 UNDECIDED = "not decided"
@@ -120,7 +138,8 @@ def claims_zero(eig: Eigenpairs) -> bool:
 
 def decide_support(K: sp.csr_array, S: sp.csr_array, scale: NDArray[np.float64], eig: Eigenpairs, *,
                    perm: Optional[NDArray[np.intp]], flops: float,
-                   not_attempted: str = "") -> tuple[SupportDecision, Optional[VerifiedEigenvalueBound]]:
+                   not_attempted: str = "", rigid: Optional[NDArray[np.float64]] = None,
+                   ) -> tuple[SupportDecision, Optional[VerifiedEigenvalueBound]]:
     """Decide the near-zero eigenvalues of the spectrum: proved supported, zero, or not decided.
 
     Parameters
@@ -140,6 +159,14 @@ def decide_support(K: sp.csr_array, S: sp.csr_array, scale: NDArray[np.float64],
         the cost of the 192-bit elimination in its operations.
     not_attempted : str
         Why no proof may be attempted (memory), or "".
+    rigid : (n, m) float, optional
+        Rigid motions of the model's connected parts in K's DOFs (each column
+        zero outside its part; :func:`conditioning.linalg.rigid_motions.rigid_motions`
+        with rotations in radians). A near-zero eigenvector that is such a motion is
+        decided by what K does to the motion itself (:func:`rigid_motions_held`):
+        annihilated to the entries' rounding, it is zero; resisted by some row, it
+        is held by a real stiffness and goes to the proof, however small its
+        eigenvalue (a soft spring under a stiff slab).
 
     Returns
     -------
@@ -153,15 +180,23 @@ def decide_support(K: sp.csr_array, S: sp.csr_array, scale: NDArray[np.float64],
     R = storage_resolution(S)
     r = eigenpair_error_bounds(S, values, vectors)
     resolved = np.abs(values) > RESOLUTION_ROOM * R + r
+    rigid_note, held = "", np.zeros(values.size, dtype=bool)
+    if rigid is not None and rigid.shape[1] and (~resolved).any():
+        held, rigid_note = rigid_motions_held(K, scale, rigid, vectors)
     notes = [f"resolution of the stored K {R:.2e} (u * max row sum of |S|, Weyl's inequality; zero within "
              f"{RESOLUTION_ROOM:g} times it, for the assembly's own rounding); "
              f"eigensolver error bounds up to {float(np.max(r, initial=0.0)):.1e} (residual norms)"]
+    if rigid_note:
+        notes.append(rigid_note)
     proof: Optional[VerifiedEigenvalueBound] = None
-    if resolved.any() and values.size and float(values[0]) > 0:
+    # A resisted rigid motion earns a proof attempt at Weyl's level whatever its eigenvalue's
+    # size or sign; without a proof it is decided by its eigenvalue like every other mode.
+    if values.size and ((resolved.any() and float(values[0]) > 0) or bool(held[0])):
         if not_attempted:
             notes.append(f"proof not attempted: {not_attempted}")
         else:
-            proof, why = _prove(K, scale, float(values[0]), vectors[:, 0], perm, flops)
+            room = 1.0 if bool(held[0]) and not bool(resolved[0]) else RESOLUTION_ROOM
+            proof, why = _prove(K, scale, float(values[0]), vectors[:, 0], perm, flops, room=room)
             notes.append(why)
     e = power_of_two_scaling(sp.csr_array(K))
     if proof is not None:
@@ -179,8 +214,67 @@ def decide_support(K: sp.csr_array, S: sp.csr_array, scale: NDArray[np.float64],
     return SupportDecision(outcome, R, values.tolist(), r.tolist(), None, None, "; ".join(notes)), None
 
 
-def _prove(K, scale, theta: float, v: NDArray, perm, flops: float) -> tuple[Optional[VerifiedEigenvalueBound], str]:
-    """A proof that lambda_min(E K E) exceeds the resolution of E K E, or None with why each attempt failed."""
+def rigid_motions_held(K: sp.csr_array, scale: NDArray[np.float64], rigid: NDArray[np.float64],
+                       vectors: NDArray[np.float64]) -> tuple[NDArray[np.bool_], str]:
+    """(per eigenvector: a rigid motion the stored K resists, a note) for near-zero eigenvectors of S.
+
+    Each rigid motion b (a column of ``rigid``) is applied to K with a
+    double-double residual, and its componentwise backward error
+    omega = max_i |K b|_i / (|K| |b|)_i, in units of u, is read: at most
+    RIGID_ZERO, K is that close entry by entry to a matrix that b leaves at
+    rest (Oettli-Prager); above RIGID_HELD, K resists b. An eigenvector v of
+    S (S = D^-1/2 K D^-1/2, so the displacement is ``scale * v``) is held when
+    at least RIGID_SHARE of it lies in the span of the resisted motions and
+    less than 1 - RIGID_SHARE in that of the annihilated ones.
+    """
+    from conditioning.linalg.doubledouble import dd_residual
+
+    K = sp.csr_array(K, dtype=np.float64)
+    absK = abs(K)
+
+    def omega(b):
+        hi, _ = dd_residual(K, np.ascontiguousarray(b), None, np.zeros(K.shape[0]))
+        den = absK @ np.abs(b)
+        rows = den > 0
+        return float(np.max(np.abs(hi[rows]) / den[rows], initial=0.0)) / UNIT_ROUNDOFF
+
+    # The motions K resists least first: a rigid motion about another point (a combination of
+    # the columns) may be the one K leaves at rest. Right singular vectors of K B with its
+    # rows weighted by 1 / (|K| |B| 1) and its columns by their norms give those combinations.
+    B = rigid / np.maximum(np.linalg.norm(rigid, axis=0), np.finfo(float).tiny)
+    KB = np.column_stack([dd_residual(K, np.ascontiguousarray(B[:, j]), None, np.zeros(K.shape[0]))[0]
+                          for j in range(B.shape[1])])
+    weight = absK @ np.abs(B).sum(axis=1)
+    rows = weight > 0
+    _, _, Vt = np.linalg.svd(KB[rows] / weight[rows, None], full_matrices=False)
+    combos = B @ Vt.T
+    omegas = np.array([omega(combos[:, j]) for j in range(combos.shape[1])])
+    rigid = combos
+    W = rigid / scale[:, None]                      # the motions in S's coordinates
+
+    def share(cols):
+        if not np.any(cols):
+            return np.zeros(vectors.shape[1])
+        Q, _ = np.linalg.qr(W[:, cols])
+        V = vectors / np.linalg.norm(vectors, axis=0)
+        return np.sum((Q.T @ V) ** 2, axis=0)
+
+    held = (share(omegas > RIGID_HELD) >= RIGID_SHARE) & (share(omegas <= RIGID_ZERO) < 1 - RIGID_SHARE)
+    note = (f"rigid motions of the parts: K leaves {int(np.sum(omegas <= RIGID_ZERO))} of {omegas.size} at "
+            f"rest to within {RIGID_ZERO:g} u of each row's |K| |b| (Oettli-Prager) and resists "
+            f"{int(np.sum(omegas > RIGID_HELD))} by more than {RIGID_HELD:g} u (largest {np.max(omegas):.3g} u)")
+    if held.any():
+        note += (f"; {int(held.sum())} near-zero eigenvector(s) are resisted motions: a proof is attempted "
+                 "at the stored K's resolution")
+    return held, note
+
+
+def _prove(K, scale, theta: float, v: NDArray, perm, flops: float,
+           room: float = RESOLUTION_ROOM) -> tuple[Optional[VerifiedEigenvalueBound], str]:
+    """A proof that lambda_min(E K E) exceeds ``room`` times the resolution of E K E, or None with
+    why each attempt failed. ``room`` is 1 (Weyl's inequality alone: the unrounded K is positive
+    definite too) when the near-zero modes are rigid motions the stored K resists, which rounding
+    cannot explain (:func:`rigid_motions_held`); RESOLUTION_ROOM otherwise."""
     K = sp.csr_array(K, dtype=np.float64)
     e = power_of_two_scaling(K)
     if np.any(e == 0):
@@ -189,7 +283,7 @@ def _prove(K, scale, theta: float, v: NDArray, perm, flops: float) -> tuple[Opti
     SE.sum_duplicates()
     if not np.array_equal(SE.indices, SE.T.tocsr().indices) or abs(SE - SE.T).max() != 0:
         return None, "proof not attempted: K is not exactly symmetric"
-    R_E = RESOLUTION_ROOM * storage_resolution(SE)
+    R_E = room * storage_resolution(SE)
     # The Rayleigh quotient of the eigenvector in E K E's coordinates: y = (s / e) v gives
     # y' S_E y = v' S v = theta, so RQ = theta / ||y||^2 >= lambda_min(S_E) (up to rounding).
     y = (scale / e) * v
@@ -210,8 +304,11 @@ def _prove(K, scale, theta: float, v: NDArray, perm, flops: float) -> tuple[Opti
     elif not flint_available():
         why.append("192-bit elimination not attempted: python-flint is not installed")
     else:
-        for frac in SHIFT_FRACTIONS:
-            c = frac * rq
+        # Below the eigensolver's own error bound the estimate may be low: a shift just
+        # above the level to prove is tried too (HELD_SHIFT times it).
+        shifts = sorted({frac * rq for frac in SHIFT_FRACTIONS} | ({HELD_SHIFT * R_E} if room < RESOLUTION_ROOM
+                                                                   else set()), reverse=True)
+        for c in shifts:
             if c <= R_E:
                 break
             lower, how = proved_lower_bound(SE, c, perm)
