@@ -269,6 +269,8 @@ def _action_text(r: results.Report, f: results.Finding, max_ids: int) -> str:
             return f"Element{'s' if len(ids) > 1 else ''} {', '.join(map(str, ids[:max_ids]))}{more}: {f.advice}"
     where = _where(r, f.nodes, max_ids) if f.nodes else ""
     advice = f.advice or f.message
+    if where and len(advice) > 1 and advice[0].isupper() and advice[1].islower():
+        advice = advice[0].lower() + advice[1:]  # it continues the sentence after the colon
     return f"{where[0].upper() + where[1:]}: {advice}" if where else advice
 
 
