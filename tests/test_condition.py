@@ -222,15 +222,13 @@ def test_lambda_min_not_the_smallest_is_caught_by_inertia_and_recomputed():
     assert lam == w[0] and "confirmed" in how
 
 
-def test_scaled_lambda_min_missed_is_caught_by_inertia_and_recomputed():
-    """Eigenpairs that miss S's smallest eigenvalue (LAPACK eigvalsh is the truth) fail
-    the Sylvester count of S - (1 - delta) lambda I and are computed again."""
-    from dataclasses import replace as dc_replace
-
+def _spring_chain_spectrum(seed: int):
+    """A chain of 1,300 random springs held at both ends: (LAPACK eigvalsh of its scaled
+    matrix, the scaled matrix, its factorization, the spectrum stage's eigenpairs)."""
     from conditioning.engine.scaling import scale_stiffness
-    from conditioning.stages.spectrum import confirm_smallest, smallest_eigenpairs
+    from conditioning.stages.spectrum import smallest_eigenpairs
 
-    rng = np.random.default_rng(4)
+    rng = np.random.default_rng(seed)
     n = 1300
     springs = rng.uniform(1.0, 100.0, n + 1)
     K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
@@ -238,7 +236,17 @@ def test_scaled_lambda_min_missed_is_caught_by_inertia_and_recomputed():
     w = np.linalg.eigvalsh(K.toarray() * s[:, None] * s[None, :])
     scaled = scale_stiffness(K)
     fac = factorize(K)
-    eig = smallest_eigenpairs(scaled, fac, rng=0)
+    return w, scaled, fac, smallest_eigenpairs(scaled, fac, rng=0)
+
+
+def test_scaled_lambda_min_missed_is_caught_by_inertia_and_recomputed():
+    """Eigenpairs that miss S's smallest eigenvalue (LAPACK eigvalsh is the truth) fail
+    the Sylvester count of S - (1 - delta) lambda I and are computed again."""
+    from dataclasses import replace as dc_replace
+
+    from conditioning.stages.spectrum import confirm_smallest
+
+    w, scaled, fac, eig = _spring_chain_spectrum(4)
     assert eig.values[0] == pytest.approx(w[0], rel=1e-8)
     missed = dc_replace(eig, values=eig.values[1:], vectors=eig.vectors[:, 1:])
     fixed = confirm_smallest(missed, scaled, fac, rng=1)
@@ -253,18 +261,9 @@ def test_scaled_lambda_max_short_of_the_largest_is_caught_by_the_probabilistic_b
     largest; no factorization is involved (a factor whose count_below raises shows it)."""
     from dataclasses import replace as dc_replace
 
-    from conditioning.engine.scaling import scale_stiffness
-    from conditioning.stages.spectrum import confirm_largest, smallest_eigenpairs
+    from conditioning.stages.spectrum import confirm_largest
 
-    rng = np.random.default_rng(5)
-    n = 1300
-    springs = rng.uniform(1.0, 100.0, n + 1)
-    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
-    s = 1 / np.sqrt(K.diagonal())
-    w = np.linalg.eigvalsh(K.toarray() * s[:, None] * s[None, :])
-    scaled = scale_stiffness(K)
-    fac = factorize(K)
-    eig = smallest_eigenpairs(scaled, fac, rng=0)
+    w, scaled, fac, eig = _spring_chain_spectrum(5)
 
     def no_factorization(c):
         raise AssertionError("lambda_max must not cost a factorization")
