@@ -202,6 +202,12 @@ def test_raw_condition_with_penalty_supports_is_resolved(factor):
     assert "K^-1" in cond.estimate_method
 
 
+def _spring_chain(rng: np.random.Generator, n: int) -> sp.csr_array:
+    """K of n DOFs on a chain of n + 1 random springs (1 to 100) held at both ends."""
+    springs = rng.uniform(1.0, 100.0, n + 1)
+    return sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+
+
 def test_lambda_min_not_the_smallest_is_caught_by_inertia_and_recomputed():
     """A lambda_min that is K's second eigenvalue (LAPACK eigvalsh gives both) fails the
     Sylvester count of K - (1 - delta) lambda I and is recomputed to the smallest."""
@@ -210,8 +216,7 @@ def test_lambda_min_not_the_smallest_is_caught_by_inertia_and_recomputed():
 
     rng = np.random.default_rng(3)
     n = 1300
-    springs = rng.uniform(1.0, 100.0, n + 1)
-    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    K = _spring_chain(rng, n)
     w = np.linalg.eigvalsh(K.toarray())
     fac = factorize(K)
     op = spla.LinearOperator((n, n), matvec=fac.solve, dtype=np.float64)
@@ -228,10 +233,8 @@ def _spring_chain_spectrum(seed: int):
     from conditioning.engine.scaling import scale_stiffness
     from conditioning.stages.spectrum import smallest_eigenpairs
 
-    rng = np.random.default_rng(seed)
     n = 1300
-    springs = rng.uniform(1.0, 100.0, n + 1)
-    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    K = _spring_chain(np.random.default_rng(seed), n)
     s = 1 / np.sqrt(K.diagonal())
     w = np.linalg.eigvalsh(K.toarray() * s[:, None] * s[None, :])
     scaled = scale_stiffness(K)
@@ -311,8 +314,7 @@ def test_raw_lambda_max_short_of_the_largest_is_caught_without_a_factorization()
 
     rng = np.random.default_rng(6)
     n = 1400
-    springs = rng.uniform(1.0, 100.0, n + 1)
-    K = sp.csr_array(sp.diags([-springs[1:-1], springs[:-1] + springs[1:], -springs[1:-1]], [-1, 0, 1]))
+    K = _spring_chain(rng, n)
     w = np.linalg.eigvalsh(K.toarray())
     fac = factorize(K)
 

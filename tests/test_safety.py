@@ -32,19 +32,12 @@ from conditioning.cli import main
 from conditioning.errors import InputError
 from conditioning.io.load import load_model
 from conditioning.io.matrix_formats import read_matrix
+from test_cli import _one_error_line
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "matrices"
 MAST = ["mast_soft_spring.mtx", "mast_soft_spring_dofs.csv", "mast_soft_spring_coords.csv",
         "mast_soft_spring_load.mtx"]
-
-
-def _one_error_line(err: str) -> str:
-    lines = err.strip().splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("conditioning: error: ")
-    assert "Traceback" not in err
-    return lines[0]
 
 
 def _digest(path: Path) -> str:
